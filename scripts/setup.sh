@@ -1,0 +1,36 @@
+#!/usr/bin/env bash
+# Prepare a fresh machine: the system libraries Qt needs headless (Debian/Ubuntu, via apt-get) and a
+# project virtual environment in .venv with HazardTrace and its test tools installed.
+# Idempotent: does nothing that is already done. Called by scripts/run.
+set -euo pipefail
+cd "$(dirname "$0")/.."
+
+SYSTEM_PACKAGES=(libegl1 libgl1 libx11-6 libdbus-1-3 libfontconfig1 libfreetype6 libglib2.0-0
+                 libxkbcommon0 fonts-dejavu-core)
+
+missing=()
+if command -v dpkg-query >/dev/null 2>&1; then
+  for p in "${SYSTEM_PACKAGES[@]}"; do
+    dpkg-query -W -f='${Status}' "$p" 2>/dev/null | grep -q "install ok installed" || missing+=("$p")
+  done
+fi
+if ((${#missing[@]})); then
+  echo "setup: installing system packages: ${missing[*]}"
+  SUDO=""
+  if [ "$(id -u)" -ne 0 ]; then SUDO="sudo"; fi
+  $SUDO apt-get update -qq
+  DEBIAN_FRONTEND=noninteractive $SUDO apt-get install -y -qq --no-install-recommends "${missing[@]}" >/dev/null
+fi
+
+PYTHON="${PYTHON:-python3}"
+if [ ! -x .venv/bin/python ]; then
+  echo "setup: creating .venv with $($PYTHON --version)"
+  "$PYTHON" -m venv .venv
+fi
+stamp=.venv/.hazardtrace-installed
+if [ ! -f "$stamp" ] || [ pyproject.toml -nt "$stamp" ]; then
+  echo "setup: installing HazardTrace and its test tools into .venv"
+  .venv/bin/python -m pip install -q --upgrade pip
+  .venv/bin/python -m pip install -q -e ".[test]"
+  touch "$stamp"
+fi
