@@ -1,0 +1,62 @@
+"""Shared models for the engine and exact-solution tests."""
+
+from __future__ import annotations
+
+import os
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from sim.hazards import Exponential, Gompertz, Weibull
+from sim.model import BackgroundMortality, Clock, Horizon, Model, State, Strategy, Transition
+from sim.population import FixedAge, NormalAge, Population
+
+FULL = os.environ.get("HAZARDTRACE_FULL") == "1"
+
+
+def illness_death(horizon: Horizon = Horizon(30.0, "time"), entry_age=None, strategies=()) -> Model:
+    """Illness-death with recovery: Weibull onset on time since entry, constant recovery and disease
+    death on time in state, Gompertz background death by sex on attained age (invented numbers)."""
+    return Model(
+        states=(State("healthy"), State("sick"), State("dead", absorbing=True)),
+        transitions=(
+            Transition("onset", "healthy", "sick", Weibull(shape=1.3, scale=30.0), Clock.ENTRY),
+            Transition("recovery", "sick", "healthy", Exponential(rate=0.15), Clock.STATE),
+            Transition("disease death", "sick", "dead", Exponential(rate=0.08), Clock.STATE),
+        ),
+        background=BackgroundMortality(
+            "dead", {"female": Gompertz(rate=3e-5, shape=0.085), "male": Gompertz(rate=5e-5, shape=0.09)},
+            Clock.AGE),
+        population=Population(entry_age or NormalAge(55.0, 8.0, 40.0, 75.0), "healthy",
+                              {"female": 0.45, "male": 0.55}),
+        horizon=horizon,
+        strategies=strategies,
+    )
+
+
+def single_exit(hazard, clock=Clock.ENTRY, age: float = 50.0, horizon: float = 40.0) -> Model:
+    """Alive -> dead with one hazard, everyone entering at ``age``."""
+    return Model(
+        states=(State("alive"), State("dead", absorbing=True)),
+        transitions=(Transition("death", "alive", "dead", hazard, clock),),
+        population=Population(FixedAge(age), "alive"),
+        horizon=Horizon(horizon, "time"),
+    )
+
+
+def occupancy_from_log(events: pd.DataFrame, patients: pd.DataFrame, states, t: float) -> np.ndarray:
+    """Share of patients in each state at time ``t`` (everyone followed to ``t``), read directly from
+    the event log: the target of each patient's last move at or before ``t``, else the initial state."""
+    n = len(patients)
+    state = pd.Series(patients["initial_state"].astype(str).to_numpy(), index=patients["patient"].to_numpy())
+    ev = events[events["time"] <= t]
+    last = ev.groupby("patient", sort=False)["to_state"].last().astype(str)
+    state.loc[last.index] = last.to_numpy()
+    counts = state.value_counts()
+    return np.array([counts.get(s, 0) for s in states], dtype=float) / n
+
+
+@pytest.fixture
+def rng():
+    return np.random.default_rng(12345)
