@@ -224,7 +224,7 @@ def _assemble(model: Model, strategies: tuple[str, ...], chunks: list[_ChunkOut]
         "from_state": _cat(col("ev_from"), states),
         "to_state": _cat(col("ev_to"), states),
         "transition": _cat(col("ev_exit"), model.exit_names),
-    })
+    }, copy=False)
     exit_time = col("exit_time")
     entry_all = np.tile(entry_age, n_st)
     patients = pd.DataFrame({
@@ -237,7 +237,7 @@ def _assemble(model: Model, strategies: tuple[str, ...], chunks: list[_ChunkOut]
         "exit_age": entry_all + exit_time,
         "final_state": _cat(col("final_state"), states),
         "exit_reason": _cat(np.where(col("absorbed"), 0, 1), ("absorbed", "censored")),
-    })
+    }, copy=False)
     return events, patients
 
 
@@ -262,7 +262,8 @@ def simulate(model: Model, n_patients: int, seed: int, *, strategies: tuple[str,
     n_patients : number of patients per strategy (same patients in every strategy).
     seed : non-negative integer; with the model it fixes every draw (recorded in the result).
     strategies : names to run (default: all of the model's strategies).
-    chunk_size : patients per chunk; bounds working memory (about 1 kB per patient in a chunk).
+    chunk_size : patients per chunk. Peak memory is about twice the returned tables (chunk results
+        are joined once at the end) plus a working set of under 1 kB per patient in a chunk.
     workers : worker threads (numpy releases the GIL); results are identical for any value.
     progress : called as ``progress(patients_done, n_patients)`` after each chunk.
     cancel : an object with ``is_set()`` (e.g. ``threading.Event``) or a callable; checked between

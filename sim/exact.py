@@ -112,10 +112,27 @@ def solve_stacked(model: Model, strategy: str, entry_age: NDArray[np.float64], s
     dst = np.array([e.target for e in exits], dtype=int)
     size_p, size_i, size_f = m * n, r_n * m * n, r_n * m * k_ex
 
+    fixed = np.zeros((k_ex, m))  # constant hazards (time-in-state clock) evaluated once
+    for k, (_, _, groups, offset, moving) in enumerate(plan):
+        if not moving:
+            for h, rows in groups:
+                fixed[k, rows] = h.hazard(offset[rows])
+    # exits sharing a hazard and clock (background death from every living state) share one call
+    shared: dict[tuple, int] = {}
+    first_of = []
+    for k, (_, _, groups, offset, moving) in enumerate(plan):
+        key = (tuple(id(h) for h, _ in groups), moving, offset is entry_age)
+        first_of.append(shared.setdefault(key, k))
+
     def rates(t: float) -> NDArray[np.float64]:
-        out = np.empty((k_ex, m))
+        out = fixed.copy()
         for k, (_, _, groups, offset, moving) in enumerate(plan):
-            x = offset + t if moving else offset
+            if not moving:
+                continue
+            if first_of[k] != k:
+                out[k] = out[first_of[k]]
+                continue
+            x = offset + t
             for h, rows in groups:
                 out[k, rows] = h.hazard(x[rows])
         return out

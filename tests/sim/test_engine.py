@@ -268,3 +268,21 @@ def test_aalen_johansen_of_engine_log_matches_kolmogorov(n):
     for row in aj.itertuples():
         p = exact.loc[row.time, row.state]
         _check_within(row.probability, p, np.sqrt(p * (1 - p) / n), f"AJ {row.state} at {row.time}")
+
+
+@pytest.mark.parametrize("n, chunk", [(1_000_000, 50_000) if FULL else (100_000, 5_000)])
+def test_memory_is_bounded_by_results_and_chunk(n, chunk):
+    # Peak traced memory stays within about twice the returned tables (chunk results are joined once)
+    # plus a working set proportional to the chunk size: bounded memory for any number of patients
+    # beyond what the results themselves need. (A design budget, not a statistical tolerance.)
+    import tracemalloc
+
+    model = illness_death(horizon=Horizon(100.0, "age"))
+    tracemalloc.start()
+    try:
+        run = simulate(model, n, seed=1, chunk_size=chunk)
+        _, peak = tracemalloc.get_traced_memory()
+    finally:
+        tracemalloc.stop()
+    out = run.events.memory_usage(deep=True).sum() + run.patients.memory_usage(deep=True).sum()
+    assert peak <= 2.1 * out + 1000 * chunk, (peak, out)

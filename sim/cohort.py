@@ -1,0 +1,403 @@
+"""Cycle-based cohort approximations of a model: the Markov trace x_{k+1} = x_k P_k.
+
+Per cycle [t_k, t_k + h] and per competing exit, a rate is taken from the model's hazard at the
+cohort's clock values, either from the cumulative-hazard increment r = (H(x + h) - H(x)) / h
+(``"cumulative"``) or at the cycle midpoint r = h(x + h/2) (``"midpoint"``). Rates become the cycle's
+transition matrix P_k by one of three conversions (METHODS.md sections 1 and 3):
+
+``per-transition``
+    each rate on its own, p = 1 - exp(-r h), and "stay" as the remainder (common practice; wrong
+    with competing exits: Gidwani & Russell 2020, PharmacoEconomics 38:1153-1164);
+``competing-exit``
+    p_k = (r_k / sum r)(1 - exp(-h sum r)) per state (Miller & Homan 1994; Fleurence & Hollenbeak
+    2007);
+``matrix-exponential``
+    P_k = expm(h Q_k) of the generator of all the cycle's rates, which captures several moves within
+    one cycle (Jones, Epstein & Garcia-Mochon 2017, Med Decis Making 37(7):779-789; Graves et al.
+    2021, Med Decis Making 41(4):453-464).
+
+Entry ages: one trace at the mean entry age (``"mean-age"``, common practice, biased when hazards
+depend on age) or traces over entry-age strata weighted by the distribution (``"strata"``, the same
+Gauss-Legendre nodes as the exact solution). Every trace is per sex of the sex mix. Each stratum
+stops at its own horizon: its last cycle may be shorter than h.
+
+Time-in-state clocks with non-constant hazards are expanded into tunnel states ``s [k]`` (k whole
+cycles since entry into s, the last one absorbing the rest) up to ``tunnel_cycles``; without that
+number such a model is refused with a message naming the transitions.
+
+The trace's outcomes with a within-cycle correction are computed by :func:`trace_outcomes`.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from enum import Enum
+
+import numpy as np
+import pandas as pd
+from numpy.typing import NDArray
+
+from .exact import population_pairs
+from .matrix_exp import expm_batched
+from .model import Clock, Model, ResolvedExit
+from .outcomes import _combine
+
+__all__ = ["Conversion", "RateRule", "Correction", "EntryAges", "CohortError", "CohortTrace",
+           "cohort_trace", "trace_outcomes", "quadrature_weights"]
+
+
+class CohortError(ValueError):
+    """The cohort approximation cannot be built as asked; the message says why and what to change."""
+
+
+class Conversion(str, Enum):
+    PER_TRANSITION = "per-transition"
+    COMPETING = "competing-exit"
+    EXPM = "matrix-exponential"
+
+
+class RateRule(str, Enum):
+    CUMULATIVE = "cumulative"
+    MIDPOINT = "midpoint"
+
+
+class Correction(str, Enum):
+    """Within-cycle correction for accumulating time, QALYs and costs (Elbasha & Chhatwal 2016, Med
+    Decis Making 36(1):115-131): state membership counted at the start of each cycle, at its end,
+    averaged (half-cycle / trapezoid), or by Simpson's 1/3 rule."""
+
+    START = "start"
+    END = "end"
+    HALF_CYCLE = "half-cycle"
+    SIMPSON = "simpson"
+
+
+class EntryAges(str, Enum):
+    MEAN = "mean-age"
+    STRATA = "strata"
+
+
+def _enum(cls, value, field_name: str):
+    try:
+        return cls(value)
+    except ValueError:
+        raise CohortError(f"{field_name} must be one of {[c.value for c in cls]}, got {value!r}") from None
+
+
+@dataclass(frozen=True)
+class CohortTrace:
+    """A cohort trace per (entry age, sex) stratum.
+
+    times : (m, K + 1) cycle boundaries per stratum (clipped at the stratum's horizon).
+    occupancy : (m, K + 1, n_states) state membership at the boundaries (tunnels summed back).
+    moves : (m, K, n_exits) expected moves through each exit within each cycle (exits numbered as
+        the model's ``exit_names``).
+    jump_over : (m, K) share of the stratum that made two or more moves within the cycle under the
+        matrix exponential (zero for the other conversions, which cannot represent it).
+    negative_stay : number of (stratum, cycle, state) cells where per-transition conversion left a
+        negative "stay" probability; it is kept (rows still sum to 1, as in a hand-built model) and
+        reported, since such a trace is not a probability model.
+    """
+
+    model: Model
+    strategy: str
+    cycle_length: float
+    conversion: Conversion
+    rate_rule: RateRule
+    entry_ages: EntryAges
+    weights: NDArray[np.float64]
+    entry_age: NDArray[np.float64]
+    sex: NDArray[np.int64]
+    times: NDArray[np.float64]
+    occupancy: NDArray[np.float64]
+    moves: NDArray[np.float64]
+    jump_over: NDArray[np.float64]
+    negative_stay: int
+    tunnel_cycles: int | None
+
+    def table(self) -> pd.DataFrame:
+        """Population-weighted trace as a tidy table: cycle, time, state, probability (strata whose
+        horizon has passed keep their final membership)."""
+        occ = np.einsum("m,mkn->kn", self.weights, self.occupancy)
+        k = np.arange(occ.shape[0])
+        t = k * self.cycle_length
+        names = self.model.state_names
+        return pd.DataFrame({"cycle": np.repeat(k, len(names)), "time": np.repeat(t, len(names)),
+                             "state": np.tile(names, k.size), "probability": occ.ravel()})
+
+    @property
+    def jump_over_share(self) -> float:
+        """Expected number of cycles, per patient, in which two or more moves happened (population
+        weighted sum over cycles): the mass per-transition conversion silently drops."""
+        return float(self.weights @ self.jump_over.sum(axis=1))
+
+
+# ----------------------------------------------------------------------------- building blocks
+@dataclass(frozen=True)
+class _Space:
+    """Expanded state space: tunnel copies for states with semi-Markov exits."""
+
+    labels: tuple[str, ...]
+    model_state: NDArray[np.int64]  # model state of each expanded state
+    copy: NDArray[np.int64]  # whole cycles since entry (0 for untunnelled states)
+    first: NDArray[np.int64]  # expanded index of each model state's entry copy
+    next_copy: NDArray[np.int64]  # where "stay" mass goes after one cycle
+
+
+def _space(model: Model, tunnel_cycles: int | None) -> _Space:
+    semi = model.semi_markov_transitions()
+    tunnelled = {t.source for t in model.transitions if t.name in semi}
+    if semi and tunnel_cycles is None:
+        raise CohortError(
+            f"transitions {semi} run on the time-in-state clock with non-constant hazards; a cycle-based "
+            f"trace needs tunnel states for {sorted(tunnelled)}: give tunnel_cycles (how many cycles since "
+            f"entry to track; the last tunnel state keeps the hazard at that duration)")
+    if tunnel_cycles is not None and (not isinstance(tunnel_cycles, (int, np.integer)) or tunnel_cycles < 1):
+        raise CohortError(f"tunnel_cycles must be a positive integer, got {tunnel_cycles!r}")
+    labels, mstate, copy, first, next_copy = [], [], [], [], []
+    for j, s in enumerate(model.states):
+        first.append(len(labels))
+        copies = tunnel_cycles if s.name in tunnelled else 1
+        for c in range(copies):
+            labels.append(f"{s.name} [{c}]" if copies > 1 else s.name)
+            mstate.append(j)
+            copy.append(c)
+            next_copy.append(len(labels) if c < copies - 1 else len(labels) - 1)
+    return _Space(tuple(labels), np.array(mstate), np.array(copy), np.array(first), np.array(next_copy))
+
+
+def _rates(ex: ResolvedExit, sex: NDArray[np.int64], start: NDArray[np.float64], t: NDArray[np.float64],
+           dt: NDArray[np.float64], rule: RateRule) -> NDArray[np.float64]:
+    """Rate of one exit over cycles [t, t + dt] for clock readings ``start + t`` (arrays (m, K))."""
+    x = start + t
+    out = np.zeros_like(t)
+    live = dt > 0
+    for code, h in enumerate(ex.hazards):
+        rows = (sex == code)[:, None] & live
+        if not rows.any():
+            continue
+        if rule is RateRule.MIDPOINT:
+            out[rows] = h.hazard(x[rows] + 0.5 * dt[rows])
+        else:
+            out[rows] = (h.cumhazard(x[rows] + dt[rows]) - h.cumhazard(x[rows])) / dt[rows]
+    return out
+
+
+def _jump_over(q: NDArray[np.float64], dt: NDArray[np.float64]) -> NDArray[np.float64]:
+    """Probability of two or more moves within dt from each state of a constant generator ``q``
+    (..., N, N): 1 - exp(q_ii dt) - sum_j q_ij (exp(q_ii dt) - exp(q_jj dt)) / (q_ii - q_jj), the
+    second term being exactly one move i -> j (derived from the first-jump decomposition; with
+    q_ii = q_jj it is q_ij dt exp(q_ii dt))."""
+    d = np.diagonal(q, axis1=-2, axis2=-1) * dt[..., None]  # q_ii dt
+    stay = np.exp(d)
+    di, dj = d[..., :, None], d[..., None, :]
+    diff = di - dj
+    same = np.abs(diff) < 1e-12
+    safe = np.where(same, 1.0, diff)
+    # (e^{di} - e^{dj}) / (di - dj) = e^{dj} expm1(di - dj) / (di - dj), stable for small differences
+    ratio = np.where(same, np.exp(di), np.exp(dj) * np.expm1(diff) / safe)
+    off = q * dt[..., None, None]
+    n = q.shape[-1]
+    off = off * (1 - np.eye(n))
+    one = (off * ratio).sum(axis=-1)
+    return np.clip(1.0 - stay - one, 0.0, 1.0)
+
+
+# ----------------------------------------------------------------------------- the trace
+def cohort_trace(model: Model, strategy: str, cycle_length: float, conversion: str | Conversion = "matrix-exponential",
+                 rate_rule: str | RateRule = "cumulative", entry_ages: str | EntryAges = "strata",
+                 n_nodes: int = 48, tunnel_cycles: int | None = None, block_cells: int = 2_000_000) -> CohortTrace:
+    """Build the cycle-based cohort trace of ``strategy`` with the given cycle length (years).
+
+    Parameters
+    ----------
+    conversion : "per-transition", "competing-exit" or "matrix-exponential".
+    rate_rule : "cumulative" (H increment over the cycle / h) or "midpoint" (hazard at mid-cycle).
+    entry_ages : "strata" (Gauss-Legendre strata of the entry-age distribution) or "mean-age".
+    tunnel_cycles : number of tunnel states for time-in-state clocks (required if any).
+    block_cells : bound on matrix cells built at once (memory).
+    """
+    conversion = _enum(Conversion, conversion, "conversion")
+    rate_rule = _enum(RateRule, rate_rule, "rate_rule")
+    entry_ages = _enum(EntryAges, entry_ages, "entry_ages")
+    h = float(cycle_length)
+    if not (math.isfinite(h) and h > 0):
+        raise CohortError(f"cycle_length must be a positive number of years, got {cycle_length!r}")
+    model.strategy(strategy)
+    space = _space(model, tunnel_cycles)
+    if entry_ages is EntryAges.STRATA:
+        age, sex, w = population_pairs(model, n_nodes)
+    else:
+        sex_w = np.array(list(model.population.sex_mix.values()), dtype=float)
+        keep = sex_w > 0
+        sex = np.arange(sex_w.size)[keep]
+        age = np.full(sex.size, model.population.entry_age.mean)
+        w = sex_w[keep]
+    horizon = model.horizon.time_limit(age)
+    n_cycles = max(1, int(math.ceil(float(horizon.max()) / h - 1e-9)))
+    m = age.size
+    times = np.minimum(np.arange(n_cycles + 1)[None, :] * h, horizon[:, None])  # (m, K+1)
+    dt_all = np.diff(times, axis=1)
+
+    resolved = model.resolve(strategy)
+    n_exp, n_states = len(space.labels), len(model.states)
+    n_exits = len(model.exit_names)
+    x = np.zeros((m, n_exp))
+    x[:, space.first[model.state_index(model.population.initial_state)]] = 1.0
+    occupancy = np.zeros((m, n_cycles + 1, n_states))
+    moves = np.zeros((m, n_cycles, n_exits))
+    jump = np.zeros((m, n_cycles))
+    negative = 0
+
+    exit_to_state = np.zeros((n_exits, n_exp))
+    for per in resolved:
+        for ex in per:
+            exit_to_state[ex.index, space.first[ex.target]] = 1.0
+    to_model = np.zeros((n_exp, n_states))
+    to_model[np.arange(n_exp), space.model_state] = 1.0
+
+    def collapse(v: NDArray[np.float64]) -> NDArray[np.float64]:
+        return v @ to_model
+
+    occupancy[:, 0] = collapse(x)
+    block = max(1, block_cells // max(1, m * n_exp * n_exp))
+    for k0 in range(0, n_cycles, block):
+        k1 = min(n_cycles, k0 + block)
+        nb = k1 - k0
+        t = times[:, k0:k1].T  # (B, m)
+        dt = dt_all[:, k0:k1].T
+        # Q: generator (B, m, N, N) of the cycle's rates; R: per-source rate of each model exit
+        Q = np.zeros((nb, m, n_exp, n_exp))
+        R = np.zeros((nb, m, n_exp, n_exits))
+        for i in range(n_exp):
+            s_i, c_i = int(space.model_state[i]), int(space.copy[i])
+            for ex in resolved[s_i]:
+                if ex.clock is Clock.AGE:
+                    start, tt = age[None, :], t
+                elif ex.clock is Clock.ENTRY:
+                    start, tt = np.zeros((1, m)), t
+                else:  # time in state: tunnel copy c has spent c whole cycles in s at the cycle start
+                    start, tt = np.full((1, m), c_i * h), np.zeros_like(t)
+                r = _rates(ex, sex, np.broadcast_to(start, t.shape).T, tt.T, dt.T, rate_rule).T
+                Q[:, :, i, space.first[ex.target]] += r
+                Q[:, :, i, i] -= r
+                R[:, :, i, ex.index] += r
+        if conversion is Conversion.EXPM:
+            P = expm_batched(Q * dt[:, :, None, None])
+            jo = _jump_over(Q, dt)
+        else:
+            if conversion is Conversion.PER_TRANSITION:
+                exit_prob = -np.expm1(-R * dt[:, :, None, None])  # each exit on its own
+            else:
+                total = R.sum(axis=-1)  # (B, m, N) total exit rate per source
+                scale = np.divide(-np.expm1(-total * dt[:, :, None]), total,
+                                  out=np.zeros_like(total), where=total > 0)
+                exit_prob = R * scale[..., None]
+            prob = exit_prob @ exit_to_state  # exits into their target states
+            stay = 1.0 - prob.sum(axis=-1)
+            negative += int((stay < -1e-15).sum())
+            P = prob
+            np.add.at(np.moveaxis(P, (2, 3), (0, 1)), (np.arange(n_exp), space.next_copy),
+                      np.moveaxis(stay, 2, 0))
+        if conversion is Conversion.EXPM:
+            # tunnel progression: mass still in copy i after the cycle moves to the next copy
+            for i in range(n_exp):
+                nxt = space.next_copy[i]
+                if nxt != i:
+                    P[:, :, i, nxt] += P[:, :, i, i]
+                    P[:, :, i, i] = 0.0
+        xs = np.empty((nb + 1, m, n_exp))
+        xs[0] = x
+        for b_ in range(nb):  # the only sequential step: x_{k+1} = x_k P_k
+            xs[b_ + 1] = np.matmul(xs[b_][:, None, :], P[b_])[:, 0, :]
+        x = xs[nb]
+        occupancy[:, k0 + 1:k1 + 1] = np.moveaxis(collapse(xs[1:]), 0, 1)
+        if conversion is Conversion.EXPM:
+            jump[:, k0:k1] = (xs[:-1] * jo).sum(axis=-1).T
+            # expected moves: rate x time in the source over the cycle, the latter by the trapezoid
+            # of the cycle's boundary values (O(h^3) per cycle)
+            occ_time = 0.5 * (xs[:-1] + xs[1:]) * dt[:, :, None]
+            moves[:, k0:k1] = np.swapaxes(np.matmul(occ_time[:, :, None, :], R)[:, :, 0, :], 0, 1)
+        else:
+            moves[:, k0:k1] = np.swapaxes(np.matmul(xs[:-1][:, :, None, :], exit_prob)[:, :, 0, :], 0, 1)
+    return CohortTrace(model=model, strategy=strategy, cycle_length=h, conversion=conversion,
+                       rate_rule=rate_rule, entry_ages=entry_ages, weights=w, entry_age=age, sex=sex,
+                       times=times, occupancy=occupancy, moves=moves, jump_over=jump,
+                       negative_stay=negative, tunnel_cycles=tunnel_cycles)
+
+
+# ----------------------------------------------------------------------------- outcomes
+def quadrature_weights(times: NDArray[np.float64], cycle_length: float, correction: str | Correction
+                       ) -> NDArray[np.float64]:
+    """Weights q_k with integral f ~ sum_k q_k f(t_k) over each row's grid ``times`` (m, K + 1).
+
+    start: sum dt_k f(t_k); end: sum dt_k f(t_{k+1}); half-cycle: sum dt_k (f_k + f_{k+1}) / 2;
+    simpson: composite Simpson 1/3 over pairs of whole cycles, Simpson 3/8 on the last three whole
+    cycles when their number is odd (trapezoid if only one), and the trapezoid on a final partial
+    cycle (Elbasha & Chhatwal 2016, Med Decis Making 36(1):115-131).
+    """
+    correction = _enum(Correction, correction, "correction")
+    dt = np.diff(times, axis=1)
+    q = np.zeros_like(times)
+    if correction is Correction.START:
+        q[:, :-1] = dt
+    elif correction is Correction.END:
+        q[:, 1:] = dt
+    elif correction is Correction.HALF_CYCLE:
+        q[:, :-1] += dt / 2
+        q[:, 1:] += dt / 2
+    else:
+        h = float(cycle_length)
+        full = np.isclose(dt, h, rtol=1e-9, atol=0.0)
+        n_full = full.sum(axis=1, keepdims=True)  # whole cycles come first on every row
+        k = np.arange(times.shape[1])[None, :]
+        # Simpson 1/3 on [0, 2P]: h/3 (1, 4, 2, 4, ..., 2, 4, 1); P pairs, leaving 3 cycles for the
+        # 3/8 rule when the number of whole cycles is odd (and >= 3)
+        odd = n_full % 2 == 1
+        pairs = np.where(odd, np.maximum(n_full - 3, 0) // 2, n_full // 2)
+        end = 2 * pairs
+        inner = (k > 0) & (k < end)
+        w13 = np.where(inner, np.where(k % 2 == 1, 4.0, 2.0), 0.0)
+        w13 = w13 + ((k == 0) & (end > 0)) + ((k == end) & (end > 0))
+        q = w13 * h / 3
+        three = odd & (n_full >= 3)  # Simpson 3/8 on [end, end + 3]
+        pattern = np.select([k == end, k == end + 1, k == end + 2, k == end + 3], [1.0, 3.0, 3.0, 1.0], 0.0)
+        q = q + np.where(three, pattern * 3 * h / 8, 0.0)
+        one = n_full == 1  # a single whole cycle: trapezoid
+        q = q + np.where(one & (k <= 1), h / 2, 0.0)
+        # partial cycles (the last one before a stratum's horizon): trapezoid
+        part = ~full & (dt > 0)
+        q[:, :-1] += np.where(part, dt / 2, 0.0)
+        q[:, 1:] += np.where(part, dt / 2, 0.0)
+    return q
+
+
+def trace_outcomes(trace: CohortTrace, correction: str | Correction) -> dict[str, float]:
+    """Outcomes of a trace with a within-cycle correction, with the definitions of
+    :mod:`sim.outcomes`. One-off transition costs are the cycle's expected moves discounted at the
+    cycle's start (``start``), end (``end``) or midpoint (``half-cycle``, ``simpson``)."""
+    correction = _enum(Correction, correction, "correction")
+    model, val = trace.model, trace.model.valuation
+    q = quadrature_weights(trace.times, trace.cycle_length, correction)
+    t = trace.times
+
+    wq = trace.weights[:, None] * q
+
+    def integrate(rate: float) -> NDArray[np.float64]:
+        coef = wq * np.exp(-math.log1p(rate) * t) if rate else wq
+        return np.tensordot(coef, trace.occupancy, axes=([0, 1], [0, 1]))
+
+    if correction is Correction.START:
+        t_cost = t[:, :-1]
+    elif correction is Correction.END:
+        t_cost = t[:, 1:]
+    else:
+        t_cost = 0.5 * (t[:, :-1] + t[:, 1:])
+    c_exit = model.exit_costs(trace.strategy)
+    per_cycle = trace.moves @ c_exit  # (m, K)
+    undisc = float(trace.weights @ per_cycle.sum(axis=1))
+    disc = float(np.einsum("m,mk->", trace.weights, per_cycle * np.exp(-math.log1p(val.discount_costs) * t_cost)))
+    values = _combine(model, trace.strategy, integrate(0.0), integrate(val.discount_effects),
+                      integrate(val.discount_costs), (undisc, disc))
+    return {k: float(v) for k, v in values.items()}

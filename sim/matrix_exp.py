@@ -1,0 +1,44 @@
+"""Matrix exponential of many small matrices at once.
+
+Scaling and squaring with a truncated Taylor series (Moler & Van Loan 2003, "Nineteen dubious ways to
+compute the exponential of a matrix, twenty-five years later", SIAM Review 45(1):3-49, methods 1 and
+3): expm(A) = (T_m(A / 2^s))^(2^s) with ||A / 2^s||_1 <= 1/2 and m = 14 terms, whose truncation error
+is below 0.5^15 / 15! ~ 2e-17 relative, so the result is accurate to rounding (checked against
+``scipy.linalg.expm`` in the tests). The stack is kept with the batch on the last axis so that each
+product is one contiguous ``einsum``: this evaluates 10^5 small generators far faster than a call per
+matrix, which matters for cohort traces with weekly cycles over decades for many entry-age strata.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from numpy.typing import NDArray
+
+__all__ = ["expm_batched"]
+
+_TERMS = 14
+
+
+def expm_batched(a: NDArray[np.float64]) -> NDArray[np.float64]:
+    """exp of each matrix in a stack ``a`` of shape (..., n, n)."""
+    a = np.asarray(a, dtype=float)
+    if a.ndim < 2 or a.shape[-1] != a.shape[-2]:
+        raise ValueError(f"expm_batched needs a stack of square matrices, got shape {a.shape}")
+    if not np.all(np.isfinite(a)):
+        raise ValueError("expm_batched needs finite matrices; got inf or NaN entries")
+    shape, n = a.shape, a.shape[-1]
+    flat = a.reshape(-1, n, n)
+    if flat.shape[0] == 0:
+        return a.copy()
+    top = float(np.abs(flat).sum(axis=1).max())  # largest 1-norm in the stack
+    s = max(0, math.ceil(math.log2(top / 0.5))) if top > 0.5 else 0
+    x = np.ascontiguousarray((flat / 2.0**s).transpose(1, 2, 0))  # (n, n, batch)
+    eye = np.eye(n)[:, :, None]
+    r = eye + x / _TERMS
+    for j in range(_TERMS - 1, 0, -1):  # Horner: I + x/j (I + x/(j+1) (...))
+        r = eye + np.einsum("ijb,jkb->ikb", x, r) / j
+    for _ in range(s):
+        r = np.einsum("ijb,jkb->ikb", r, r)
+    return np.ascontiguousarray(r.transpose(2, 0, 1)).reshape(shape)

@@ -1,0 +1,187 @@
+"""The discretization-error study: how much cycle length, rate-to-probability conversion and
+within-cycle correction change the answer and the decision.
+
+One call computes the reference (the exact Kolmogorov solution for a Markov model; for a semi-Markov
+model a large simulation, whose Monte Carlo standard error is reported) and a grid of cohort
+approximations (cycle lengths x conversions x corrections), and returns tidy tables:
+
+- ``table``: outcome, strategy, cycle_length, method, correction, value, reference, error,
+  relative_error;
+- ``orders``: the observed convergence order p of each (outcome, strategy, method, correction), the
+  least-squares slope of log|error| on log(cycle length) (error ~ C h^p);
+- ``largest_cycle``: the largest cycle length of the grid such that it and every shorter one keep
+  the outcome within the tolerance (absolute or relative);
+- ``decisions``: incremental costs and QALYs, ICER and net monetary benefit of each strategy against
+  the comparator for every combination, flagging those whose decision differs from the reference's
+  (the sign of the net monetary benefit, or the ICER on the other side of the threshold);
+- ``jump_over``: the share of patient-cycles with two or more moves under the matrix exponential.
+"""
+
+from __future__ import annotations
+
+import math
+from concurrent.futures import ThreadPoolExecutor
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+
+from .cohort import Conversion, Correction, cohort_trace, trace_outcomes
+from .engine import simulate
+from .model import Model
+from .outcomes import exact_outcomes, increments_from_values, outcome_names, patient_outcomes, summarise
+
+__all__ = ["DEFAULT_CYCLE_LENGTHS", "StudyResult", "discretization_study", "observed_order"]
+
+DEFAULT_CYCLE_LENGTHS = (1 / 52, 1 / 12, 1 / 4, 1 / 2, 1.0, 2.0)
+MAX_TUNNEL_STATES = 400
+
+
+@dataclass(frozen=True)
+class StudyResult:
+    table: pd.DataFrame
+    reference: pd.DataFrame
+    orders: pd.DataFrame
+    largest_cycle: pd.DataFrame
+    decisions: pd.DataFrame
+    jump_over: pd.DataFrame
+    reference_kind: str
+    notes: list[str] = field(default_factory=list)
+
+
+def observed_order(h: np.ndarray, error: np.ndarray, floor: float) -> float:
+    """Least-squares slope of log|error| on log h over the points with |error| > floor (NaN if fewer
+    than two such points)."""
+    h, error = np.asarray(h, dtype=float), np.abs(np.asarray(error, dtype=float))
+    keep = error > floor
+    if keep.sum() < 2:
+        return float("nan")
+    return float(np.polyfit(np.log(h[keep]), np.log(error[keep]), 1)[0])
+
+
+def _reference(model: Model, n_patients: int, seed: int, n_nodes: int) -> tuple[pd.DataFrame, str]:
+    if model.is_markov:
+        ref = exact_outcomes(model, n_nodes=n_nodes)
+        ref["mcse"] = 0.0
+        return ref, "exact"
+    run = simulate(model, n_patients, seed, workers=2)
+    s = summarise(patient_outcomes(run)).rename(columns={"mean": "value"})
+    return s[["strategy", "outcome", "value", "mcse"]], f"simulation ({n_patients:,} patients, seed {seed})"
+
+
+def discretization_study(model: Model, cycle_lengths: tuple[float, ...] = DEFAULT_CYCLE_LENGTHS,
+                         methods: tuple[str, ...] = tuple(c.value for c in Conversion),
+                         corrections: tuple[str, ...] = tuple(c.value for c in Correction),
+                         rate_rule: str = "cumulative", entry_ages: str = "strata",
+                         tolerance: float = 0.01, relative: bool = True, comparator: str | None = None,
+                         willingness_to_pay: float | None = None, tunnel_years: float | None = None,
+                         n_patients: int = 200_000, seed: int = 1, n_nodes: int = 16,
+                         workers: int = 2) -> StudyResult:
+    """Run the reference and the grid of cohort approximations; see the module docstring.
+
+    Parameters
+    ----------
+    tolerance, relative : the accuracy asked of each outcome (relative to the reference, or in the
+        outcome's own unit).
+    comparator : strategy the others are compared with (default: the model's first strategy).
+    willingness_to_pay : per QALY (default: the model's valuation).
+    tunnel_years : for semi-Markov models, how long time-in-state clocks are tracked by tunnel states
+        (default: the longest follow-up); cycle lengths needing more than 400 tunnel states are
+        skipped with a note.
+    n_patients, seed : size of the simulation reference for semi-Markov models.
+    n_nodes : entry-age strata, shared by the exact reference and the traces so that the table
+        isolates the discretization error (the quadrature error itself is far smaller: about 4e-6
+        relative in life expectancy at 16 nodes on the demo model, measured against 64 nodes).
+    workers : threads running the independent traces.
+    """
+    if not cycle_lengths or any(not (math.isfinite(h) and h > 0) for h in cycle_lengths):
+        raise ValueError(f"cycle_lengths must be positive numbers of years, got {cycle_lengths!r}")
+    if not (math.isfinite(tolerance) and tolerance > 0):
+        raise ValueError(f"tolerance must be > 0, got {tolerance!r}")
+    comparator = comparator or model.strategy_names[0]
+    model.strategy(comparator)
+    wtp = model.valuation.willingness_to_pay if willingness_to_pay is None else float(willingness_to_pay)
+    ref, kind = _reference(model, n_patients, seed, n_nodes)
+    names = outcome_names(model)
+    notes: list[str] = []
+    if not model.is_markov:
+        notes.append(f"no exact reference: transitions {model.semi_markov_transitions()} are semi-Markov; "
+                     f"the reference is a {kind} with the Monte Carlo standard errors in 'reference'")
+    follow = float(model.horizon.time_limit(np.array([model.population.entry_age.low]))[0])
+    tasks = []
+    for h in sorted(cycle_lengths):
+        tunnels = None
+        if not model.is_markov:
+            tunnels = int(math.ceil((tunnel_years or follow) / h - 1e-9))
+            if tunnels > MAX_TUNNEL_STATES:
+                notes.append(f"cycle length {h:g} skipped: it needs {tunnels} tunnel states (> {MAX_TUNNEL_STATES}); "
+                             f"give a shorter tunnel_years")
+                continue
+        tasks += [(h, method, strategy, tunnels) for method in methods for strategy in model.strategy_names]
+
+    def run(task: tuple) -> tuple[tuple, list[tuple]]:
+        h, method, strategy, tunnels = task
+        trace = cohort_trace(model, strategy, h, method, rate_rule, entry_ages, n_nodes, tunnels)
+        out = []
+        for corr in corrections:
+            values = trace_outcomes(trace, corr)
+            out += [(o, strategy, h, method, corr, values[o]) for o in names]
+        return (strategy, h, method, trace.jump_over_share, trace.negative_stay), out
+
+    # traces are independent; numpy releases the GIL in the heavy steps, so two threads help
+    with ThreadPoolExecutor(max_workers=workers) as pool:
+        results = list(pool.map(run, tasks))
+    rows = [r for _, chunk in results for r in chunk]
+    jump_rows = [j for j, _ in results]
+    table = pd.DataFrame(rows, columns=["outcome", "strategy", "cycle_length", "method", "correction", "value"])
+    table = table.merge(ref[["strategy", "outcome", "value", "mcse"]].rename(
+        columns={"value": "reference", "mcse": "reference_mcse"}), on=["strategy", "outcome"], how="left")
+    table["error"] = table["value"] - table["reference"]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        table["relative_error"] = np.where(table["reference"] != 0, table["error"] / table["reference"].abs(), np.nan)
+
+    # observed convergence orders
+    order_rows = []
+    for key, g in table.groupby(["outcome", "strategy", "method", "correction"], sort=False):
+        scale = max(1.0, abs(float(g["reference"].iloc[0])))
+        floor = max(1e-9 * scale, 2.0 * float(g["reference_mcse"].iloc[0]))
+        order_rows.append((*key, observed_order(g["cycle_length"], g["error"], floor)))
+    orders = pd.DataFrame(order_rows, columns=["outcome", "strategy", "method", "correction", "order"])
+
+    # largest cycle length within tolerance (and every shorter one too)
+    tol_rows = []
+    measure = "relative_error" if relative else "error"
+    for key, g in table.groupby(["outcome", "strategy", "method", "correction"], sort=False):
+        g = g.sort_values("cycle_length")
+        ok = (g[measure].abs() <= tolerance).to_numpy()
+        prefix = np.cumprod(ok).astype(bool)
+        largest = float(g["cycle_length"].to_numpy()[prefix][-1]) if prefix.any() else float("nan")
+        tol_rows.append((*key, tolerance, "relative" if relative else "absolute", largest))
+    largest_cycle = pd.DataFrame(tol_rows, columns=["outcome", "strategy", "method", "correction", "tolerance",
+                                                    "tolerance_kind", "largest_cycle_length"])
+
+    decisions = _decisions(table, ref, comparator, wtp) if len(model.strategies) > 1 else pd.DataFrame()
+    jump = pd.DataFrame(jump_rows, columns=["strategy", "cycle_length", "method", "jump_over_share", "negative_stay"])
+    return StudyResult(table=table, reference=ref.assign(kind=kind), orders=orders, largest_cycle=largest_cycle,
+                       decisions=decisions, jump_over=jump, reference_kind=kind, notes=notes)
+
+
+def _decisions(table: pd.DataFrame, ref: pd.DataFrame, comparator: str, wtp: float) -> pd.DataFrame:
+    ref_inc = increments_from_values(ref, comparator, wtp).set_index("strategy")
+    frames = []
+    for key, g in table.groupby(["cycle_length", "method", "correction"], sort=False):
+        inc = increments_from_values(g[["strategy", "outcome", "value"]], comparator, wtp)
+        inc.insert(0, "correction", key[2])
+        inc.insert(0, "method", key[1])
+        inc.insert(0, "cycle_length", key[0])
+        frames.append(inc)
+    out = pd.concat(frames, ignore_index=True)
+    r = ref_inc.loc[out["strategy"]]
+    out["reference_nmb"] = r["nmb"].to_numpy()
+    out["reference_icer"] = r["icer"].to_numpy()
+    sign_flip = np.sign(out["nmb"].to_numpy()) != np.sign(out["reference_nmb"].to_numpy())
+    both_gain = (out["delta_effects"].to_numpy() > 0) & (r["delta_effects"].to_numpy() > 0)
+    icer_cross = both_gain & ((out["icer"].to_numpy() <= wtp) != (out["reference_icer"].to_numpy() <= wtp))
+    out["changes_decision"] = sign_flip | icer_cross
+    out["willingness_to_pay"] = wtp
+    return out
