@@ -21,10 +21,9 @@ that transition produces.
 
 from __future__ import annotations
 
-import threading
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
-from typing import Callable, Protocol
+from typing import Callable, Iterator, Protocol
 
 import numpy as np
 import pandas as pd
@@ -33,7 +32,7 @@ from numpy.typing import NDArray
 from .model import Clock, Model, ResolvedExit
 from .rng import ATTRIBUTE_STREAM, exponentials, key_from_seed, uniforms
 
-__all__ = ["simulate", "SimulationResult", "SimulationCancelled", "SimulationError"]
+__all__ = ["simulate", "simulate_chunks", "SimulationResult", "SimulationCancelled", "SimulationError"]
 
 ProgressCallback = Callable[[int, int], None]
 
@@ -249,6 +248,68 @@ def _is_cancelled(cancel: CancelToken | Callable[[], bool] | None) -> bool:
     return bool(cancel())
 
 
+def _validate_run(model: Model, n_patients: int, chunk_size: int, workers: int,
+                  strategies: tuple[str, ...] | None) -> tuple[str, ...]:
+    if not isinstance(n_patients, (int, np.integer)) or n_patients < 1:
+        raise ValueError(f"n_patients must be a positive integer, got {n_patients!r}")
+    if not isinstance(chunk_size, (int, np.integer)) or chunk_size < 1:
+        raise ValueError(f"chunk_size must be a positive integer, got {chunk_size!r}")
+    if not isinstance(workers, (int, np.integer)) or workers < 1:
+        raise ValueError(f"workers must be a positive integer, got {workers!r}")
+    names = tuple(strategies) if strategies is not None else model.strategy_names
+    for nm in names:
+        model.strategy(nm)
+    return names
+
+
+def _chunk_outputs(model: Model, n_patients: int, seed: int, names: tuple[str, ...], chunk_size: int,
+                   workers: int, cancel, max_transitions: int) -> Iterator[_ChunkOut]:
+    """Chunk results in patient order; with several workers at most 2 x workers chunks are in flight
+    (bounded memory when the consumer streams them to disk)."""
+    key = key_from_seed(seed)
+    plans = [model.resolve(nm) for nm in names]
+    bounds = [(a, min(a + chunk_size, n_patients)) for a in range(0, n_patients, chunk_size)]
+
+    def work(i: int) -> _ChunkOut:
+        if _is_cancelled(cancel):
+            raise SimulationCancelled("simulation cancelled")
+        a, b = bounds[i]
+        return _simulate_chunk(model, plans, key, a, b, max_transitions)
+
+    if workers == 1 or len(bounds) == 1:
+        for i in range(len(bounds)):
+            yield work(i)
+    else:
+        with ThreadPoolExecutor(max_workers=workers) as pool:
+            window = 2 * workers
+            futures = {i: pool.submit(work, i) for i in range(min(window, len(bounds)))}
+            try:
+                for i in range(len(bounds)):
+                    out = futures.pop(i).result()
+                    nxt = i + window
+                    if nxt < len(bounds):
+                        futures[nxt] = pool.submit(work, nxt)
+                    yield out
+            finally:
+                for f in futures.values():
+                    f.cancel()
+    if _is_cancelled(cancel):
+        raise SimulationCancelled("simulation cancelled")
+
+
+def simulate_chunks(model: Model, n_patients: int, seed: int, *, strategies: tuple[str, ...] | None = None,
+                    chunk_size: int = 100_000, workers: int = 1,
+                    cancel: CancelToken | Callable[[], bool] | None = None,
+                    max_transitions: int = 10_000) -> Iterator[tuple[pd.DataFrame, pd.DataFrame]]:
+    """Like :func:`simulate`, but yield ``(events, patients)`` for one chunk of patients at a time,
+    in patient order (within a chunk: by strategy, then patient), so that large runs can be streamed
+    to disk with memory bounded by the chunk size. Concatenating all chunks gives the same rows as
+    :func:`simulate` (ordered by chunk first)."""
+    names = _validate_run(model, n_patients, chunk_size, workers, strategies)
+    for out in _chunk_outputs(model, n_patients, seed, names, chunk_size, workers, cancel, max_transitions):
+        yield _assemble(model, names, [out])
+
+
 def simulate(model: Model, n_patients: int, seed: int, *, strategies: tuple[str, ...] | None = None,
              chunk_size: int = 100_000, workers: int = 1,
              progress: ProgressCallback | None = None,
@@ -274,52 +335,15 @@ def simulate(model: Model, n_patients: int, seed: int, *, strategies: tuple[str,
     -------
     SimulationResult
     """
-    if not isinstance(n_patients, (int, np.integer)) or n_patients < 1:
-        raise ValueError(f"n_patients must be a positive integer, got {n_patients!r}")
-    if not isinstance(chunk_size, (int, np.integer)) or chunk_size < 1:
-        raise ValueError(f"chunk_size must be a positive integer, got {chunk_size!r}")
-    if not isinstance(workers, (int, np.integer)) or workers < 1:
-        raise ValueError(f"workers must be a positive integer, got {workers!r}")
-    names = tuple(strategies) if strategies is not None else model.strategy_names
-    for nm in names:
-        model.strategy(nm)
-    key = key_from_seed(seed)
-    plans = [model.resolve(nm) for nm in names]
-    bounds = [(a, min(a + chunk_size, n_patients)) for a in range(0, n_patients, chunk_size)]
-    results: list[_ChunkOut | None] = [None] * len(bounds)
+    names = _validate_run(model, n_patients, chunk_size, workers, strategies)
+    outs: list[_ChunkOut] = []
     done = 0
-    lock = threading.Lock()
-
-    def work(i: int) -> int:
-        if _is_cancelled(cancel):
-            raise SimulationCancelled("simulation cancelled")
-        a, b = bounds[i]
-        results[i] = _simulate_chunk(model, plans, key, a, b, max_transitions)
-        return b - a
-
-    def report(n: int) -> None:
-        nonlocal done
-        with lock:
-            done += n
-            if progress is not None:
-                progress(done, n_patients)
-
-    if workers == 1 or len(bounds) == 1:
-        for i in range(len(bounds)):
-            report(work(i))
-    else:
-        with ThreadPoolExecutor(max_workers=workers) as pool:
-            futures = [pool.submit(work, i) for i in range(len(bounds))]
-            try:
-                for f in futures:
-                    report(f.result())
-            except BaseException:
-                for f in futures:
-                    f.cancel()
-                raise
-    if _is_cancelled(cancel):
-        raise SimulationCancelled("simulation cancelled")
-    events, patients = _assemble(model, names, [r for r in results if r is not None])
+    for out in _chunk_outputs(model, n_patients, seed, names, chunk_size, workers, cancel, max_transitions):
+        outs.append(out)
+        done += out.patient.size
+        if progress is not None:
+            progress(done, n_patients)
+    events, patients = _assemble(model, names, outs)
     return SimulationResult(model=model, seed=int(seed), n_patients=int(n_patients), events=events,
                             patients=patients, chunk_size=int(chunk_size), workers=int(workers),
                             metadata={"strategies": names, "generator": "Philox4x64-10 counter-based"})

@@ -286,3 +286,15 @@ def test_memory_is_bounded_by_results_and_chunk(n, chunk):
         tracemalloc.stop()
     out = run.events.memory_usage(deep=True).sum() + run.patients.memory_usage(deep=True).sum()
     assert peak <= 2.1 * out + 1000 * chunk, (peak, out)
+
+
+def test_streamed_chunks_equal_the_whole_run(two_strategy_model):
+    from sim.engine import simulate_chunks
+
+    whole = simulate(two_strategy_model, 1000, seed=9)
+    parts = list(simulate_chunks(two_strategy_model, 1000, seed=9, chunk_size=300, workers=2))
+    assert len(parts) == 4
+    ev = pd.concat([e for e, _ in parts]).sort_values(["strategy", "patient", "time"], kind="stable")
+    pt = pd.concat([p for _, p in parts]).sort_values(["strategy", "patient"], kind="stable")
+    pd.testing.assert_frame_equal(ev.reset_index(drop=True), whole.events, check_exact=True)
+    pd.testing.assert_frame_equal(pt.reset_index(drop=True), whole.patients, check_exact=True)
