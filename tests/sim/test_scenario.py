@@ -1,0 +1,180 @@
+"""Scenario files: round trips, one test per validation rule (file, key path, line, value, rule),
+and property-based malformed input that must give a ScenarioError, never a traceback."""
+
+from __future__ import annotations
+
+import math
+import re
+from pathlib import Path
+
+import numpy as np
+import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
+
+from sim.demo import DEMOS, SCENARIO_DIR
+from sim.scenario import (ScenarioError, document_from_model, load_scenario, parse_duration, parse_scenario,
+                          save_scenario, scenario_text)
+
+DEMO = (SCENARIO_DIR / "lanthic_syndrome.toml").read_text()
+
+
+def _line(text: str, needle: str, nth: int = 0) -> int:
+    return [i + 1 for i, ln in enumerate(text.splitlines()) if needle in ln][nth]
+
+
+@pytest.mark.parametrize("name", sorted(DEMOS))
+def test_every_demo_round_trips(name, tmp_path):
+    s = load_scenario(SCENARIO_DIR / DEMOS[name])
+    text = scenario_text(document_from_model(s.model, s.run), header="written by the round-trip test")
+    path = save_scenario(text, tmp_path / "copy.toml")
+    again = load_scenario(path)
+    assert again.model == s.model
+    assert again.run == s.run
+
+
+def test_saving_keeps_comments_and_is_atomic(tmp_path):
+    path = save_scenario(DEMO, tmp_path / "demo.toml")
+    assert path.read_text() == DEMO  # the text as typed, comments included
+    with pytest.raises(ScenarioError, match="exists; pass force=True"):
+        save_scenario(DEMO, path, force=False)
+    assert [p.name for p in tmp_path.iterdir()] == ["demo.toml"]  # no temporary files left
+
+
+def test_conversions_are_reported():
+    s = parse_scenario(DEMO.replace("rate = 0.15              # per person-year", "risk = 0.2\nperiod = 2"))
+    note = [c for c in s.conversions if "transitions[1]" in c][0]
+    assert "constant-rate assumption" in note.lower()  # the assumption is stated
+    np.testing.assert_allclose(s.model.transitions[1].hazard.rate, -math.log(0.8) / 2, rtol=1e-14)
+
+
+def test_units_convert_to_years():
+    # 0.0125 per month = 0.15 per year; a Weibull scale of 360 months = 30 years
+    s = parse_scenario(DEMO.replace("rate = 0.15              # per person-year", 'rate = 0.0125\nunit = "months"')
+                       .replace('scale = 30.0             # years\nunit = "years"', 'scale = 360.0\nunit = "months"'))
+    np.testing.assert_allclose(s.model.transitions[1].hazard.rate, 0.15, rtol=1e-14)
+    np.testing.assert_allclose(s.model.transitions[0].hazard.scale, 30.0, rtol=1e-14)
+    assert parse_duration("1 month") == pytest.approx(1 / 12)
+    assert parse_duration(0.5) == 0.5
+
+
+def _bad(old: str, new: str, count: int = 1) -> str:
+    assert old in DEMO, old
+    return DEMO.replace(old, new, count)
+
+
+@pytest.mark.parametrize("text, key, message, line_of", [
+    # a negative rate
+    (_bad("rate = 0.15 ", "rate = -0.15 "), "transitions[1].rate", "must be >= 0, got -0.15", "rate = -0.15"),
+    # a probability outside [0, 1)
+    (_bad("rate = 0.15              # per person-year", "risk = 1.2\nperiod = 1"), "transitions[1].risk",
+     "must be <= 1, got 1.2", "risk = 1.2"),
+    (_bad("rate = 0.15              # per person-year", "risk = 1.0\nperiod = 1"), "transitions[1].risk",
+     "must be in [0, 1)", "risk = 1.0"),
+    # a risk without its period
+    (_bad("rate = 0.15              # per person-year", "risk = 0.3"), "transitions[1]",
+     "a risk needs its period", ("[[transitions]]", 1)),
+    # a transition from an absorbing state
+    (_bad('from = "lanthic"\nto = "well"', 'from = "dead"\nto = "well"'), "transitions[1].from",
+     "is an absorbing state", 'from = "dead"'),
+    # duplicate names
+    (_bad('name = "lanthic"', 'name = "well"'), "states[1].name", "duplicate state name", None),
+    (_bad('name = "recovery"', 'name = "onset"'), "transitions[1].name", "duplicate transition name", None),
+    (_bad('name = "new therapy"', 'name = "usual care"'), "strategies[1].name", "duplicate strategy name", None),
+    # unknown keys are errors
+    (_bad("shape = 1.3", "shape = 1.3\nshap = 2"), "transitions[0].shap", "unknown key", "shap = 2"),
+    (_bad("[run]", "[run]\nthreads = 4"), "run.threads", "unknown key", "threads = 4"),
+    # a strategy naming a transition that does not exist
+    (_bad('hazard_ratios = { onset = 0.7', 'hazard_ratios = { onst = 0.7'), "strategies[1].hazard_ratios.onst",
+     "must name a transition", None),
+    # families and parameters
+    (_bad('family = "weibull"', 'family = "wiebull"'), "transitions[0].family", "must be one of", None),
+    (_bad("shape = 1.3\n", ""), "transitions[0]", "missing parameter 'shape' of the weibull family", None),
+    (_bad("shape = 1.3", "shape = -1.3"), "transitions[0]", "shape must be > 0", None),
+    # population, horizon, valuation, run
+    (_bad("sd = 8.0", "sd = 0.0"), "population.entry_age.sd", "must be > 0", None),
+    (_bad("value = 100 ", "value = 140 "), "horizon.value", "must be <= 130", "value = 140"),
+    (_bad("well = 0.86", "well = 1.5"), "valuation.utilities.well", "must be <= 1, got 1.5", None),
+    (_bad('"1 week"', '"1 fortnight"'), "run.cycle_lengths[0]", "must be a number of years or a string", None),
+    (_bad("format_version = 1", "format_version = 7"), "format_version", "reads format_version 1", None),
+])
+def test_validation_messages(text, key, message, line_of):
+    with pytest.raises(ScenarioError) as info:
+        parse_scenario(text, "scen.toml")
+    err = info.value
+    assert err.file == "scen.toml"
+    assert err.key == key, str(err)
+    assert message in str(err), str(err)
+    assert str(err).startswith("scen.toml:")
+    if line_of is not None:
+        needle, nth = line_of if isinstance(line_of, tuple) else (line_of, 0)
+        assert err.line == _line(text, needle, nth), str(err)
+
+
+def test_model_level_rules_name_the_file():
+    # no absorbing state
+    text = _bad("absorbing = true\n", "")
+    with pytest.raises(ScenarioError, match=r"^scen.toml: .*at least one state must be absorbing"):
+        parse_scenario(text, "scen.toml")
+    # a state that cannot be reached from the initial state
+    text = _bad('[[states]]\nname = "dead"', '[[states]]\nname = "limbo"\n\n[[states]]\nname = "dead"')
+    with pytest.raises(ScenarioError, match=r"states\[2\]\.name: cannot be reached from the initial state 'well'"):
+        parse_scenario(text, "scen.toml")
+
+
+def test_toml_syntax_error_has_a_line():
+    text = DEMO.replace("shape = 1.3", "shape = = 1.3")
+    with pytest.raises(ScenarioError, match="not valid TOML") as info:
+        parse_scenario(text, "scen.toml")
+    assert info.value.line == _line(text, "shape = = 1.3")
+
+
+def test_unreadable_file(tmp_path):
+    with pytest.raises(ScenarioError, match="cannot read the file"):
+        load_scenario(tmp_path / "missing.toml")
+
+
+# ----------------------------------------------------------------------------- property-based
+_numbers = st.one_of(st.floats(allow_nan=True, allow_infinity=True), st.integers(-10**6, 10**6),
+                     st.text(max_size=5), st.booleans(), st.lists(st.floats(-5, 5), max_size=3))
+_KEYS = ["rate = 0.15 ", "shape = 1.3", "scale = 30.0", "mean = 55.0", "sd = 8.0", "value = 100 ",
+         "well = 0.86", "discount_costs = 0.035", "patients = 100000", "seed = 2026", "onset = 0.7",
+         "per = 100", "events = 8"]
+
+
+def _toml_value(v) -> str:
+    if isinstance(v, bool):
+        return "true" if v else "false"
+    if isinstance(v, str):
+        return '"' + v.replace("\\", "\\\\").replace('"', '\\"').replace("\n", "\\n") + '"'
+    if isinstance(v, float):
+        if math.isnan(v):
+            return "nan"
+        if math.isinf(v):
+            return "inf" if v > 0 else "-inf"
+        return repr(v)
+    if isinstance(v, list):
+        return "[" + ", ".join(_toml_value(x) for x in v) + "]"
+    return str(v)
+
+
+@settings(max_examples=150, deadline=None, derandomize=True, suppress_health_check=[HealthCheck.too_slow])
+@given(key=st.sampled_from(_KEYS), value=_numbers)
+def test_malformed_values_give_clear_errors_or_valid_models(key, value):
+    name = key.split("=")[0].strip()
+    text = DEMO.replace(key, f"{name} = {_toml_value(value)}", 1)
+    try:
+        s = parse_scenario(text, "fuzz.toml")
+    except ScenarioError as err:
+        assert str(err).startswith("fuzz.toml")
+        return
+    assert s.model.states  # a valid scenario: it built a model
+
+
+@settings(max_examples=60, deadline=None, derandomize=True)
+@given(cut=st.integers(0, len(DEMO)))
+def test_truncated_files_give_clear_errors(cut):
+    try:
+        parse_scenario(DEMO[:cut], "cut.toml")
+    except ScenarioError as err:
+        assert str(err).startswith("cut.toml")
