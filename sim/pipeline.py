@@ -1,0 +1,143 @@
+"""One run of a scenario from start to finish, shared by the command line and the desktop window:
+
+simulate -> outcomes with MCSE -> increments -> exact solution (Markov models) -> survival and
+occupancy estimates on a time grid -> the discretization-error study.
+
+Long work reports progress as ``progress(stage, done, total)`` and honours a cancel request (an
+object with ``is_set()`` or a callable) between simulation chunks and between stages.
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass, field
+from typing import Callable
+
+import numpy as np
+import pandas as pd
+
+from .engine import SimulationCancelled, SimulationResult, simulate
+from .estimators import kaplan_meier, state_occupancy
+from .exact import NoExactSolution, solve_exact
+from .outcomes import exact_outcomes, incremental, increments_from_values, patient_outcomes, summarise
+from .scenario import Scenario
+from .study import StudyResult, discretization_study
+
+__all__ = ["RunResults", "run_scenario", "time_grid"]
+
+Progress = Callable[[str, int, int], None]
+
+
+@dataclass(frozen=True)
+class RunResults:
+    """Everything a finished run produced (pandas tables; see each field).
+
+    outcomes : strategy, outcome, mean, mcse, n (simulated), plus ``exact`` where available.
+    increments : strategy, comparator, quantity, value, mcse (paired), mcse_unpaired, exact.
+    survival : strategy, time, survival, std_error (Kaplan-Meier of time to absorption).
+    occupancy : strategy, time, state, probability, std_error (Aalen-Johansen on ``grid``).
+    exact_occupancy : strategy, time, state, probability (Kolmogorov), or None.
+    exact_note : why there is no exact solution, or "".
+    study : the discretization-error study, or None if not asked for.
+    """
+
+    scenario: Scenario
+    simulation: SimulationResult
+    per_patient: pd.DataFrame
+    outcomes: pd.DataFrame
+    increments: pd.DataFrame
+    survival: pd.DataFrame
+    occupancy: pd.DataFrame
+    grid: np.ndarray
+    exact_occupancy: pd.DataFrame | None
+    exact_note: str
+    study: StudyResult | None
+    settings: dict
+    seconds: dict = field(default_factory=dict)
+
+
+def time_grid(scenario: Scenario, points: int = 121) -> np.ndarray:
+    """Times since entry for curves: 0 to the earliest horizon (all patients still followed), so that
+    estimates and exact curves are comparable without horizon censoring."""
+    model = scenario.model
+    t_max = float(model.horizon.time_limit(np.array([model.population.entry_age.high]))[0])
+    if t_max <= 0:
+        t_max = float(model.horizon.time_limit(np.array([model.population.entry_age.mean]))[0])
+    return np.linspace(0.0, t_max, points)
+
+
+def _cancelled(cancel) -> bool:
+    if cancel is None:
+        return False
+    return bool(cancel.is_set() if hasattr(cancel, "is_set") else cancel())
+
+
+def run_scenario(scenario: Scenario, *, patients: int | None = None, seed: int | None = None,
+                 workers: int | None = None, study: bool = True, progress: Progress | None = None,
+                 cancel=None) -> RunResults:
+    """Run a validated scenario; arguments override the scenario's run settings."""
+    model, run = scenario.model, scenario.run
+    settings = {"patients": int(patients or run.patients), "seed": int(run.seed if seed is None else seed),
+                "workers": int(workers or run.workers), "chunk_size": int(run.chunk_size),
+                "cycle_lengths": tuple(run.cycle_lengths), "tolerance": float(run.tolerance)}
+    report = progress or (lambda stage, done, total: None)
+    seconds: dict[str, float] = {}
+    t0 = time.perf_counter()
+    sim = simulate(model, settings["patients"], settings["seed"], chunk_size=min(settings["chunk_size"],
+                   max(1000, settings["patients"] // 20)), workers=settings["workers"],
+                   progress=lambda d, n: report("simulating", d, n), cancel=cancel)
+    seconds["simulation"] = time.perf_counter() - t0
+
+    def stage(name: str) -> None:
+        if _cancelled(cancel):
+            raise SimulationCancelled("run cancelled")
+        report(name, 0, 1)
+
+    stage("outcomes")
+    per = patient_outcomes(sim)
+    summary = summarise(per)
+    comparator = model.strategy_names[0]
+    wtp = model.valuation.willingness_to_pay
+    inc = incremental(per, comparator, wtp) if len(model.strategies) > 1 else pd.DataFrame(
+        columns=["strategy", "comparator", "quantity", "value", "mcse", "mcse_unpaired"])
+    grid = time_grid(scenario)
+    exact_occ = None
+    note = ""
+    stage("exact solution")
+    t1 = time.perf_counter()
+    try:
+        exact = exact_outcomes(model)
+        summary = summary.merge(exact.rename(columns={"value": "exact"}), on=["strategy", "outcome"], how="left")
+        if len(inc):
+            ex_inc = increments_from_values(exact, comparator, wtp).melt(
+                id_vars=["strategy", "comparator"], var_name="quantity", value_name="exact")
+            inc = inc.merge(ex_inc, on=["strategy", "comparator", "quantity"], how="left")
+        exact_occ = solve_exact(model, grid).occupancy
+    except NoExactSolution as err:
+        note = str(err)
+        summary["exact"] = np.nan
+        if len(inc):
+            inc["exact"] = np.nan
+    seconds["exact"] = time.perf_counter() - t1
+    stage("estimates")
+    t2 = time.perf_counter()
+    surv, occ = [], []
+    for name in sim.metadata["strategies"]:
+        ev, pt = sim.strategy(name)
+        km = kaplan_meier(pt)
+        surv.append(km.assign(strategy=name))
+        occ.append(state_occupancy(ev, pt, model.state_names, grid).assign(strategy=name))
+    seconds["estimates"] = time.perf_counter() - t2
+    result_study = None
+    if study:
+        stage("error study")
+        t3 = time.perf_counter()
+        result_study = discretization_study(model, cycle_lengths=settings["cycle_lengths"],
+                                            tolerance=settings["tolerance"], n_patients=settings["patients"],
+                                            seed=settings["seed"])
+        seconds["study"] = time.perf_counter() - t3
+    report("done", 1, 1)
+    return RunResults(scenario=scenario, simulation=sim, per_patient=per, outcomes=summary, increments=inc,
+                      survival=pd.concat(surv, ignore_index=True), occupancy=pd.concat(occ, ignore_index=True),
+                      grid=grid, exact_occupancy=exact_occ, exact_note=note, study=result_study,
+                      settings=settings, seconds=seconds)
