@@ -1,9 +1,14 @@
-"""The ``hazardtrace`` command line.
+"""The ``hazardtrace`` command line (headless; ``hazardtrace gui`` is dispatched by ``gui.launcher``).
 
-``hazardtrace demo`` runs the main job on the bundled invented demo model: simulate patient
-histories in continuous time under both strategies, solve the model exactly, compare, and run the
-cycle-based approximations side by side to show how much the cycle length, the rate conversion and
-the within-cycle correction change the answer and the decision.
+Verbs::
+
+    hazardtrace run SCENARIO      simulate; write event log, patient table, summary to a folder
+    hazardtrace compare SCENARIO  the discretization-error study: table on stdout and CSV files
+    hazardtrace check SCENARIO    validate and describe the model in words
+    hazardtrace demo              'run' on the bundled invented demo scenario
+
+Exit codes: 0 ok, 2 bad input (with the message), 1 internal error, 130 interrupted (Ctrl-C; no
+half-written output is left).
 """
 
 from __future__ import annotations
@@ -11,107 +16,269 @@ from __future__ import annotations
 import argparse
 import sys
 import time
+import traceback
+from pathlib import Path
+from typing import TextIO
 
 import numpy as np
 import pandas as pd
 
-from .demo import demo_model
-from .engine import simulate
-from .outcomes import exact_outcomes, incremental, increments_from_values, patient_outcomes, summarise
+from . import __version__
+from .demo import demo_path
+from .engine import SimulationResult, simulate_chunks
+from .exact import NoExactSolution
+from .export import ExportError, RunWriter, metadata_for, write_tidy_csv
+from .model import BACKGROUND, Clock
+from .outcomes import OutcomeAccumulator, exact_outcomes, increments_from_values, patient_outcomes
+from .scenario import Scenario, ScenarioError, load_scenario
 from .study import discretization_study
 
-__all__ = ["main", "demo_report"]
+__all__ = ["main", "describe"]
 
 SHOWN = ("life_years", "qalys_discounted", "costs_discounted")
+CAUTION = ("HazardTrace is a modelling aid, not for clinical decisions about individual patients; results "
+           "depend on the inputs. Follow local HTA guidance and have models reviewed by qualified people.")
+_CLOCK_WORDS = {Clock.AGE: "attained age", Clock.ENTRY: "time since entry", Clock.STATE: "time in the current state"}
 
 
-def demo_report(n_patients: int = 100_000, seed: int = 2026, workers: int = 2, progress=None) -> dict:
-    """Everything the demo prints, as tables: simulated vs exact outcomes, increments, error study."""
-    model = demo_model()
-    t0 = time.perf_counter()
-    run = simulate(model, n_patients, seed, workers=workers, progress=progress)
-    t_sim = time.perf_counter() - t0
-    per = patient_outcomes(run)
-    sim = summarise(per)
-    exact = exact_outcomes(model)
-    both = sim.merge(exact, on=["strategy", "outcome"])
-    both["z"] = (both["mean"] - both["value"]) / both["mcse"]
-    both = both.rename(columns={"mean": "simulated", "value": "exact"})[
-        ["strategy", "outcome", "simulated", "mcse", "exact", "z"]]
-    wtp = model.valuation.willingness_to_pay
-    comparator = model.strategy_names[0]
-    inc_sim = incremental(per, comparator, wtp)
-    inc_exact = increments_from_values(exact, comparator, wtp).melt(
-        id_vars=["strategy", "comparator"], var_name="quantity", value_name="exact")
-    inc = inc_sim.merge(inc_exact, on=["strategy", "comparator", "quantity"])
-    t1 = time.perf_counter()
-    study = discretization_study(model)
-    t_study = time.perf_counter() - t1
-    return {"model": model, "run": run, "outcomes": both, "increments": inc, "study": study,
-            "seconds_simulation": t_sim, "seconds_study": t_study}
+class _Progress:
+    """A progress bar on stderr: redrawn in place on a terminal, a line per 10% otherwise."""
+
+    def __init__(self, label: str, stream: TextIO = sys.stderr) -> None:
+        self.label, self.stream, self.last = label, stream, -1
+        self.tty = hasattr(stream, "isatty") and stream.isatty()
+
+    def __call__(self, done: int, total: int | None) -> None:
+        if not total:
+            return
+        pct = int(100 * done / total)
+        if self.tty:
+            bar = "#" * (pct // 4)
+            self.stream.write(f"\r{self.label} [{bar:<25}] {pct:3d}% ({done:,}/{total:,})")
+            if done >= total:
+                self.stream.write("\n")
+        elif pct // 10 != self.last // 10 or done >= total:
+            self.stream.write(f"{self.label}: {pct}% ({done:,}/{total:,})\n")
+        self.last = pct
+        self.stream.flush()
 
 
-def _progress_printer(stream=sys.stderr):
-    def report(done: int, total: int) -> None:
-        stream.write(f"\rsimulating: {done:,}/{total:,} patients ({100 * done / total:.0f}%)")
-        if done == total:
-            stream.write("\n")
-        stream.flush()
-    return report
+def describe(scenario: Scenario) -> str:
+    """The model in words (for ``check``)."""
+    m = scenario.model
+    lines = [f"{m.name}", ""]
+    lines.append("States: " + ", ".join(f"{s.name}{' (absorbing)' if s.absorbing else ''}" for s in m.states))
+    lines.append("Transitions:")
+    for t in m.transitions:
+        lines.append(f"  {t.name}: {t.source} -> {t.target}, {t.hazard.family} {t.hazard.params()} "
+                     f"on {_CLOCK_WORDS[t.clock]}")
+    if m.background is not None:
+        bg = m.background
+        for sex, h in bg.hazards.items():
+            lines.append(f"  {BACKGROUND} ({sex}): every living state -> {bg.target}, {h.family} "
+                         f"on {_CLOCK_WORDS[bg.clock]}")
+    p = m.population
+    lines.append(f"Population: start in {p.initial_state!r}, entry age {type(p.entry_age).__name__} "
+                 f"(mean {p.entry_age.mean:.1f}), sex mix {dict(p.sex_mix)}")
+    lines.append(f"Horizon: {m.horizon.value:g} {'years since entry' if m.horizon.scale == 'time' else '(attained age)'}")
+    lines.append("Strategies:")
+    for st in m.strategies:
+        parts = [f"hazard ratio {v:g} on {k}" for k, v in st.hazard_ratios.items()]
+        parts += [f"{k} replaced by {h.family}" for k, h in st.replacements.items()]
+        parts += [f"+{v:g}/year in {k}" for k, v in st.state_costs.items()]
+        lines.append(f"  {st.name}: " + ("; ".join(parts) if parts else "as defined"))
+    v = m.valuation
+    lines.append(f"Discount rates: costs {100 * v.discount_costs:g}%, effects {100 * v.discount_effects:g}% per "
+                 f"year; willingness to pay {v.willingness_to_pay:,.0f} {v.currency} per QALY")
+    lines.append("Markov (exact solution available)" if m.is_markov else
+                 f"Semi-Markov through {m.semi_markov_transitions()}: no exact solution; a large simulation "
+                 f"serves as the reference")
+    for note in scenario.conversions:
+        lines.append(f"Conversion: {note}")
+    return "\n".join(lines)
 
 
 def _study_summary(study) -> pd.DataFrame:
-    """Per conversion and cycle length, with the half-cycle correction: relative error of discounted
-    QALYs and costs (first strategy) and whether any correction changes the decision."""
+    """Per conversion and cycle length, with the half-cycle correction: relative errors of life years,
+    discounted QALYs and costs (first strategy; outcomes that are all zero are left out) and whether
+    any correction changes the decision."""
     t = study.table
-    comp = t["strategy"].iloc[0]
-    sel = t[(t["correction"] == "half-cycle") & (t["strategy"] == comp)]
-    wide = sel.pivot_table(index=["method", "cycle_length"], columns="outcome", values="relative_error")
-    out = pd.DataFrame({"QALY error %": 100 * wide["qalys_discounted"], "cost error %": 100 * wide["costs_discounted"]})
+    first = t["strategy"].iloc[0]
+    sel = t[(t["correction"] == "half-cycle") & (t["strategy"] == first)]
+    wide = sel.pivot_table(index=["method", "cycle_length"], columns="outcome", values="relative_error",
+                           dropna=False).reindex(columns=["life_years", "qalys_discounted", "costs_discounted"])
+    out = pd.DataFrame({"life-year error %": 100 * wide["life_years"],
+                        "QALY error %": 100 * wide["qalys_discounted"],
+                        "cost error %": 100 * wide["costs_discounted"]}).dropna(axis=1, how="all")
     if len(study.decisions):
         flips = study.decisions.groupby(["method", "cycle_length"])["changes_decision"].any()
         out["decision changes"] = flips.reindex(out.index).map({True: "yes", False: "no"})
     out = out.reset_index()
-    out["cycle"] = out["cycle_length"].map(lambda h: {1 / 52: "week", 1 / 12: "month", 0.25: "quarter",
-                                                      0.5: "half year", 1.0: "year", 2.0: "2 years"}.get(h, f"{h:g} y"))
-    return out[["method", "cycle"] + [c for c in out.columns if c not in ("method", "cycle", "cycle_length")]]
+    out["cycle (years)"] = out["cycle_length"].map(lambda h: f"{h:.4g}")
+    return out[["method", "cycle (years)"] + [c for c in out.columns
+                                              if c not in ("method", "cycle (years)", "cycle_length")]]
 
 
-def _cmd_demo(args: argparse.Namespace) -> int:
-    rep = demo_report(args.patients, args.seed, args.workers, _progress_printer())
-    model, val = rep["model"], rep["model"].valuation
-    print(f"{model.name}: {args.patients:,} simulated patients per strategy (seed {args.seed}), "
-          f"{len(rep['run'].events):,} events in {rep['seconds_simulation']:.1f} s")
-    print(f"Horizon: attained age {model.horizon.value:g}. Discounting {100 * val.discount_costs:g}% costs, "
-          f"{100 * val.discount_effects:g}% effects. Willingness to pay {val.willingness_to_pay:,.0f} per QALY.\n")
-    fmt = {"display.float_format": "{:,.4f}".format, "display.width": 140, "display.max_rows": 200}
-    with pd.option_context(*[x for kv in fmt.items() for x in kv]):
-        print("Simulated (mean, Monte Carlo standard error) vs exact (Kolmogorov forward equations):")
-        shown = rep["outcomes"][rep["outcomes"]["outcome"].isin(SHOWN + tuple(
-            o for o in rep["outcomes"]["outcome"].unique() if o.startswith("years in")))]
-        print(shown.to_string(index=False))
-        print("\nIncremental analysis vs the first strategy (mcse from paired differences, common random numbers):")
-        print(rep["increments"].to_string(index=False))
-        print(f"\nCycle-based approximations vs exact (half-cycle correction; full table of "
-              f"{len(rep['study'].table):,} rows computed in {rep['seconds_study']:.2f} s):")
-        print(_study_summary(rep["study"]).to_string(index=False))
-    print("\nThis model and its numbers are invented for demonstration. HazardTrace is a modelling aid, "
-          "not for clinical decisions about individual patients; follow local HTA guidance.")
-    ok = np.isfinite(rep["outcomes"][["simulated", "exact"]].to_numpy()).all()
-    return 0 if ok else 1
+def _print_table(df: pd.DataFrame, out: TextIO) -> None:
+    with pd.option_context("display.float_format", "{:,.4f}".format, "display.width", 160,
+                           "display.max_rows", 500, "display.max_columns", 20):
+        out.write(df.to_string(index=False) + "\n")
 
 
-def main(argv: list[str] | None = None) -> int:
-    parser = argparse.ArgumentParser(prog="hazardtrace", description=__doc__.splitlines()[0])
+def _run(scenario: Scenario, args: argparse.Namespace, out: TextIO) -> int:
+    model, settings = scenario.model, scenario.run
+    n = args.patients or settings.patients
+    seed = settings.seed if args.seed is None else args.seed
+    workers = args.threads or settings.workers
+    chunk = min(settings.chunk_size, max(1000, n // 20))
+    folder = Path(args.output) if args.output else Path("out") / (scenario.path.stem if scenario.path else "run")
+    comparator = model.strategy_names[0]
+    wtp = model.valuation.willingness_to_pay
+    acc = OutcomeAccumulator(comparator, wtp)
+    meta = metadata_for(scenario.text, seed, n, extra={
+        "scenario_file": str(scenario.path) if scenario.path else None, "threads": workers, "chunk_size": chunk,
+        "format": args.format, "conversions": list(scenario.conversions), "command": "run"})
+    t0 = time.perf_counter()
+    events = 0
+    with RunWriter(folder, fmt=args.format, force=args.force, metadata=meta,
+                   long_format_model=model if args.long_format else None,
+                   progress=_Progress("simulating")) as writer:
+        for ev, pt in simulate_chunks(model, n, seed, chunk_size=chunk, workers=workers):
+            res = SimulationResult(model, seed, int(pt["patient"].nunique()), ev, pt, chunk, workers,
+                                   {"strategies": model.strategy_names})
+            acc.add(patient_outcomes(res))
+            events += len(ev)
+            writer.write_chunk(ev, pt)
+        seconds = time.perf_counter() - t0
+        summary = acc.summary()
+        increments = acc.increments()
+        exact_note = ""
+        try:
+            exact = exact_outcomes(model)
+            summary = summary.merge(exact.rename(columns={"value": "exact"}), on=["strategy", "outcome"], how="left")
+            summary["z"] = (summary["mean"] - summary["exact"]) / summary["mcse"]
+            if len(increments):
+                ex_inc = increments_from_values(exact, comparator, wtp).melt(
+                    id_vars=["strategy", "comparator"], var_name="quantity", value_name="exact")
+                increments = increments.merge(ex_inc, on=["strategy", "comparator", "quantity"], how="left")
+        except NoExactSolution as err:
+            exact_note = str(err)
+        writer.add_table("summary", summary)
+        writer.add_table("increments", increments)
+        study = None
+        if not args.no_study:
+            study = discretization_study(model, cycle_lengths=settings.cycle_lengths, tolerance=settings.tolerance,
+                                         n_patients=min(n, 200_000), seed=seed)
+            writer.add_table("error_study", study.table)
+            writer.add_table("error_study_orders", study.orders)
+            writer.add_table("error_study_largest_cycle", study.largest_cycle)
+            if len(study.decisions):
+                writer.add_table("error_study_decisions", study.decisions)
+    out.write(f"{model.name}: {n:,} simulated patients per strategy (seed {seed}, {workers} threads), "
+              f"{events:,} events in {seconds:.1f} s\nOutput: {folder}/ ({args.format})\n")
+    v = model.valuation
+    out.write(f"Horizon: {model.horizon.value:g} {'years' if model.horizon.scale == 'time' else '(attained age)'}. "
+              f"Discounting {100 * v.discount_costs:g}% costs, {100 * v.discount_effects:g}% effects. "
+              f"Willingness to pay {v.willingness_to_pay:,.0f} {v.currency} per QALY.\n\n")
+    shown = summary[summary["outcome"].isin(SHOWN) | summary["outcome"].str.startswith("years in")]
+    out.write("Simulated (mean, Monte Carlo standard error)" + (" vs exact (Kolmogorov forward equations):\n"
+                                                               if not exact_note else f":\n({exact_note})\n"))
+    _print_table(shown.drop(columns=["n"]), out)
+    if len(increments):
+        out.write(f"\nIncremental analysis vs {comparator!r} (mcse from paired differences, common random numbers):\n")
+        _print_table(increments, out)
+    if study is not None:
+        out.write(f"\nCycle-based approximations vs the {study.reference_kind} reference (half-cycle correction; "
+                  f"full table in {folder}/error_study.csv):\n")
+        _print_table(_study_summary(study), out)
+    out.write(f"\n{CAUTION}\n")
+    return 0
+
+
+def _compare(scenario: Scenario, args: argparse.Namespace, out: TextIO) -> int:
+    settings = scenario.run
+    study = discretization_study(scenario.model, cycle_lengths=settings.cycle_lengths,
+                                 tolerance=args.tolerance or settings.tolerance, relative=not args.absolute,
+                                 n_patients=args.patients or min(settings.patients, 200_000), seed=settings.seed)
+    csv = Path(args.csv) if args.csv else Path(f"{scenario.path.stem if scenario.path else 'scenario'}_error_study.csv")
+    write_tidy_csv(study.table, csv, force=args.force)
+    out.write(f"{scenario.model.name}: reference {study.reference_kind}; {len(study.table):,} rows written to {csv}\n\n")
+    _print_table(_study_summary(study), out)
+    largest = study.largest_cycle
+    first = scenario.model.strategy_names[0]
+    sel = largest[(largest["strategy"] == first) & largest["outcome"].isin(SHOWN)]
+    out.write(f"\nLargest cycle length within {sel['tolerance'].iloc[0]:g} ({sel['tolerance_kind'].iloc[0]}), "
+              f"{first!r}:\n")
+    _print_table(sel.pivot_table(index=["method", "correction"], columns="outcome",
+                                 values="largest_cycle_length").reset_index(), out)
+    for note in study.notes:
+        out.write(f"Note: {note}\n")
+    return 0
+
+
+def _check(scenario: Scenario, args: argparse.Namespace, out: TextIO) -> int:
+    out.write(describe(scenario) + "\n\nThe scenario is valid.\n")
+    return 0
+
+
+def _parser() -> argparse.ArgumentParser:
+    parser = argparse.ArgumentParser(prog="hazardtrace", description="Continuous-time patient-history simulation, "
+                                     "exact solutions and cycle-based approximations for health decision models.")
+    parser.add_argument("--version", action="version", version=f"HazardTrace {__version__}")
     sub = parser.add_subparsers(dest="command", required=True)
-    demo = sub.add_parser("demo", help="simulate the bundled invented demo model, solve it exactly and "
-                                       "compare the cycle-based approximations")
-    demo.add_argument("--patients", type=int, default=100_000, help="patients per strategy (default 100000)")
-    demo.add_argument("--seed", type=int, default=2026, help="random seed (default 2026)")
-    demo.add_argument("--workers", type=int, default=2, help="worker threads (default 2)")
-    demo.set_defaults(func=_cmd_demo)
-    args = parser.parse_args(argv)
-    return args.func(args)
+
+    def common_run(p: argparse.ArgumentParser) -> None:
+        p.add_argument("--patients", type=int, help="patients per strategy (default: the scenario's run.patients)")
+        p.add_argument("--seed", type=int, help="random seed (default: the scenario's run.seed)")
+        p.add_argument("--threads", type=int, help="worker threads (default: the scenario's run.workers)")
+        p.add_argument("--format", choices=("parquet", "csv"), default="parquet", help="table format (default parquet)")
+        p.add_argument("--output", help="output folder (default out/<scenario name>)")
+        p.add_argument("--force", action="store_true", help="replace an existing output folder")
+        p.add_argument("--long-format", action="store_true",
+                       help="also write the multi-state long format (one row per patient per transition at risk)")
+        p.add_argument("--no-study", action="store_true", help="skip the discretization-error study")
+
+    run = sub.add_parser("run", help="simulate a scenario and write the event log, patient table and summary")
+    run.add_argument("scenario", help="scenario file (.toml)")
+    common_run(run)
+    run.set_defaults(func=_run)
+    demo = sub.add_parser("demo", help="'run' on the bundled invented demo scenario (output in out/demo)")
+    common_run(demo)
+    demo.set_defaults(func=_run, scenario=None)
+    cmp_ = sub.add_parser("compare", help="discretization-error study: table on stdout and a CSV")
+    cmp_.add_argument("scenario", help="scenario file (.toml)")
+    cmp_.add_argument("--csv", help="CSV file for the full table (default <scenario>_error_study.csv)")
+    cmp_.add_argument("--tolerance", type=float, help="accuracy asked of each outcome (default: run.tolerance)")
+    cmp_.add_argument("--absolute", action="store_true", help="tolerance in the outcome's unit, not relative")
+    cmp_.add_argument("--patients", type=int, help="simulation size of the reference for semi-Markov models")
+    cmp_.add_argument("--force", action="store_true", help="replace an existing CSV")
+    cmp_.set_defaults(func=_compare)
+    chk = sub.add_parser("check", help="validate a scenario and describe the model in words")
+    chk.add_argument("scenario", help="scenario file (.toml)")
+    chk.set_defaults(func=_check)
+    return parser
+
+
+def main(argv: list[str] | None = None, out: TextIO | None = None) -> int:
+    out = out or sys.stdout
+    args = _parser().parse_args(argv)
+    try:
+        if args.command == "demo":
+            args.scenario = str(demo_path())
+            args.output = args.output or str(Path("out") / "demo")
+        scenario = load_scenario(args.scenario)
+        return args.func(scenario, args, out)
+    except (ScenarioError, ExportError, ValueError) as err:
+        sys.stderr.write(f"hazardtrace: error: {err}\n")
+        return 2
+    except KeyboardInterrupt:
+        sys.stderr.write("\nhazardtrace: interrupted; no partial output was left behind\n")
+        return 130
+    except BrokenPipeError:  # e.g. piped into 'head'
+        return 0
+    except Exception:  # pragma: no cover - a bug: show it
+        sys.stderr.write("hazardtrace: internal error, please report:\n" + traceback.format_exc())
+        return 1
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -39,7 +39,7 @@ import pandas as pd
 from numpy.typing import NDArray
 
 from .exact import population_pairs
-from .matrix_exp import expm_batched
+from .matrix_exp import expm_batched, expm_rows
 from .model import Clock, Model, ResolvedExit
 from .outcomes import _combine
 
@@ -169,12 +169,14 @@ def _space(model: Model, tunnel_cycles: int | None) -> _Space:
 
 def _rates(ex: ResolvedExit, sex: NDArray[np.int64], start: NDArray[np.float64], t: NDArray[np.float64],
            dt: NDArray[np.float64], rule: RateRule) -> NDArray[np.float64]:
-    """Rate of one exit over cycles [t, t + dt] for clock readings ``start + t`` (arrays (m, K))."""
+    """Rate of one exit over cycles [t, t + dt] for clock readings ``start + t``; arrays of any
+    shape whose first axis is the stratum (matching ``sex``)."""
+    start, t, dt = np.broadcast_arrays(start, t, dt)
     x = start + t
-    out = np.zeros_like(t)
+    out = np.zeros(x.shape)
     live = dt > 0
     for code, h in enumerate(ex.hazards):
-        rows = (sex == code)[:, None] & live
+        rows = (sex == code).reshape((-1,) + (1,) * (x.ndim - 1)) & live
         if not rows.any():
             continue
         if rule is RateRule.MIDPOINT:
@@ -250,67 +252,98 @@ def cohort_trace(model: Model, strategy: str, cycle_length: float, conversion: s
     jump = np.zeros((m, n_cycles))
     negative = 0
 
-    exit_to_state = np.zeros((n_exits, n_exp))
+    exit_target = np.zeros((n_exits, n_states))  # each exit's model target state
     for per in resolved:
         for ex in per:
-            exit_to_state[ex.index, space.first[ex.target]] = 1.0
+            exit_target[ex.index, ex.target] = 1.0
     to_model = np.zeros((n_exp, n_states))
     to_model[np.arange(n_exp), space.model_state] = 1.0
+    tunnel = np.array([space.next_copy[i] != i or space.copy[i] > 0 for i in range(n_exp)])
+    # contiguous tunnel blocks (first copy, last copy): mass that made no move advances one copy
+    tunnel_blocks = [(int(space.first[j]), int(space.first[j]) + int((space.model_state == j).sum()) - 1)
+                     for j in range(n_states) if (space.model_state == j).sum() > 1]
+    # Matrix exponential: one model-space generator per "variant": variant 0 uses every state's entry
+    # copy; a tunnel copy c >= 1 of state s uses copy c's rates for s (re-entry within the same cycle
+    # would restart at copy 0: a second-order effect, neglected). Source i reads row s_i of its variant.
+    variant = np.zeros(n_exp, dtype=int)
+    variant_rows: list[NDArray[np.int64]] = [space.first.copy()]
+    for i in range(n_exp):
+        if space.copy[i] > 0:
+            rows = space.first.copy()
+            rows[space.model_state[i]] = i
+            variant[i] = len(variant_rows)
+            variant_rows.append(rows)
+    variant_rows_arr = np.array(variant_rows)  # (V, n_states): expanded source used for each model row
+    n_var = len(variant_rows)
 
     def collapse(v: NDArray[np.float64]) -> NDArray[np.float64]:
         return v @ to_model
 
     occupancy[:, 0] = collapse(x)
-    block = max(1, block_cells // max(1, m * n_exp * n_exp))
+    per_cycle = m * (n_exp * (n_states + n_exits) + (n_var * n_states * n_states * 4 if conversion is Conversion.EXPM else 0))
+    block = max(1, block_cells // max(1, per_cycle))
     for k0 in range(0, n_cycles, block):
         k1 = min(n_cycles, k0 + block)
         nb = k1 - k0
         t = times[:, k0:k1].T  # (B, m)
         dt = dt_all[:, k0:k1].T
-        # Q: generator (B, m, N, N) of the cycle's rates; R: per-source rate of each model exit
-        Q = np.zeros((nb, m, n_exp, n_exp))
+        # R: rate of each model exit from each expanded source over the cycle, (B, m, N, E)
         R = np.zeros((nb, m, n_exp, n_exits))
-        for i in range(n_exp):
-            s_i, c_i = int(space.model_state[i]), int(space.copy[i])
-            for ex in resolved[s_i]:
-                if ex.clock is Clock.AGE:
-                    start, tt = age[None, :], t
-                elif ex.clock is Clock.ENTRY:
-                    start, tt = np.zeros((1, m)), t
-                else:  # time in state: tunnel copy c has spent c whole cycles in s at the cycle start
-                    start, tt = np.full((1, m), c_i * h), np.zeros_like(t)
-                r = _rates(ex, sex, np.broadcast_to(start, t.shape).T, tt.T, dt.T, rate_rule).T
-                Q[:, :, i, space.first[ex.target]] += r
-                Q[:, :, i, i] -= r
-                R[:, :, i, ex.index] += r
+        tm, dtm = t.T, dt.T  # (m, B)
+        for j in range(n_states):
+            src = np.flatnonzero(space.model_state == j)  # expanded copies of state j
+            for ex in resolved[j]:
+                if ex.clock is Clock.STATE:  # copy c has spent c whole cycles in the state at the cycle start
+                    c = (space.copy[src] * h)[None, None, :]
+                    r = _rates(ex, sex, c, np.zeros((m, 1, 1)), dtm[:, :, None], rate_rule)  # (m, B, L)
+                    R[:, :, src, ex.index] += np.moveaxis(r, 0, 1)
+                else:
+                    start = age[:, None] if ex.clock is Clock.AGE else np.zeros((m, 1))
+                    r = _rates(ex, sex, start, tm, dtm, rate_rule)  # (m, B)
+                    R[:, :, src, ex.index] += r.T[:, :, None]
+        total = R.sum(axis=-1)  # (B, m, N) total exit rate per source
+        stay_through = np.where(tunnel, np.exp(-total * dt[:, :, None]), 0.0)  # no move at all
         if conversion is Conversion.EXPM:
-            P = expm_batched(Q * dt[:, :, None, None])
-            jo = _jump_over(Q, dt)
+            to_rate = R @ exit_target  # (B, m, N, n): rate from each source into each model state
+            Q = to_rate[:, :, variant_rows_arr, :]  # (B, m, V, n, n)
+            idx = np.arange(n_states)
+            Q[..., idx, idx] -= total[:, :, variant_rows_arr]
+            Qdt = Q * dt[:, :, None, None, None]
+            rows = np.empty((nb, m, n_exp, n_states))
+            base = expm_batched(Qdt[:, :, 0])  # variant 0: every row is used
+            plain = variant == 0
+            rows[:, :, plain] = base[:, :, space.model_state[plain]]
+            if n_var > 1:  # tunnel copies c >= 1 need one row each
+                tun = np.flatnonzero(~plain)
+                rows[:, :, tun] = expm_rows(Qdt[:, :, variant[tun]], space.model_state[tun])
+            jo = _jump_over(Q, dt[:, :, None])[:, :, variant, space.model_state]  # (B, m, N)
+            # a tunnel copy's mass that made no move advances to the next copy, not the entry copy
+            rows[:, :, np.arange(n_exp), space.model_state] -= stay_through
         else:
             if conversion is Conversion.PER_TRANSITION:
                 exit_prob = -np.expm1(-R * dt[:, :, None, None])  # each exit on its own
             else:
-                total = R.sum(axis=-1)  # (B, m, N) total exit rate per source
                 scale = np.divide(-np.expm1(-total * dt[:, :, None]), total,
                                   out=np.zeros_like(total), where=total > 0)
                 exit_prob = R * scale[..., None]
-            prob = exit_prob @ exit_to_state  # exits into their target states
-            stay = 1.0 - prob.sum(axis=-1)
+            rows = exit_prob @ exit_target  # exits into their target states
+            stay = 1.0 - exit_prob.sum(axis=-1)
             negative += int((stay < -1e-15).sum())
-            P = prob
-            np.add.at(np.moveaxis(P, (2, 3), (0, 1)), (np.arange(n_exp), space.next_copy),
-                      np.moveaxis(stay, 2, 0))
-        if conversion is Conversion.EXPM:
-            # tunnel progression: mass still in copy i after the cycle moves to the next copy
-            for i in range(n_exp):
-                nxt = space.next_copy[i]
-                if nxt != i:
-                    P[:, :, i, nxt] += P[:, :, i, i]
-                    P[:, :, i, i] = 0.0
+            stay_through = np.where(tunnel, stay, 0.0)
+            own = np.where(tunnel, 0.0, stay)
+            rows[:, :, np.arange(n_exp), space.model_state] += own
         xs = np.empty((nb + 1, m, n_exp))
         xs[0] = x
         for b_ in range(nb):  # the only sequential step: x_{k+1} = x_k P_k
-            xs[b_ + 1] = np.matmul(xs[b_][:, None, :], P[b_])[:, 0, :]
+            y = np.matmul(xs[b_][:, None, :], rows[b_])[:, 0, :]  # into model states (entry copies)
+            nxt = np.zeros((m, n_exp))
+            nxt[:, space.first] = y
+            if tunnel.any():
+                moved = xs[b_] * stay_through[b_]
+                for f, last in tunnel_blocks:  # copies f..last of one state: c -> c + 1, last stays
+                    nxt[:, f + 1:last + 1] += moved[:, f:last]
+                    nxt[:, last] += moved[:, last]
+            xs[b_ + 1] = nxt
         x = xs[nb]
         occupancy[:, k0 + 1:k1 + 1] = np.moveaxis(collapse(xs[1:]), 0, 1)
         if conversion is Conversion.EXPM:

@@ -12,6 +12,8 @@ __all__ = ["SCENARIO_DIR", "DEMOS", "demo_path", "demo_scenario", "demo_model"]
 SCENARIO_DIR = Path(__file__).resolve().parents[1] / "scenarios"
 DEMOS = {
     "lanthic": "lanthic_syndrome.toml",
+    "ferrovian": "ferrovian_progression.toml",
+    "risk-vs-rate": "constant_hazard_risk_vs_rate.toml",
 }
 
 

@@ -31,7 +31,7 @@ from .estimators import _per_patient, _prepare_log
 from .exact import population_pairs, solve_stacked
 from .model import Model
 
-__all__ = ["OUTCOMES", "patient_outcomes", "summarise", "incremental", "exact_outcomes",
+__all__ = ["OUTCOMES", "OutcomeAccumulator", "patient_outcomes", "summarise", "incremental", "exact_outcomes",
            "outcome_names", "increments_from_values"]
 
 OUTCOMES = ("life_years", "life_years_discounted", "qalys", "qalys_discounted", "costs", "costs_discounted")
@@ -181,3 +181,105 @@ def exact_outcomes(model: Model, strategies: tuple[str, ...] | None = None, n_no
                           (flows[0] @ c_exit, flows[2] @ c_exit))
         rows += [(strategy, k, float(v)) for k, v in values.items()]
     return pd.DataFrame(rows, columns=["strategy", "outcome", "value"])
+
+
+# ----------------------------------------------------------------------------- streaming summaries
+class OutcomeAccumulator:
+    """Means, MCSEs and paired increments accumulated chunk by chunk (bounded memory for runs too
+    large to keep every patient's outcomes).
+
+    Moments are kept as shifted sums (shift = the first chunk's mean) so that variances do not
+    suffer from cancellation; merging chunks this way gives the same mean and variance as the whole
+    sample (up to rounding). Paired increments need the same patient ids in every strategy within a
+    chunk, which :func:`sim.engine.simulate_chunks` guarantees.
+    """
+
+    def __init__(self, comparator: str, willingness_to_pay: float, effect: str = "qalys_discounted",
+                 cost: str = "costs_discounted") -> None:
+        self.comparator, self.wtp, self.effect, self.cost = comparator, float(willingness_to_pay), effect, cost
+        self._cols: list[str] | None = None
+        self._strategies: list[str] = []
+        self._n: dict[str, int] = {}
+        self._shift: dict[str, np.ndarray] = {}
+        self._s1: dict[str, np.ndarray] = {}
+        self._s2: dict[str, np.ndarray] = {}
+        self._pairs: dict[str, np.ndarray] = {}  # per strategy: n, shift(2), sums of dC, dE, dC^2, dE^2, dCdE
+        self._base_unpaired: dict[str, tuple] = {}
+
+    def add(self, per_patient: pd.DataFrame) -> None:
+        """Add one chunk of :func:`patient_outcomes` rows (every strategy for the same patients)."""
+        cols = [c for c in per_patient.columns if c not in ("strategy", "patient")]
+        self._cols = self._cols or cols
+        groups = {s: g for s, g in per_patient.groupby("strategy", sort=False)}
+        for s, g in groups.items():
+            x = g[self._cols].to_numpy(dtype=float)
+            if s not in self._n:
+                self._strategies.append(s)
+                self._n[s] = 0
+                self._shift[s] = x.mean(axis=0)
+                self._s1[s] = np.zeros(x.shape[1])
+                self._s2[s] = np.zeros(x.shape[1])
+            d = x - self._shift[s]
+            self._n[s] += x.shape[0]
+            self._s1[s] += d.sum(axis=0)
+            self._s2[s] += (d * d).sum(axis=0)
+        if self.comparator not in groups:
+            return
+        base = groups[self.comparator].set_index("patient")
+        for s, g in groups.items():
+            if s == self.comparator:
+                continue
+            g = g.set_index("patient")
+            if not g.index.equals(base.index):
+                raise ValueError(f"strategy {s!r} and comparator {self.comparator!r} must have the same patients")
+            dc = g[self.cost].to_numpy() - base[self.cost].to_numpy()
+            de = g[self.effect].to_numpy() - base[self.effect].to_numpy()
+            if s not in self._pairs:
+                self._pairs[s] = np.array([0.0, dc.mean(), de.mean(), 0, 0, 0, 0, 0])
+            acc = self._pairs[s]
+            a, b = dc - acc[1], de - acc[2]
+            acc[0] += dc.size
+            acc[3:] += [a.sum(), b.sum(), (a * a).sum(), (b * b).sum(), (a * b).sum()]
+
+    def _mean_var(self, s: str) -> tuple[np.ndarray, np.ndarray, int]:
+        n = self._n[s]
+        m1 = self._s1[s] / n
+        var = (self._s2[s] - n * m1 * m1) / max(n - 1, 1)
+        return self._shift[s] + m1, np.maximum(var, 0.0), n
+
+    def summary(self) -> pd.DataFrame:
+        """strategy, outcome, mean, mcse, n — as :func:`summarise`."""
+        rows = []
+        for s in self._strategies:
+            mean, var, n = self._mean_var(s)
+            se = np.sqrt(var / n) if n > 1 else np.full_like(mean, np.nan)
+            rows += [(s, c, mean[j], se[j], n) for j, c in enumerate(self._cols or [])]
+        return pd.DataFrame(rows, columns=["strategy", "outcome", "mean", "mcse", "n"])
+
+    def increments(self) -> pd.DataFrame:
+        """As :func:`incremental`: paired and unpaired MCSE of delta costs, delta effects, ICER, NMB."""
+        rows = []
+        cols = self._cols or []
+        ic, ie = cols.index(self.cost), cols.index(self.effect)
+        _, var_b, _ = self._mean_var(self.comparator)
+        for s, acc in self._pairs.items():
+            n = acc[0]
+            ma, mb = acc[3] / n, acc[4] / n
+            m_dc, m_de = acc[1] + ma, acc[2] + mb
+            v_dc = (acc[5] - n * ma * ma) / (n - 1)
+            v_de = (acc[6] - n * mb * mb) / (n - 1)
+            cov = (acc[7] - n * ma * mb) / (n - 1)
+            _, var_s, _ = self._mean_var(s)
+            v_dc_u, v_de_u = var_s[ic] + var_b[ic], var_s[ie] + var_b[ie]
+            icer = m_dc / m_de if m_de != 0 else np.nan
+            se_icer = np.sqrt(max(v_dc - 2 * icer * cov + icer**2 * v_de, 0.0) / n) / abs(m_de) if m_de else np.nan
+            se_icer_u = np.sqrt(max(v_dc_u + icer**2 * v_de_u, 0.0) / n) / abs(m_de) if m_de else np.nan
+            v_nmb = self.wtp**2 * v_de + v_dc - 2 * self.wtp * cov
+            rows += [
+                (s, self.comparator, "delta_costs", m_dc, np.sqrt(v_dc / n), np.sqrt(v_dc_u / n)),
+                (s, self.comparator, "delta_effects", m_de, np.sqrt(v_de / n), np.sqrt(v_de_u / n)),
+                (s, self.comparator, "icer", icer, se_icer, se_icer_u),
+                (s, self.comparator, "nmb", self.wtp * m_de - m_dc, np.sqrt(max(v_nmb, 0.0) / n),
+                 np.sqrt((self.wtp**2 * v_de_u + v_dc_u) / n)),
+            ]
+        return pd.DataFrame(rows, columns=["strategy", "comparator", "quantity", "value", "mcse", "mcse_unpaired"])

@@ -34,7 +34,7 @@ from .outcomes import exact_outcomes, increments_from_values, outcome_names, pat
 __all__ = ["DEFAULT_CYCLE_LENGTHS", "StudyResult", "discretization_study", "observed_order"]
 
 DEFAULT_CYCLE_LENGTHS = (1 / 52, 1 / 12, 1 / 4, 1 / 2, 1.0, 2.0)
-MAX_TUNNEL_STATES = 400
+MAX_TUNNEL_STATES = 240
 
 
 @dataclass(frozen=True)
@@ -57,6 +57,20 @@ def observed_order(h: np.ndarray, error: np.ndarray, floor: float) -> float:
     if keep.sum() < 2:
         return float("nan")
     return float(np.polyfit(np.log(h[keep]), np.log(error[keep]), 1)[0])
+
+
+def default_tunnel_years(model: Model, follow: float) -> float:
+    """Time in state worth tracking with tunnel states: until the semi-Markov exits alone would leave
+    at most 0.1% of entrants in the state (H = ln 1000), capped by the longest follow-up."""
+    names = set(model.semi_markov_transitions())
+    longest = 0.0
+    for strategy in model.strategy_names:
+        for exits in model.resolve(strategy):
+            for ex in exits:
+                if ex.name in names:
+                    for h in ex.hazards:
+                        longest = max(longest, float(h.inv_cumhazard(np.log(1000.0))))
+    return min(follow, longest) if longest > 0 else follow
 
 
 def _reference(model: Model, n_patients: int, seed: int, n_nodes: int) -> tuple[pd.DataFrame, str]:
@@ -108,6 +122,11 @@ def discretization_study(model: Model, cycle_lengths: tuple[float, ...] = DEFAUL
         notes.append(f"no exact reference: transitions {model.semi_markov_transitions()} are semi-Markov; "
                      f"the reference is a {kind} with the Monte Carlo standard errors in 'reference'")
     follow = float(model.horizon.time_limit(np.array([model.population.entry_age.low]))[0])
+    if not model.is_markov and tunnel_years is None:
+        tunnel_years = default_tunnel_years(model, follow)
+        notes.append(f"tunnel states track time in state up to {tunnel_years:.3g} years (until the semi-Markov "
+                     f"exits alone would leave at most 0.1% in the state, or the longest follow-up); the last "
+                     f"tunnel state keeps the hazard at that duration")
     tasks = []
     for h in sorted(cycle_lengths):
         tunnels = None

@@ -1,13 +1,76 @@
-"""The command line's demo: it runs end to end and prints the three comparisons."""
+"""Command line end to end on each demo scenario: exit codes, files, columns, messages."""
+
+from __future__ import annotations
+
+import io
+import json
+from pathlib import Path
+
+import pandas as pd
+import pytest
 
 from sim.cli import main
+from sim.demo import DEMOS, SCENARIO_DIR
 
 
-def test_demo_command_runs(capsys):
-    assert main(["demo", "--patients", "3000", "--workers", "1", "--seed", "5"]) == 0
-    out = capsys.readouterr().out
-    for heading in ("3,000 simulated patients per strategy (seed 5)", "Simulated (mean, Monte Carlo standard error) vs exact",
-                    "Incremental analysis", "Cycle-based approximations vs exact", "not for clinical decisions"):
-        assert heading in out
-    for method in ("per-transition", "competing-exit", "matrix-exponential"):
-        assert method in out
+def _run(args: list[str]) -> tuple[int, str]:
+    out = io.StringIO()
+    code = main(args, out=out)
+    return code, out.getvalue()
+
+
+@pytest.mark.parametrize("name", sorted(DEMOS))
+def test_run_writes_tables_summary_and_metadata(name, tmp_path):
+    scen = SCENARIO_DIR / DEMOS[name]
+    folder = tmp_path / "out"
+    code, text = _run(["run", str(scen), "--patients", "3000", "--threads", "1", "--output", str(folder),
+                       "--format", "csv", "--long-format"])
+    assert code == 0, text
+    assert "simulated patients per strategy" in text and "not for clinical decisions" in text
+    events = pd.read_csv(folder / "events.csv")
+    patients = pd.read_csv(folder / "patients.csv")
+    assert list(events.columns) == ["strategy", "patient", "time", "age", "from_state", "to_state", "transition"]
+    assert len(patients) == 3000 * patients["strategy"].nunique()
+    lf = pd.read_csv(folder / "long_format.csv")
+    assert (lf["status"] == 1).sum() == len(events)  # one status-1 row per move
+    summary = pd.read_csv(folder / "summary.csv")
+    assert {"strategy", "outcome", "mean", "mcse"} <= set(summary.columns)
+    assert (folder / "error_study.csv").exists()
+    meta = json.loads((folder / "metadata.json").read_text())
+    assert meta["seed"] is not None and meta["patients"] == 3000
+    assert meta["scenario_sha256"] if "scenario_sha256" in meta else meta.get("scenario_hash")
+    # an existing output folder is never overwritten without --force
+    code, _ = _run(["run", str(scen), "--patients", "100", "--output", str(folder), "--no-study"])
+    assert code == 2
+    code, _ = _run(["run", str(scen), "--patients", "100", "--output", str(folder), "--no-study", "--force"])
+    assert code == 0
+    assert len(pd.read_parquet(folder / "patients.parquet")) == 100 * patients["strategy"].nunique()
+
+
+def test_check_describes_the_model():
+    code, text = _run(["check", str(SCENARIO_DIR / DEMOS["lanthic"])])
+    assert code == 0
+    for words in ("States: well, lanthic, dead (absorbing)", "onset: well -> lanthic", "time since entry",
+                  "hazard ratio 0.7 on onset", "The scenario is valid."):
+        assert words in text
+
+
+def test_compare_writes_the_study(tmp_path):
+    csv = tmp_path / "study.csv"
+    code, text = _run(["compare", str(SCENARIO_DIR / DEMOS["risk-vs-rate"]), "--csv", str(csv)])
+    assert code == 0, text
+    table = pd.read_csv(csv)
+    assert {"outcome", "strategy", "cycle_length", "method", "correction", "value", "error",
+            "relative_error"} <= set(table.columns)
+    assert "Largest cycle length within" in text
+
+
+def test_bad_input_exits_2_with_the_message(tmp_path, capsys):
+    bad = tmp_path / "bad.toml"
+    bad.write_text((SCENARIO_DIR / DEMOS["lanthic"]).read_text().replace("rate = 0.15 ", "rate = -0.15 "))
+    code, _ = _run(["check", str(bad)])
+    assert code == 2
+    err = capsys.readouterr().err
+    assert "bad.toml:" in err and "transitions[1].rate: must be >= 0, got -0.15" in err
+    code, _ = _run(["check", str(tmp_path / "missing.toml")])
+    assert code == 2

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import numpy as np
+import pandas as pd
 import pytest
 
 from sim.engine import simulate
@@ -79,3 +80,27 @@ def test_valuation_errors():
         Valuation(discount_costs=1.5)
     with pytest.raises(ValuationError, match="state_costs\\['x'\\] must be a finite number, got nan"):
         Valuation(state_costs={"x": float("nan")})
+
+
+def test_streaming_accumulator_equals_whole_sample(two_strategies):
+    # Chunk-by-chunk moments give the same means, MCSEs and paired increments as the whole table.
+    from sim.engine import SimulationResult, simulate_chunks
+    from sim.outcomes import OutcomeAccumulator
+
+    acc = OutcomeAccumulator("standard", VAL.willingness_to_pay)
+    parts = []
+    for ev, pt in simulate_chunks(two_strategies, 3000, seed=8, chunk_size=700):
+        res = SimulationResult(two_strategies, 8, pt["patient"].nunique(), ev, pt, 700, 1,
+                               {"strategies": two_strategies.strategy_names})
+        per = patient_outcomes(res)
+        acc.add(per)
+        parts.append(per)
+    whole = pd.concat(parts, ignore_index=True)
+    a, b = acc.summary(), summarise(whole)
+    np.testing.assert_allclose(a["mean"], b["mean"], rtol=1e-12)
+    np.testing.assert_allclose(a["mcse"], b["mcse"], rtol=1e-9)
+    inc_a = acc.increments().set_index("quantity")
+    inc_b = incremental(whole, "standard", VAL.willingness_to_pay).set_index("quantity")
+    np.testing.assert_allclose(inc_a["value"], inc_b["value"], rtol=1e-12)
+    np.testing.assert_allclose(inc_a["mcse"], inc_b["mcse"], rtol=1e-8)
+    np.testing.assert_allclose(inc_a["mcse_unpaired"], inc_b["mcse_unpaired"], rtol=1e-8)
