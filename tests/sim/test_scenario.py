@@ -13,6 +13,7 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
 from sim.demo import DEMOS, SCENARIO_DIR
+from sim.engine import SimulationError, simulate
 from sim.scenario import (ScenarioError, document_from_model, load_scenario, parse_duration, parse_scenario,
                           save_scenario, scenario_text)
 
@@ -168,7 +169,14 @@ def test_malformed_values_give_clear_errors_or_valid_models(key, value):
     except ScenarioError as err:
         assert str(err).startswith("fuzz.toml")
         return
-    assert s.model.states  # a valid scenario: it built a model
+    # a valid scenario must run (or stop with the engine's own clear error, e.g. a runaway loop)
+    try:
+        run = simulate(s.model, 30, seed=1, max_transitions=500)
+    except SimulationError as err:
+        assert "transitions before the horizon" in str(err)
+        return
+    assert len(run.patients) == 30 * len(s.model.strategies)
+    assert np.isfinite(run.patients["exit_time"]).all()
 
 
 @settings(max_examples=60, deadline=None, derandomize=True)
@@ -178,3 +186,17 @@ def test_truncated_files_give_clear_errors(cut):
         parse_scenario(DEMO[:cut], "cut.toml")
     except ScenarioError as err:
         assert str(err).startswith("cut.toml")
+
+
+def test_life_table_errors_name_the_scenario_key_and_the_table_line(tmp_path):
+    # A life table with q outside [0, 1]: the scenario error points at the life_table key and
+    # carries the table's own file, line and column.
+    table = tmp_path / "lt.csv"
+    table.write_text("age,q\n0,0.01\n1,0.02\n2,1.5\n3,1\n")
+    text = (SCENARIO_DIR / DEMOS["ferrovian"]).read_text().replace(
+        'file = "tables/synthetic_life_table.csv"', f'file = "{table}"').replace(
+        'columns = { female = "q_female", male = "q_male" }', 'columns = "q"')
+    with pytest.raises(ScenarioError) as info:
+        parse_scenario(text, tmp_path / "scen.toml")
+    msg = str(info.value)
+    assert "background.life_table.file" in msg and "lt.csv line 4" in msg and "1.5" in msg
