@@ -365,7 +365,27 @@ class Exponential(Hazard):
 
 
 @dataclass(frozen=True)
-class Weibull(Hazard):
+class _ShapeScale(Hazard):
+    """Shared parameters of the proper two-parameter families with a shape and a time scale
+    (Weibull, log-logistic, gamma): both must be positive and finite."""
+
+    shape: float
+    scale: float
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "shape", _param(self.family, "shape", self.shape, "positive"))
+        object.__setattr__(self, "scale", _param(self.family, "scale", self.scale, "positive"))
+
+    @property
+    def cumhazard_limit(self) -> float:
+        return math.inf
+
+    def params(self) -> dict[str, float]:
+        return {"shape": self.shape, "scale": self.scale}
+
+
+@dataclass(frozen=True)
+class Weibull(_ShapeScale):
     """Weibull hazard in the scale parameterisation.
 
     Parameters
@@ -387,20 +407,7 @@ class Weibull(Hazard):
     :math:`T = (x + T)(1 - e^{-z})`, free of cancellation for any ``e / H(x)``.
     """
 
-    shape: float
-    scale: float
     family: ClassVar[str] = "weibull"
-
-    def __post_init__(self) -> None:
-        object.__setattr__(self, "shape", _param(self.family, "shape", self.shape, "positive"))
-        object.__setattr__(self, "scale", _param(self.family, "scale", self.scale, "positive"))
-
-    @property
-    def cumhazard_limit(self) -> float:
-        return math.inf
-
-    def params(self) -> dict[str, float]:
-        return {"shape": self.shape, "scale": self.scale}
 
     def _hazard(self, t: FloatArray) -> FloatArray:
         k, lam = self.shape, self.scale
@@ -638,7 +645,7 @@ class GompertzMakeham(Hazard):
 
 
 @dataclass(frozen=True)
-class LogLogistic(Hazard):
+class LogLogistic(_ShapeScale):
     """Log-logistic hazard (unimodal for shape > 1, decreasing for shape <= 1).
 
     Parameters
@@ -658,20 +665,7 @@ class LogLogistic(Hazard):
     and :math:`T = (x + T)(1 - (x/(x+T)))` without cancellation.
     """
 
-    shape: float
-    scale: float
     family: ClassVar[str] = "loglogistic"
-
-    def __post_init__(self) -> None:
-        object.__setattr__(self, "shape", _param(self.family, "shape", self.shape, "positive"))
-        object.__setattr__(self, "scale", _param(self.family, "scale", self.scale, "positive"))
-
-    @property
-    def cumhazard_limit(self) -> float:
-        return math.inf
-
-    def params(self) -> dict[str, float]:
-        return {"shape": self.shape, "scale": self.scale}
 
     def _hazard(self, t: FloatArray) -> FloatArray:
         k = self.shape
@@ -803,7 +797,7 @@ _GAMMA_TAIL_H = 650.0  # H above which the gamma inverse uses Newton on log Q (e
 
 
 @dataclass(frozen=True)
-class Gamma(Hazard):
+class Gamma(_ShapeScale):
     """Gamma event time.
 
     Parameters
@@ -825,20 +819,7 @@ class Gamma(Hazard):
     for ``a < 1``). scipy: ``gamma(a=shape, scale=scale)``.
     """
 
-    shape: float
-    scale: float
     family: ClassVar[str] = "gamma"
-
-    def __post_init__(self) -> None:
-        object.__setattr__(self, "shape", _param(self.family, "shape", self.shape, "positive"))
-        object.__setattr__(self, "scale", _param(self.family, "scale", self.scale, "positive"))
-
-    @property
-    def cumhazard_limit(self) -> float:
-        return math.inf
-
-    def params(self) -> dict[str, float]:
-        return {"shape": self.shape, "scale": self.scale}
 
     def _log_q(self, z: FloatArray) -> FloatArray:
         """log Q(a, z), finite wherever z is finite."""
