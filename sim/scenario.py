@@ -37,11 +37,12 @@ __all__ = ["FORMAT_VERSION", "Scenario", "RunSettings", "ScenarioError", "load_s
 
 FORMAT_VERSION = 1
 TIME_UNITS = ("days", "weeks", "months", "years")
-# Parameters measured in time (converted to years) and per time (converted to per year), by family.
-_TIME_PARAMS = {"weibull": ("scale",), "loglogistic": ("scale",), "gamma": ("scale",), "piecewise": ("breaks",)}
-_RATE_PARAMS = {"exponential": ("rate",), "gompertz": ("rate", "shape"),
-                "gompertz_makeham": ("rate", "shape", "constant"), "piecewise": ("rates",)}
-_LOG_TIME_PARAMS = {"lognormal": ("mu",)}
+# Parameters measured in time (converted to years), per time (converted to per year) and in log
+# time (shifted by the log of the unit), by family; public so that editors can label units.
+TIME_PARAMS = {"weibull": ("scale",), "loglogistic": ("scale",), "gamma": ("scale",), "piecewise": ("breaks",)}
+RATE_PARAMS = {"exponential": ("rate",), "gompertz": ("rate", "shape"),
+               "gompertz_makeham": ("rate", "shape", "constant"), "piecewise": ("rates",)}
+LOG_TIME_PARAMS = {"lognormal": ("mu",)}
 
 
 class ScenarioError(ValueError):
@@ -288,11 +289,11 @@ def _hazard(r: _Reader, data: Any, path: tuple, notes: list[str], extra_keys: It
             v = [float(x) for x in v]
         elif isinstance(v, bool) or not isinstance(v, (int, float)):
             raise r.error((*path, name), "must be a number", v)
-        if name in _TIME_PARAMS.get(family, ()):
+        if name in TIME_PARAMS.get(family, ()):
             v = [x * u for x in v] if isinstance(v, list) else v * u
-        elif name in _RATE_PARAMS.get(family, ()):
+        elif name in RATE_PARAMS.get(family, ()):
             v = [x / u for x in v] if isinstance(v, list) else v / u
-        elif name in _LOG_TIME_PARAMS.get(family, ()):
+        elif name in LOG_TIME_PARAMS.get(family, ()):
             v = v + math.log(u)
         params[name] = tuple(v) if isinstance(v, list) else v
     try:

@@ -1,0 +1,707 @@
+"""The scenario being edited: TOML text, its tomlkit document, file path, undo history, validation,
+recent files and autosave to a recovery file.
+
+Every edit goes into the tomlkit document (so comments, order and formatting of the user's file
+survive) and is pushed as an undoable command holding the text before and after. After each change
+the text is validated by :func:`sim.scenario.parse_scenario`; invalid text is kept and reported, never
+rejected. No modelling here: conversions and checks all come from ``sim``.
+
+Key paths are tuples of table keys and array indices, e.g. ``("transitions", 0, "rate")``.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import re
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, Callable, Iterable
+
+import tomlkit
+from PySide6.QtCore import QObject, QSettings, QStandardPaths, QTimer, Signal
+from PySide6.QtGui import QUndoCommand, QUndoStack
+from tomlkit.container import Container
+from tomlkit.exceptions import TOMLKitError
+from tomlkit.items import AoT, Array, Comment, InlineTable, Item, Table, Whitespace
+from tomlkit.toml_document import TOMLDocument
+
+from sim.demo import DEMOS, demo_path
+from sim.scenario import Scenario, ScenarioError, parse_scenario, save_scenario
+
+__all__ = ["ScenarioDocument", "FieldError", "DocumentError", "KeyPath", "parse_key", "format_key",
+           "display_value"]
+
+KeyPath = tuple[Any, ...]
+RECENT_KEY = "recent_files"
+MAX_RECENT = 8
+
+# Tables the scenario format writes inline (`name = { a = 1 }`) when they are created from scratch.
+INLINE_KEYS = frozenset({"hazard_ratios", "state_costs", "transition_costs", "utilities", "sex_mix", "entry_age",
+                         "columns"})
+
+
+def _child(node: Any, key: Any) -> Any:
+    if isinstance(key, int):
+        if isinstance(node, (AoT, Array, list)) and 0 <= key < len(node):
+            return node[key]
+        return None
+    if _is_table(node) and key in node:
+        return node[key]
+    return None
+
+
+def get_item(doc: Any, path: KeyPath) -> Any:
+    """The item at ``path`` or ``None`` when any part of it is missing."""
+    node = doc
+    for key in path:
+        node = _child(node, key)
+        if node is None:
+            return None
+    return node
+
+
+def to_plain(item: Any) -> Any:
+    """A plain Python value (dict, list, str, float, ...) from a tomlkit item."""
+    return item.unwrap() if hasattr(item, "unwrap") else item
+
+
+def display_value(item: Any) -> str:
+    """Text for an edit field: numbers as the user wrote them (``3.0e-5`` stays ``3.0e-5``),
+    strings unquoted, lists comma-separated, booleans ``true``/``false``; ``""`` when missing."""
+    if item is None:
+        return ""
+    plain = to_plain(item)
+    if isinstance(plain, str):
+        return plain
+    if isinstance(plain, bool):
+        return "true" if plain else "false"
+    if isinstance(plain, list):
+        return ", ".join(display_value(x) for x in (item if isinstance(item, Array) else plain))
+    if isinstance(item, Item):
+        return item.as_string().strip()
+    return repr(plain) if isinstance(plain, float) else str(plain)
+
+
+def _new_container(key: Any, parent: Any) -> Any:
+    if isinstance(parent, InlineTable) or key in INLINE_KEYS:
+        return tomlkit.inline_table()
+    return tomlkit.table()
+
+
+def _to_item(key: Any, value: Any, parent: Any) -> Any:
+    if isinstance(value, dict) and not isinstance(value, (Table, InlineTable)):
+        out = _new_container(key, parent)
+        for k, v in value.items():
+            out[k] = _to_item(k, v, out)
+        return out
+    return value
+
+
+def _is_table(node: Any) -> bool:
+    return isinstance(node, (Container, Table, InlineTable, TOMLDocument, dict))
+
+
+def _container(doc: Any, path: KeyPath, create: bool) -> Any:
+    """The table or array at ``path``; with ``create``, missing tables are added and a value that is
+    not a table where one is needed is replaced by one (the user asked to put a key inside it)."""
+    node = doc
+    for i, key in enumerate(path):
+        nxt = _child(node, key)
+        needs_table = i + 1 == len(path) or not isinstance(path[i + 1], int)
+        if nxt is None or (create and needs_table and not _is_table(nxt)):
+            if not create or isinstance(key, int) or not _is_table(node):
+                raise KeyError(format_key(path))
+            node[key] = _new_container(key, node)
+            nxt = node[key]
+        node = nxt
+    return node
+
+
+def _tidy_inline(parent: Any, key: Any) -> None:
+    """Re-create an inline table so that its spacing stays regular after keys were added or removed."""
+    table = parent[key]
+    if isinstance(table, InlineTable):
+        fresh = tomlkit.inline_table()
+        for k, v in table.items():
+            fresh[k] = v
+        parent[key] = fresh
+
+
+def set_value(doc: Any, path: KeyPath, value: Any) -> None:
+    """Set ``path`` to ``value`` (creating missing tables); ``None`` removes the key."""
+    if value is None:
+        remove_value(doc, path)
+        return
+    parent = _container(doc, path[:-1], create=True)
+    key = path[-1]
+    new_key = _child(parent, key) is None
+    parent[key] = _to_item(key, value, parent)
+    if new_key and len(path) >= 2 and isinstance(parent, InlineTable):
+        _tidy_inline(_container(doc, path[:-2], create=False), path[-2])
+
+
+def remove_value(doc: Any, path: KeyPath) -> None:
+    """Remove ``path`` if present; an inline map left empty by the removal is removed as well."""
+    try:
+        parent = _container(doc, path[:-1], create=False)
+    except KeyError:
+        return
+    key = path[-1]
+    if _child(parent, key) is None:
+        return
+    del parent[key]
+    if len(path) >= 2 and isinstance(parent, InlineTable):
+        grand = _container(doc, path[:-2], create=False)
+        if len(parent) == 0:
+            del grand[path[-2]]
+        else:
+            _tidy_inline(grand, path[-2])
+
+
+def _trailing_trivia(table: Table) -> list[tuple[Any, Any]]:
+    """Pop the comments and blank lines at the end of a table's body (they belong to what follows)."""
+    body = table.value.body
+    tail: list[tuple[Any, Any]] = []
+    while body and body[-1][0] is None and isinstance(body[-1][1], (Whitespace, Comment)):
+        tail.insert(0, body.pop())
+    return tail
+
+
+def append_table(doc: Any, path: KeyPath, values: dict) -> int:
+    """Append a table to the array of tables at ``path`` (created if missing); returns its index.
+
+    Comments that sat at the end of the previous last element (they introduce the next section of
+    the file) move below the new element, so they stay in front of the section they describe.
+    """
+    aot = get_item(doc, path)
+    table = tomlkit.table()
+    for k, v in values.items():
+        table[k] = _to_item(k, v, table)
+    if aot is None:
+        parent = _container(doc, path[:-1], create=True)
+        parent[path[-1]] = tomlkit.aot()
+        aot = parent[path[-1]]
+    tail: list[tuple[Any, Any]] = []
+    if len(aot):
+        prev = aot[-1]
+        tail = _trailing_trivia(prev)
+        prev.value.body.append((None, Whitespace("\n")))
+    aot.append(table)
+    new = aot[-1]
+    if tail:
+        new.value.body.extend(tail)
+    else:
+        new.value.body.append((None, Whitespace("\n")))
+    return len(aot) - 1
+
+
+def remove_table(doc: Any, path: KeyPath, index: int) -> None:
+    """Remove element ``index`` of the array of tables at ``path``, keeping comments that introduce
+    the next section (moved to the element before, when there is one)."""
+    aot = get_item(doc, path)
+    if aot is None or not 0 <= index < len(aot):
+        raise KeyError(f"{format_key(path)}[{index}]")
+    tail = _trailing_trivia(aot[index]) if index == len(aot) - 1 and index > 0 else []
+    if index == len(aot) - 1 and index > 0:
+        _trailing_trivia(aot[index - 1])
+    del aot[index]
+    if tail:
+        aot[index - 1].value.body.extend(tail)
+
+
+# ----------------------------------------------------------------------------- key paths as text
+_TOKEN = re.compile(r"""\[(\d+)\]|\[\s*'([^']*)'\s*\]|\[\s*"([^"]*)"\s*\]|\.?"([^"]*)"|\.?([A-Za-z0-9_-]+)""")
+
+
+def parse_key(text: str | None) -> KeyPath:
+    """Key path from the loader's notation: ``transitions[0].rate``, ``valuation.utilities."x y"``,
+    ``strategies['new therapy'].state_costs``."""
+    if not text:
+        return ()
+    out: list[Any] = []
+    pos = 0
+    while pos < len(text):
+        m = _TOKEN.match(text, pos)
+        if not m or m.end() == pos:
+            break
+        idx, sq, dq, quoted, bare = m.groups()
+        out.append(int(idx) if idx is not None else next(x for x in (sq, dq, quoted, bare) if x is not None))
+        pos = m.end()
+    return tuple(out)
+
+
+def format_key(path: Iterable[Any]) -> str:
+    """The loader's notation for a key path (inverse of :func:`parse_key`)."""
+    out = ""
+    for p in path:
+        if isinstance(p, int):
+            out += f"[{p}]"
+        else:
+            out += ("." if out else "") + (p if re.fullmatch(r"[A-Za-z0-9_-]+", str(p)) else f'"{p}"')
+    return out
+
+
+# ----------------------------------------------------------------------------- validation problems
+@dataclass(frozen=True)
+class FieldError:
+    """One problem found by the loader.
+
+    ``key`` is the key path it concerns (``()`` when unknown), ``line`` the line in the text,
+    ``message`` the loader's full message (``str(ScenarioError)``) and ``rule`` the rule alone.
+    """
+
+    key: KeyPath
+    line: int | None
+    message: str
+    rule: str
+
+    @property
+    def key_text(self) -> str:
+        return format_key(self.key)
+
+    def concerns(self, path: KeyPath) -> bool:
+        """True when the problem is at ``path`` or inside it."""
+        return self.key[:len(path)] == tuple(path)
+
+
+_NAMED_ARRAYS = ("states", "transitions", "strategies")
+_MODEL_FIELDS = {"source": "from", "target": "to"}
+_LEAD = re.compile(r"^([A-Za-z_]+(?:\[[^\]]*\]|\.[A-Za-z_]+)*)")
+_PARAM_RULE = re.compile(r"^[a-z_]+: ([a-z_]+)(?:\[\d+\])? must")
+
+
+class DocumentError(Exception):
+    """A file could not be read or written; the message says which and why."""
+
+
+# ----------------------------------------------------------------------------- undo
+class _TextCommand(QUndoCommand):
+    """One edit: the whole text before and after (small files; exact and simple)."""
+
+    def __init__(self, document: "ScenarioDocument", before: str, after: str, label: str,
+                 merge_key: str | None = None) -> None:
+        super().__init__(label)
+        self._document, self.before, self.after, self.merge_key = document, before, after, merge_key
+
+    def redo(self) -> None:
+        self._document._apply(self.after)
+
+    def undo(self) -> None:
+        self._document._apply(self.before)
+
+    def id(self) -> int:  # noqa: A003 - Qt API
+        return 1 if self.merge_key else -1
+
+    def mergeWith(self, other: QUndoCommand) -> bool:  # noqa: N802 - Qt API
+        if isinstance(other, _TextCommand) and other.merge_key == self.merge_key:
+            self.after = other.after
+            return True
+        return False
+
+
+# ----------------------------------------------------------------------------- the document
+class ScenarioDocument(QObject):
+    """The scenario under edit.
+
+    Signals
+    -------
+    changed()
+        The text changed (edit, undo, redo, open); views re-read it.
+    validated(object, list)
+        After every change: the :class:`~sim.scenario.Scenario` or ``None``, and a list of
+        :class:`FieldError` (empty when valid).
+    dirty_changed(bool)
+        Unsaved changes appeared or went away.
+    path_changed(object)
+        The file path (``Path`` or ``None``) changed.
+    recent_changed()
+        The recent-files list changed.
+
+    Parameters
+    ----------
+    recovery_dir : folder for autosaved recovery files (default: the platform's application data
+        folder, ``recovery`` inside it).
+    settings : where the recent-files list lives (default ``QSettings("HazardTrace", "HazardTrace")``).
+    autosave_ms : autosave period while there are unsaved changes (0 turns the timer off).
+    """
+
+    changed = Signal()
+    validated = Signal(object, list)
+    dirty_changed = Signal(bool)
+    path_changed = Signal(object)
+    recent_changed = Signal()
+
+    def __init__(self, parent: QObject | None = None, *, recovery_dir: str | Path | None = None,
+                 settings: QSettings | None = None, autosave_ms: int = 5000) -> None:
+        super().__init__(parent)
+        self._text = ""
+        self._data: TOMLDocument | None = None
+        self._path: Path | None = None
+        self._origin = ""
+        self._scenario: Scenario | None = None
+        self._errors: list[FieldError] = []
+        self._autosaved = ""
+        self._settings = settings if settings is not None else QSettings("HazardTrace", "HazardTrace")
+        if recovery_dir is None:
+            base = QStandardPaths.writableLocation(QStandardPaths.StandardLocation.AppDataLocation)
+            recovery_dir = Path(base or Path.home() / ".hazardtrace") / "recovery"
+        self.recovery_dir = Path(recovery_dir)
+        self.undo_stack = QUndoStack(self)
+        self.undo_stack.cleanChanged.connect(self._on_clean_changed)
+        self._timer = QTimer(self)
+        self._timer.timeout.connect(self.autosave_now)
+        if autosave_ms > 0:
+            self._timer.start(autosave_ms)
+
+    def _on_clean_changed(self, clean: bool) -> None:
+        self.dirty_changed.emit(not clean)
+
+    # ------------------------------------------------------------------ state
+    @property
+    def text(self) -> str:
+        return self._text
+
+    @property
+    def data(self) -> TOMLDocument | None:
+        """The parsed document, or ``None`` while the text is not valid TOML."""
+        return self._data
+
+    @property
+    def path(self) -> Path | None:
+        return self._path
+
+    @property
+    def dirty(self) -> bool:
+        return not self.undo_stack.isClean()
+
+    @property
+    def scenario(self) -> Scenario | None:
+        """The validated scenario, or ``None`` while there are errors."""
+        return self._scenario
+
+    @property
+    def errors(self) -> list[FieldError]:
+        return list(self._errors)
+
+    @property
+    def display_name(self) -> str:
+        """File name, or what the untitled document was made from."""
+        if self._path is not None:
+            return self._path.name
+        return f"Untitled ({self._origin})" if self._origin else "Untitled"
+
+    @property
+    def suggested_name(self) -> str:
+        """A file name to propose in a Save as dialog."""
+        if self._path is not None:
+            return self._path.name
+        return DEMOS.get(self._origin.removeprefix("demo "), "scenario.toml")
+
+    def get(self, path: KeyPath, default: Any = None) -> Any:
+        """Plain value at ``path`` (dicts, lists, numbers, strings) or ``default``."""
+        item = get_item(self._data, path) if self._data is not None else None
+        return default if item is None else to_plain(item)
+
+    def display(self, path: KeyPath) -> str:
+        """The value at ``path`` as the user wrote it, for an edit field (``""`` when missing)."""
+        return display_value(get_item(self._data, path)) if self._data is not None else ""
+
+    def has(self, path: KeyPath) -> bool:
+        return self._data is not None and get_item(self._data, path) is not None
+
+    def table(self, path: KeyPath) -> dict:
+        """The table at ``path`` as a dict (``{}`` when missing or not a table)."""
+        value = self.get(path)
+        return value if isinstance(value, dict) else {}
+
+    def tables(self, array: str) -> list[dict]:
+        """The elements of ``[[array]]`` as dicts (``{}`` for an element that is not a table)."""
+        value = self.get((array,))
+        return [x if isinstance(x, dict) else {} for x in value] if isinstance(value, list) else []
+
+    def names(self, array: str) -> list[str]:
+        """The ``name`` of each element of ``[[array]]`` that has a text name."""
+        return [t["name"] for t in self.tables(array) if isinstance(t.get("name"), str)]
+
+    # ------------------------------------------------------------------ edits (undoable)
+    def edit(self, label: str, change: Callable[[TOMLDocument], Any]) -> bool:
+        """Apply ``change`` to a copy of the document and push the result as one undoable command.
+
+        Returns False (and changes nothing) when the text is not valid TOML or nothing changed.
+        """
+        if self._data is None:
+            return False
+        doc = tomlkit.parse(self._text)
+        change(doc)
+        return self._push(tomlkit.dumps(doc), label)
+
+    def set_value(self, path: KeyPath, value: Any, label: str | None = None) -> bool:
+        """Set the value at ``path`` (``None`` removes it)."""
+        return self.edit(label or f"Set {format_key(path)}", lambda d: set_value(d, tuple(path), value))
+
+    def set_values(self, items: Iterable[tuple[KeyPath, Any]], label: str) -> bool:
+        """Several values in one undoable step (``None`` removes)."""
+        items = list(items)
+
+        def change(d: TOMLDocument) -> None:
+            for path, value in items:
+                set_value(d, tuple(path), value)
+        return self.edit(label, change)
+
+    def remove(self, path: KeyPath, label: str | None = None) -> bool:
+        return self.edit(label or f"Remove {format_key(path)}", lambda d: remove_value(d, tuple(path)))
+
+    def append_table(self, array: str, values: dict, label: str | None = None) -> bool:
+        """Append a ``[[array]]`` table."""
+        return self.edit(label or f"Add to {array}", lambda d: append_table(d, (array,), values))
+
+    def remove_table(self, array: str, index: int, label: str | None = None) -> bool:
+        return self.edit(label or f"Remove {array}[{index}]", lambda d: remove_table(d, (array,), index))
+
+    def rename_state(self, index: int, new: str) -> bool:
+        """Rename state ``index`` and every reference to it (transitions, background, population,
+        utilities and costs). A name already in use is set without touching references, and the
+        loader then reports the duplicate."""
+        old = self.get(("states", index, "name"))
+        names = [s.get("name") for s in self.get(("states",), [])]
+        return self.edit(f"Rename state {old!r} to {new!r}",
+                         lambda d: _rename_state(d, index, old, new, new in names))
+
+    def rename_transition(self, index: int, new: str) -> bool:
+        """Rename transition ``index`` and every reference to it (hazard ratios, replacements, costs)."""
+        old = self.get(("transitions", index, "name"))
+        names = [t.get("name") for t in self.get(("transitions",), [])]
+        return self.edit(f"Rename transition {old!r} to {new!r}",
+                         lambda d: _rename_transition(d, index, old, new, new in names))
+
+    def set_text(self, text: str, label: str = "Edit scenario text", merge: bool = False) -> bool:
+        """Replace the whole text (e.g. typed in the source view); ``merge`` joins consecutive typing."""
+        return self._push(text, label, "source" if merge else None)
+
+    def _push(self, after: str, label: str, merge_key: str | None = None) -> bool:
+        if after == self._text:
+            return False
+        self.undo_stack.push(_TextCommand(self, self._text, after, label, merge_key))
+        return True
+
+    def _apply(self, text: str) -> None:
+        """Show ``text``: parse it for reading, tell the views, validate."""
+        self._text = text
+        try:
+            self._data = tomlkit.parse(text)
+        except (TOMLKitError, ValueError):
+            self._data = None
+        self.changed.emit()
+        self.validate()
+
+    def validate(self) -> None:
+        """Run the loader on the text and publish the scenario or its problem."""
+        try:
+            self._scenario = parse_scenario(self._text, self._path)
+            self._errors = []
+        except ScenarioError as err:
+            self._scenario = None
+            self._errors = [self._field_error(err)]
+        self.validated.emit(self._scenario, self.errors)
+
+    def _field_error(self, err: ScenarioError) -> FieldError:
+        key = parse_key(err.key) or self._guess_key(err.rule)
+        return FieldError(key=self._refine(key, err.rule), line=err.line, message=str(err), rule=err.rule)
+
+    def _refine(self, key: KeyPath, rule: str) -> KeyPath:
+        """Narrow a table-level problem to the field its rule names (``entry_age.high must be ...``
+        under ``population``; ``weibull: shape must be ...`` under a transition)."""
+        if not key:
+            return key
+        m = _PARAM_RULE.match(rule) or _LEAD.match(rule)
+        if m:
+            sub = parse_key(m.group(1))
+            for candidate in ((*key, *sub), sub):
+                if sub and candidate[:len(key)] == key and self.has(candidate):
+                    return candidate
+        return key
+
+    def _guess_key(self, rule: str) -> KeyPath:
+        """Key path named at the start of a model-level message (``states['x'] is not absorbing...``);
+        names in arrays of tables become indices."""
+        m = _LEAD.match(rule)
+        if not m:
+            return ()
+        key = list(parse_key(m.group(1)))
+        if not key or key[0] not in (*_NAMED_ARRAYS, "population", "background", "horizon", "valuation", "run"):
+            return ()
+        if len(key) > 1 and key[0] in _NAMED_ARRAYS and isinstance(key[1], str):
+            names = [x.get("name") if isinstance(x, dict) else None for x in self.get((key[0],), [])]
+            if key[1] not in names:
+                return (key[0],)
+            key[1] = names.index(key[1])
+        if len(key) > 2 and key[0] == "transitions":
+            key[2] = _MODEL_FIELDS.get(key[2], key[2])
+        return tuple(key)
+
+    # ------------------------------------------------------------------ files
+    def load_text(self, text: str, path: Path | None = None, origin: str = "") -> None:
+        """Start afresh from ``text`` (no undo history, no unsaved changes)."""
+        old_path = self._path
+        self._path = Path(path).resolve() if path is not None else None
+        self._origin = origin
+        self._autosaved = text
+        self.undo_stack.clear()
+        self._apply(text)
+        self.undo_stack.setClean()
+        self.dirty_changed.emit(False)
+        if self._path != old_path or path is None:
+            self.path_changed.emit(self._path)
+
+    def open(self, path: str | Path) -> None:
+        """Read a scenario file (kept even if invalid: problems are reported, not rejected)."""
+        path = Path(path)
+        try:
+            text = path.read_text(encoding="utf-8")
+        except (OSError, UnicodeDecodeError) as err:
+            raise DocumentError(f"Cannot read {path}: {err}") from None
+        self.load_text(text, path)
+        self.add_recent(self._path)
+
+    def new_from_demo(self, name: str) -> None:
+        """An untitled copy of a bundled demo (saving asks for a file name)."""
+        try:
+            text = demo_path(name).read_text(encoding="utf-8")
+        except (OSError, ValueError) as err:
+            raise DocumentError(str(err)) from None
+        self.load_text(text, None, origin=f"demo {name}")
+
+    def save(self) -> Path:
+        """Write the text to the current file (atomic) and forget the recovery file."""
+        if self._path is None:
+            raise DocumentError("This scenario has no file yet; use Save as.")
+        try:
+            save_scenario(self._text, self._path)
+        except OSError as err:
+            raise DocumentError(f"Cannot write {self._path}: {err}") from None
+        self.discard_recovery()
+        self.undo_stack.setClean()
+        self.add_recent(self._path)
+        self.validate()  # relative life-table paths now resolve against the new folder
+        return self._path
+
+    def save_as(self, path: str | Path) -> Path:
+        """Write to ``path`` and make it the document's file."""
+        old_recovery = self.recovery_path()
+        previous = self._path
+        self._path = Path(path).resolve()
+        try:
+            self.save()
+        except DocumentError:
+            self._path = previous
+            raise
+        if old_recovery.exists() and old_recovery != self.recovery_path():
+            old_recovery.unlink(missing_ok=True)
+        self._origin = ""
+        self.path_changed.emit(self._path)
+        return self._path
+
+    # ------------------------------------------------------------------ recent files
+    def recent_files(self) -> list[Path]:
+        value = self._settings.value(RECENT_KEY, [])
+        if isinstance(value, str):
+            value = [value]
+        return [Path(p) for p in (value or []) if p]
+
+    def add_recent(self, path: Path) -> None:
+        paths = [str(path)] + [str(p) for p in self.recent_files() if str(p) != str(path)]
+        self._settings.setValue(RECENT_KEY, paths[:MAX_RECENT])
+        self._settings.sync()
+        self.recent_changed.emit()
+
+    def clear_recent(self) -> None:
+        self._settings.remove(RECENT_KEY)
+        self.recent_changed.emit()
+
+    # ------------------------------------------------------------------ autosave and recovery
+    def recovery_path(self, path: Any = ...) -> Path:
+        """Recovery file of ``path`` (default: the current file; ``None``: an untitled scenario)."""
+        if path is ...:
+            path = self._path
+        if path is None:
+            return self.recovery_dir / "untitled.toml"
+        full = str(Path(path).resolve())
+        digest = hashlib.sha1(full.encode("utf-8")).hexdigest()[:12]
+        return self.recovery_dir / f"{Path(path).stem}-{digest}.toml"
+
+    def autosave_now(self) -> Path | None:
+        """Write unsaved text to the recovery file (what the timer calls); returns its path if written."""
+        if not self.dirty or self._text == self._autosaved:
+            return None
+        target = self.recovery_path()
+        try:
+            save_scenario(self._text, target)
+        except OSError:
+            return None  # the next tick tries again; the text is still in memory
+        self._autosaved = self._text
+        return target
+
+    def find_recovery(self, path: Any = ...) -> Path | None:
+        """A recovery file for ``path`` (default: the current file) that is at least as new as the
+        file and differs from the text in memory, or ``None``."""
+        target = self.recovery_path(path)
+        if path is ...:
+            path = self._path
+        if not target.exists():
+            return None
+        try:
+            text = target.read_text(encoding="utf-8")
+            if path is not None and Path(path).exists():
+                if target.stat().st_mtime < Path(path).stat().st_mtime:
+                    return None
+        except (OSError, UnicodeDecodeError):
+            return None
+        return None if text == self._text else target
+
+    def restore_recovery(self, recovery: str | Path) -> bool:
+        """Take the recovery file's text as an undoable edit (unsaved until the user saves)."""
+        try:
+            text = Path(recovery).read_text(encoding="utf-8")
+        except (OSError, UnicodeDecodeError) as err:
+            raise DocumentError(f"Cannot read {recovery}: {err}") from None
+        return self._push(text, "Restore recovered edits")
+
+    def discard_recovery(self) -> None:
+        """Delete the current file's recovery file (after a save, or when the user discards edits)."""
+        self.recovery_path().unlink(missing_ok=True)
+        self._autosaved = self._text
+
+
+# ----------------------------------------------------------------------------- renaming references
+def _rename_keys(table: Any, old: str, new: str) -> None:
+    if isinstance(table, (Table, InlineTable)) and old in table:
+        value = table[old]
+        del table[old]
+        table[new] = value
+
+
+def _rename_state(doc: Any, index: int, old: str, new: str, taken: bool) -> None:
+    set_value(doc, ("states", index, "name"), new)
+    if taken or not old:
+        return
+    for t in get_item(doc, ("transitions",)) or []:
+        for end in ("from", "to"):
+            if to_plain(t.get(end)) == old:
+                t[end] = new
+    for path in (("background", "to"), ("population", "initial_state")):
+        if to_plain(get_item(doc, path)) == old:
+            set_value(doc, path, new)
+    for path in (("valuation", "utilities"), ("valuation", "state_costs")):
+        _rename_keys(get_item(doc, path), old, new)
+    for st in get_item(doc, ("strategies",)) or []:
+        _rename_keys(st.get("state_costs"), old, new)
+
+
+def _rename_transition(doc: Any, index: int, old: str, new: str, taken: bool) -> None:
+    set_value(doc, ("transitions", index, "name"), new)
+    if taken or not old:
+        return
+    _rename_keys(get_item(doc, ("valuation", "transition_costs")), old, new)
+    for st in get_item(doc, ("strategies",)) or []:
+        for key in ("hazard_ratios", "replacements", "transition_costs"):
+            _rename_keys(st.get(key), old, new)

@@ -1,0 +1,218 @@
+"""Edit widgets bound to key paths of the scenario document, and how invalid input is marked.
+
+A :class:`FieldSet` creates the widgets, fills them from the document (:meth:`FieldSet.refresh`),
+writes the user's input back as undoable edits, and marks the widgets the loader complained about
+with a red border and the loader's exact message as tooltip.
+"""
+
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass, field
+from typing import Any, Callable, Iterable, Sequence
+
+from PySide6.QtCore import Qt
+from PySide6.QtWidgets import QCheckBox, QComboBox, QLineEdit, QWidget
+
+from gui.document import FieldError, KeyPath, ScenarioDocument, format_key
+from gui.palette import OKABE_ITO
+
+__all__ = ["FieldSet", "Binding", "mark_invalid", "parse_typed", "INVALID_COLOUR"]
+
+INVALID_COLOUR = OKABE_ITO["vermillion"]
+_INT = re.compile(r"^[+-]?\d+$")
+
+
+def parse_typed(text: str) -> Any:
+    """What the user typed as a TOML value: an int or float when it reads as one, else the text
+    itself (kept, so that the loader reports it), ``None`` for an empty field."""
+    text = text.strip()
+    if not text:
+        return None
+    if _INT.match(text):
+        return int(text)
+    if text.lower() in ("true", "false"):
+        return text.lower() == "true"
+    try:
+        return float(text)
+    except ValueError:
+        return text
+
+
+def parse_list(text: str) -> list[Any] | None:
+    """Comma-separated values (numbers where they read as numbers)."""
+    parts = [p for p in (x.strip() for x in text.split(",")) if p]
+    return [parse_typed(p) for p in parts] or None
+
+
+def mark_invalid(widget: QWidget, messages: Sequence[str]) -> None:
+    """Red border and the messages as tooltip; no messages restores the widget's help text."""
+    if messages:
+        widget.setProperty("invalid", True)
+        widget.setAttribute(Qt.WidgetAttribute.WA_StyledBackground, True)
+        selector = widget.metaObject().className()  # the widget's own class: children keep their look
+        widget.setStyleSheet(f"{selector} {{ border: 2px solid {INVALID_COLOUR}; }}")
+        widget.setToolTip("\n".join(messages))
+    elif widget.property("invalid"):
+        widget.setProperty("invalid", False)
+        widget.setStyleSheet("")
+        widget.setToolTip(widget.property("help") or "")
+
+
+def is_marked(widget: QWidget) -> bool:
+    return bool(widget.property("invalid"))
+
+
+@dataclass
+class Binding:
+    """A widget bound to a key path; ``commit`` overrides how a new value is written."""
+
+    key: KeyPath
+    widget: QWidget
+    kind: str
+    commit: Callable[[Any], None] | None = None
+    default: Any = None
+    alive: bool = True
+    choices: list[str] = field(default_factory=list)
+
+
+class FieldSet:
+    """The bound widgets of one editor panel."""
+
+    def __init__(self, document: ScenarioDocument) -> None:
+        self.document = document
+        self.bindings: list[Binding] = []
+        self.groups: list[tuple[KeyPath, QWidget]] = []
+
+    # ------------------------------------------------------------------ widgets
+    def line(self, key: KeyPath, kind: str = "value", help: str = "", placeholder: str = "",
+             commit: Callable[[Any], None] | None = None) -> QLineEdit:
+        """A line edit for a number or text (``kind`` "value", "text" or "list")."""
+        w = QLineEdit()
+        w.setObjectName(format_key(key))
+        w.setPlaceholderText(placeholder)
+        self._help(w, help)
+        b = Binding(tuple(key), w, kind, commit)
+        self.bindings.append(b)
+        w.editingFinished.connect(lambda b=b: self._line_finished(b))
+        self._fill(b)
+        return w
+
+    def combo(self, key: KeyPath, choices: Iterable[str | tuple[str, str]], default: str | None = None,
+              help: str = "", commit: Callable[[Any], None] | None = None) -> QComboBox:
+        """A combo box of ``choices`` (values, or ``(value, label)`` pairs); ``default`` is what the
+        loader assumes when the key is missing."""
+        w = QComboBox()
+        w.setObjectName(format_key(key))
+        w.setSizeAdjustPolicy(QComboBox.SizeAdjustPolicy.AdjustToMinimumContentsLengthWithIcon)
+        w.setMinimumContentsLength(10)  # long labels must not widen the panel
+        self._help(w, help)
+        b = Binding(tuple(key), w, "choice", commit, default)
+        for c in choices:
+            value, label = (c, c) if isinstance(c, str) else c
+            w.addItem(label, value)
+            b.choices.append(value)
+        self.bindings.append(b)
+        w.activated.connect(lambda _i, b=b: self._combo_activated(b))
+        self._fill(b)
+        return w
+
+    def check(self, key: KeyPath, text: str, help: str = "") -> QCheckBox:
+        """A check box for a true/false key (unchecked removes the key: false is the default)."""
+        w = QCheckBox(text)
+        w.setObjectName(format_key(key))
+        self._help(w, help)
+        b = Binding(tuple(key), w, "bool")
+        self.bindings.append(b)
+        w.clicked.connect(lambda checked, b=b: self._write(b, True if checked else None))
+        self._fill(b)
+        return w
+
+    def group(self, key: KeyPath, widget: QWidget) -> QWidget:
+        """A widget marked for problems reported exactly at ``key`` (e.g. a whole hazard)."""
+        self.groups.append((tuple(key), widget))
+        return widget
+
+    @staticmethod
+    def _help(w: QWidget, text: str) -> None:
+        w.setProperty("help", text)
+        w.setToolTip(text)
+
+    # ------------------------------------------------------------------ model -> widgets
+    def refresh(self) -> None:
+        for b in self.bindings:
+            self._fill(b)
+
+    def _fill(self, b: Binding) -> None:
+        w = b.widget
+        w.blockSignals(True)
+        try:
+            if isinstance(w, QLineEdit):
+                text = self.document.display(b.key)
+                if w.text() != text:
+                    w.setText(text)
+                    w.setCursorPosition(0)
+            elif isinstance(w, QComboBox):
+                value = self.document.get(b.key, b.default)
+                shown = "" if value is None else str(value)
+                idx = w.findData(shown)
+                if idx < 0:  # a value the list does not offer: keep it visible (the loader marks it)
+                    w.addItem(f"{shown} (not a valid choice)" if shown else "", shown)
+                    idx = w.count() - 1
+                w.setCurrentIndex(idx)
+            elif isinstance(w, QCheckBox):
+                w.setChecked(self.document.get(b.key) is True)
+        finally:
+            w.blockSignals(False)
+
+    # ------------------------------------------------------------------ widgets -> model
+    def _line_finished(self, b: Binding) -> None:
+        text = b.widget.text()
+        if not b.alive or text == self.document.display(b.key):
+            return
+        if b.kind == "text":
+            value: Any = text if text.strip() else None
+        elif b.kind == "list":
+            value = parse_list(text)
+        else:
+            value = parse_typed(text)
+        self._write(b, value)
+
+    def _combo_activated(self, b: Binding) -> None:
+        value = b.widget.currentData()
+        if b.alive and value != self.document.get(b.key, b.default):
+            self._write(b, value)
+
+    def _write(self, b: Binding, value: Any) -> None:
+        if not b.alive:
+            return
+        if b.commit is not None:
+            b.commit(value)
+        else:
+            self.document.set_value(b.key, value)
+
+    # ------------------------------------------------------------------ problems
+    def apply_errors(self, errors: Sequence[FieldError]) -> list[QWidget]:
+        """Mark widgets whose key has a problem; returns the marked widgets."""
+        found: dict[int, tuple[QWidget, list[str]]] = {}
+        for key, w in [(b.key, b.widget) for b in self.bindings] + self.groups:
+            entry = found.setdefault(id(w), (w, []))
+            entry[1].extend(e.message for e in errors if e.key == key and e.message not in entry[1])
+        for w, msgs in found.values():
+            mark_invalid(w, msgs)
+        return [w for w, msgs in found.values() if msgs]
+
+    def widget_at(self, key: KeyPath) -> QWidget | None:
+        """The widget bound (or grouped) exactly at ``key``."""
+        key = tuple(key)
+        for b in self.bindings:
+            if b.key == key:
+                return b.widget
+        return next((w for k, w in self.groups if k == key), None)
+
+    def clear(self) -> None:
+        """Forget all bindings (before their widgets are deleted): late signals write nothing."""
+        for b in self.bindings:
+            b.alive = False
+        self.bindings.clear()
+        self.groups.clear()

@@ -1,0 +1,237 @@
+"""The parameters of one hazard: family, time unit, the family's parameters and, for a constant
+hazard, how it is given (a rate, events per person-time, or a risk over a period).
+
+The converted rate per year and the assumption behind it come from :mod:`sim.units`; the
+parameters the model actually uses (in years) come from the validated model.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+from typing import Any, Mapping
+
+from PySide6.QtWidgets import QComboBox, QFormLayout, QLabel, QWidget
+
+from gui.document import KeyPath, ScenarioDocument, format_key, remove_value, set_value
+from gui.editors.fields import FieldSet
+from sim.hazards import FAMILIES, Hazard
+from sim.scenario import LOG_TIME_PARAMS, RATE_PARAMS, TIME_PARAMS, TIME_UNITS
+from sim.units import UnitError, rate_from_risk, rate_per_year, risk_from_rate
+
+__all__ = ["HazardForm", "family_params", "exponential_mode", "FAMILY_LABELS", "DEFAULTS", "MODES",
+           "equivalent_form"]
+
+FAMILY_LABELS = {
+    "exponential": "exponential (constant hazard)",
+    "weibull": "Weibull",
+    "gompertz": "Gompertz",
+    "gompertz_makeham": "Gompertz-Makeham",
+    "loglogistic": "log-logistic",
+    "lognormal": "log-normal",
+    "gamma": "gamma",
+    "piecewise": "piecewise constant",
+}
+# Starting values when the family is changed (the user edits them next).
+DEFAULTS: dict[str, dict[str, Any]] = {
+    "exponential": {"rate": 0.1},
+    "weibull": {"shape": 1.2, "scale": 10.0},
+    "gompertz": {"rate": 1e-4, "shape": 0.085},
+    "gompertz_makeham": {"rate": 1e-4, "shape": 0.085, "constant": 5e-4},
+    "loglogistic": {"shape": 2.0, "scale": 10.0},
+    "lognormal": {"mu": 2.0, "sigma": 1.0},
+    "gamma": {"shape": 2.0, "scale": 5.0},
+    "piecewise": {"breaks": [0.0, 5.0], "rates": [0.05, 0.1]},
+}
+MODES = {"rate": ("rate",), "events": ("events", "per"), "risk": ("risk", "period")}
+_MODE_LABELS = {"rate": "rate per {u}", "events": "events per N person-{us}", "risk": "risk over a period"}
+_EXP_KEYS = ("rate", "events", "per", "risk", "period")
+
+
+def family_params(family: str) -> list[str]:
+    """Parameter names of a family, in the family's order."""
+    cls = FAMILIES.get(family)
+    if cls is None:
+        return []
+    return [f.name for f in dataclasses.fields(cls) if f.init and not f.name.startswith("_")]
+
+
+ALL_HAZARD_KEYS = frozenset({"family", "unit", *_EXP_KEYS, *(p for fam in FAMILIES for p in family_params(fam))})
+
+
+def exponential_mode(values: Mapping[str, Any]) -> str:
+    """How a constant hazard is given: ``"rate"``, ``"events"`` or ``"risk"``."""
+    if "events" in values or "per" in values:
+        return "events"
+    if "risk" in values or "period" in values:
+        return "risk"
+    return "rate"
+
+
+def equivalent_form(mode: str, rate: float) -> dict[str, Any]:
+    """Keys giving the constant ``rate`` per year in ``mode`` (unit years): the rate itself, events
+    per 1000 person-years, or the one-year risk ``1 - exp(-rate)`` (sim.units.risk_from_rate)."""
+    if mode == "events":
+        return {"events": float(f"{rate * 1000:.6g}"), "per": 1000, "unit": "years"}
+    if mode == "risk":
+        return {"risk": float(f"{risk_from_rate(rate, 1.0, 'years'):.10g}"), "period": 1, "unit": "years"}
+    return {"rate": rate, "unit": "years"}
+
+
+def _unit_text(family: str, name: str, unit: str) -> str:
+    one = unit[:-1]
+    if name in TIME_PARAMS.get(family, ()):
+        return f"{unit}"
+    if name in RATE_PARAMS.get(family, ()):
+        return f"per {one}"
+    if name in LOG_TIME_PARAMS.get(family, ()):
+        return f"log of {unit}"
+    return "no unit"
+
+
+_HELP = {
+    ("weibull", "shape"): "k > 0: above 1 the hazard rises, below 1 it falls, 1 is constant. H(t) = (t / scale)^k.",
+    ("weibull", "scale"): "The time by which H = 1 (63.2 % have had the event).",
+    ("gompertz", "rate"): "h(t) = rate * exp(shape * t): the hazard at clock 0.",
+    ("gompertz", "shape"): "Growth of the log hazard per unit of time (negative: the event may never happen).",
+    ("gompertz_makeham", "constant"): "Age-independent part added to the Gompertz hazard.",
+    ("piecewise", "breaks"): "Band starts, comma separated, beginning at 0.",
+    ("piecewise", "rates"): "Hazard in each band, comma separated, one per break.",
+    ("exponential", "rate"): "Constant hazard (events per person-time).",
+    ("exponential", "events"): "Number of events counted ...",
+    ("exponential", "per"): "... per this much person-time.",
+    ("exponential", "risk"): "Probability of the event within the period, in [0, 1).",
+    ("exponential", "period"): "The period the risk applies to.",
+}
+
+
+class HazardForm(QWidget):
+    """Fields of the hazard at ``base`` (a transition, a background sex or a replacement)."""
+
+    def __init__(self, document: ScenarioDocument, fields: FieldSet, base: KeyPath,
+                 parent: QWidget | None = None) -> None:
+        super().__init__(parent)
+        self.document, self.fields, self.base = document, fields, tuple(base)
+        values = document.table(self.base)
+        self.family = str(values.get("family", ""))
+        self.mode = exponential_mode(values) if self.family == "exponential" else ""
+        unit = str(values.get("unit", "years"))
+        form = QFormLayout(self)
+        form.setContentsMargins(0, 0, 0, 0)
+        fields.group(self.base, self)
+        self.family_combo = fields.combo((*self.base, "family"), [(f, FAMILY_LABELS.get(f, f)) for f in FAMILIES],
+                                         help="Hazard family: the shape of the hazard over the clock.",
+                                         commit=self._set_family)
+        form.addRow("Family", self.family_combo)
+        self.unit_combo = fields.combo((*self.base, "unit"), TIME_UNITS, default="years",
+                                       help="Unit of time the parameters are written in; the model works in years.")
+        form.addRow("Time unit", self.unit_combo)
+        self.mode_combo: QComboBox | None = None
+        if self.family == "exponential":
+            self.mode_combo = QComboBox()
+            self.mode_combo.setObjectName("mode")
+            for mode, label in _MODE_LABELS.items():
+                self.mode_combo.addItem(label.format(u=unit[:-1], us=unit), mode)
+            self.mode_combo.setCurrentIndex(list(MODES).index(self.mode))
+            self.mode_combo.activated.connect(self._on_mode_chosen)
+            form.addRow("Given as", self.mode_combo)
+            names = list(MODES[self.mode])
+        else:
+            names = family_params(self.family)
+        self.param_fields = {}
+        for name in names:
+            fam_for_units = self.family if self.family != "exponential" or name == "rate" else ""
+            kind = "list" if self.family == "piecewise" else "value"
+            w = fields.line((*self.base, name), kind=kind, help=_HELP.get((self.family, name), ""))
+            self.param_fields[name] = w
+            if self.family == "exponential" and name in ("per", "period"):
+                label = f"{name} ({unit if name == 'period' else 'person-' + unit})"
+            elif self.family == "exponential" and name in ("events", "risk"):
+                label = name
+            else:
+                label = f"{name} ({_unit_text(fam_for_units, name, unit)})"
+            form.addRow(label, w)
+        self.conversion = QLabel()
+        self.conversion.setObjectName("conversion")
+        self.conversion.setWordWrap(True)
+        form.addRow(self.conversion)
+        self.resolved = QLabel()
+        self.resolved.setObjectName("resolved")
+        self.resolved.setWordWrap(True)
+        form.addRow(self.resolved)
+        self.refresh_conversion()
+
+    @staticmethod
+    def signature(document: ScenarioDocument, base: KeyPath) -> tuple:
+        """What decides the form's rows: rebuild when it changes."""
+        values = document.table(tuple(base))
+        family = values.get("family")
+        return (family, exponential_mode(values) if family == "exponential" else "", values.get("unit", "years"))
+
+    # ------------------------------------------------------------------ edits
+    def _set_family(self, family: Any) -> None:
+        if not isinstance(family, str) or family not in FAMILIES:
+            return
+
+        def change(doc: Any) -> None:
+            for key in ALL_HAZARD_KEYS - {"unit"}:
+                remove_value(doc, (*self.base, key))
+            set_value(doc, (*self.base, "family"), family)
+            for k, v in DEFAULTS[family].items():
+                set_value(doc, (*self.base, k), v)
+        self.document.edit(f"Set {self.base_label()} family to {family}", change)
+
+    def _on_mode_chosen(self, index: int) -> None:
+        mode = self.mode_combo.itemData(index) if self.mode_combo is not None else "rate"
+        if mode == self.mode:
+            return
+        rate = self._rate_per_year()
+        rate = DEFAULTS["exponential"]["rate"] if rate is None else rate
+        items = [((*self.base, k), None) for k in _EXP_KEYS]
+        items += [((*self.base, k), v) for k, v in equivalent_form(mode, rate).items()]
+        self.document.set_values(items, f"Give {self.base_label()} as {_MODE_LABELS[mode].format(u='year', us='years')}")
+
+    def base_label(self) -> str:
+        """How messages and undo labels name this hazard."""
+        name = self.document.get((*self.base, "name"))
+        return repr(name) if isinstance(name, str) else format_key(self.base)
+
+    # ------------------------------------------------------------------ display
+    def _rate_per_year(self) -> float | None:
+        """The constant rate per year the current entries give (sim.units), or None."""
+        return self._conversion()[0]
+
+    def _conversion(self) -> tuple[float | None, str]:
+        v = self.document.table(self.base)
+        unit = v.get("unit", "years")
+        try:
+            if self.mode == "events":
+                r = rate_per_year(v["events"], v["per"], unit)
+                return r, (f"{v['events']:g} events per {v['per']:g} person-{unit} = {r:.6g} per year "
+                           f"(a constant rate).")
+            if self.mode == "risk":
+                conv = rate_from_risk(v["risk"], v["period"], unit)
+                return conv.rate, f"Rate used: {conv.rate:.6g} per year. {conv.note}"
+            if self.mode == "rate":
+                r = rate_per_year(v["rate"], 1.0, unit)
+                return r, f"Constant rate {r:.6g} per year." if unit != "years" else ""
+        except (KeyError, TypeError, UnitError, ValueError):
+            pass
+        return None, ""
+
+    def refresh_conversion(self) -> None:
+        """Show the converted rate and its assumption (constant hazards)."""
+        text = self._conversion()[1]
+        self.conversion.setText(text)
+        self.conversion.setVisible(bool(text))
+
+    def show_resolved(self, hazard: Hazard | None) -> None:
+        """Show the parameters the validated model uses (years), or nothing."""
+        if hazard is None:
+            self.resolved.setText("")
+            self.resolved.hide()
+            return
+        parts = []
+        for k, v in hazard.params().items():
+            parts.append(f"{k} = " + (", ".join(f"{x:.6g}" for x in v) if isinstance(v, tuple) else f"{v:.6g}"))
+        self.resolved.setText("Used by the model (time in years): " + "; ".join(parts))
+        self.resolved.show()

@@ -1,0 +1,391 @@
+"""The main window: composes the editor panels, the model diagram, the hazard preview, the run
+panel and the results panel, with the File / Edit / Help menus. No modelling logic here."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from PySide6.QtCore import QSize, Qt, Signal
+from PySide6.QtGui import QCloseEvent, QColor, QDragEnterEvent, QDropEvent, QKeySequence
+from PySide6.QtWidgets import (QFileDialog, QHBoxLayout, QLabel, QListWidget, QMainWindow, QMessageBox,
+                               QPushButton, QScrollArea, QSplitter, QStackedWidget, QTabWidget, QVBoxLayout,
+                               QWidget)
+
+from gui.about import AboutDialog
+from gui.diagram import ModelDiagram
+from gui.document import DocumentError, FieldError, ScenarioDocument
+from gui.editors import PANELS, EditorPanel, SourceEditor, TransitionsEditor
+from gui.palette import OKABE_ITO
+from gui.preview import HazardPreview
+from gui.results import ResultsPanel
+from gui.run_panel import RunPanel
+from sim.demo import DEMOS
+
+__all__ = ["MainWindow"]
+
+APP = "HazardTrace"
+
+
+class MainWindow(QMainWindow):
+    """Sections and the run panel on the left; two tabs: "Model" (the editor of the chosen section,
+    the diagram and the hazard preview) and "Results".
+
+    Signals
+    -------
+    results_shown()
+        Re-emitted from the results panel once every view has drawn a run's results.
+    """
+
+    results_shown = Signal()
+
+    def __init__(self, document: ScenarioDocument | None = None, parent: QWidget | None = None) -> None:
+        super().__init__(parent)
+        self.document = document if document is not None else ScenarioDocument(self)
+        self.setAcceptDrops(True)
+        self.resize(QSize(1600, 1000))
+        self._build_panels()
+        self._build_menus()
+        self._connect()
+        self._on_validated(self.document.scenario, self.document.errors)
+        self._update_title()
+
+    # ------------------------------------------------------------------ layout
+    def _build_panels(self) -> None:
+        doc = self.document
+        self.editors: list[EditorPanel] = [P(doc) for P in PANELS]
+        self.sections = QListWidget()
+        self.sections.setObjectName("sections")
+        self.stack = QStackedWidget()
+        for ed in self.editors:
+            self.sections.addItem(ed.title)
+            scroll = QScrollArea()
+            scroll.setWidgetResizable(True)
+            scroll.setHorizontalScrollBarPolicy(Qt.ScrollBarPolicy.ScrollBarAlwaysOff)
+            scroll.setWidget(ed)
+            self.stack.addWidget(scroll)
+        self.sections.currentRowChanged.connect(self._on_section_changed)
+        self.sections.itemClicked.connect(self._on_section_clicked)
+        self.sections.setCurrentRow(0)
+        self.sections.setMaximumHeight(8 + self.sections.sizeHintForRow(0) * (len(self.editors) + 1))
+        self.run_panel = RunPanel()
+        left = QWidget()
+        lv = QVBoxLayout(left)
+        lv.setContentsMargins(4, 4, 4, 4)
+        lv.addWidget(QLabel("<b>Scenario</b>"))
+        lv.addWidget(self.sections)
+        lv.addWidget(QLabel("<b>Run</b>"))
+        lv.addWidget(self.run_panel, 1)
+        left.setMinimumWidth(390)
+        left.setMaximumWidth(420)
+
+        self.problem = QLabel()
+        self.problem.setObjectName("problem")
+        self.problem.setWordWrap(True)
+        self.problem.setStyleSheet(f"color: {OKABE_ITO['vermillion']};")
+        self.go_button = QPushButton("Show")
+        self.go_button.setToolTip("Go to the field with the problem")
+        self.go_button.clicked.connect(self.go_to_problem)
+        bar = QWidget()
+        bl = QHBoxLayout(bar)
+        bl.setContentsMargins(4, 0, 4, 0)
+        bl.addWidget(self.problem, 1)
+        bl.addWidget(self.go_button)
+        self.problem_bar = bar
+        middle = QWidget()
+        mv = QVBoxLayout(middle)
+        mv.setContentsMargins(0, 0, 0, 0)
+        mv.addWidget(bar)
+        mv.addWidget(self.stack, 1)
+
+        self.diagram = ModelDiagram(doc)
+        self.preview = HazardPreview(doc)
+        model_view = QSplitter(Qt.Orientation.Vertical)
+        model_view.addWidget(self.diagram)
+        model_view.addWidget(self.preview)
+        model_view.setSizes([380, 520])
+        self.model_page = QSplitter(Qt.Orientation.Horizontal)
+        self.model_page.addWidget(middle)
+        self.model_page.addWidget(model_view)
+        self.model_page.setStretchFactor(0, 2)
+        self.model_page.setStretchFactor(1, 3)
+        self.results_panel = ResultsPanel()
+        self.tabs = QTabWidget()
+        self.tabs.addTab(self.model_page, "Model")
+        self.tabs.addTab(self.results_panel, "Results")
+
+        split = QSplitter(Qt.Orientation.Horizontal)
+        split.addWidget(left)
+        split.addWidget(self.tabs)
+        split.setStretchFactor(1, 1)
+        self.setCentralWidget(split)
+        self.statusBar()
+
+    def editor(self, cls: type) -> EditorPanel:
+        """The editor panel of class ``cls``."""
+        return next(e for e in self.editors if isinstance(e, cls))
+
+    def show_editor(self, editor: EditorPanel) -> None:
+        self.sections.setCurrentRow(self.editors.index(editor))
+        self.tabs.setCurrentWidget(self.model_page)
+
+    def _build_menus(self) -> None:
+        doc = self.document
+        file_menu = self.menuBar().addMenu("&File")
+        demos = file_menu.addMenu("New from demo")
+        for name, filename in DEMOS.items():
+            act = demos.addAction(f"{name} ({filename})")
+            act.triggered.connect(lambda _c=False, n=name: self.new_from_demo(n))
+        self.open_action = file_menu.addAction("&Open…", QKeySequence.StandardKey.Open, self.open_dialog)
+        self.recent_menu = file_menu.addMenu("Open &recent")
+        self.recent_menu.aboutToShow.connect(self._fill_recent)
+        self._fill_recent()
+        file_menu.addSeparator()
+        self.save_action = file_menu.addAction("&Save", QKeySequence.StandardKey.Save, self.save)
+        self.save_as_action = file_menu.addAction("Save &as…", QKeySequence.StandardKey.SaveAs, self.save_as)
+        file_menu.addSeparator()
+        self.quit_action = file_menu.addAction("&Quit", QKeySequence.StandardKey.Quit, self.close)
+        edit_menu = self.menuBar().addMenu("&Edit")
+        self.undo_action = doc.undo_stack.createUndoAction(self, "&Undo")
+        self.undo_action.setShortcut(QKeySequence.StandardKey.Undo)
+        self.redo_action = doc.undo_stack.createRedoAction(self, "&Redo")
+        self.redo_action.setShortcut(QKeySequence.StandardKey.Redo)
+        edit_menu.addAction(self.undo_action)
+        edit_menu.addAction(self.redo_action)
+        help_menu = self.menuBar().addMenu("&Help")
+        self.about_action = help_menu.addAction("&About HazardTrace", self.show_about)
+
+    def _fill_recent(self) -> None:
+        self.recent_menu.clear()
+        paths = self.document.recent_files()
+        for p in paths:
+            act = self.recent_menu.addAction(str(p))
+            act.triggered.connect(lambda _c=False, p=p: self.open_path(p))
+        if not paths:
+            self.recent_menu.addAction("(none)").setEnabled(False)
+        else:
+            self.recent_menu.addSeparator()
+            self.recent_menu.addAction("Clear list", self.document.clear_recent)
+
+    def _connect(self) -> None:
+        doc = self.document
+        doc.validated.connect(self._on_validated)
+        doc.dirty_changed.connect(self._on_dirty_changed)
+        doc.path_changed.connect(self._on_path_changed)
+        transitions = self.editor(TransitionsEditor)
+        transitions.selected.connect(self._on_transition_selected)
+        self.diagram.transition_clicked.connect(self._on_diagram_clicked)
+        self.run_panel.results_ready.connect(self._on_results_ready)
+        self.results_panel.results_shown.connect(self.results_shown)
+
+    # ------------------------------------------------------------------ slots
+    def _on_validated(self, scenario: object, errors: list[FieldError]) -> None:
+        reason = errors[0].message if errors else ""
+        self.run_panel.set_scenario(scenario, reason)
+        self.problem.setText(f"Problem: {reason}" if errors else "")
+        self._update_problem_bar()
+        for i, ed in enumerate(self.editors):
+            item = self.sections.item(i)
+            # the text view lists every problem; mark it only for those no form can show (broken TOML)
+            bad = any(not e.key for e in errors) if isinstance(ed, SourceEditor) else bool(ed.errors)
+            item.setData(Qt.ItemDataRole.ForegroundRole, QColor(OKABE_ITO["vermillion"]) if bad else None)
+            item.setText(ed.title + (" (problem)" if bad else ""))
+        self.statusBar().showMessage("Scenario valid" if scenario is not None else "Scenario has a problem")
+
+    def _on_section_changed(self, row: int) -> None:
+        self.stack.setCurrentIndex(row)
+        if hasattr(self, "tabs"):
+            self.tabs.setCurrentWidget(self.model_page)
+        self._update_problem_bar()
+
+    def _on_section_clicked(self, _item: object) -> None:
+        self.tabs.setCurrentWidget(self.model_page)
+
+    def _update_problem_bar(self) -> None:
+        """The window-wide problem line shows unless the open section already lists the problem."""
+        if not hasattr(self, "problem_bar"):
+            return
+        current = self.editors[self.stack.currentIndex()]
+        shown_here = bool(current.errors) or isinstance(current, SourceEditor)
+        self.problem_bar.setVisible(bool(self.document.errors) and not shown_here)
+
+    def _on_dirty_changed(self, _dirty: bool) -> None:
+        self._update_title()
+
+    def _on_path_changed(self, _path: object) -> None:
+        self._update_title()
+
+    def _update_title(self) -> None:
+        self.setWindowTitle(f"{self.document.display_name}{' *' if self.document.dirty else ''} \u2014 {APP}")
+
+    def _on_transition_selected(self, index: int) -> None:
+        name = self.editor(TransitionsEditor).selected_name()
+        if name:
+            self.preview.select_exit(name)
+            self.diagram.select_transition(name)
+
+    def _on_diagram_clicked(self, name: str) -> None:
+        self.preview.select_exit(name)
+        transitions = self.editor(TransitionsEditor)
+        names = [t.get("name") for t in transitions.items()]
+        if name in names:
+            self.show_editor(transitions)
+            transitions.select(names.index(name))
+
+    def _on_results_ready(self, results: object) -> None:
+        self.results_panel.show_results(results)
+        self.tabs.setCurrentWidget(self.results_panel)
+
+    def go_to_problem(self) -> None:
+        """Show the section and field of the first problem."""
+        errors = self.document.errors
+        if not errors:
+            return
+        err = errors[0]
+        target = next((ed for ed in self.editors if err.key and err.key[0] in ed.sections), None)
+        if target is None:
+            source = self.editor(SourceEditor)
+            self.show_editor(source)
+            if err.line:
+                source.go_to_line(err.line)
+            return
+        self.show_editor(target)
+        target.focus_key(err.key)
+
+    # ------------------------------------------------------------------ files
+    def start(self, path: str | Path | None = None) -> None:
+        """Open ``path``, or an untitled copy of the first demo (offering unsaved recovered work)."""
+        if path is not None:
+            self.open_path(path, ask_save=False)
+            return
+        self.document.new_from_demo(next(iter(DEMOS)))
+        self._offer_recovery()
+
+    def new_from_demo(self, name: str) -> None:
+        if not self.maybe_save():
+            return
+        try:
+            self.document.new_from_demo(name)
+        except DocumentError as err:
+            QMessageBox.warning(self, APP, str(err))
+            return
+        self._offer_recovery()
+
+    def open_dialog(self) -> None:
+        if not self.maybe_save():
+            return
+        start = str(self.document.path.parent) if self.document.path else ""
+        path, _ = QFileDialog.getOpenFileName(self, "Open scenario", start, "Scenario files (*.toml);;All files (*)")
+        if path:
+            self.open_path(path, ask_save=False)
+
+    def open_path(self, path: str | Path, ask_save: bool = True) -> bool:
+        """Open a scenario file (after the unsaved-changes question); invalid files open too."""
+        if ask_save and not self.maybe_save():
+            return False
+        try:
+            self.document.open(path)
+        except DocumentError as err:
+            QMessageBox.warning(self, APP, str(err))
+            return False
+        self._offer_recovery()
+        return True
+
+    def _offer_recovery(self) -> None:
+        recovery = self.document.find_recovery()
+        if recovery is None:
+            return
+        answer = QMessageBox.question(
+            self, "Recover unsaved changes",
+            f"Unsaved changes to {self.document.display_name} were kept from an earlier session "
+            f"({recovery}). Restore them?",
+            QMessageBox.StandardButton.Yes | QMessageBox.StandardButton.No, QMessageBox.StandardButton.Yes)
+        if answer == QMessageBox.StandardButton.Yes:
+            self.document.restore_recovery(recovery)
+        else:
+            self.document.discard_recovery()
+
+    def save(self) -> bool:
+        if self.document.path is None:
+            return self.save_as()
+        try:
+            self.document.save()
+        except DocumentError as err:
+            QMessageBox.warning(self, APP, str(err))
+            return False
+        self.statusBar().showMessage(f"Saved {self.document.path}", 4000)
+        return True
+
+    def save_as(self) -> bool:
+        start = str(self.document.path) if self.document.path else self.document.suggested_name
+        path, _ = QFileDialog.getSaveFileName(self, "Save scenario as", start, "Scenario files (*.toml)")
+        if not path:
+            return False
+        target = Path(path) if Path(path).suffix else Path(path).with_suffix(".toml")
+        try:
+            self.document.save_as(target)
+        except DocumentError as err:
+            QMessageBox.warning(self, APP, str(err))
+            return False
+        self.statusBar().showMessage(f"Saved {target}", 4000)
+        return True
+
+    def maybe_save(self) -> bool:
+        """Ask about unsaved changes: Save, Discard or Cancel. True when it is safe to go on."""
+        if not self.document.dirty:
+            return True
+        answer = QMessageBox.question(
+            self, "Unsaved changes", f"Save the changes to {self.document.display_name}?",
+            QMessageBox.StandardButton.Save | QMessageBox.StandardButton.Discard | QMessageBox.StandardButton.Cancel,
+            QMessageBox.StandardButton.Save)
+        if answer == QMessageBox.StandardButton.Save:
+            return self.save()
+        if answer == QMessageBox.StandardButton.Discard:
+            self.document.discard_recovery()
+            return True
+        return False
+
+    def show_about(self) -> AboutDialog:
+        dialog = AboutDialog(self)
+        dialog.open()  # window-modal, does not block
+        return dialog
+
+    # ------------------------------------------------------------------ events
+    def showEvent(self, event) -> None:  # noqa: N802 - Qt API
+        super().showEvent(event)
+        if not getattr(self, "_sized", False):  # first show: editor about 40 % of the model page
+            self._sized = True
+            width = self.model_page.width()
+            self.model_page.setSizes([int(width * 0.4), width - int(width * 0.4)])
+
+    def closeEvent(self, event: QCloseEvent) -> None:  # noqa: N802 - Qt API
+        if self.maybe_save():
+            self.run_panel.shutdown()
+            self.results_panel.shutdown()
+            event.accept()
+        else:
+            event.ignore()
+
+    @staticmethod
+    def _toml_files(event: QDragEnterEvent | QDropEvent) -> list[Path]:
+        mime = event.mimeData()
+        if not mime.hasUrls():
+            return []
+        return [Path(u.toLocalFile()) for u in mime.urls() if u.isLocalFile() and u.toLocalFile().lower().endswith(".toml")]
+
+    def dragEnterEvent(self, event: QDragEnterEvent) -> None:  # noqa: N802 - Qt API
+        if self._toml_files(event):
+            event.acceptProposedAction()
+        else:
+            event.ignore()
+
+    def dragMoveEvent(self, event) -> None:  # noqa: N802 - Qt API
+        if self._toml_files(event):
+            event.acceptProposedAction()
+
+    def dropEvent(self, event: QDropEvent) -> None:  # noqa: N802 - Qt API
+        files = self._toml_files(event)
+        if not files:
+            event.ignore()
+            return
+        event.acceptProposedAction()
+        self.open_path(files[0])
