@@ -316,6 +316,10 @@ class HazardPreview(QWidget):
         self.survival_curve.setData(c.t, c.survival)
         self.p_curve.setData(c.t, c.p_cycle)
         self.p_small_curve.setData(c.t, c.p_small)
+        both = np.concatenate([np.asarray(c.p_cycle, float), np.asarray(c.p_small, float)])
+        p_top = float(np.nanmax(both[np.isfinite(both)])) if np.any(np.isfinite(both)) else 0.0
+        # from 0, so that flat lines (constant hazards) keep readable tick labels
+        self.cycle_plot.getPlotItem().setYRange(0.0, p_top * 1.1 if p_top > 0 else 1.0, padding=0)
         self.never_line.setVisible(c.never is not None)
         if c.never is not None:
             self.never_line.setValue(c.never)
