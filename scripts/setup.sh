@@ -29,8 +29,8 @@ if [ ! -x .venv/bin/python ]; then
 fi
 stamp=.venv/.hazardtrace-installed
 if [ ! -f "$stamp" ] || [ pyproject.toml -nt "$stamp" ]; then
-  echo "setup: installing HazardTrace and its test tools into .venv"
+  echo "setup: installing HazardTrace, its test tools and benchmark baselines into .venv"
   .venv/bin/python -m pip install -q --upgrade pip
-  .venv/bin/python -m pip install -q -e ".[test]"
+  .venv/bin/python -m pip install -q -e ".[test,bench]"
   touch "$stamp"
 fi

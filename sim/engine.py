@@ -23,6 +23,7 @@ from __future__ import annotations
 
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
+from functools import lru_cache
 from typing import Callable, Iterator, Protocol
 
 import numpy as np
@@ -30,7 +31,7 @@ import pandas as pd
 from numpy.typing import NDArray
 
 from .model import Clock, Model, ResolvedExit
-from .rng import ATTRIBUTE_STREAM, exponentials, key_from_seed, uniforms
+from .rng import ATTRIBUTE_STREAM, _BulkWords, _sorted_draws, key_from_seed
 
 __all__ = ["simulate", "simulate_chunks", "SimulationResult", "SimulationCancelled", "SimulationError"]
 
@@ -76,11 +77,43 @@ class SimulationResult:
 
 
 # --------------------------------------------------------------------------- chunk kernel
+def _code_dtype(n_labels: int) -> np.dtype:
+    """Smallest integer dtype pandas uses for the codes of a categorical with ``n_labels``
+    categories (as ``pandas.core.dtypes.cast.coerce_indexer_dtype``), so that codes built in that
+    dtype become a :class:`pandas.Categorical` without a conversion copy."""
+    for dt in (np.int8, np.int16, np.int32):
+        if n_labels < np.iinfo(dt).max:
+            return np.dtype(dt)
+    return np.dtype(np.int64)
+
+
+class _PatientTable:
+    """Patient-level result columns for patients ``first .. first + n - 1`` under ``n_st`` strategies
+    (strategy-major, as in the returned table). The chunks write their patients' rows in place, so
+    these columns are never copied, and with several workers they fill in parallel."""
+
+    def __init__(self, first: int, n: int, n_st: int, state_code: np.dtype) -> None:
+        self.first, self.n, self.n_st = first, n, n_st
+        self.entry_age = np.empty(n)
+        self.sex = np.empty(n, dtype=np.int8)
+        self.exit_time = np.empty(n * n_st)
+        self.final_state = np.empty(n * n_st, dtype=state_code)
+        self.exit_reason = np.empty(n * n_st, dtype=np.int8)  # codes of ("absorbed", "censored")
+
+    def rows(self, k: int, start: int, stop: int) -> slice:
+        """Rows of patients ``start .. stop - 1`` under strategy ``k``."""
+        a = k * self.n + start - self.first
+        return slice(a, a + stop - start)
+
+
 @dataclass
 class _ChunkOut:
-    patient: NDArray[np.int64]
-    entry_age: NDArray[np.float64]
-    sex: NDArray[np.int8]
+    """One chunk's events (patients ``start .. stop - 1``): per strategy, the event columns already in
+    patient-then-time order, codes in the categorical code dtypes. Its patient rows are in the
+    run's :class:`_PatientTable`."""
+
+    start: int
+    stop: int
     per_strategy: list[dict[str, NDArray]]
 
 
@@ -94,35 +127,50 @@ def _clock_value(ex: ResolvedExit, t: NDArray[np.float64], age: NDArray[np.float
 
 def _latent_times(ex: ResolvedExit, x: NDArray[np.float64], e: NDArray[np.float64],
                   sex: NDArray[np.int8]) -> NDArray[np.float64]:
+    # The engine's clocks are finite and >= 0 and its draws are >= 0 by construction, so the
+    # arguments need not be re-validated on every call: evaluate the family's conditional time
+    # directly under the floating-point error state of Hazard.conditional_time (the values are the
+    # same; only a -0.0 could differ, and t + (-0.0) == t + 0.0 for the engine's t >= +0.0).
     first = ex.hazards[0]
-    if all(h is first for h in ex.hazards):
-        return first.conditional_time(x, e)
-    out = np.empty_like(x)
-    for code, h in enumerate(ex.hazards):
-        m = sex == code
-        if m.any():
-            out[m] = h.conditional_time(x[m], e[m])
-    return out
+    with np.errstate(divide="ignore", over="ignore", under="ignore"):
+        if all(h is first for h in ex.hazards):
+            return first._conditional_time(x, e)
+        out = np.empty_like(x)
+        for code, h in enumerate(ex.hazards):
+            m = sex == code
+            if m.any():
+                out[m] = h._conditional_time(x[m], e[m])
+        return out
 
 
-def _run_strategy(model: Model, resolved: list[list[ResolvedExit]], key: tuple[int, int],
-                  ids: NDArray[np.int64], entry_age: NDArray[np.float64], sex: NDArray[np.int8],
-                  limit: NDArray[np.float64], max_transitions: int) -> dict[str, NDArray]:
-    n = ids.size
+def _run_strategy(model: Model, resolved: list[list[ResolvedExit]], bulk: _BulkWords, start: int,
+                  entry_age: NDArray[np.float64], sex: NDArray[np.int8], limit: NDArray[np.float64],
+                  max_transitions: int, t: NDArray[np.float64], cur: NDArray,
+                  reason: NDArray[np.int8]) -> dict[str, NDArray]:
+    """Histories of one chunk under one strategy. ``t``, ``cur`` and ``reason`` are the chunk's rows
+    of the patient table (exit time, final state, exit reason), used as the working state."""
+    n = entry_age.size
     n_states = len(model.states)
+    state_code = _code_dtype(n_states)
+    exit_code = _code_dtype(len(model.exit_names))
     absorbing = np.array([s.absorbing for s in model.states])
-    cur = np.full(n, model.state_index(model.population.initial_state), dtype=np.int16)
-    t = np.zeros(n)
+    cur[...] = model.state_index(model.population.initial_state)
+    t[...] = 0.0
     active = limit > 0.0
     absorbed = np.zeros(n, dtype=bool)
-    visits = np.zeros((n, n_states), dtype=np.int64)
+    visits: list[NDArray[np.int64] | None] = [None] * n_states  # entries into each state so far
+    # per state: exit codes, targets, whether any exit reads attained age / has sex-specific hazards
+    exit_index = [np.array([e.index for e in ex], dtype=exit_code) for ex in resolved]
+    targets = [np.array([e.target for e in ex], dtype=state_code) for ex in resolved]
+    uses_age = [any(e.clock is Clock.AGE for e in ex) for ex in resolved]
+    by_sex = [any(any(h is not e.hazards[0] for h in e.hazards) for e in ex) for ex in resolved]
+    # one record per (round, state): chunk-local patient index, time, from, to, exit, round
     rec_idx: list[NDArray[np.int64]] = []
     rec_time: list[NDArray[np.float64]] = []
-    rec_from: list[NDArray[np.int16]] = []
-    rec_to: list[NDArray[np.int16]] = []
-    rec_exit: list[NDArray[np.int16]] = []
-    exit_index = [np.array([e.index for e in ex], dtype=np.int16) for ex in resolved]
-    targets = [np.array([e.target for e in ex], dtype=np.int16) for ex in resolved]
+    rec_from: list[int] = []
+    rec_to: list[NDArray] = []
+    rec_exit: list[NDArray] = []
+    rec_round: list[int] = []
     rounds = 0
     while True:
         idx = np.flatnonzero(active)
@@ -134,108 +182,194 @@ def _run_strategy(model: Model, resolved: list[list[ResolvedExit]], key: tuple[i
                 f"some patients made more than {max_transitions} transitions before the horizon "
                 f"(states now occupied: {sorted({model.state_names[s] for s in np.unique(cur[idx])})}); "
                 f"check for very large hazards on a loop between states, or raise max_transitions")
-        cur_round = cur[idx]
-        for s in np.unique(cur_round):
-            sel = idx[cur_round == s]
+        everyone = idx.size == n  # all patients active: whole arrays instead of gathers
+        cur_round = cur if everyone else cur[idx]
+        present = np.flatnonzero(np.bincount(cur_round, minlength=n_states)).tolist()
+        for s in present:
+            if len(present) == 1:
+                sel, whole = idx, everyone
+            else:
+                sel, whole = idx[cur_round == s], False
             exits = resolved[s]
-            occ = visits[sel, s]
-            visits[sel, s] += 1
-            e = np.empty((sel.size, len(exits)))
-            for o in np.unique(occ):  # usually one value per round
-                m = occ == o
-                e[m] = exponentials(key, ids[sel[m]], 1 + int(s), int(o), len(exits))
-            ts = t[sel]
-            age = entry_age[sel] + ts
-            sx = sex[sel]
-            dt = np.empty((sel.size, len(exits)))
-            for j, ex in enumerate(exits):
-                dt[:, j] = _latent_times(ex, _clock_value(ex, ts, age), e[:, j], sx)
-            win = np.argmin(dt, axis=1)
-            t_new = ts + dt[np.arange(sel.size), win]
-            cens = t_new >= limit[sel]
-            # censored at the horizon
-            c_idx = sel[cens]
-            t[c_idx] = limit[c_idx]
-            active[c_idx] = False
-            # transitions that happened
-            moved = ~cens
+            k = len(exits)
+            if visits[s] is None:
+                visits[s] = np.zeros(n, dtype=np.int64)
+            v = visits[s]
+            occ = v if whole else v[sel]
+            o_lo, o_hi = int(occ.min()), int(occ.max())
+            if o_lo == o_hi:  # the usual case: one occurrence number per (round, state)
+                e = _sorted_draws(bulk, sel + start, 1 + s, o_lo, k)
+                if whole:
+                    v += 1
+                else:
+                    v[sel] = o_lo + 1
+            else:
+                e = np.empty((sel.size, k))
+                for o in np.unique(occ).tolist():
+                    m = occ == o
+                    e[m] = _sorted_draws(bulk, sel[m] + start, 1 + s, o, k)
+                v[sel] = occ + 1
+            ts = t if whole else t[sel]
+            age = (entry_age + ts if whole else entry_age[sel] + ts) if uses_age[s] else None
+            sx = (sex if whole else sex[sel]) if by_sex[s] else None
+            # earliest latent time (the first exit wins ties, as with numpy.argmin)
+            best = _latent_times(exits[0], _clock_value(exits[0], ts, age), e[:, 0], sx)
+            win = None
+            for j in range(1, k):
+                dt_j = _latent_times(exits[j], _clock_value(exits[j], ts, age), e[:, j], sx)
+                better = dt_j < best
+                best = np.where(better, dt_j, best)
+                win = np.where(better, j, 0 if win is None else win)
+            t_new = ts + best
+            lim = limit if whole else limit[sel]
+            moved = t_new < lim
             m_idx = sel[moved]
-            to = targets[s][win[moved]]
+            # censored at the horizon: follow-up ends there; the others move at t_new
+            if whole:
+                np.copyto(t, np.where(moved, t_new, lim))
+                np.copyto(active, moved)
+            else:
+                t[sel] = np.where(moved, t_new, lim)
+                active[sel] = moved
+            t_moved = t_new[moved]
+            if win is None:
+                to = np.full(m_idx.size, targets[s][0], dtype=state_code)
+                ex_code = np.full(m_idx.size, exit_index[s][0], dtype=exit_code)
+            else:
+                w = win[moved]
+                to = targets[s][w]
+                ex_code = exit_index[s][w]
             rec_idx.append(m_idx)
-            rec_time.append(t_new[moved])
-            rec_from.append(np.full(m_idx.size, s, dtype=np.int16))
+            rec_time.append(t_moved)
+            rec_from.append(s)
             rec_to.append(to)
-            rec_exit.append(exit_index[s][win[moved]])
-            t[m_idx] = t_new[moved]
+            rec_exit.append(ex_code)
+            rec_round.append(rounds)
             cur[m_idx] = to
-            done = absorbing[to]
-            absorbed[m_idx[done]] = True
-            active[m_idx[done]] = False
+            done = absorbing[to]  # moved patients were active and not absorbed until now
+            absorbed[m_idx] = done
+            active[m_idx] = ~done
+    # Order events by patient, then time, by placing them directly: a patient active in round r
+    # has made exactly r - 1 moves before it (every round either moves or censors each active
+    # patient), so its event of round r is its r-th.
+    sizes = [a.size for a in rec_idx]
     ev_idx = np.concatenate(rec_idx) if rec_idx else np.zeros(0, dtype=np.int64)
-    order = np.argsort(ev_idx, kind="stable")  # recording order is time order within a patient
-    ev_idx = ev_idx[order]
+    per_patient = np.bincount(ev_idx, minlength=n)
+    first_slot = np.cumsum(per_patient) - per_patient
+    dest = first_slot[ev_idx]
+    dest += np.repeat(np.array(rec_round, dtype=np.int64) - 1, sizes)
+    del first_slot, per_patient
+
+    def place(parts: list[NDArray], dtype) -> NDArray:
+        out = np.empty(dest.size, dtype=dtype)
+        if parts:
+            out[dest] = np.concatenate(parts)
+        return out
+
+    ev_patient = np.empty(dest.size, dtype=np.int64)
+    ev_patient[dest] = ev_idx
+    ev_patient += start
+    del ev_idx
+    ev_from = np.empty(dest.size, dtype=state_code)
+    ev_from[dest] = np.repeat(np.array(rec_from, dtype=state_code), sizes)
+    ev_time = place(rec_time, np.float64)
+    np.logical_not(absorbed, out=reason.view(np.bool_))  # 0 "absorbed", 1 "censored"
     return {
-        "ev_patient": ids[ev_idx],
-        "ev_time": np.concatenate(rec_time)[order] if rec_time else np.zeros(0),
-        "ev_age": entry_age[ev_idx] + (np.concatenate(rec_time)[order] if rec_time else np.zeros(0)),
-        "ev_from": np.concatenate(rec_from)[order] if rec_from else np.zeros(0, np.int16),
-        "ev_to": np.concatenate(rec_to)[order] if rec_to else np.zeros(0, np.int16),
-        "ev_exit": np.concatenate(rec_exit)[order] if rec_exit else np.zeros(0, np.int16),
-        "exit_time": t,
-        "final_state": cur,
-        "absorbed": absorbed,
+        "ev_patient": ev_patient,
+        "ev_time": ev_time,
+        "ev_age": entry_age[ev_patient - start] + ev_time,  # attained age: entry age + time
+        "ev_from": ev_from,
+        "ev_to": place(rec_to, state_code),
+        "ev_exit": place(rec_exit, exit_code),
     }
 
 
 def _simulate_chunk(model: Model, plans: list[list[list[ResolvedExit]]], key: tuple[int, int],
-                    start: int, stop: int, max_transitions: int) -> _ChunkOut:
-    ids = np.arange(start, stop, dtype=np.int64)
-    u = uniforms(key, ids, ATTRIBUTE_STREAM, 0, 2)
-    entry_age = model.population.entry_age.ppf(u[:, 0]).astype(np.float64)
-    sex = model.population.sex_codes(u[:, 1])
+                    start: int, stop: int, max_transitions: int, table: _PatientTable) -> _ChunkOut:
+    bulk = _BulkWords(key)
+    u = _sorted_draws(bulk, np.arange(start, stop, dtype=np.int64), ATTRIBUTE_STREAM, 0, 2, exponential=False)
+    rows = table.rows(0, start, stop)
+    entry_age = table.entry_age[rows]
+    entry_age[...] = model.population.entry_age.ppf(u[:, 0])
+    sex = table.sex[rows]
+    # with a single sex every patient has code 0 (what sex_codes returns for any u in (0, 1])
+    sex[...] = 0 if len(model.population.sexes) == 1 else model.population.sex_codes(u[:, 1])
+    del u
     limit = model.horizon.time_limit(entry_age)
-    per = [_run_strategy(model, plan, key, ids, entry_age, sex, limit, max_transitions) for plan in plans]
-    return _ChunkOut(ids, entry_age, sex, per)
+    per = []
+    for k, plan in enumerate(plans):
+        rows = table.rows(k, start, stop)
+        per.append(_run_strategy(model, plan, bulk, start, entry_age, sex, limit, max_transitions,
+                                 table.exit_time[rows], table.final_state[rows], table.exit_reason[rows]))
+    return _ChunkOut(start, stop, per)
 
 
 # --------------------------------------------------------------------------- assembly
+@lru_cache(maxsize=256)
+def _categories(labels: tuple[str, ...]) -> pd.CategoricalDtype:
+    """The (immutable) categorical dtype of a tuple of labels, built once: building one costs about
+    50 microseconds, which shows in runs of a few thousand patients."""
+    return pd.CategoricalDtype(list(labels), ordered=False)
+
+
 def _cat(codes: NDArray, labels: tuple[str, ...]) -> pd.Categorical:
-    return pd.Categorical.from_codes(np.asarray(codes, dtype=np.int64), categories=list(labels))
+    # codes come from the model's own indices, so pandas' range check is skipped
+    return pd.Categorical.from_codes(codes, dtype=_categories(tuple(labels)), validate=False)
 
 
-def _assemble(model: Model, strategies: tuple[str, ...], chunks: list[_ChunkOut]) -> tuple[pd.DataFrame, pd.DataFrame]:
-    """Concatenate chunk outputs (in chunk order, so patients stay sorted) into the two tables."""
-    states = model.state_names
+def _assemble(model: Model, strategies: tuple[str, ...], chunks: list[_ChunkOut],
+              table: _PatientTable) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """Join the chunks' events (in chunk order, so patients stay sorted) and the patient table into
+    the two tables.
+
+    Each event column is built in one preallocated array and every chunk array is released as soon
+    as it has been copied, so the peak is about the returned tables plus one column rather than the
+    chunk results and the tables side by side. The chunks are emptied.
+    """
     n_st = len(strategies)
-
-    def col(field_name: str) -> NDArray:
-        return np.concatenate([c.per_strategy[k][field_name] for k in range(n_st) for c in chunks])
-
-    ids = np.concatenate([c.patient for c in chunks])
-    entry_age = np.concatenate([c.entry_age for c in chunks])
-    sex = np.concatenate([c.sex for c in chunks])
+    state_code = _code_dtype(len(model.state_names))
+    states = model.state_names
+    strategy_labels = tuple(strategies)
+    strategy_code = _code_dtype(n_st)
+    n_pat = table.n
     n_ev = [sum(c.per_strategy[k]["ev_patient"].size for c in chunks) for k in range(n_st)]
+    total = sum(n_ev)
+
+    def take(field_name: str, dtype) -> NDArray:
+        """Concatenate one per-strategy field over strategies, then chunks; release the parts."""
+        out = np.empty(total, dtype=dtype)
+        pos = 0
+        for k in range(n_st):
+            for c in chunks:
+                part = c.per_strategy[k].pop(field_name)
+                out[pos:pos + part.size] = part
+                pos += part.size
+                del part
+        return out
+
     events = pd.DataFrame({
-        "strategy": _cat(np.repeat(np.arange(n_st), n_ev), strategies),
-        "patient": col("ev_patient"),
-        "time": col("ev_time"),
-        "age": col("ev_age"),
-        "from_state": _cat(col("ev_from"), states),
-        "to_state": _cat(col("ev_to"), states),
-        "transition": _cat(col("ev_exit"), model.exit_names),
+        "strategy": _cat(np.repeat(np.arange(n_st, dtype=strategy_code), n_ev), strategy_labels),
+        "patient": take("ev_patient", np.int64),
+        "time": take("ev_time", np.float64),
+        "age": take("ev_age", np.float64),
+        "from_state": _cat(take("ev_from", state_code), states),
+        "to_state": _cat(take("ev_to", state_code), states),
+        "transition": _cat(take("ev_exit", _code_dtype(len(model.exit_names))), model.exit_names),
     }, copy=False)
-    exit_time = col("exit_time")
-    entry_all = np.tile(entry_age, n_st)
+
+    ids = np.arange(table.first, table.first + n_pat, dtype=np.int64)
+    entry_all = table.entry_age if n_st == 1 else np.tile(table.entry_age, n_st)
     patients = pd.DataFrame({
-        "strategy": _cat(np.repeat(np.arange(n_st), ids.size), strategies),
-        "patient": np.tile(ids, n_st),
+        "strategy": _cat(np.repeat(np.arange(n_st, dtype=strategy_code), n_pat), strategy_labels),
+        "patient": ids if n_st == 1 else np.tile(ids, n_st),
         "entry_age": entry_all,
-        "sex": _cat(np.tile(sex, n_st), model.population.sexes),
-        "initial_state": _cat(np.full(ids.size * n_st, model.state_index(model.population.initial_state)), states),
-        "exit_time": exit_time,
-        "exit_age": entry_all + exit_time,
-        "final_state": _cat(col("final_state"), states),
-        "exit_reason": _cat(np.where(col("absorbed"), 0, 1), ("absorbed", "censored")),
+        "sex": _cat(table.sex if n_st == 1 else np.tile(table.sex, n_st), model.population.sexes),
+        "initial_state": _cat(np.full(n_pat * n_st, model.state_index(model.population.initial_state),
+                                      dtype=state_code), states),
+        "exit_time": table.exit_time,
+        "exit_age": entry_all + table.exit_time,
+        "final_state": _cat(table.final_state, states),
+        "exit_reason": _cat(table.exit_reason, ("absorbed", "censored")),
     }, copy=False)
     return events, patients
 
@@ -263,18 +397,22 @@ def _validate_run(model: Model, n_patients: int, chunk_size: int, workers: int,
 
 
 def _chunk_outputs(model: Model, n_patients: int, seed: int, names: tuple[str, ...], chunk_size: int,
-                   workers: int, cancel, max_transitions: int) -> Iterator[_ChunkOut]:
-    """Chunk results in patient order; with several workers at most 2 x workers chunks are in flight
-    (bounded memory when the consumer streams them to disk)."""
+                   workers: int, cancel, max_transitions: int,
+                   table: _PatientTable | None = None) -> Iterator[tuple[_ChunkOut, _PatientTable]]:
+    """Chunk results in patient order, each with the patient table holding its rows: ``table`` (for
+    all patients) if given, else a table of its own (streaming). With several workers at most
+    2 x workers chunks are in flight (bounded memory when the consumer streams them to disk)."""
+    state_code = _code_dtype(len(model.state_names))
     key = key_from_seed(seed)
     plans = [model.resolve(nm) for nm in names]
     bounds = [(a, min(a + chunk_size, n_patients)) for a in range(0, n_patients, chunk_size)]
 
-    def work(i: int) -> _ChunkOut:
+    def work(i: int) -> tuple[_ChunkOut, _PatientTable]:
         if _is_cancelled(cancel):
             raise SimulationCancelled("simulation cancelled")
         a, b = bounds[i]
-        return _simulate_chunk(model, plans, key, a, b, max_transitions)
+        rows = table if table is not None else _PatientTable(a, b - a, len(names), state_code)
+        return _simulate_chunk(model, plans, key, a, b, max_transitions, rows), rows
 
     if workers == 1 or len(bounds) == 1:
         for i in range(len(bounds)):
@@ -306,8 +444,8 @@ def simulate_chunks(model: Model, n_patients: int, seed: int, *, strategies: tup
     to disk with memory bounded by the chunk size. Concatenating all chunks gives the same rows as
     :func:`simulate` (ordered by chunk first)."""
     names = _validate_run(model, n_patients, chunk_size, workers, strategies)
-    for out in _chunk_outputs(model, n_patients, seed, names, chunk_size, workers, cancel, max_transitions):
-        yield _assemble(model, names, [out])
+    for out, table in _chunk_outputs(model, n_patients, seed, names, chunk_size, workers, cancel, max_transitions):
+        yield _assemble(model, names, [out], table)
 
 
 def simulate(model: Model, n_patients: int, seed: int, *, strategies: tuple[str, ...] | None = None,
@@ -323,8 +461,9 @@ def simulate(model: Model, n_patients: int, seed: int, *, strategies: tuple[str,
     n_patients : number of patients per strategy (same patients in every strategy).
     seed : non-negative integer; with the model it fixes every draw (recorded in the result).
     strategies : names to run (default: all of the model's strategies).
-    chunk_size : patients per chunk. Peak memory is about twice the returned tables (chunk results
-        are joined once at the end) plus a working set of under 1 kB per patient in a chunk.
+    chunk_size : patients per chunk. Peak memory is about the returned tables plus one column (chunk
+        results are compact and released column by column as the tables are built) plus a working
+        set of under 1 kB per patient in a chunk for each worker's chunks in flight.
     workers : worker threads (numpy releases the GIL); results are identical for any value.
     progress : called as ``progress(patients_done, n_patients)`` after each chunk.
     cancel : an object with ``is_set()`` (e.g. ``threading.Event``) or a callable; checked between
@@ -338,12 +477,14 @@ def simulate(model: Model, n_patients: int, seed: int, *, strategies: tuple[str,
     names = _validate_run(model, n_patients, chunk_size, workers, strategies)
     outs: list[_ChunkOut] = []
     done = 0
-    for out in _chunk_outputs(model, n_patients, seed, names, chunk_size, workers, cancel, max_transitions):
+    table = _PatientTable(0, int(n_patients), len(names), _code_dtype(len(model.state_names)))
+    for out, _ in _chunk_outputs(model, n_patients, seed, names, chunk_size, workers, cancel, max_transitions,
+                                 table):
         outs.append(out)
-        done += out.patient.size
+        done += out.stop - out.start
         if progress is not None:
             progress(done, n_patients)
-    events, patients = _assemble(model, names, outs)
+    events, patients = _assemble(model, names, outs, table)
     return SimulationResult(model=model, seed=int(seed), n_patients=int(n_patients), events=events,
                             patients=patients, chunk_size=int(chunk_size), workers=int(workers),
                             metadata={"strategies": names, "generator": "Philox4x64-10 counter-based"})

@@ -38,18 +38,30 @@ _S32 = np.uint64(32)
 _ROUNDS = 10
 
 
-def _mulhilo(a: np.uint64, b: NDArray[np.uint64]) -> tuple[NDArray[np.uint64], NDArray[np.uint64]]:
-    """High and low 64-bit words of the 128-bit product ``a * b`` (schoolbook on 32-bit halves)."""
-    a_lo, a_hi = a & _LO32, a >> _S32
-    b_lo, b_hi = b & _LO32, b >> _S32
-    lo_lo = a_lo * b_lo
-    hi_lo = a_hi * b_lo
-    lo_hi = a_lo * b_hi
-    # Cannot overflow: (2^32-1)^2 + 2 (2^32-1) = 2^64 - 1.
-    cross = (lo_lo >> _S32) + (hi_lo & _LO32) + lo_hi
-    hi = a_hi * b_hi + (hi_lo >> _S32) + (cross >> _S32)
-    lo = a * b  # wraps modulo 2^64
-    return hi, lo
+_M0_INT, _M1_INT = int(_M0), int(_M1)
+
+
+def _mulhilo_into(a_lo: NDArray[np.uint64], a_hi: NDArray[np.uint64], a: NDArray[np.uint64],
+                  b: NDArray[np.uint64], hi: NDArray[np.uint64], lo: NDArray[np.uint64],
+                  t1: NDArray[np.uint64], t2: NDArray[np.uint64], t3: NDArray[np.uint64]) -> None:
+    """High and low 64-bit words of the 128-bit products ``a * b`` (``a``: constants broadcast against
+    ``b``, given with their 32-bit halves), by schoolbook multiplication on 32-bit halves, written
+    into ``hi`` and ``lo`` with the scratch arrays ``t1``-``t3`` instead of fresh temporaries."""
+    np.bitwise_and(b, _LO32, out=t1)  # b_lo
+    np.right_shift(b, _S32, out=t2)  # b_hi
+    np.multiply(a_hi, t1, out=t3)  # hi_lo
+    np.multiply(a_lo, t1, out=t1)  # lo_lo
+    np.right_shift(t1, _S32, out=t1)  # lo_lo >> 32
+    np.multiply(a_hi, t2, out=hi)  # a_hi * b_hi
+    np.multiply(a_lo, t2, out=t2)  # lo_hi
+    np.add(t1, t2, out=t1)
+    np.bitwise_and(t3, _LO32, out=t2)
+    np.add(t1, t2, out=t1)  # cross; cannot overflow: (2^32-1)^2 + 2 (2^32-1) = 2^64 - 1
+    np.right_shift(t3, _S32, out=t3)
+    np.add(hi, t3, out=hi)
+    np.right_shift(t1, _S32, out=t1)
+    np.add(hi, t1, out=hi)
+    np.multiply(a, b, out=lo)  # wraps modulo 2^64
 
 
 def philox4x64(counter: tuple[ArrayLike, ArrayLike, ArrayLike, ArrayLike],
@@ -64,18 +76,40 @@ def philox4x64(counter: tuple[ArrayLike, ArrayLike, ArrayLike, ArrayLike],
     Returns
     -------
     Four ``uint64`` arrays: the random words for each counter.
+
+    Notes
+    -----
+    A round maps (c0, c1, c2, c3) to (hi(M1 c2) ^ c1 ^ k0, lo(M1 c2), hi(M0 c0) ^ c3 ^ k1,
+    lo(M0 c0)). The words are kept as two stacked pairs, A = (c0, c2) and B = (c1, c3), so that
+    both multiplications of a round run as one (A times (M0, M1)); the round is then
+    A' = swap(hi) ^ B ^ (k0, k1), B' = swap(lo). All updates are in place in preallocated
+    buffers. This halves the number of numpy calls (which dominate the cost for a few thousand
+    counters) and saves about a fifth of the time on large vectors.
     """
-    c0, c1, c2, c3 = np.broadcast_arrays(*(np.asarray(c, dtype=np.uint64) for c in counter))
-    c0, c1, c2, c3 = (c.copy() for c in (c0, c1, c2, c3))
+    words = np.broadcast_arrays(*(np.asarray(c, dtype=np.uint64) for c in counter))
+    shape = words[0].shape
+    size = words[0].size
+    a = np.empty((2, size), dtype=np.uint64)
+    b = np.empty((2, size), dtype=np.uint64)
+    a[0], a[1] = words[0].reshape(-1), words[2].reshape(-1)
+    b[0], b[1] = words[1].reshape(-1), words[3].reshape(-1)
+    m = np.array([[_M0_INT], [_M1_INT]], dtype=np.uint64)
+    m_lo, m_hi = m & _LO32, m >> _S32
+    hi, lo, t1, t2, t3 = (np.empty((2, size), dtype=np.uint64) for _ in range(5))
+    k = np.empty((2, 1), dtype=np.uint64)
     k0, k1 = int(key[0]), int(key[1])
     for _ in range(_ROUNDS):
-        hi0, lo0 = _mulhilo(_M0, c0)
-        hi1, lo1 = _mulhilo(_M1, c2)
-        c0, c1, c2, c3 = hi1 ^ c1 ^ np.uint64(k0), lo1, hi0 ^ c3 ^ np.uint64(k1), lo0
+        _mulhilo_into(m_lo, m_hi, m, a, hi, lo, t1, t2, t3)  # rows: M0 c0, M1 c2
+        k[0, 0], k[1, 0] = k0, k1
+        np.bitwise_xor(hi[::-1], b, out=a)  # (hi(M1 c2) ^ c1, hi(M0 c0) ^ c3)
+        np.bitwise_xor(a, k, out=a)
+        b, lo = lo[::-1], b  # (lo(M1 c2), lo(M0 c0)); the old B becomes the next lo buffer
+        if not lo.flags.c_contiguous:
+            lo = lo[::-1]
         # Key schedule in Python integers modulo 2^64 (numpy scalars would warn on wrap-around).
         k0 = (k0 + _W0_INT) & _MASK64
         k1 = (k1 + _W1_INT) & _MASK64
-    return c0, c1, c2, c3
+    return tuple(w.reshape(shape) for w in (a[0], b[0], a[1], b[1]))
 
 
 def key_from_seed(seed: int) -> tuple[int, int]:
@@ -96,15 +130,85 @@ def _to_unit(words: NDArray[np.uint64]) -> NDArray[np.float64]:
     return 2.0 - f
 
 
+def _unit_into(words: NDArray[np.uint64], out: NDArray[np.float64]) -> None:
+    """:func:`_to_unit` of ``words`` written into ``out``, overwriting ``words`` (scratch) instead of
+    allocating temporaries. Same bits as ``out[...] = _to_unit(words)``."""
+    np.right_shift(words, np.uint64(12), out=words)
+    np.bitwise_or(words, np.uint64(0x3FF0000000000000), out=words)
+    np.subtract(2.0, words.view(np.float64), out=out)
+
+
+def _philox_state(key: NDArray[np.uint64], first: int, stream: int, occurrence: int, block: int) -> dict:
+    """State of ``numpy.random.Philox`` whose next block is the counter (first, stream, occurrence,
+    block): numpy steps its 256-bit counter by one before each block, so it starts one below
+    (with borrow)."""
+    value = (first + (stream << 64) + (occurrence << 128) + (block << 192) - 1) % (1 << 256)
+    counter = np.array([(value >> (64 * i)) & _MASK64 for i in range(4)], dtype=np.uint64)
+    return {"bit_generator": "Philox", "state": {"counter": counter, "key": key},
+            "buffer": np.zeros(4, dtype=np.uint64), "buffer_pos": 4, "has_uint32": 0, "uinteger": 0}
+
+
+class _BulkWords:
+    """numpy's C Philox under one key, re-positioned for each bulk request (setting the state is
+    much cheaper than building a generator; that matters for small chunks). Not thread-safe: one
+    per chunk of work."""
+
+    def __init__(self, key: tuple[int, int]) -> None:
+        self.pair = (int(key[0]), int(key[1]))
+        self.key = np.array(key, dtype=np.uint64)
+        self.bitgen = np.random.Philox(counter=np.zeros(4, dtype=np.uint64), key=self.key)
+
+    def __call__(self, first: int, count: int, stream: int, occurrence: int, block: int) -> NDArray[np.uint64]:
+        """Words for the consecutive counters (first + i, stream, occurrence, block), i < count,
+        as an array (count, 4)."""
+        self.bitgen.state = _philox_state(self.key, first, stream, occurrence, block)
+        return self.bitgen.random_raw(4 * count).reshape(count, 4)
+
+
 def _bulk_words(key: tuple[int, int], first: int, count: int, stream: int, occurrence: int,
                 block: int) -> NDArray[np.uint64]:
     """Philox words for the consecutive counters (first + i, stream, occurrence, block), i < count,
-    as an array (count, 4), from numpy's C implementation (``numpy.random.Philox``), which steps the
-    256-bit counter by one before each block; so start it one below ``first`` (with borrow)."""
-    value = (first + (stream << 64) + (occurrence << 128) + (block << 192) - 1) % (1 << 256)
-    counter = np.array([(value >> (64 * i)) & _MASK64 for i in range(4)], dtype=np.uint64)
-    bitgen = np.random.Philox(counter=counter, key=np.array(key, dtype=np.uint64))
-    return bitgen.random_raw(4 * count).reshape(count, 4)
+    as an array (count, 4), from numpy's C implementation (``numpy.random.Philox``)."""
+    return _BulkWords(key)(first, count, stream, occurrence, block)
+
+
+def _dense(lo: int, hi: int, size: int) -> bool:
+    """Whether to draw the whole id range ``lo..hi`` in bulk rather than run :func:`philox4x64` on
+    the ``size`` ids alone. Measured costs: the C generator ~15 ns per counter of the range; the
+    vectorised bijection ~100 ns per id plus ~0.3 ms of fixed cost (some 170 numpy calls)."""
+    return hi - lo + 1 <= 8 * size + 16384
+
+
+def _fill_uniforms(out: NDArray[np.float64], key: tuple[int, int], patient: NDArray[np.int64], lo: int,
+                   hi: int, contiguous: bool, stream: int, occurrence: int,
+                   bulk: _BulkWords | None = None) -> None:
+    """Write the uniforms of :func:`uniforms` into ``out`` (shape ``(len(patient), n)``), given the
+    patients' smallest and largest id and whether they are exactly ``lo, lo + 1, ..., hi``."""
+    n = out.shape[1]
+    count = hi - lo + 1
+    dense = _dense(lo, hi, patient.size)
+    rows = None if contiguous or not dense else patient - lo
+    if dense and bulk is None:
+        bulk = _BulkWords(key)
+    for block in range((n + 3) // 4):
+        width = min(4, n - 4 * block)
+        target = out[:, 4 * block:4 * block + width]
+        # Column by column: numpy loops over (m, 2)-shaped operands two elements at a time, which
+        # costs several times more than whole columns. The arithmetic is exact, so the layout
+        # cannot change a bit.
+        if dense:
+            raw = bulk(lo, count, int(stream), int(occurrence), block)
+            if rows is None:
+                _unit_into(raw, raw.view(np.float64))  # the whole (count, 4) block, contiguous
+                for w in range(width):
+                    target[:, w] = raw[:, w].view(np.float64)
+            else:
+                for w in range(width):
+                    _unit_into(raw[:, w].take(rows), target[:, w])
+        else:
+            words = philox4x64((patient.astype(np.uint64), stream, occurrence, block), key)
+            for w in range(width):
+                _unit_into(words[w], target[:, w])
 
 
 def uniforms(key: tuple[int, int], patient: ArrayLike, stream: int, occurrence: int,
@@ -121,20 +225,46 @@ def uniforms(key: tuple[int, int], patient: ArrayLike, stream: int, occurrence: 
     if patient.size == 0:
         return out
     lo, hi = int(patient.min()), int(patient.max())
-    dense = (hi - lo + 1) <= 8 * patient.size + 4096
-    for block in range((n + 3) // 4):
-        width = min(4, n - 4 * block)
-        if dense:
-            words = _bulk_words(key, lo, hi - lo + 1, int(stream), int(occurrence), block)[patient - lo, :width]
-            out[:, 4 * block:4 * block + width] = _to_unit(words)
-        else:
-            words = philox4x64((patient.astype(np.uint64), stream, occurrence, block), key)
-            for w in range(width):
-                out[:, 4 * block + w] = _to_unit(words[w])
+    contiguous = (hi - lo + 1 == patient.size and int(patient[0]) == lo
+                  and (patient.size < 3 or bool(np.all(np.diff(patient) == 1))))
+    _fill_uniforms(out, key, patient, lo, hi, contiguous, stream, occurrence)
     return out
 
 
 def exponentials(key: tuple[int, int], patient: ArrayLike, stream: int,
                  occurrence: int, n: int) -> NDArray[np.float64]:
     """Standard exponential draws E = -ln U, U from :func:`uniforms`; E in [0, 36.05]."""
-    return -np.log(uniforms(key, patient, stream, occurrence, n))
+    out = uniforms(key, patient, stream, occurrence, n)
+    np.log(out, out=out)
+    return np.negative(out, out=out)
+
+
+def _sorted_draws(bulk: _BulkWords, patient: NDArray[np.int64], stream: int, occurrence: int, n: int,
+                  exponential: bool = True) -> NDArray[np.float64]:
+    """The engine's draws: :func:`exponentials` (or :func:`uniforms` if not ``exponential``) for ids
+    known to be strictly increasing, with the same bits.
+
+    The id range and contiguity are read off the ends. With at most four columns and dense ids the
+    result is a view of a (len(patient), 4) block that was transformed whole: one gather of
+    32-byte rows and five in-place passes over contiguous memory instead of work per column. The
+    logarithm then runs over contiguous memory exactly as in :func:`exponentials`, so every
+    element goes through the same kernel.
+    """
+    m = patient.shape[0]
+    if m == 0:
+        return np.empty((0, n))
+    lo, hi = int(patient[0]), int(patient[-1])
+    contiguous = hi - lo + 1 == m
+    if n <= 4 and _dense(lo, hi, m):
+        raw = bulk(lo, hi - lo + 1, int(stream), int(occurrence), 0)
+        block = raw if contiguous else raw.take(patient - lo, axis=0)
+        f = block.view(np.float64)
+        _unit_into(block, f)
+        out = f
+    else:
+        out = np.empty((m, n))
+        _fill_uniforms(out, bulk.pair, patient, lo, hi, contiguous, stream, occurrence, bulk)
+    if exponential:
+        np.log(out, out=out)
+        np.negative(out, out=out)
+    return out[:, :n]

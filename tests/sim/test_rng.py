@@ -61,3 +61,13 @@ def test_uniform_and_exponential_laws():
 def test_seed_validation():
     with pytest.raises(ValueError, match="seed must be a non-negative integer, got -1"):
         key_from_seed(-1)
+
+
+def test_sparse_ids_take_the_vectorised_path_with_the_same_bits():
+    # Patients spread far apart in id use the numpy Philox implementation instead of the bulk C
+    # generator; both must give the bits of the counter (patient, stream, occurrence, block).
+    key = key_from_seed(21)
+    dense = uniforms(key, np.arange(50_000), 3, 2, 6)
+    ids = np.array([0, 17, 49_999])
+    far = np.array([0, 17, 49_999, 10**9])  # a range far larger than 8 x count: the sparse path
+    np.testing.assert_array_equal(uniforms(key, far, 3, 2, 6)[:3], dense[ids])
