@@ -186,15 +186,24 @@ def discretization_study(model: Model, cycle_lengths: tuple[float, ...] = DEFAUL
 
 
 def _decisions(table: pd.DataFrame, ref: pd.DataFrame, comparator: str, wtp: float) -> pd.DataFrame:
+    """Increments of every strategy against the comparator for each (cycle length, method,
+    correction), with the decision flags; one pivot for the whole grid."""
     ref_inc = increments_from_values(ref, comparator, wtp).set_index("strategy")
-    frames = []
-    for key, g in table.groupby(["cycle_length", "method", "correction"], sort=False):
-        inc = increments_from_values(g[["strategy", "outcome", "value"]], comparator, wtp)
-        inc.insert(0, "correction", key[2])
-        inc.insert(0, "method", key[1])
-        inc.insert(0, "cycle_length", key[0])
-        frames.append(inc)
-    out = pd.concat(frames, ignore_index=True)
+    keys = ["cycle_length", "method", "correction"]
+    wide = table[table["outcome"].isin(["costs_discounted", "qalys_discounted"])].pivot_table(
+        index=[*keys, "strategy"], columns="outcome", values="value", sort=False)
+    base = wide.xs(comparator, level="strategy")
+    others = wide.drop(index=comparator, level="strategy")
+    base_aligned = base.reindex(others.index.droplevel("strategy"))
+    dc = others["costs_discounted"].to_numpy() - base_aligned["costs_discounted"].to_numpy()
+    de = others["qalys_discounted"].to_numpy() - base_aligned["qalys_discounted"].to_numpy()
+    out = others.index.to_frame(index=False)
+    out["comparator"] = comparator
+    out["delta_costs"] = dc
+    out["delta_effects"] = de
+    with np.errstate(divide="ignore", invalid="ignore"):
+        out["icer"] = np.where(de != 0, dc / de, np.nan)
+    out["nmb"] = wtp * de - dc
     r = ref_inc.loc[out["strategy"]]
     out["reference_nmb"] = r["nmb"].to_numpy()
     out["reference_icer"] = r["icer"].to_numpy()
