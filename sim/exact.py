@@ -92,22 +92,38 @@ class StackedSolution:
     exit_index: NDArray[np.int64]
 
 
-def solve_stacked(model: Model, strategy: str, entry_age: NDArray[np.float64], sex: NDArray[np.int64],
-                  times: NDArray[np.float64], horizon: NDArray[np.float64],
+def solve_stacked(model: Model, strategy: str | tuple[str, ...], entry_age: NDArray[np.float64],
+                  sex: NDArray[np.int64], times: NDArray[np.float64], horizon: NDArray[np.float64],
                   discount_rates: tuple[float, ...] = (0.0,)) -> StackedSolution:
     """Forward equations for m (entry age, sex) pairs at once, stacked into one ODE system, with the
-    time-in-state integrals and exit flows for each annual discount rate accumulated alongside."""
+    time-in-state integrals and exit flows for each annual discount rate accumulated alongside.
+
+    ``strategy`` may be a tuple of names: the system then holds every pair under every strategy
+    (rows strategy-major, m = len(strategies) x pairs), one solver call for all of them."""
     _check_markov(model)
-    exits = [e for per in model.resolve(strategy) for e in per]
+    names = (strategy,) if isinstance(strategy, str) else tuple(strategy)
+    m0 = entry_age.size
+    per_strategy = [[e for per in model.resolve(nm) for e in per] for nm in names]
+    exits = per_strategy[0]
+    entry_age = np.tile(entry_age, len(names))
+    sex = np.tile(sex, len(names))
+    horizon = np.tile(horizon, len(names))
     n, m, k_ex = len(model.states), entry_age.size, len(exits)
     deltas = np.log1p(np.asarray(discount_rates, dtype=float))
     r_n = deltas.size
-    # per exit: (source, target, [(hazard, rows of that sex)], clock offset per row, advances?)
+    # per exit: (source, target, [(hazard, rows using it)], clock offset per row, advances?); rows of
+    # different strategies or sexes that share one hazard object share one evaluation
     plan = []
-    for e in exits:
+    for k, e in enumerate(exits):
         offset, moving = _clock_offset(e, entry_age)
-        groups = [(h, np.flatnonzero(sex == code)) for code, h in enumerate(e.hazards)]
-        plan.append((e.source, e.target, [(h, r) for h, r in groups if r.size], offset, moving))
+        by_hazard: dict[int, tuple] = {}
+        for j, exits_j in enumerate(per_strategy):
+            for code, h in enumerate(exits_j[k].hazards):
+                rows = j * m0 + np.flatnonzero(sex[:m0] == code)
+                if rows.size:
+                    prev = by_hazard.get(id(h))
+                    by_hazard[id(h)] = (h, rows if prev is None else np.concatenate([prev[1], rows]))
+        plan.append((e.source, e.target, list(by_hazard.values()), offset, moving))
     src = np.array([e.source for e in exits], dtype=int)
     dst = np.array([e.target for e in exits], dtype=int)
     size_p, size_i, size_f = m * n, r_n * m * n, r_n * m * k_ex

@@ -172,10 +172,13 @@ def exact_outcomes(model: Model, strategies: tuple[str, ...] | None = None, n_no
     age, sex, w = population_pairs(model, n_nodes)
     horizon = model.horizon.time_limit(age)
     rows = []
-    for strategy in strategies or model.strategy_names:
-        sol = solve_stacked(model, strategy, age, sex, np.zeros(1), horizon, rates)
-        integrals = np.einsum("m,rmn->rn", w, sol.integrals)
-        flows = np.einsum("m,rmk->rk", w, sol.flows)
+    names = tuple(strategies or model.strategy_names)
+    sol = solve_stacked(model, names, age, sex, np.zeros(1), horizon, rates)  # one solve for all strategies
+    m0 = age.size
+    for j, strategy in enumerate(names):
+        block = slice(j * m0, (j + 1) * m0)
+        integrals = np.einsum("m,rmn->rn", w, sol.integrals[:, block])
+        flows = np.einsum("m,rmk->rk", w, sol.flows[:, block])
         c_exit = model.exit_costs(strategy)[sol.exit_index]
         values = _combine(model, strategy, integrals[0], integrals[1], integrals[2],
                           (flows[0] @ c_exit, flows[2] @ c_exit))
