@@ -20,16 +20,8 @@ DEMO_TEXT = demo_path("lanthic").read_text(encoding="utf-8")
 def comment_lines(text: str) -> list[str]:
     return [ln.split("#", 1)[1].strip() for ln in text.splitlines() if "#" in ln]
 
-# PySide6 6.12.0 on CPython 3.11 drops a reference to None on every void call; see gui.app.
 
 
-@pytest.fixture(autouse=True)
-def _collect_in_the_gui_thread(qapp):
-    """Delete this test's widgets and collect its garbage here, in the GUI thread: a later garbage
-    collection inside some worker thread must never be the one that destroys Qt objects."""
-    yield
-    qapp.sendPostedEvents(None, QEvent.Type.DeferredDelete)
-    gc.collect()
 
 @pytest.fixture
 def settings(tmp_path: Path) -> QSettings:

@@ -22,16 +22,8 @@ from sim.lifetable import fit_gompertz, read_life_table
 from sim.model import BACKGROUND
 from sim.units import rate_from_risk, risk_from_rate
 
-# PySide6 6.12.0 on CPython 3.11 drops a reference to None on every void call; see gui.app.
 
 
-@pytest.fixture(autouse=True)
-def _collect_in_the_gui_thread(qapp):
-    """Delete this test's widgets and collect its garbage here, in the GUI thread: a later garbage
-    collection inside some worker thread must never be the one that destroys Qt objects."""
-    yield
-    qapp.sendPostedEvents(None, QEvent.Type.DeferredDelete)
-    gc.collect()
 
 @pytest.fixture
 def doc(qtbot, tmp_path: Path) -> ScenarioDocument:

@@ -23,16 +23,8 @@ from sim.pipeline import run_scenario
 DEMO_TEXT = demo_path("lanthic").read_text(encoding="utf-8")
 Button = QMessageBox.StandardButton
 
-# PySide6 6.12.0 on CPython 3.11 drops a reference to None on every void call; see gui.app.
 
 
-@pytest.fixture(autouse=True)
-def _collect_in_the_gui_thread(qapp):
-    """Delete this test's widgets and collect its garbage here, in the GUI thread: a later garbage
-    collection inside some worker thread must never be the one that destroys Qt objects."""
-    yield
-    qapp.sendPostedEvents(None, QEvent.Type.DeferredDelete)
-    gc.collect()
 
 @pytest.fixture
 def window(qtbot, tmp_path: Path) -> MainWindow:
