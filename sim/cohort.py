@@ -334,15 +334,17 @@ def cohort_trace(model: Model, strategy: str, cycle_length: float, conversion: s
             rows[:, :, np.arange(n_exp), space.model_state] += own
         xs = np.empty((nb + 1, m, n_exp))
         xs[0] = x
-        for b_ in range(nb):  # the only sequential step: x_{k+1} = x_k P_k
+        if not tunnel_blocks:  # expanded space == model space: x_{k+1} = x_k P_k directly
+            for b_ in range(nb):
+                np.matmul(xs[b_][:, None, :], rows[b_], out=xs[b_ + 1][:, None, :])
+        for b_ in range(nb if tunnel_blocks else 0):  # the only sequential step: x_{k+1} = x_k P_k
             y = np.matmul(xs[b_][:, None, :], rows[b_])[:, 0, :]  # into model states (entry copies)
             nxt = np.zeros((m, n_exp))
             nxt[:, space.first] = y
-            if tunnel.any():
-                moved = xs[b_] * stay_through[b_]
-                for f, last in tunnel_blocks:  # copies f..last of one state: c -> c + 1, last stays
-                    nxt[:, f + 1:last + 1] += moved[:, f:last]
-                    nxt[:, last] += moved[:, last]
+            moved = xs[b_] * stay_through[b_]
+            for f, last in tunnel_blocks:  # copies f..last of one state: c -> c + 1, last stays
+                nxt[:, f + 1:last + 1] += moved[:, f:last]
+                nxt[:, last] += moved[:, last]
             xs[b_ + 1] = nxt
         x = xs[nb]
         occupancy[:, k0 + 1:k1 + 1] = np.moveaxis(collapse(xs[1:]), 0, 1)
