@@ -31,7 +31,7 @@ from .engine import simulate
 from .model import Model
 from .outcomes import exact_outcomes, increments_from_values, outcome_names, patient_outcomes, summarise
 
-__all__ = ["DEFAULT_CYCLE_LENGTHS", "StudyResult", "discretization_study", "observed_order"]
+__all__ = ["DEFAULT_CYCLE_LENGTHS", "StudyResult", "discretization_study", "observed_order", "largest_cycle_within"]
 
 DEFAULT_CYCLE_LENGTHS = (1 / 52, 1 / 12, 1 / 4, 1 / 2, 1.0, 2.0)
 MAX_TUNNEL_STATES = 240
@@ -167,22 +167,35 @@ def discretization_study(model: Model, cycle_lengths: tuple[float, ...] = DEFAUL
         order_rows.append((*key, observed_order(g["cycle_length"], g["error"], floor)))
     orders = pd.DataFrame(order_rows, columns=["outcome", "strategy", "method", "correction", "order"])
 
-    # largest cycle length within tolerance (and every shorter one too)
-    tol_rows = []
-    measure = "relative_error" if relative else "error"
-    for key, g in table.groupby(["outcome", "strategy", "method", "correction"], sort=False):
-        g = g.sort_values("cycle_length")
-        ok = (g[measure].abs() <= tolerance).to_numpy()
-        prefix = np.cumprod(ok).astype(bool)
-        largest = float(g["cycle_length"].to_numpy()[prefix][-1]) if prefix.any() else float("nan")
-        tol_rows.append((*key, tolerance, "relative" if relative else "absolute", largest))
-    largest_cycle = pd.DataFrame(tol_rows, columns=["outcome", "strategy", "method", "correction", "tolerance",
-                                                    "tolerance_kind", "largest_cycle_length"])
+    largest_cycle = largest_cycle_within(table, tolerance, relative)
 
     decisions = _decisions(table, ref, comparator, wtp) if len(model.strategies) > 1 else pd.DataFrame()
     jump = pd.DataFrame(jump_rows, columns=["strategy", "cycle_length", "method", "jump_over_share", "negative_stay"])
     return StudyResult(table=table, reference=ref.assign(kind=kind), orders=orders, largest_cycle=largest_cycle,
                        decisions=decisions, jump_over=jump, reference_kind=kind, notes=notes)
+
+
+def largest_cycle_within(table: pd.DataFrame, tolerance: float, relative: bool = True) -> pd.DataFrame:
+    """Largest cycle length of the grid such that it and every shorter one keep each (outcome,
+    strategy, method, correction) within ``tolerance`` (of the reference when ``relative``, else in
+    the outcome's unit); NaN when even the shortest fails. Works on a study table, so a new
+    tolerance needs no new study."""
+    if not (np.isfinite(tolerance) and tolerance > 0):
+        raise ValueError(f"tolerance must be > 0, got {tolerance!r}")
+    keys = ["outcome", "strategy", "method", "correction"]
+    measure = "relative_error" if relative else "error"
+    t = table.sort_values("cycle_length", kind="stable")
+    ok = (t[measure].abs() <= tolerance).to_numpy()
+    # within each group (sorted by cycle length) a cycle is safe while neither it nor a shorter one failed
+    failed_so_far = pd.Series(~ok, index=t.index).groupby([t[k] for k in keys], sort=False).cummax().to_numpy()
+    safe_h = np.where(failed_so_far, np.nan, t["cycle_length"].to_numpy(float))
+    largest = (pd.DataFrame({k: t[k].to_numpy() for k in keys} | {"h": safe_h})
+               .groupby(keys, sort=False)["h"].max())
+    out = table[keys].drop_duplicates().merge(largest.rename("largest_cycle_length").reset_index(), on=keys,
+                                             how="left")
+    out.insert(4, "tolerance", float(tolerance))
+    out.insert(5, "tolerance_kind", "relative" if relative else "absolute")
+    return out.reset_index(drop=True)
 
 
 def _decisions(table: pd.DataFrame, ref: pd.DataFrame, comparator: str, wtp: float) -> pd.DataFrame:

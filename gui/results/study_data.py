@@ -1,8 +1,7 @@
 """Tables for the error-study view, reshaped from ``sim.study.StudyResult`` (pandas only, no Qt).
 
-:func:`largest_safe_cycle` re-applies the rule of ``sim.study.discretization_study`` to its table for
-another tolerance, so the user can change the tolerance without re-running the study; the tests
-check it against ``StudyResult.largest_cycle`` computed by sim at the same tolerance.
+:func:`largest_safe_cycle` is ``sim.study.largest_cycle_within`` (the rule the study itself uses), so
+the user can change the tolerance without re-running the study.
 """
 
 from __future__ import annotations
@@ -10,33 +9,14 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
+from sim.study import largest_cycle_within as largest_safe_cycle  # the study's own rule
+
 from .series import cycle_label
 
 __all__ = ["KEYS", "largest_safe_cycle", "abs_error_curves", "coinciding", "tolerance_in_units", "reference_noise",
            "safe_cycle_grid", "decision_changes", "errors_table"]
 
 KEYS = ["outcome", "strategy", "method", "correction"]
-
-
-def largest_safe_cycle(table: pd.DataFrame, tolerance: float, relative: bool) -> pd.DataFrame:
-    """Largest cycle length such that it and every shorter one keep the outcome within ``tolerance``
-    (of the reference when ``relative``, else in the outcome's unit), per outcome, strategy, method
-    and correction; NaN when even the shortest fails. Same columns as ``StudyResult.largest_cycle``."""
-    if not (np.isfinite(tolerance) and tolerance > 0):
-        raise ValueError(f"tolerance must be > 0, got {tolerance!r}")
-    measure = "relative_error" if relative else "error"
-    t = table.sort_values("cycle_length", kind="stable")
-    ok = (t[measure].abs() <= tolerance).to_numpy()
-    # within each group (sorted by cycle length) a cycle is safe while neither it nor a shorter one failed
-    failed_so_far = pd.Series(~ok, index=t.index).groupby([t[k] for k in KEYS], sort=False).cummax().to_numpy()
-    safe_h = np.where(failed_so_far, np.nan, t["cycle_length"].to_numpy(float))
-    largest = (pd.DataFrame({k: t[k].to_numpy() for k in KEYS} | {"h": safe_h})
-               .groupby(KEYS, sort=False)["h"].max())
-    order = table[KEYS].drop_duplicates()
-    out = order.merge(largest.rename("largest_cycle_length").reset_index(), on=KEYS, how="left")
-    out.insert(4, "tolerance", float(tolerance))
-    out.insert(5, "tolerance_kind", "relative" if relative else "absolute")
-    return out.reset_index(drop=True)
 
 
 def abs_error_curves(table: pd.DataFrame, outcome: str,
