@@ -20,16 +20,14 @@ import traceback
 from pathlib import Path
 from typing import TextIO
 
-import numpy as np
 import pandas as pd
 
 from . import __version__
 from .demo import demo_path
 from .engine import SimulationResult, simulate_chunks
-from .exact import NoExactSolution
 from .export import ExportError, RunWriter, metadata_for, write_tidy_csv
 from .model import BACKGROUND, Clock
-from .outcomes import OutcomeAccumulator, exact_outcomes, increments_from_values, patient_outcomes
+from .outcomes import OutcomeAccumulator, patient_outcomes, with_exact
 from .scenario import Scenario, ScenarioError, load_scenario
 from .study import discretization_study
 
@@ -152,17 +150,7 @@ def _run(scenario: Scenario, args: argparse.Namespace, out: TextIO) -> int:
         seconds = time.perf_counter() - t0
         summary = acc.summary()
         increments = acc.increments()
-        exact_note = ""
-        try:
-            exact = exact_outcomes(model)
-            summary = summary.merge(exact.rename(columns={"value": "exact"}), on=["strategy", "outcome"], how="left")
-            summary["z"] = (summary["mean"] - summary["exact"]) / summary["mcse"]
-            if len(increments):
-                ex_inc = increments_from_values(exact, comparator, wtp).melt(
-                    id_vars=["strategy", "comparator"], var_name="quantity", value_name="exact")
-                increments = increments.merge(ex_inc, on=["strategy", "comparator", "quantity"], how="left")
-        except NoExactSolution as err:
-            exact_note = str(err)
+        summary, increments, exact_note = with_exact(model, summary, increments, comparator, wtp)
         writer.add_table("summary", summary)
         writer.add_table("increments", increments)
         study = None

@@ -31,7 +31,7 @@ from .estimators import _per_patient, _prepare_log
 from .exact import population_pairs, solve_stacked
 from .model import Model
 
-__all__ = ["OUTCOMES", "OutcomeAccumulator", "patient_outcomes", "summarise", "incremental", "exact_outcomes",
+__all__ = ["OUTCOMES", "OutcomeAccumulator", "with_exact", "patient_outcomes", "summarise", "incremental", "exact_outcomes",
            "outcome_names", "increments_from_values"]
 
 OUTCOMES = ("life_years", "life_years_discounted", "qalys", "qalys_discounted", "costs", "costs_discounted")
@@ -184,6 +184,28 @@ def exact_outcomes(model: Model, strategies: tuple[str, ...] | None = None, n_no
                           (flows[0] @ c_exit, flows[2] @ c_exit))
         rows += [(strategy, k, float(v)) for k, v in values.items()]
     return pd.DataFrame(rows, columns=["strategy", "outcome", "value"])
+
+
+def with_exact(model: Model, summary: pd.DataFrame, increments: pd.DataFrame, comparator: str,
+               willingness_to_pay: float) -> tuple[pd.DataFrame, pd.DataFrame, str]:
+    """Add an ``exact`` column (and ``z`` = (mean - exact) / mcse) to simulated summaries and
+    increments. For a semi-Markov model the columns are NaN and the returned note says why."""
+    from .exact import NoExactSolution
+
+    try:
+        exact = exact_outcomes(model)
+    except NoExactSolution as err:
+        summary = summary.assign(exact=np.nan, z=np.nan)
+        return summary, increments.assign(exact=np.nan), str(err)
+    summary = summary.merge(exact.rename(columns={"value": "exact"}), on=["strategy", "outcome"], how="left")
+    summary["z"] = (summary["mean"] - summary["exact"]) / summary["mcse"]
+    if len(increments):
+        ex_inc = increments_from_values(exact, comparator, willingness_to_pay).melt(
+            id_vars=["strategy", "comparator"], var_name="quantity", value_name="exact")
+        increments = increments.merge(ex_inc, on=["strategy", "comparator", "quantity"], how="left")
+    else:
+        increments = increments.assign(exact=np.nan)
+    return summary, increments, ""
 
 
 # ----------------------------------------------------------------------------- streaming summaries

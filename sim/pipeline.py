@@ -18,8 +18,8 @@ import pandas as pd
 
 from .engine import SimulationCancelled, SimulationResult, simulate
 from .estimators import kaplan_meier, state_occupancy
-from .exact import NoExactSolution, solve_exact
-from .outcomes import exact_outcomes, incremental, increments_from_values, patient_outcomes, summarise
+from .exact import solve_exact
+from .outcomes import incremental, patient_outcomes, summarise, with_exact
 from .scenario import Scenario
 from .study import StudyResult, discretization_study
 
@@ -105,19 +105,9 @@ def run_scenario(scenario: Scenario, *, patients: int | None = None, seed: int |
     note = ""
     stage("exact solution")
     t1 = time.perf_counter()
-    try:
-        exact = exact_outcomes(model)
-        summary = summary.merge(exact.rename(columns={"value": "exact"}), on=["strategy", "outcome"], how="left")
-        if len(inc):
-            ex_inc = increments_from_values(exact, comparator, wtp).melt(
-                id_vars=["strategy", "comparator"], var_name="quantity", value_name="exact")
-            inc = inc.merge(ex_inc, on=["strategy", "comparator", "quantity"], how="left")
+    summary, inc, note = with_exact(model, summary, inc, comparator, wtp)
+    if not note:
         exact_occ = solve_exact(model, grid).occupancy
-    except NoExactSolution as err:
-        note = str(err)
-        summary["exact"] = np.nan
-        if len(inc):
-            inc["exact"] = np.nan
     seconds["exact"] = time.perf_counter() - t1
     stage("estimates")
     t2 = time.perf_counter()
