@@ -107,13 +107,20 @@ class _Log:
     ev_time: NDArray[np.float64]
     ev_from: NDArray[np.intp]
     ev_to: NDArray[np.intp]
-    ev_name: NDArray[np.object_]
+    ev_transition: NDArray[np.intp]  # index into ``transitions``
+    transitions: tuple[str, ...]
     ev_kind: NDArray[np.intp]
     kinds: pd.DataFrame  # columns transition, from_state, to_state (codes), one row per kind
 
     @property
     def n(self) -> int:
         return self.cohort.n
+
+    def moves_of(self, transition: str) -> NDArray[np.bool_]:
+        """Mask of the events that are moves through ``transition`` (by name)."""
+        if transition not in self.transitions:
+            return np.zeros(self.ev_time.size, dtype=bool)
+        return self.ev_transition == self.transitions.index(transition)
 
 
 def _require_columns(df: pd.DataFrame, name: str, columns: Sequence[str]) -> None:
@@ -122,6 +129,22 @@ def _require_columns(df: pd.DataFrame, name: str, columns: Sequence[str]) -> Non
     missing = [c for c in columns if c not in df.columns]
     if missing:
         raise ValueError(f"{name}: missing column(s) {missing}; the event-log contract requires {list(columns)}")
+
+
+def _label_codes(values: pd.Series, labels: Sequence[str]) -> NDArray[np.intp]:
+    """Index of each value in ``labels`` (-1 where absent or missing), matched as strings.
+
+    A categorical column is matched through its categories and integer codes, so no Python string
+    is built per row (converting a 2M-row categorical to strings holds the GIL for ~0.1 s)."""
+    where = {str(label): i for i, label in enumerate(labels)}
+    if isinstance(values.dtype, pd.CategoricalDtype):
+        lookup = np.array([where.get(str(c), -1) for c in values.cat.categories] + [-1], dtype=np.intp)
+        return lookup[values.cat.codes.to_numpy()]  # code -1 (missing) picks the trailing -1
+    obj = values.to_numpy(dtype=object)
+    codes = np.full(obj.size, -1, dtype=np.intp)
+    present = ~pd.isna(obj)
+    codes[present] = [where.get(str(v), -1) for v in obj[present]]
+    return codes
 
 
 def _strategies_in(df: pd.DataFrame) -> set[str]:
@@ -143,7 +166,7 @@ def _select(strategy: str | None, tables: dict[str, pd.DataFrame]) -> tuple[str,
         raise ValueError(f"strategy: {strategy!r} is not in the tables; strategies present: {sorted(found)}")
     out = {}
     for name, df in tables.items():
-        mask = (df["strategy"].astype(str) == strategy).to_numpy(dtype=bool)
+        mask = _label_codes(df["strategy"], (strategy,)) == 0
         out[name] = df if mask.all() else df.loc[mask]
     if len(out["patients"]) == 0:
         raise ValueError(f"patients: no rows for strategy {strategy!r}; an estimate needs at least one patient")
@@ -167,11 +190,11 @@ def _cohort(patients: pd.DataFrame, strategy: str) -> _Cohort:
     if not np.issubdtype(ids.dtype, np.integer):
         raise ValueError(f"patients['patient']: dtype {ids.dtype} is invalid; patient ids must be integers")
     exit_time = _float_column(patients, "patients", "exit_time")
-    reason = patients["exit_reason"].astype(object).to_numpy()
-    absorbed, censored = reason == ABSORBED, reason == CENSORED
-    bad = ~(absorbed | censored)
+    reason = _label_codes(patients["exit_reason"], (ABSORBED, CENSORED))
+    censored = reason == 1
+    bad = reason < 0
     if bad.any():
-        raise ValueError(f"patients['exit_reason']: value {reason[bad][0]!r} is invalid; "
+        raise ValueError(f"patients['exit_reason']: value {patients['exit_reason'].iloc[int(np.argmax(bad))]!r} is invalid; "
                          f"must be {ABSORBED!r} or {CENSORED!r}")
     order = np.argsort(ids, kind="stable")
     ids = ids[order].astype(np.int64)
@@ -203,10 +226,10 @@ def _check_states(states: Sequence[str]) -> tuple[str, ...]:
 
 
 def _state_codes(values: pd.Series, states: tuple[str, ...], where: str) -> NDArray[np.intp]:
-    codes = pd.Categorical(values.astype(object), categories=list(states)).codes.astype(np.intp)
+    codes = _label_codes(values, states)
     bad = codes < 0
     if bad.any():
-        raise ValueError(f"{where}: state {values.to_numpy()[bad][0]!r} is not in states={list(states)}; "
+        raise ValueError(f"{where}: state {values.iloc[int(np.argmax(bad))]!r} is not in states={list(states)}; "
                          "states must list every state in the log")
     return codes
 
@@ -235,11 +258,15 @@ def _prepare_log(events: pd.DataFrame, patients: pd.DataFrame, states: Sequence[
     time = _float_column(ev, "events", "time")
     ev_from = _state_codes(ev["from_state"], states_t, "events['from_state']")
     ev_to = _state_codes(ev["to_state"], states_t, "events['to_state']")
-    ev_name = ev["transition"].astype(object).to_numpy()
-    if pd.isna(ev_name).any():
+    # transition names in the order of the categories (the model's order), else sorted
+    dtype = ev["transition"].dtype
+    names = (tuple(str(c) for c in dtype.categories) if isinstance(dtype, pd.CategoricalDtype)
+             else tuple(sorted({str(v) for v in ev["transition"].dropna().unique()})))
+    ev_tr = _label_codes(ev["transition"], names)
+    if (ev_tr < 0).any():
         raise ValueError("events['transition']: a value is missing; every move needs a transition name")
     o = np.lexsort((np.arange(time.size), time, pidx))
-    pidx, time, ev_from, ev_to, ev_name = pidx[o], time[o], ev_from[o], ev_to[o], ev_name[o]
+    pidx, time, ev_from, ev_to, ev_tr = pidx[o], time[o], ev_from[o], ev_to[o], ev_tr[o]
 
     late = time > cohort.exit_time[pidx]
     if late.any():
@@ -279,18 +306,15 @@ def _prepare_log(events: pd.DataFrame, patients: pd.DataFrame, states: Sequence[
                          f"{int(cohort.patient[i])} is invalid; it must equal the time of the patient's last "
                          f"move (found {float(last_time[i])!r})")
 
-    # kinds in the order of the transition categories (the model's order), else by name
-    dtype = ev["transition"].dtype
-    names = list(dtype.categories) if isinstance(dtype, pd.CategoricalDtype) else sorted(set(ev_name))
-    triples = pd.DataFrame({"transition": ev_name, "from_state": ev_from, "to_state": ev_to})
-    kinds = triples.drop_duplicates()
-    rank = kinds["transition"].map({label: i for i, label in enumerate(names)}).to_numpy()
-    kinds = kinds.iloc[np.lexsort((kinds["to_state"].to_numpy(), kinds["from_state"].to_numpy(), rank))]
-    kinds = kinds.reset_index(drop=True)
-    ev_kind = (pd.MultiIndex.from_frame(kinds).get_indexer(pd.MultiIndex.from_frame(triples))
-               if time.size else np.zeros(0, dtype=np.intp))
-    return _Log(cohort, states_t, initial, final, pidx, time, ev_from, ev_to, ev_name,
-                np.asarray(ev_kind, dtype=np.intp), kinds)
+    # kinds = distinct (transition, from, to) triples, ordered by transition name order, then states
+    n_st = len(states_t)
+    key = (ev_tr * n_st + ev_from) * n_st + ev_to
+    present = np.bincount(key, minlength=max(len(names), 1) * n_st * n_st) > 0
+    ev_kind = (np.cumsum(present) - 1)[key].astype(np.intp)
+    kind_key = np.flatnonzero(present)
+    kinds = pd.DataFrame({"transition": [names[k] for k in kind_key // (n_st * n_st)],
+                          "from_state": (kind_key // n_st) % n_st, "to_state": kind_key % n_st})
+    return _Log(cohort, states_t, initial, final, pidx, time, ev_from, ev_to, ev_tr, names, ev_kind, kinds)
 
 
 def _check_times(times: ArrayLike) -> NDArray[np.float64]:
@@ -855,7 +879,7 @@ def crude_rate(events: pd.DataFrame, patients: pd.DataFrame, transition: str, st
     log = _prepare_log(events, patients, states, strategy)
     if not isinstance(transition, str):
         raise TypeError(f"transition: expected a transition name (str), got {transition!r}")
-    moves = log.ev_name == transition
+    moves = log.moves_of(transition)
     if from_state is None:
         if not moves.any():
             seen = sorted(set(log.kinds["transition"]))
@@ -922,11 +946,11 @@ def crude_risk(patients: pd.DataFrame, by_time: float, events: pd.DataFrame | No
         _require_columns(patients, "patients", _PATIENT_COLUMNS)
         _require_columns(events, "events", _EVENT_COLUMNS)
         states = list(dict.fromkeys(
-            [str(s) for col in ("initial_state", "final_state") for s in patients[col].astype(object).unique()]
-            + [str(s) for col in ("from_state", "to_state") for s in events[col].astype(object).unique()]))
+            [str(s) for col in ("initial_state", "final_state") for s in patients[col].dropna().unique()]
+            + [str(s) for col in ("from_state", "to_state") for s in events[col].dropna().unique()]))
         log = _prepare_log(events, patients, states, strategy)
         c = log.cohort
-        moves = np.flatnonzero(log.ev_name == transition)  # sorted by patient, then time
+        moves = np.flatnonzero(log.moves_of(transition))  # sorted by patient, then time
         who, at = np.unique(log.ev_patient[moves], return_index=True)
         first = np.full(c.n, np.inf)
         first[who] = log.ev_time[moves[at]]

@@ -32,6 +32,7 @@ from .exact import population_pairs, solve_stacked
 from .model import Model
 
 __all__ = ["OUTCOMES", "OutcomeAccumulator", "with_exact", "patient_outcomes", "summarise", "incremental", "exact_outcomes",
+           "exact_outcomes_and_occupancy",
            "outcome_names", "increments_from_values"]
 
 OUTCOMES = ("life_years", "life_years_discounted", "qalys", "qalys_discounted", "costs", "costs_discounted")
@@ -167,14 +168,24 @@ def increments_from_values(values: pd.DataFrame, comparator: str, willingness_to
 def exact_outcomes(model: Model, strategies: tuple[str, ...] | None = None, n_nodes: int = 48) -> pd.DataFrame:
     """Outcomes from the Kolmogorov forward solution (Markov models only): columns strategy, outcome,
     value. Time in state and transition flows are integrated in the same ODE (see :mod:`sim.exact`)."""
+    return exact_outcomes_and_occupancy(model, np.zeros(1), strategies, n_nodes)[0]
+
+
+def exact_outcomes_and_occupancy(model: Model, times: NDArray[np.float64], strategies: tuple[str, ...] | None = None,
+                                 n_nodes: int = 48) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """:func:`exact_outcomes` and the population-averaged state occupancy at ``times`` (columns
+    strategy, time, state, probability, as ``sim.exact.solve_exact(...).occupancy``) from one solve
+    of the forward equations for all strategies."""
     val = model.valuation
     rates = (0.0, val.discount_effects, val.discount_costs)
     age, sex, w = population_pairs(model, n_nodes)
     horizon = model.horizon.time_limit(age)
-    rows = []
+    times = np.atleast_1d(np.asarray(times, dtype=float))
+    rows, occupancy = [], []
     names = tuple(strategies or model.strategy_names)
-    sol = solve_stacked(model, names, age, sex, np.zeros(1), horizon, rates)  # one solve for all strategies
+    sol = solve_stacked(model, names, age, sex, times, horizon, rates)  # one solve for all strategies
     m0 = age.size
+    states = model.state_names
     for j, strategy in enumerate(names):
         block = slice(j * m0, (j + 1) * m0)
         integrals = np.einsum("m,rmn->rn", w, sol.integrals[:, block])
@@ -183,17 +194,24 @@ def exact_outcomes(model: Model, strategies: tuple[str, ...] | None = None, n_no
         values = _combine(model, strategy, integrals[0], integrals[1], integrals[2],
                           (flows[0] @ c_exit, flows[2] @ c_exit))
         rows += [(strategy, k, float(v)) for k, v in values.items()]
-    return pd.DataFrame(rows, columns=["strategy", "outcome", "value"])
+        occ = np.einsum("m,mtn->tn", w, sol.occupancy[block])
+        occupancy.append(pd.DataFrame({"strategy": strategy, "time": np.repeat(times, len(states)),
+                                       "state": np.tile(np.array(states, dtype=object), times.size),
+                                       "probability": occ.ravel()}))
+    return (pd.DataFrame(rows, columns=["strategy", "outcome", "value"]),
+            pd.concat(occupancy, ignore_index=True))
 
 
 def with_exact(model: Model, summary: pd.DataFrame, increments: pd.DataFrame, comparator: str,
-               willingness_to_pay: float) -> tuple[pd.DataFrame, pd.DataFrame, str]:
+               willingness_to_pay: float, exact: pd.DataFrame | None = None) -> tuple[pd.DataFrame, pd.DataFrame, str]:
     """Add an ``exact`` column (and ``z`` = (mean - exact) / mcse) to simulated summaries and
-    increments. For a semi-Markov model the columns are NaN and the returned note says why."""
+    increments. For a semi-Markov model the columns are NaN and the returned note says why.
+    ``exact`` is the :func:`exact_outcomes` table if the caller already has it."""
     from .exact import NoExactSolution
 
     try:
-        exact = exact_outcomes(model)
+        if exact is None:
+            exact = exact_outcomes(model)
     except NoExactSolution as err:
         summary = summary.assign(exact=np.nan, z=np.nan)
         return summary, increments.assign(exact=np.nan), str(err)

@@ -18,8 +18,7 @@ import pandas as pd
 
 from .engine import SimulationCancelled, SimulationResult, simulate
 from .estimators import kaplan_meier, state_occupancy
-from .exact import solve_exact
-from .outcomes import incremental, patient_outcomes, summarise, with_exact
+from .outcomes import exact_outcomes_and_occupancy, incremental, patient_outcomes, summarise, with_exact
 from .scenario import Scenario
 from .study import StudyResult, discretization_study
 
@@ -105,9 +104,10 @@ def run_scenario(scenario: Scenario, *, patients: int | None = None, seed: int |
     note = ""
     stage("exact solution")
     t1 = time.perf_counter()
-    summary, inc, note = with_exact(model, summary, inc, comparator, wtp)
-    if not note:
-        exact_occ = solve_exact(model, grid).occupancy
+    exact_values = None
+    if model.is_markov:  # one solve gives the exact outcomes and the occupancy curves
+        exact_values, exact_occ = exact_outcomes_and_occupancy(model, grid)
+    summary, inc, note = with_exact(model, summary, inc, comparator, wtp, exact=exact_values)
     seconds["exact"] = time.perf_counter() - t1
     stage("estimates")
     t2 = time.perf_counter()

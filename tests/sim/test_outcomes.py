@@ -104,3 +104,21 @@ def test_streaming_accumulator_equals_whole_sample(two_strategies):
     np.testing.assert_allclose(inc_a["value"], inc_b["value"], rtol=1e-12)
     np.testing.assert_allclose(inc_a["mcse"], inc_b["mcse"], rtol=1e-8)
     np.testing.assert_allclose(inc_a["mcse_unpaired"], inc_b["mcse_unpaired"], rtol=1e-8)
+
+
+def test_exact_outcomes_and_occupancy_match_the_separate_solvers():
+    """One combined solve gives the same numbers as sim.exact.solve_exact (itself checked against
+    closed forms in test_exact.py) and exact_outcomes, to the ODE solver's tolerance."""
+    from sim.demo import demo_model
+    from sim.exact import solve_exact
+    from sim.outcomes import exact_outcomes_and_occupancy
+
+    model = demo_model("lanthic")
+    times = np.linspace(0.0, 30.0, 7)
+    values, occ = exact_outcomes_and_occupancy(model, times)
+    ref_occ = solve_exact(model, times).occupancy
+    pd.testing.assert_frame_equal(occ[["strategy", "time", "state"]], ref_occ[["strategy", "time", "state"]])
+    np.testing.assert_allclose(occ["probability"], ref_occ["probability"], rtol=0, atol=1e-8)
+    ref_values = exact_outcomes(model)
+    pd.testing.assert_frame_equal(values[["strategy", "outcome"]], ref_values[["strategy", "outcome"]])
+    np.testing.assert_allclose(values["value"], ref_values["value"], rtol=1e-7)
