@@ -33,7 +33,8 @@ from numpy.typing import NDArray
 from .model import Clock, Model, ResolvedExit
 from .rng import ATTRIBUTE_STREAM, _BulkWords, _sorted_draws, key_from_seed
 
-__all__ = ["simulate", "simulate_chunks", "SimulationResult", "SimulationCancelled", "SimulationError"]
+__all__ = ["simulate", "simulate_chunks", "SimulationResult", "SimulationCancelled", "SimulationError", "CancelToken",
+           "cancel_requested"]
 
 ProgressCallback = Callable[[int, int], None]
 
@@ -374,7 +375,8 @@ def _assemble(model: Model, strategies: tuple[str, ...], chunks: list[_ChunkOut]
     return events, patients
 
 
-def _is_cancelled(cancel: CancelToken | Callable[[], bool] | None) -> bool:
+def cancel_requested(cancel: CancelToken | Callable[[], bool] | None) -> bool:
+    """Whether a cancel token (``is_set()``, e.g. ``threading.Event``) or callable asks to stop."""
     if cancel is None:
         return False
     if hasattr(cancel, "is_set"):
@@ -408,7 +410,7 @@ def _chunk_outputs(model: Model, n_patients: int, seed: int, names: tuple[str, .
     bounds = [(a, min(a + chunk_size, n_patients)) for a in range(0, n_patients, chunk_size)]
 
     def work(i: int) -> tuple[_ChunkOut, _PatientTable]:
-        if _is_cancelled(cancel):
+        if cancel_requested(cancel):
             raise SimulationCancelled("simulation cancelled")
         a, b = bounds[i]
         rows = table if table is not None else _PatientTable(a, b - a, len(names), state_code)
@@ -431,7 +433,7 @@ def _chunk_outputs(model: Model, n_patients: int, seed: int, names: tuple[str, .
             finally:
                 for f in futures.values():
                     f.cancel()
-    if _is_cancelled(cancel):
+    if cancel_requested(cancel):
         raise SimulationCancelled("simulation cancelled")
 
 

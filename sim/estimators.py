@@ -265,8 +265,10 @@ def _prepare_log(events: pd.DataFrame, patients: pd.DataFrame, states: Sequence[
     ev_tr = _label_codes(ev["transition"], names)
     if (ev_tr < 0).any():
         raise ValueError("events['transition']: a value is missing; every move needs a transition name")
-    o = np.lexsort((np.arange(time.size), time, pidx))
-    pidx, time, ev_from, ev_to, ev_tr = pidx[o], time[o], ev_from[o], ev_to[o], ev_tr[o]
+    step = np.diff(pidx)
+    if not np.all((step > 0) | ((step == 0) & (time[1:] >= time[:-1]))):  # engine logs come sorted already
+        o = np.lexsort((np.arange(time.size), time, pidx))
+        pidx, time, ev_from, ev_to, ev_tr = pidx[o], time[o], ev_from[o], ev_to[o], ev_tr[o]
 
     late = time > cohort.exit_time[pidx]
     if late.any():

@@ -4,7 +4,8 @@ simulate -> outcomes with MCSE -> increments -> exact solution (Markov models) -
 occupancy estimates on a time grid -> the discretization-error study.
 
 Long work reports progress as ``progress(stage, done, total)`` and honours a cancel request (an
-object with ``is_set()`` or a callable) between simulation chunks and between stages.
+object with ``is_set()`` or a callable) between simulation chunks, between stages and between the
+error study's traces.
 """
 
 from __future__ import annotations
@@ -16,7 +17,7 @@ from typing import Callable
 import numpy as np
 import pandas as pd
 
-from .engine import SimulationCancelled, SimulationResult, simulate
+from .engine import SimulationCancelled, SimulationResult, cancel_requested, simulate
 from .estimators import kaplan_meier, state_occupancy
 from .outcomes import exact_outcomes_and_occupancy, incremental, patient_outcomes, summarise, with_exact
 from .scenario import Scenario
@@ -65,12 +66,6 @@ def time_grid(scenario: Scenario, points: int = 121) -> np.ndarray:
     return np.linspace(0.0, t_max, points)
 
 
-def _cancelled(cancel) -> bool:
-    if cancel is None:
-        return False
-    return bool(cancel.is_set() if hasattr(cancel, "is_set") else cancel())
-
-
 def run_scenario(scenario: Scenario, *, patients: int | None = None, seed: int | None = None,
                  workers: int | None = None, study: bool = True, progress: Progress | None = None,
                  cancel=None) -> RunResults:
@@ -88,7 +83,7 @@ def run_scenario(scenario: Scenario, *, patients: int | None = None, seed: int |
     seconds["simulation"] = time.perf_counter() - t0
 
     def stage(name: str) -> None:
-        if _cancelled(cancel):
+        if cancel_requested(cancel):
             raise SimulationCancelled("run cancelled")
         report(name, 0, 1)
 
@@ -124,7 +119,7 @@ def run_scenario(scenario: Scenario, *, patients: int | None = None, seed: int |
         t3 = time.perf_counter()
         result_study = discretization_study(model, cycle_lengths=settings["cycle_lengths"],
                                             tolerance=settings["tolerance"], n_patients=settings["patients"],
-                                            seed=settings["seed"])
+                                            seed=settings["seed"], cancel=cancel)
         seconds["study"] = time.perf_counter() - t3
     report("done", 1, 1)
     return RunResults(scenario=scenario, simulation=sim, per_patient=per, outcomes=summary, increments=inc,

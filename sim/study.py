@@ -22,12 +22,13 @@ from __future__ import annotations
 import math
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
+from typing import Callable
 
 import numpy as np
 import pandas as pd
 
 from .cohort import Conversion, Correction, cohort_trace, trace_outcomes
-from .engine import simulate
+from .engine import CancelToken, SimulationCancelled, cancel_requested, simulate
 from .model import Model
 from .outcomes import exact_outcomes, increments_from_values, outcome_names, patient_outcomes, summarise
 
@@ -73,14 +74,18 @@ def default_tunnel_years(model: Model, follow: float) -> float:
     return min(follow, longest) if longest > 0 else follow
 
 
-def _reference(model: Model, n_patients: int, seed: int, n_nodes: int) -> tuple[pd.DataFrame, str]:
+def _reference_kind(model: Model, n_patients: int, seed: int) -> str:
+    return "exact" if model.is_markov else f"simulation ({n_patients:,} patients, seed {seed})"
+
+
+def _reference(model: Model, n_patients: int, seed: int, n_nodes: int, cancel) -> pd.DataFrame:
     if model.is_markov:
         ref = exact_outcomes(model, n_nodes=n_nodes)
         ref["mcse"] = 0.0
-        return ref, "exact"
-    run = simulate(model, n_patients, seed, workers=2)
+        return ref
+    run = simulate(model, n_patients, seed, workers=2, cancel=cancel)
     s = summarise(patient_outcomes(run)).rename(columns={"mean": "value"})
-    return s[["strategy", "outcome", "value", "mcse"]], f"simulation ({n_patients:,} patients, seed {seed})"
+    return s[["strategy", "outcome", "value", "mcse"]]
 
 
 def discretization_study(model: Model, cycle_lengths: tuple[float, ...] = DEFAULT_CYCLE_LENGTHS,
@@ -90,7 +95,7 @@ def discretization_study(model: Model, cycle_lengths: tuple[float, ...] = DEFAUL
                          tolerance: float = 0.01, relative: bool = True, comparator: str | None = None,
                          willingness_to_pay: float | None = None, tunnel_years: float | None = None,
                          n_patients: int = 200_000, seed: int = 1, n_nodes: int = 16,
-                         workers: int = 2) -> StudyResult:
+                         workers: int = 2, cancel: CancelToken | Callable[[], bool] | None = None) -> StudyResult:
     """Run the reference and the grid of cohort approximations; see the module docstring.
 
     Parameters
@@ -107,6 +112,8 @@ def discretization_study(model: Model, cycle_lengths: tuple[float, ...] = DEFAUL
         isolates the discretization error (the quadrature error itself is far smaller: about 4e-6
         relative in life expectancy at 16 nodes on the demo model, measured against 64 nodes).
     workers : threads running the independent traces.
+    cancel : an object with ``is_set()`` or a callable; checked before each trace (and between the
+        chunks of a simulation reference); a request raises :class:`sim.engine.SimulationCancelled`.
     """
     if not cycle_lengths or any(not (math.isfinite(h) and h > 0) for h in cycle_lengths):
         raise ValueError(f"cycle_lengths must be positive numbers of years, got {cycle_lengths!r}")
@@ -115,8 +122,8 @@ def discretization_study(model: Model, cycle_lengths: tuple[float, ...] = DEFAUL
     comparator = comparator or model.strategy_names[0]
     model.strategy(comparator)
     wtp = model.valuation.willingness_to_pay if willingness_to_pay is None else float(willingness_to_pay)
-    ref, kind = _reference(model, n_patients, seed, n_nodes)
     names = outcome_names(model)
+    kind = _reference_kind(model, n_patients, seed)
     notes: list[str] = []
     if not model.is_markov:
         notes.append(f"no exact reference: transitions {model.semi_markov_transitions()} are semi-Markov; "
@@ -139,6 +146,8 @@ def discretization_study(model: Model, cycle_lengths: tuple[float, ...] = DEFAUL
         tasks += [(h, method, strategy, tunnels) for method in methods for strategy in model.strategy_names]
 
     def run(task: tuple) -> tuple[tuple, list[tuple]]:
+        if cancel_requested(cancel):
+            raise SimulationCancelled("error study cancelled")
         h, method, strategy, tunnels = task
         trace = cohort_trace(model, strategy, h, method, rate_rule, entry_ages, n_nodes, tunnels)
         out = []
@@ -147,9 +156,12 @@ def discretization_study(model: Model, cycle_lengths: tuple[float, ...] = DEFAUL
             out += [(o, strategy, h, method, corr, values[o]) for o in names]
         return (strategy, h, method, trace.jump_over_share, trace.negative_stay), out
 
-    # traces are independent; numpy releases the GIL in the heavy steps, so two threads help
-    with ThreadPoolExecutor(max_workers=workers) as pool:
+    # the reference and the traces are independent; numpy releases the GIL in the traces' heavy
+    # steps while the reference's ODE solver runs Python, so they overlap well in threads
+    with ThreadPoolExecutor(max_workers=max(1, workers)) as pool:
+        reference = pool.submit(_reference, model, n_patients, seed, n_nodes, cancel)
         results = list(pool.map(run, tasks))
+        ref = reference.result()
     rows = [r for _, chunk in results for r in chunk]
     jump_rows = [j for j, _ in results]
     table = pd.DataFrame(rows, columns=["outcome", "strategy", "cycle_length", "method", "correction", "value"])

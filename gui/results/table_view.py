@@ -14,6 +14,8 @@ from .table_model import DataFrameModel, tsv
 
 __all__ = ["TableView"]
 
+SAMPLE_ROWS = 200
+
 
 class TableView(QTableView):
     """Read-only table over a :class:`DataFrameModel`; ``name`` suggests the CSV file name."""
@@ -35,6 +37,10 @@ class TableView(QTableView):
         vh.setDefaultSectionSize(self.fontMetrics().height() + 6)
         vh.setVisible(row_numbers)
         self.horizontalHeader().setStretchLastSection(False)
+        # fitting columns samples this many rows (Qt's default 1000 formats 1000 x columns cells on
+        # the GUI thread; result columns are uniform, so a shorter sample gives the same widths)
+        for header in (self.horizontalHeader(), vh):
+            header.setResizeContentsPrecision(SAMPLE_ROWS)
         self.setContextMenuPolicy(Qt.ContextMenuPolicy.CustomContextMenu)
         self.customContextMenuRequested.connect(self._menu)
 

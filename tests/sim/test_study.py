@@ -82,3 +82,13 @@ def test_semi_markov_uses_a_simulation_reference():
     assert set(t["cycle_length"]) == {0.25, 1.0}
     np.testing.assert_allclose(t["error"], t["value"] - t["reference"])
     assert (t["reference_mcse"] > 0).all()
+
+
+def test_study_honours_a_cancel_request():
+    """A cancel request stops the study between traces with SimulationCancelled (the run's own
+    cancel token reaches it through sim.pipeline)."""
+    from sim.demo import demo_model
+    from sim.engine import SimulationCancelled
+
+    with pytest.raises(SimulationCancelled):
+        discretization_study(demo_model("lanthic"), cycle_lengths=(1.0,), cancel=lambda: True)
