@@ -422,6 +422,11 @@ class Weibull(_ShapeScale):
 
     def _conditional_time(self, x: FloatArray, e: FloatArray) -> FloatArray:
         k, log_lam = self.shape, math.log(self.scale)
+        if not x.any():
+            # every clock at 0 (a first visit on the entry clock, any visit on the time-in-state
+            # clock): T = lambda e^(1/k). The general form below reduces to exactly these
+            # operations there (logaddexp(-inf, a) = a, expm1(-inf) = -1), so the bits agree.
+            return np.exp(log_lam + np.log(e) / k)
         log_hx = k * (np.log(x) - log_lam)  # -inf at x = 0
         log_e = np.log(e)
         with np.errstate(invalid="ignore"):  # x = 0 and e = 0 together: fixed by the where below
@@ -454,6 +459,14 @@ def _gompertz_time(log_b: FloatArray | float, g: float, e: FloatArray) -> FloatA
     """
     if g == 0.0:
         return e * np.exp(-np.asarray(log_b, dtype=np.float64))
+    if g > 0.0:
+        # Short form T = log1p(v) / g with v = e g / B formed directly (one exp, one log1p instead
+        # of about six transcendental passes): as accurate as the forms below (relative error a few
+        # ulp, log1p being accurate for small v) wherever v is a normal, finite number.
+        with np.errstate(over="ignore", under="ignore", invalid="ignore"):
+            v = e * np.exp(math.log(g) - np.asarray(log_b, dtype=np.float64))
+        if v.size and np.all((v >= 1e-300) & (v < 1e300)):
+            return np.log1p(v) / g
     log_e = np.log(e)
     lv = math.log(abs(g)) + log_e - log_b  # log |v|
     with np.errstate(invalid="ignore"):  # e = inf lanes (inf - inf) are masked by the where

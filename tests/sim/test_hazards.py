@@ -542,3 +542,16 @@ def test_rvs_reproducible_and_distributed_as_sf() -> None:
     for t in (5.0, 30.0, 80.0):
         p = float(h.sf(t))
         assert abs((a > t).mean() - p) < 4 * math.sqrt(p * (1 - p) / a.size)  # 4 Monte Carlo SE
+
+
+def test_weibull_all_zero_clocks_give_the_same_bits_as_mixed_clocks() -> None:
+    # Weibull.conditional_time takes a short path when every clock is 0 (the engine's first visits);
+    # it must give the same bits as the general form, which runs when any clock is positive, and
+    # agree with scipy's weibull_min quantiles: T = F^-1(1 - exp(-e)) from 0.
+    h = Weibull(1.3, 25.0)
+    e = np.concatenate([np.random.default_rng(3).exponential(size=2000), [0.0, 1e-300, 36.0, np.inf]])
+    mixed = h.conditional_time(np.r_[np.zeros(e.size), 1.0], np.r_[e, 1.0])[:-1]
+    zero = h.conditional_time(np.zeros(e.size), e)
+    np.testing.assert_array_equal(zero, mixed)
+    ref = stats.weibull_min(c=1.3, scale=25.0).isf(np.exp(-e[:2000]))
+    np.testing.assert_allclose(zero[:2000], ref, rtol=1e-12)
