@@ -42,7 +42,7 @@ from workloads import (SURVIVAL_TIMES, chain_model, engine_death_times, latent_d
 
 from sim.engine import simulate, simulate_chunks  # noqa: E402
 
-SECTIONS = ("engine", "batches", "memory", "stream", "scaling", "study", "trace", "gui")
+SECTIONS = ("engine", "threads", "batches", "memory", "stream", "scaling", "study", "trace", "gui")
 RESULTS = HERE / "RESULTS.md"
 NOTES_MARKER = "<!-- Everything below this line is written by hand and kept by run.py. -->"
 QUIET = 0.25  # a round counts as quiet when other processes used less than this share of the CPU
@@ -189,6 +189,49 @@ def engine_section(cfg: Config) -> list[Row]:
         other = survival_of(np.concatenate(deaths[key]), horizon)
         rows.append(_bias_row(cfg, label, key in ("loop", "simpy"), eng, other))
     return rows
+
+
+def threads_section(cfg: Config) -> list[Row]:
+    """What two threads buy on this machine for plain numpy work (context for the engine's figure):
+    a compute-bound kernel (log then exp in place) and a memory-bound one (add in place over arrays far
+    larger than the caches), each on two arrays, one after the other in one thread vs one per thread."""
+    import threading
+
+    n_compute = 200_000 if cfg.quick else 2_000_000
+    n_memory = 1_000_000 if cfg.quick else 20_000_000
+    comp = [np.random.default_rng(i).random(n_compute) for i in range(2)]
+    mem = [np.random.default_rng(i).random(n_memory) for i in range(2)]
+
+    def compute(i: int) -> None:
+        for _ in range(10):
+            np.log(comp[i], out=comp[i])
+            np.exp(comp[i], out=comp[i])
+
+    def memory(i: int) -> None:
+        for _ in range(5):
+            np.add(mem[i], 1.0, out=mem[i])
+
+    def serial(kernel):
+        return lambda r: (kernel(0), kernel(1))
+
+    def parallel(kernel):
+        def go(r: int) -> None:
+            threads = [threading.Thread(target=kernel, args=(i,)) for i in range(2)]
+            for t in threads:
+                t.start()
+            for t in threads:
+                t.join()
+        return go
+
+    times = alternate({"compute1": serial(compute), "compute2": parallel(compute),
+                       "memory1": serial(memory), "memory2": parallel(memory)}, cfg.rounds)
+    speed = {k: median([a / b for a, b in zip(times[f"{k}1"], times[f"{k}2"])]) for k in ("compute", "memory")}
+    return [Row("Machine: plain numpy work, two threads vs one (context for the engine's figure)",
+                f"compute-bound {speed['compute']:.2f}x; memory-bound {speed['memory']:.2f}x", "—",
+                how=f"log + exp in place over {n_compute:,} doubles x 10 (compute) and add in place over "
+                    f"{n_memory * 8 / 2**20:.0f} MiB x 5 (memory), two arrays, one thread each vs both in one; "
+                    f"ratio per round, median; other processes' CPU share per round: "
+                    + ", ".join(f"{x:.0%}" for x in times.load))]
 
 
 def _z_text(diff: float, se_engine: float, se_both: float, digits: int) -> tuple[str, float]:
