@@ -30,6 +30,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
+from .hazards import KERNEL_ERRSTATE
 from .model import Clock, Model, ResolvedExit
 from .rng import ATTRIBUTE_STREAM, _BulkWords, _sorted_draws, key_from_seed
 
@@ -133,7 +134,7 @@ def _latent_times(ex: ResolvedExit, x: NDArray[np.float64], e: NDArray[np.float6
     # directly under the floating-point error state of Hazard.conditional_time (the values are the
     # same; only a -0.0 could differ, and t + (-0.0) == t + 0.0 for the engine's t >= +0.0).
     first = ex.hazards[0]
-    with np.errstate(divide="ignore", over="ignore", under="ignore"):
+    with np.errstate(**KERNEL_ERRSTATE):
         if all(h is first for h in ex.hazards):
             return first._conditional_time(x, e)
         out = np.empty_like(x)

@@ -30,6 +30,7 @@ import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 from scipy.integrate import solve_ivp
 
+from .hazards import KERNEL_ERRSTATE
 from .model import Clock, Model, ResolvedExit
 
 __all__ = ["NoExactSolution", "ExactSolution", "StackedSolution", "solve_exact", "solve_stacked",
@@ -144,7 +145,7 @@ def solve_stacked(model: Model, strategy: str | tuple[str, ...], entry_age: NDAr
         # the hazards' unchecked ``_hazard`` (clock values here are >= 0 by construction) under the
         # errstate of the public ``Hazard.hazard``: the right-hand side runs thousands of times
         out = fixed.copy()
-        with np.errstate(divide="ignore", over="ignore", under="ignore"):
+        with np.errstate(**KERNEL_ERRSTATE):
             for k, (_, _, groups, offset, moving) in enumerate(plan):
                 if not moving:
                     continue

@@ -164,6 +164,10 @@ _GL_WEIGHTS.setflags(write=False)
 # Base class
 # --------------------------------------------------------------------------------------------
 
+KERNEL_ERRSTATE = {"divide": "ignore", "over": "ignore", "under": "ignore"}
+"""``np.errstate`` settings under which the public methods run the private kernels."""
+
+
 class Hazard(abc.ABC):
     """Abstract hazard on a clock in years.
 
@@ -173,6 +177,11 @@ class Hazard(abc.ABC):
     ``_conditional_time``. The public methods validate the arguments, silence the floating-point
     warnings that are part of the intended arithmetic (overflow to ``inf``, ``log(0) = -inf``) and
     return float64 ndarrays.
+
+    Inside the package, hot loops (the engine's draws, the forward equations' right-hand side, the
+    cohort traces' cycle rates) call the private kernels directly on float64 arrays that are valid by
+    construction (clocks finite or +inf and >= 0), under :data:`KERNEL_ERRSTATE`: the values are
+    those of the public methods, without their per-call checks and copies.
     """
 
     family: ClassVar[str]
@@ -181,19 +190,19 @@ class Hazard(abc.ABC):
     def hazard(self, t: ArrayLike) -> FloatArray:
         """Hazard :math:`h(t)` for ``t >= 0`` (``+inf`` allowed); may be ``+inf`` at ``t = 0``."""
         t = _nonnegative(f"{self.family}.hazard", "t", t)
-        with np.errstate(divide="ignore", over="ignore", under="ignore"):
+        with np.errstate(**KERNEL_ERRSTATE):
             return _out(self._hazard(t))
 
     def cumhazard(self, t: ArrayLike) -> FloatArray:
         """Cumulative hazard :math:`H(t)`; ``H(inf)`` equals :attr:`cumhazard_limit`."""
         t = _nonnegative(f"{self.family}.cumhazard", "t", t)
-        with np.errstate(divide="ignore", over="ignore", under="ignore"):
+        with np.errstate(**KERNEL_ERRSTATE):
             return _out(self._cumhazard(t))
 
     def sf(self, t: ArrayLike) -> FloatArray:
         """Survival function :math:`S(t) = \\exp(-H(t))`."""
         t = _nonnegative(f"{self.family}.sf", "t", t)
-        with np.errstate(divide="ignore", over="ignore", under="ignore"):
+        with np.errstate(**KERNEL_ERRSTATE):
             return _out(np.exp(-self._cumhazard(t)))
 
     def inv_cumhazard(self, y: ArrayLike) -> FloatArray:
@@ -202,7 +211,7 @@ class Hazard(abc.ABC):
         ``+inf`` where ``y >= H(inf)`` (improper families or a zero hazard).
         """
         y = _nonnegative(f"{self.family}.inv_cumhazard", "y", y)
-        with np.errstate(divide="ignore", over="ignore", under="ignore"):
+        with np.errstate(**KERNEL_ERRSTATE):
             return _out(self._inv_cumhazard(y))
 
     def conditional_time(self, x: ArrayLike, e: ArrayLike) -> FloatArray:
@@ -230,7 +239,7 @@ class Hazard(abc.ABC):
         x = _nonnegative(f"{self.family}.conditional_time", "x", x, finite=True)
         e = _nonnegative(f"{self.family}.conditional_time", "e", e)
         x, e = np.broadcast_arrays(x, e)
-        with np.errstate(divide="ignore", over="ignore", under="ignore"):
+        with np.errstate(**KERNEL_ERRSTATE):
             return _out(self._conditional_time(x, e))
 
     def rvs(self, size: int | tuple[int, ...], rng: np.random.Generator) -> FloatArray:

@@ -30,6 +30,22 @@ def test_expm_batched_matches_scipy():
         expm_batched(np.zeros((3, 2)))
 
 
+@pytest.mark.parametrize("size", [1e-7, 1e-3, 0.02, 0.1, 0.4])
+def test_expm_with_fewer_terms_for_small_generators_matches_scipy(size):
+    # each stack is scaled alike, so the short Taylor series of small norms is what runs
+    from sim.matrix_exp import expm_rows
+
+    rng = np.random.default_rng(11)
+    q = rng.uniform(0.0, 1.0, size=(40, 4, 4))
+    q[:, np.arange(4), np.arange(4)] = 0.0
+    q[:, np.arange(4), np.arange(4)] = -q.sum(axis=2)  # generator: rows sum to 0
+    stack = q * size / np.abs(q).sum(axis=1).max()  # largest 1-norm = size
+    ref = np.array([linalg.expm(a) for a in stack])
+    np.testing.assert_allclose(expm_batched(stack), ref, rtol=1e-13, atol=1e-16)
+    rows = rng.integers(0, 4, size=40)
+    np.testing.assert_allclose(expm_rows(stack, rows), ref[np.arange(40), rows], rtol=1e-13, atol=1e-16)
+
+
 def test_three_state_closed_form():
     # Illness-death without recovery, constant intensities l12, l13, l23 (Jones, Epstein &
     # Garcia-Mochon 2017, Med Decis Making 37(7):779-789, closed forms for the three-state model):
