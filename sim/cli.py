@@ -24,7 +24,7 @@ import pandas as pd
 
 from . import __version__
 from .demo import demo_path
-from .engine import SimulationResult, simulate_chunks
+from .engine import SimulationResult, chunk_size_for, simulate_chunks
 from .export import ExportError, RunWriter, metadata_for, write_tidy_csv
 from .model import BACKGROUND, Clock
 from .outcomes import OutcomeAccumulator, patient_outcomes, with_exact
@@ -128,7 +128,7 @@ def _run(scenario: Scenario, args: argparse.Namespace, out: TextIO) -> int:
     n = args.patients or settings.patients
     seed = settings.seed if args.seed is None else args.seed
     workers = args.threads or settings.workers
-    chunk = min(settings.chunk_size, max(1000, n // 20))
+    chunk = chunk_size_for(n, settings.chunk_size)
     folder = Path(args.output) if args.output else Path("out") / (scenario.path.stem if scenario.path else "run")
     comparator = model.strategy_names[0]
     wtp = model.valuation.willingness_to_pay

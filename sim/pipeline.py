@@ -17,7 +17,7 @@ from typing import Callable
 import numpy as np
 import pandas as pd
 
-from .engine import SimulationCancelled, SimulationResult, cancel_requested, simulate
+from .engine import SimulationCancelled, SimulationResult, cancel_requested, chunk_size_for, simulate
 from .estimators import kaplan_meier, state_occupancy
 from .outcomes import exact_outcomes_and_occupancy, incremental, patient_outcomes, summarise, with_exact
 from .scenario import Scenario
@@ -77,8 +77,8 @@ def run_scenario(scenario: Scenario, *, patients: int | None = None, seed: int |
     report = progress or (lambda stage, done, total: None)
     seconds: dict[str, float] = {}
     t0 = time.perf_counter()
-    sim = simulate(model, settings["patients"], settings["seed"], chunk_size=min(settings["chunk_size"],
-                   max(1000, settings["patients"] // 20)), workers=settings["workers"],
+    sim = simulate(model, settings["patients"], settings["seed"], chunk_size=chunk_size_for(
+                   settings["patients"], settings["chunk_size"]), workers=settings["workers"],
                    progress=lambda d, n: report("simulating", d, n), cancel=cancel)
     seconds["simulation"] = time.perf_counter() - t0
 
