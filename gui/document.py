@@ -501,7 +501,7 @@ class ScenarioDocument(QObject):
             self._errors = []
         except ScenarioError as err:
             self._scenario = None
-            self._errors = [self._field_error(err)]
+            self._errors = [self._field_error(e) for e in err.problems]
         self.validated.emit(self._scenario, self.errors)
 
     def _field_error(self, err: ScenarioError) -> FieldError:

@@ -180,6 +180,8 @@ class MainWindow(QMainWindow):
     # ------------------------------------------------------------------ slots
     def _on_validated(self, scenario: object, errors: list[FieldError]) -> None:
         reason = errors[0].message if errors else ""
+        if len(errors) > 1:
+            reason += f" (and {len(errors) - 1} more problem{'s' if len(errors) > 2 else ''})"
         self.run_panel.set_scenario(scenario, reason)
         self.problem.setText(f"Problem: {reason}" if errors else "")
         self._update_problem_bar()

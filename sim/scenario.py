@@ -7,8 +7,9 @@ examples.
 
 Reading keeps the document (``tomlkit``, which preserves comments and order) so that an edited
 scenario can be written back without losing what the user typed. Validation turns the document into a
-:class:`~sim.model.Model`; every problem raises :class:`ScenarioError` naming the file, the key path,
-the line where it can be found, the value and the rule. Unknown keys are errors, never ignored.
+:class:`~sim.model.Model`; every problem is a :class:`ScenarioError` naming the file, the key path,
+the line where it can be found, the value and the rule, and one reading reports all the problems it
+can find (:class:`ScenarioProblems`). Unknown keys are errors, never ignored.
 """
 
 from __future__ import annotations
@@ -32,7 +33,7 @@ from .population import EmpiricalAge, FixedAge, NormalAge, Population, Populatio
 from .units import UnitError, rate_from_risk, rate_per_year, to_years
 from .valuation import Valuation, ValuationError
 
-__all__ = ["FORMAT_VERSION", "Scenario", "RunSettings", "ScenarioError", "load_scenario", "parse_scenario",
+__all__ = ["FORMAT_VERSION", "Scenario", "RunSettings", "ScenarioError", "ScenarioProblems", "load_scenario", "parse_scenario",
            "scenario_text", "save_scenario", "document_from_model", "parse_duration"]
 
 FORMAT_VERSION = 1
@@ -62,6 +63,28 @@ class ScenarioError(ValueError):
         if has_value:
             text += f", got {value!r}"
         super().__init__(text)
+
+    @property
+    def problems(self) -> list["ScenarioError"]:
+        """Every problem found (this one alone for a single problem)."""
+        return [self]
+
+
+class ScenarioProblems(ScenarioError):
+    """Several problems found in one reading of a scenario; :attr:`problems` lists them in file order
+    of the sections. ``key``, ``line`` and ``rule`` are those of the first, so that code handling a
+    single :class:`ScenarioError` still points somewhere sensible."""
+
+    def __init__(self, problems: list[ScenarioError], file: str | None = None) -> None:
+        self._problems = list(problems)
+        first = self._problems[0]
+        ValueError.__init__(self, f"{file or '<scenario>'}: {len(self._problems)} problems:\n"
+                            + "\n".join(f"  - {p}" for p in self._problems))
+        self.rule, self.file, self.key, self.line, self.value = first.rule, file, first.key, first.line, first.value
+
+    @property
+    def problems(self) -> list[ScenarioError]:
+        return list(self._problems)
 
 
 @dataclass(frozen=True)
@@ -404,62 +427,124 @@ def _population(r: _Reader, data: Any) -> Population:
         raise r.error(path, str(err), has_value=False) from None
 
 
+def _raw_names(items: Any) -> list[str]:
+    """The ``name`` strings of a list of tables, as typed (for checks that must go on when one of the
+    tables has a problem of its own)."""
+    if not isinstance(items, list):
+        return []
+    return [x["name"] for x in items if isinstance(x, Mapping) and isinstance(x.get("name"), str)]
+
+
 def _build(doc: Mapping, text: str, file: str | None, base_dir: Path | None) -> Scenario:
+    """Validate the whole document. Each state, transition, strategy and section is checked on its
+    own, so one reading reports every problem it can find (a problem in one part stops only what
+    depends on that part); they are raised together as :class:`ScenarioProblems`."""
     r = _Reader(text, file, base_dir)
-    r.table(doc, (), TOP_KEYS, ["format_version", "states", "transitions", "population", "horizon"])
-    version = doc["format_version"]
-    if version != FORMAT_VERSION:
+    problems: list[ScenarioError] = []
+
+    def attempt(fn, *args, **kwargs):
+        try:
+            return fn(*args, **kwargs)
+        except ScenarioError as err:
+            problems.append(err)
+            return None
+
+    if not isinstance(doc, Mapping):
+        raise r.error((), "must be a table", doc)
+    for k in doc:
+        if k not in TOP_KEYS:
+            problems.append(r.error((k,), f"unknown key; allowed here: {sorted(TOP_KEYS)}", doc[k]))
+    for k in ("format_version", "states", "transitions", "population", "horizon"):
+        if k not in doc:
+            problems.append(r.error((), f"missing required key {k!r}", has_value=False))
+    version = doc.get("format_version", FORMAT_VERSION)
+    if version != FORMAT_VERSION:  # a different format: nothing else can be read reliably
         raise r.error(("format_version",), f"this HazardTrace reads format_version {FORMAT_VERSION}", version)
     notes: list[str] = []
+
     # states
-    if not isinstance(doc["states"], list) or not doc["states"]:
-        raise r.error(("states",), "must be a list of [[states]] tables", doc["states"])
-    states = []
-    for i, s in enumerate(doc["states"]):
+    states: list[State] = []
+    raw_states = doc.get("states", [])
+    if "states" in doc and (not isinstance(raw_states, list) or not raw_states):
+        problems.append(r.error(("states",), "must be a list of [[states]] tables", raw_states))
+        raw_states = []
+
+    def state(i: int, s: Any) -> State:
         p = ("states", i)
         s = r.table(s, p, {"name", "absorbing", "description"}, ["name"])
         absorbing = s.get("absorbing", False)
         if not isinstance(absorbing, bool):
             raise r.error((*p, "absorbing"), "must be true or false", absorbing)
-        states.append(State(r.string(s, p, "name"), absorbing))
-    names = [s.name for s in states]
-    for i, n in enumerate(names):
-        if names.index(n) != i:
-            raise r.error(("states", i, "name"), "duplicate state name", n)
+        name = r.string(s, p, "name")
+        if any(st.name == name for st in states):
+            raise r.error((*p, "name"), "duplicate state name", name)
+        return State(name, absorbing)
+
+    for i, s in enumerate(raw_states):
+        got = attempt(state, i, s)
+        if got is not None:
+            states.append(got)
+    names = list(dict.fromkeys([st.name for st in states] + _raw_names(raw_states)))
+
     # transitions
-    if not isinstance(doc["transitions"], list):
-        raise r.error(("transitions",), "must be a list of [[transitions]] tables", doc["transitions"])
-    transitions = []
-    for i, t in enumerate(doc["transitions"]):
+    transitions: list[Transition] = []
+    raw_transitions = doc.get("transitions", [])
+    if not isinstance(raw_transitions, list):
+        problems.append(r.error(("transitions",), "must be a list of [[transitions]] tables", raw_transitions))
+        raw_transitions = []
+
+    def transition(i: int, t: Any) -> Transition:
         p = ("transitions", i)
         if not isinstance(t, Mapping):
             raise r.error(p, "must be a table", t)
         name = r.string(t, p, "name")
-        src = r.string(t, p, "from", choices=names)
-        dst = r.string(t, p, "to", choices=names)
+        # with no readable state names (the states list itself is broken) only that problem is reported
+        src = r.string(t, p, "from", choices=names or None)
+        dst = r.string(t, p, "to", choices=names or None)
         if any(tr.name == name for tr in transitions) or name == BACKGROUND:
             raise r.error((*p, "name"), f"duplicate transition name (or the reserved {BACKGROUND!r})", name)
-        if next(s for s in states if s.name == src).absorbing:
+        if any(st.name == src and st.absorbing for st in states):
             raise r.error((*p, "from"), "is an absorbing state; absorbing states have no exits", src)
         if src == dst:
             raise r.error((*p, "to"), "must differ from 'from'", dst)
         clock = r.string(t, p, "clock", default="entry", choices=[c.value for c in Clock])
         hz = _hazard(r, t, p, notes, extra_keys=("name", "from", "to", "clock", "description"))
-        transitions.append(Transition(name, src, dst, hz, clock))
-    population = _population(r, doc["population"])
-    # background
+        return Transition(name, src, dst, hz, clock)
+
+    for i, t in enumerate(raw_transitions):
+        got = attempt(transition, i, t)
+        if got is not None:
+            transitions.append(got)
+    tnames = list(dict.fromkeys([t.name for t in transitions] + _raw_names(raw_transitions)))
+
+    population = attempt(_population, r, doc["population"]) if "population" in doc else None
+    # background (its per-sex keys follow the population's sexes, as typed if the population failed)
     background = None
     if "background" in doc:
-        background = _background(r, doc["background"], ("background",), notes, population.sexes)
-    # horizon
-    hz_data = r.table(doc["horizon"], ("horizon",), {"value", "scale"}, ["value"])
-    scale = r.string(hz_data, ("horizon",), "scale", default="time", choices=("time", "age"))
-    horizon_value = r.number(hz_data, ("horizon",), "value", minimum=0, strict_min=True,
-                             maximum=130 if scale == "age" else None)
-    horizon = Horizon(float(horizon_value), scale)
+        if population is not None:
+            sexes = population.sexes
+        else:
+            mix = doc.get("population", {}).get("sex_mix", {}) if isinstance(doc.get("population"), Mapping) else {}
+            sexes = tuple(mix) if isinstance(mix, Mapping) else ()
+        background = attempt(_background, r, doc["background"], ("background",), notes, sexes)
+
+    def horizon_of(data: Any) -> Horizon:
+        hz_data = r.table(data, ("horizon",), {"value", "scale"}, ["value"])
+        scale = r.string(hz_data, ("horizon",), "scale", default="time", choices=("time", "age"))
+        value = r.number(hz_data, ("horizon",), "value", minimum=0, strict_min=True,
+                         maximum=130 if scale == "age" else None)
+        return Horizon(float(value), scale)
+
+    horizon = attempt(horizon_of, doc["horizon"]) if "horizon" in doc else None
+
     # strategies
-    strategies = []
-    for i, s in enumerate(doc.get("strategies", [])):
+    strategies: list[Strategy] = []
+    raw_strategies = doc.get("strategies", [])
+    if not isinstance(raw_strategies, list):
+        problems.append(r.error(("strategies",), "must be a list of [[strategies]] tables", raw_strategies))
+        raw_strategies = []
+
+    def strategy(i: int, s: Any) -> Strategy:
         p = ("strategies", i)
         s = r.table(s, p, {"name", "description", "hazard_ratios", "replacements", "state_costs",
                            "transition_costs"}, ["name"])
@@ -473,24 +558,26 @@ def _build(doc: Mapping, text: str, file: str | None, base_dir: Path | None) -> 
             raise r.error((*p, "replacements"), "must be a table of transition = hazard", raw_repl)
         for tname, hdata in raw_repl.items():
             repl[tname] = _hazard(r, hdata, (*p, "replacements", tname), notes)
-        tnames = [t.name for t in transitions]
         for tname in (*hrs, *repl):
             if tname not in tnames:
                 key = "hazard_ratios" if tname in hrs else "replacements"
                 raise r.error((*p, key, tname), f"must name a transition {tnames}", tname)
         try:
-            strategies.append(Strategy(name, hrs, repl, r.number_map(s, p, "state_costs"),
-                                       r.number_map(s, p, "transition_costs")))
+            return Strategy(name, hrs, repl, r.number_map(s, p, "state_costs"), r.number_map(s, p, "transition_costs"))
         except ModelError as err:
             raise r.error(p, str(err), has_value=False) from None
-    # valuation
-    valuation = Valuation()
-    if "valuation" in doc:
+
+    for i, st in enumerate(raw_strategies):
+        got = attempt(strategy, i, st)
+        if got is not None:
+            strategies.append(got)
+
+    def valuation_of(data: Any) -> Valuation:
         p = ("valuation",)
-        v = r.table(doc["valuation"], p, {"utilities", "state_costs", "transition_costs", "discount_costs",
-                                          "discount_effects", "willingness_to_pay", "currency"})
+        v = r.table(data, p, {"utilities", "state_costs", "transition_costs", "discount_costs",
+                              "discount_effects", "willingness_to_pay", "currency"})
         try:
-            valuation = Valuation(
+            return Valuation(
                 utilities=r.number_map(v, p, "utilities", maximum=1),
                 state_costs=r.number_map(v, p, "state_costs"),
                 transition_costs=r.number_map(v, p, "transition_costs"),
@@ -500,12 +587,14 @@ def _build(doc: Mapping, text: str, file: str | None, base_dir: Path | None) -> 
                 currency=r.string(v, p, "currency", default="EUR"))
         except ValuationError as err:
             raise r.error(p, str(err), has_value=False) from None
-    # run settings
-    run = RunSettings()
-    if "run" in doc:
+
+    valuation = attempt(valuation_of, doc["valuation"]) if "valuation" in doc else Valuation()
+
+    def run_of(data: Any) -> RunSettings:
+        default = RunSettings()
         p = ("run",)
-        rd = r.table(doc["run"], p, {"patients", "seed", "workers", "chunk_size", "cycle_lengths", "tolerance"})
-        cycles = rd.get("cycle_lengths", list(run.cycle_lengths))
+        rd = r.table(data, p, {"patients", "seed", "workers", "chunk_size", "cycle_lengths", "tolerance"})
+        cycles = rd.get("cycle_lengths", list(default.cycle_lengths))
         if not isinstance(cycles, list) or not cycles:
             raise r.error((*p, "cycle_lengths"), "must be a non-empty list of durations", cycles)
         parsed = []
@@ -514,15 +603,19 @@ def _build(doc: Mapping, text: str, file: str | None, base_dir: Path | None) -> 
                 parsed.append(parse_duration(c))
             except ValueError as err:
                 raise r.error((*p, "cycle_lengths", j), str(err), c) from None
-        run = RunSettings(patients=r.number(rd, p, "patients", run.patients, minimum=1, integer=True),
-                          seed=r.number(rd, p, "seed", run.seed, minimum=0, integer=True),
-                          workers=r.number(rd, p, "workers", run.workers, minimum=1, maximum=64, integer=True),
-                          chunk_size=r.number(rd, p, "chunk_size", run.chunk_size, minimum=1, integer=True),
-                          cycle_lengths=tuple(parsed),
-                          tolerance=r.number(rd, p, "tolerance", run.tolerance, minimum=0, strict_min=True))
+        return RunSettings(patients=r.number(rd, p, "patients", default.patients, minimum=1, integer=True),
+                           seed=r.number(rd, p, "seed", default.seed, minimum=0, integer=True),
+                           workers=r.number(rd, p, "workers", default.workers, minimum=1, maximum=64, integer=True),
+                           chunk_size=r.number(rd, p, "chunk_size", default.chunk_size, minimum=1, integer=True),
+                           cycle_lengths=tuple(parsed),
+                           tolerance=r.number(rd, p, "tolerance", default.tolerance, minimum=0, strict_min=True))
+
+    run = attempt(run_of, doc["run"]) if "run" in doc else RunSettings()
     name = doc.get("name", Path(file).stem if file else "scenario")
     if not isinstance(name, str):
-        raise r.error(("name",), "must be a string", name)
+        problems.append(r.error(("name",), "must be a string", name))
+    if problems:
+        raise problems[0] if len(problems) == 1 else ScenarioProblems(problems, file=file)
     try:
         model = Model(states=tuple(states), transitions=tuple(transitions), population=population,
                       horizon=horizon, background=background, strategies=tuple(strategies),

@@ -79,6 +79,16 @@ def test_problems_are_located_at_the_field(doc: ScenarioDocument, path: tuple, v
     assert err.key == key, err.message
 
 
+def test_every_problem_is_located_at_its_field(doc: ScenarioDocument) -> None:
+    # two independent problems typed one after the other are both reported, each at its field
+    doc.set_value(("transitions", 0, "shape"), -1.0)
+    doc.set_value(("population", "entry_age", "high"), 30.0)
+    assert [e.key for e in doc.errors] == [("transitions", 0, "shape"), ("population", "entry_age", "high")]
+    assert all(e.line is not None for e in doc.errors)
+    doc.undo_stack.undo()
+    assert [e.key for e in doc.errors] == [("transitions", 0, "shape")]
+
+
 def test_undo_redo_restore_the_text(doc: ScenarioDocument) -> None:
     doc.set_value(("horizon", "value"), 90)
     after_first = doc.text

@@ -83,6 +83,10 @@ def test_invalid_input_disables_run_with_the_loaders_message(window: MainWindow,
     assert rate.toolTip() == err.message and err.message in window.problem.text()
     window.go_to_problem()
     assert window.stack.currentWidget().widget() is editor
+    window.document.set_value(("horizon", "value"), 500)  # a second problem, elsewhere
+    assert len(window.document.errors) == 2
+    assert window.run_panel.reason.text() == f"{err.message} (and 1 more problem)"
+    window.undo_action.trigger()
     window.undo_action.trigger()
     assert calls[-1][0] is window.document.scenario and window.run_panel.run_button.isEnabled()
 

@@ -14,7 +14,7 @@ from hypothesis import strategies as st
 
 from sim.demo import DEMOS, SCENARIO_DIR
 from sim.engine import SimulationError, simulate
-from sim.scenario import (ScenarioError, document_from_model, load_scenario, parse_duration, parse_scenario,
+from sim.scenario import (ScenarioError, ScenarioProblems, document_from_model, load_scenario, parse_duration, parse_scenario,
                           save_scenario, scenario_text)
 
 DEMO = (SCENARIO_DIR / "lanthic_syndrome.toml").read_text()
@@ -121,6 +121,27 @@ def test_model_level_rules_name_the_file():
     text = _bad('[[states]]\nname = "dead"', '[[states]]\nname = "limbo"\n\n[[states]]\nname = "dead"')
     with pytest.raises(ScenarioError, match=r"states\[2\]\.name: cannot be reached from the initial state 'well'"):
         parse_scenario(text, "scen.toml")
+
+
+def test_one_reading_reports_every_independent_problem():
+    # three problems in different parts: a transition's parameter, the population, the run settings
+    text = _bad("shape = 1.3", "shape = -1.3")
+    text = text.replace("sd = 8.0", "sd = 0.0").replace("[run]", "[run]\nthreads = 4")
+    with pytest.raises(ScenarioProblems) as info:
+        parse_scenario(text, "scen.toml")
+    err = info.value
+    assert [p.key for p in err.problems] == ["transitions[0]", "population.entry_age.sd", "run.threads"]
+    assert [p.line for p in err.problems][1:] == [_line(text, "sd = 0.0"), _line(text, "threads = 4")]
+    message = str(err)
+    assert message.startswith("scen.toml: 3 problems:")
+    for p in err.problems:
+        assert str(p) in message
+    assert isinstance(err, ScenarioError) and err.key == "transitions[0]"  # the first, for single-error callers
+    # a problem in one state does not make the transitions that name it fail too
+    text = _bad('name = "lanthic"\n', 'name = "lanthic"\nabsorbing = "no"\n')
+    with pytest.raises(ScenarioError) as info:
+        parse_scenario(text, "scen.toml")
+    assert [p.key for p in info.value.problems] == ["states[1].absorbing"]
 
 
 def test_toml_syntax_error_has_a_line():
