@@ -248,6 +248,34 @@ def test_strategies_editor_both_ways(qtbot, doc: ScenarioDocument) -> None:
     assert doc.scenario.model.strategy("strategy 3").transition_costs == {BACKGROUND: 500}
 
 
+def test_strategy_replacement_hazards_are_edited_in_the_form(qtbot, doc: ScenarioDocument) -> None:
+    ed = make(qtbot, StrategiesEditor, doc)
+    ed.select(1)
+    base_onset = doc.scenario.model.transitions[0].hazard
+    ed.replace_buttons["onset"].click()
+    # one undoable step: the hazard ratio for onset goes, a copy of the model's hazard comes
+    st = doc.scenario.model.strategy("new therapy")
+    assert "onset" not in st.hazard_ratios and st.replacements["onset"] == base_onset
+    form = ed.replacement_forms["onset"]
+    assert "shape = 1.3" in form.resolved.text()  # the parameters the model uses, shown under the form
+    type_into(field(ed, ("strategies", 1, "replacements", "onset", "shape")), "1.1")
+    assert doc.scenario.model.strategy("new therapy").replacements["onset"].shape == 1.1
+    # the family can change like a transition's; the strategy's resolved hazard follows
+    choose(field(ed, ("strategies", 1, "replacements", "onset", "family")), "exponential")
+    assert doc.scenario.model.strategy("new therapy").replacements["onset"].family == "exponential"
+    assert "onset" in ed.replacement_forms and ed.replacement_forms["onset"].family == "exponential"
+    # the simulation uses it: the resolved exits of the strategy carry the replacement
+    (onset,) = [e for per in doc.scenario.model.resolve("new therapy") for e in per if e.name == "onset"]
+    assert onset.hazards[0] == doc.scenario.model.strategy("new therapy").replacements["onset"]
+    ed.restore_buttons["onset"].click()
+    assert doc.scenario.model.strategy("new therapy").replacements == {}
+    assert "onset" in ed.replace_buttons
+    for _ in range(4):  # restore, family, shape, replace
+        doc.undo_stack.undo()
+    assert doc.scenario.model.strategy("new therapy").hazard_ratios["onset"] == 0.7
+    assert field(ed, ("strategies", 1, "hazard_ratios", "onset")).text() == "0.7"
+
+
 # ----------------------------------------------------------------------------- valuation and horizon
 def test_valuation_editor_both_ways(qtbot, doc: ScenarioDocument) -> None:
     ed = make(qtbot, ValuationEditor, doc)
