@@ -211,6 +211,7 @@ def test_sex_specific_background_mortality():
         _check_within(dead, p, np.sqrt(p * (1 - p) / len(grp)), f"{sex} 10-year death risk")
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("n", [1_000_000 if FULL else 60_000])
 def test_illness_death_occupancy_matches_kolmogorov(n):
     # Simulated state occupancy vs the exact Kolmogorov forward solution (scipy.integrate.solve_ivp
@@ -255,6 +256,7 @@ def test_kaplan_meier_of_engine_log_matches_lifelines():
     np.testing.assert_allclose(km["survival"].to_numpy(), s_ref, rtol=1e-12, atol=1e-14)
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("n", [400_000 if FULL else 40_000])
 def test_aalen_johansen_of_engine_log_matches_kolmogorov(n):
     # Aalen-Johansen occupancy from the simulated log vs the exact forward equations, within 4 MCSE.
@@ -270,6 +272,7 @@ def test_aalen_johansen_of_engine_log_matches_kolmogorov(n):
         _check_within(row.probability, p, np.sqrt(p * (1 - p) / n), f"AJ {row.state} at {row.time}")
 
 
+@pytest.mark.slow
 @pytest.mark.parametrize("n, chunk", [(1_000_000, 50_000) if FULL else (100_000, 5_000)])
 def test_memory_is_bounded_by_results_and_chunk(n, chunk):
     # Peak traced memory stays within about twice the returned tables (chunk results are joined once)
