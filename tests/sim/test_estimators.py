@@ -523,6 +523,27 @@ def test_strategy_selects_its_rows():
     assert restricted_mean_survival(patients, strategy="B") == restricted_mean_survival(pb)
 
 
+def test_categorical_columns_are_checked_like_text_columns():
+    # the engine's tables hold categoricals; their labels are matched through the codes, and a label
+    # outside the rule (or a missing value) is reported with the same message as for text columns
+    ev, pt = tiny_history()
+    cat_ev = ev.astype({c: "category" for c in ("from_state", "to_state", "transition")})
+    cat_pt = pt.astype({c: "category" for c in ("initial_state", "final_state", "exit_reason")})
+    pd.testing.assert_frame_equal(state_occupancy(cat_ev, cat_pt, ILLNESS, [1.0, 4.0]),
+                                  state_occupancy(ev, pt, ILLNESS, [1.0, 4.0]))
+    with pytest.raises(ValueError, match=r"events\['from_state'\]: state 'sick' is not in states=\['healthy', 'dead'\]"):
+        time_in_states(cat_ev, cat_pt, ("healthy", "dead"))
+    bad = cat_pt.copy()
+    bad["exit_reason"] = pd.Categorical(["absorbed", "lost"])
+    with pytest.raises(ValueError, match=r"patients\['exit_reason'\]: value 'lost' is invalid; must be 'absorbed'"):
+        kaplan_meier(bad)
+    bad = cat_ev.copy()
+    bad["transition"] = pd.Categorical([bad["transition"].iloc[0], None, *bad["transition"].iloc[2:]],
+                                       categories=bad["transition"].cat.categories)
+    with pytest.raises(ValueError, match=r"events\['transition'\]: a value is missing"):
+        time_in_states(bad, cat_pt, ILLNESS)
+
+
 def test_several_strategies_without_a_choice_raise_naming_them():
     events, patients, _, _ = two_strategies()
     with pytest.raises(ValueError, match=r"strategy: got None but the tables hold 2 strategies \['A', 'B'\]"):
