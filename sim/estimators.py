@@ -141,9 +141,12 @@ def _label_codes(values: pd.Series, labels: Sequence[str]) -> NDArray[np.intp]:
         lookup = np.array([where.get(str(c), -1) for c in values.cat.categories] + [-1], dtype=np.intp)
         return lookup[values.cat.codes.to_numpy()]  # code -1 (missing) picks the trailing -1
     obj = values.to_numpy(dtype=object)
-    codes = np.full(obj.size, -1, dtype=np.intp)
-    present = ~pd.isna(obj)
-    codes[present] = [where.get(str(v), -1) for v in obj[present]]
+    codes = pd.Index(list(where), dtype=object).get_indexer(obj).astype(np.intp)  # hash lookup, no per-row Python
+    miss = np.flatnonzero(codes < 0)
+    if miss.size:  # values that are not text (numbers, say) are matched by their text form
+        vals = obj[miss]
+        keep = ~pd.isna(vals)
+        codes[miss[keep]] = [where.get(str(v), -1) for v in vals[keep]]
     return codes
 
 
