@@ -52,6 +52,8 @@ import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 
+from .labels import label_codes
+
 __all__ = [
     "ABSORBED",
     "CENSORED",
@@ -131,25 +133,6 @@ def _require_columns(df: pd.DataFrame, name: str, columns: Sequence[str]) -> Non
         raise ValueError(f"{name}: missing column(s) {missing}; the event-log contract requires {list(columns)}")
 
 
-def _label_codes(values: pd.Series, labels: Sequence[str]) -> NDArray[np.intp]:
-    """Index of each value in ``labels`` (-1 where absent or missing), matched as strings.
-
-    A categorical column is matched through its categories and integer codes, so no Python string
-    is built per row (converting a 2M-row categorical to strings holds the GIL for ~0.1 s)."""
-    where = {str(label): i for i, label in enumerate(labels)}
-    if isinstance(values.dtype, pd.CategoricalDtype):
-        lookup = np.array([where.get(str(c), -1) for c in values.cat.categories] + [-1], dtype=np.intp)
-        return lookup[values.cat.codes.to_numpy()]  # code -1 (missing) picks the trailing -1
-    obj = values.to_numpy(dtype=object)
-    codes = pd.Index(list(where), dtype=object).get_indexer(obj).astype(np.intp)  # hash lookup, no per-row Python
-    miss = np.flatnonzero(codes < 0)
-    if miss.size:  # values that are not text (numbers, say) are matched by their text form
-        vals = obj[miss]
-        keep = ~pd.isna(vals)
-        codes[miss[keep]] = [where.get(str(v), -1) for v in vals[keep]]
-    return codes
-
-
 def _strategies_in(df: pd.DataFrame) -> set[str]:
     return {str(s) for s in df["strategy"].dropna().unique()}
 
@@ -169,7 +152,7 @@ def _select(strategy: str | None, tables: dict[str, pd.DataFrame]) -> tuple[str,
         raise ValueError(f"strategy: {strategy!r} is not in the tables; strategies present: {sorted(found)}")
     out = {}
     for name, df in tables.items():
-        mask = _label_codes(df["strategy"], (strategy,)) == 0
+        mask = label_codes(df["strategy"], (strategy,)) == 0
         out[name] = df if mask.all() else df.loc[mask]
     if len(out["patients"]) == 0:
         raise ValueError(f"patients: no rows for strategy {strategy!r}; an estimate needs at least one patient")
@@ -193,7 +176,7 @@ def _cohort(patients: pd.DataFrame, strategy: str) -> _Cohort:
     if not np.issubdtype(ids.dtype, np.integer):
         raise ValueError(f"patients['patient']: dtype {ids.dtype} is invalid; patient ids must be integers")
     exit_time = _float_column(patients, "patients", "exit_time")
-    reason = _label_codes(patients["exit_reason"], (ABSORBED, CENSORED))
+    reason = label_codes(patients["exit_reason"], (ABSORBED, CENSORED))
     censored = reason == 1
     bad = reason < 0
     if bad.any():
@@ -229,7 +212,7 @@ def _check_states(states: Sequence[str]) -> tuple[str, ...]:
 
 
 def _state_codes(values: pd.Series, states: tuple[str, ...], where: str) -> NDArray[np.intp]:
-    codes = _label_codes(values, states)
+    codes = label_codes(values, states)
     bad = codes < 0
     if bad.any():
         raise ValueError(f"{where}: state {values.iloc[int(np.argmax(bad))]!r} is not in states={list(states)}; "
@@ -265,7 +248,7 @@ def _prepare_log(events: pd.DataFrame, patients: pd.DataFrame, states: Sequence[
     dtype = ev["transition"].dtype
     names = (tuple(str(c) for c in dtype.categories) if isinstance(dtype, pd.CategoricalDtype)
              else tuple(sorted({str(v) for v in ev["transition"].dropna().unique()})))
-    ev_tr = _label_codes(ev["transition"], names)
+    ev_tr = label_codes(ev["transition"], names)
     if (ev_tr < 0).any():
         raise ValueError("events['transition']: a value is missing; every move needs a transition name")
     step = np.diff(pidx)

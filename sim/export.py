@@ -48,6 +48,7 @@ import pyarrow.parquet as pq
 from numpy.typing import NDArray
 
 from . import __version__
+from .labels import label_codes
 from .model import Model
 
 __all__ = [
@@ -80,21 +81,22 @@ class ExportError(ValueError):
 
 
 # =========================================================================== long format
-def _strategy_codes(values: pd.Series, categories: list[str], where: str) -> NDArray[np.intp]:
-    codes = pd.Categorical(values, categories=categories).codes.astype(np.intp)
+def _codes(values: pd.Series, labels: list[str], where: str, what: str, plural: str) -> NDArray[np.intp]:
+    """``label_codes`` of a column; a value outside ``labels`` is an ExportError naming it."""
+    codes = label_codes(values, labels)
     bad = codes < 0
     if bad.any():
-        raise ExportError(f"{where}: strategy {values.to_numpy()[bad][0]!r} is not one of the model's "
-                          f"strategies {categories}")
+        raise ExportError(f"{where}: {what} {values.iloc[int(np.argmax(bad))]!r} is not one of the model's "
+                          f"{plural} {labels}")
     return codes
+
+
+def _strategy_codes(values: pd.Series, categories: list[str], where: str) -> NDArray[np.intp]:
+    return _codes(values, categories, where, "strategy", "strategies")
 
 
 def _state_codes(values: pd.Series, states: list[str], where: str) -> NDArray[np.intp]:
-    codes = pd.Categorical(values, categories=states).codes.astype(np.intp)
-    bad = codes < 0
-    if bad.any():
-        raise ExportError(f"{where}: state {values.to_numpy()[bad][0]!r} is not one of the model's states {states}")
-    return codes
+    return _codes(values, states, where, "state", "states")
 
 
 def _require(df: pd.DataFrame, name: str, columns: tuple[str, ...]) -> None:
@@ -263,9 +265,9 @@ def long_format(events: pd.DataFrame, patients: pd.DataFrame, model: Model,
     ev_from = _state_codes(events["from_state"], states, "events['from_state']")
     ev_to = _state_codes(events["to_state"], states, "events['to_state']")
     names = list(model.exit_names)
-    ev_name = pd.Categorical(events["transition"], categories=names).codes.astype(np.intp)
+    ev_name = label_codes(events["transition"], names)
     if (ev_name < 0).any():
-        bad = events["transition"].to_numpy()[ev_name < 0][0]
+        bad = events["transition"].iloc[int(np.argmax(ev_name < 0))]
         raise ExportError(f"events['transition']: {bad!r} is not one of the model's exits {names}")
     o = np.lexsort((time, pidx))  # stable: ties keep row order (and are rejected below)
     pidx, time, ev_from, ev_to, ev_name = pidx[o], time[o], ev_from[o], ev_to[o], ev_name[o]
@@ -324,12 +326,13 @@ def long_format(events: pd.DataFrame, patients: pd.DataFrame, model: Model,
             raise ExportError(f"patients['final_state']: {states[final[i]]!r} for patient {int(p_id[i])} "
                               f"contradicts the log, whose moves end in {states[end_state[i]]!r}")
     if "exit_reason" in patients.columns:
-        reason = patients["exit_reason"].astype(object).to_numpy()[p_order]
+        code = label_codes(patients["exit_reason"], ("absorbed", "censored"))[p_order]
         absorbed = absorbing[end_state]
-        bad = ((reason == "absorbed") != absorbed) | ((reason == "absorbed") & (soj_start[last] != exit_time))
-        bad |= (reason != "absorbed") & (reason != "censored")
+        bad = ((code == 0) != absorbed) | ((code == 0) & (soj_start[last] != exit_time))
+        bad |= code < 0
         if bad.any():
             i = int(np.flatnonzero(bad)[0])
+            reason = patients["exit_reason"].to_numpy()[p_order]
             raise ExportError(f"patients['exit_reason']: {reason[i]!r} for patient {int(p_id[i])} contradicts the "
                               f"log (last state {states[end_state[i]]!r} from time {float(soj_start[last[i]])!r}, "
                               f"exit_time {float(exit_time[i])!r}); 'absorbed' means a move into an absorbing "
