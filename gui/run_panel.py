@@ -197,6 +197,10 @@ class RunPanel(QWidget):
             self.progress.setRange(0, total)
             self.progress.setValue(done)
             self.stage.setText(f"{label}: {done:,} of {total:,} patients")
+        elif stage == "error study" and total > 1:
+            self.progress.setRange(0, total)
+            self.progress.setValue(done)
+            self.stage.setText(f"{label}: {done} of {total} cohort traces")
         else:
             self.progress.setRange(0, 0)  # busy: this stage reports no fraction
             self.stage.setText(f"{label}…")

@@ -156,7 +156,7 @@ def _run(scenario: Scenario, args: argparse.Namespace, out: TextIO) -> int:
         study = None
         if not args.no_study:
             study = discretization_study(model, cycle_lengths=settings.cycle_lengths, tolerance=settings.tolerance,
-                                         n_patients=min(n, 200_000), seed=seed)
+                                         n_patients=min(n, 200_000), seed=seed, progress=_Progress("error study"))
             writer.add_table("error_study", study.table)
             writer.add_table("error_study_orders", study.orders)
             writer.add_table("error_study_largest_cycle", study.largest_cycle)
@@ -187,7 +187,8 @@ def _compare(scenario: Scenario, args: argparse.Namespace, out: TextIO) -> int:
     settings = scenario.run
     study = discretization_study(scenario.model, cycle_lengths=settings.cycle_lengths,
                                  tolerance=args.tolerance or settings.tolerance, relative=not args.absolute,
-                                 n_patients=args.patients or min(settings.patients, 200_000), seed=settings.seed)
+                                 n_patients=args.patients or min(settings.patients, 200_000), seed=settings.seed,
+                                 progress=_Progress("error study"))
     csv = Path(args.csv) if args.csv else Path(f"{scenario.path.stem if scenario.path else 'scenario'}_error_study.csv")
     write_tidy_csv(study.table, csv, force=args.force)
     out.write(f"{scenario.model.name}: reference {study.reference_kind}; {len(study.table):,} rows written to {csv}\n\n")

@@ -119,7 +119,8 @@ def run_scenario(scenario: Scenario, *, patients: int | None = None, seed: int |
         t3 = time.perf_counter()
         result_study = discretization_study(model, cycle_lengths=settings["cycle_lengths"],
                                             tolerance=settings["tolerance"], n_patients=settings["patients"],
-                                            seed=settings["seed"], cancel=cancel)
+                                            seed=settings["seed"], cancel=cancel,
+                                            progress=lambda d, n: report("error study", d, n))
         seconds["study"] = time.perf_counter() - t3
     report("done", 1, 1)
     return RunResults(scenario=scenario, simulation=sim, per_patient=per, outcomes=summary, increments=inc,

@@ -95,7 +95,8 @@ def discretization_study(model: Model, cycle_lengths: tuple[float, ...] = DEFAUL
                          tolerance: float = 0.01, relative: bool = True, comparator: str | None = None,
                          willingness_to_pay: float | None = None, tunnel_years: float | None = None,
                          n_patients: int = 200_000, seed: int = 1, n_nodes: int = 16,
-                         workers: int = 2, cancel: CancelToken | Callable[[], bool] | None = None) -> StudyResult:
+                         workers: int = 2, cancel: CancelToken | Callable[[], bool] | None = None,
+                         progress: Callable[[int, int], None] | None = None) -> StudyResult:
     """Run the reference and the grid of cohort approximations; see the module docstring.
 
     Parameters
@@ -114,6 +115,7 @@ def discretization_study(model: Model, cycle_lengths: tuple[float, ...] = DEFAUL
     workers : threads running the independent traces.
     cancel : an object with ``is_set()`` or a callable; checked before each trace (and between the
         chunks of a simulation reference); a request raises :class:`sim.engine.SimulationCancelled`.
+    progress : called as ``progress(done, total)`` in the calling thread as the traces finish.
     """
     if not cycle_lengths or any(not (math.isfinite(h) and h > 0) for h in cycle_lengths):
         raise ValueError(f"cycle_lengths must be positive numbers of years, got {cycle_lengths!r}")
@@ -160,7 +162,11 @@ def discretization_study(model: Model, cycle_lengths: tuple[float, ...] = DEFAUL
     # steps while the reference's ODE solver runs Python, so they overlap well in threads
     with ThreadPoolExecutor(max_workers=max(1, workers)) as pool:
         reference = pool.submit(_reference, model, n_patients, seed, n_nodes, cancel)
-        results = list(pool.map(run, tasks))
+        results = []
+        for result in pool.map(run, tasks):
+            results.append(result)
+            if progress is not None:
+                progress(len(results), len(tasks))
         ref = reference.result()
     rows = [r for _, chunk in results for r in chunk]
     jump_rows = [j for j, _ in results]

@@ -74,6 +74,15 @@ def test_run_through_the_worker_thread_shows_results(qtbot, panel):
     results_panel.shutdown()
 
 
+def test_error_study_progress_is_shown_as_a_fraction(panel):
+    # sim.pipeline reports the study trace by trace; other stages without a fraction show a busy bar
+    panel._on_progress("error study", 3, 12)
+    assert (panel.progress.minimum(), panel.progress.maximum(), panel.progress.value()) == (0, 12, 3)
+    assert panel.stage.text() == "Running the cycle-length error study: 3 of 12 cohort traces"
+    panel._on_progress("estimates", 0, 1)
+    assert panel.progress.maximum() == 0 and panel.stage.text().startswith("Estimating")
+
+
 def test_cancel_returns_to_idle_and_the_gui_thread_keeps_running(qtbot, panel):
     panel.patients.setValue(5_000_000)
     panel.threads.setValue(2)

@@ -92,3 +92,14 @@ def test_study_honours_a_cancel_request():
 
     with pytest.raises(SimulationCancelled):
         discretization_study(demo_model("lanthic"), cycle_lengths=(1.0,), cancel=lambda: True)
+
+
+def test_study_reports_progress_per_trace():
+    """progress(done, total) follows the traces: one call each, in order, ending at total (2
+    strategies x 3 conversions x 2 cycle lengths = 12 traces)."""
+    calls = []
+    model = demo_model("lanthic")
+    study = discretization_study(model, cycle_lengths=(1.0, 0.5), progress=lambda d, n: calls.append((d, n)))
+    total = len(model.strategy_names) * 3 * 2
+    assert calls == [(i, total) for i in range(1, total + 1)]
+    assert len(study.jump_over) == total
