@@ -83,7 +83,9 @@ class MainWindow(QMainWindow):
         self.problem.setWordWrap(True)
         self.problem.setStyleSheet(f"color: {OKABE_ITO['vermillion']};")
         self.go_button = QPushButton("Show")
-        self.go_button.setToolTip("Go to the field with the problem")
+        self.go_button.setToolTip("Go to the field with the problem (with several, each click shows the next)")
+        self._problem_keys: list[str] = []
+        self._problem_index = -1
         self.go_button.clicked.connect(self.go_to_problem)
         bar = QWidget()
         bl = QHBoxLayout(bar)
@@ -182,6 +184,8 @@ class MainWindow(QMainWindow):
         reason = errors[0].message if errors else ""
         if len(errors) > 1:
             reason += f" (and {len(errors) - 1} more problem{'s' if len(errors) > 2 else ''})"
+        self._problem_keys, self._problem_index = [], -1
+        self.go_button.setText("Show" if len(errors) < 2 else "Show next")
         self.run_panel.set_scenario(scenario, reason)
         self.problem.setText(f"Problem: {reason}" if errors else "")
         self._update_problem_bar()
@@ -238,11 +242,17 @@ class MainWindow(QMainWindow):
         self.tabs.setCurrentWidget(self.results_panel)
 
     def go_to_problem(self) -> None:
-        """Show the section and field of the first problem."""
+        """Show the section and field of a problem: the first, then the next one on each call while
+        the problems stay the same."""
         errors = self.document.errors
         if not errors:
             return
-        err = errors[0]
+        keys = [e.message for e in errors]
+        if keys != self._problem_keys:
+            self._problem_keys, self._problem_index = keys, 0
+        else:
+            self._problem_index = (self._problem_index + 1) % len(errors)
+        err = errors[self._problem_index]
         target = next((ed for ed in self.editors if err.key and err.key[0] in ed.sections), None)
         if target is None:
             source = self.editor(SourceEditor)

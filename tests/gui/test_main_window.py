@@ -14,7 +14,7 @@ from PySide6.QtWidgets import QFileDialog, QMessageBox
 
 from gui.about import CAUTIONS, AboutDialog, about_text
 from gui.document import ScenarioDocument
-from gui.editors import TransitionsEditor
+from gui.editors import HorizonEditor, TransitionsEditor
 from gui.main_window import MainWindow
 from sim import __version__
 from sim.demo import demo_path
@@ -86,6 +86,13 @@ def test_invalid_input_disables_run_with_the_loaders_message(window: MainWindow,
     window.document.set_value(("horizon", "value"), 500)  # a second problem, elsewhere
     assert len(window.document.errors) == 2
     assert window.run_panel.reason.text() == f"{err.message} (and 1 more problem)"
+    assert window.go_button.text() == "Show next"
+    window.go_to_problem()  # the first problem, then the next, then the first again
+    assert window.stack.currentWidget().widget() is editor
+    window.go_to_problem()
+    assert window.stack.currentWidget().widget() is window.editor(HorizonEditor)
+    window.go_to_problem()
+    assert window.stack.currentWidget().widget() is editor
     window.undo_action.trigger()
     window.undo_action.trigger()
     assert calls[-1][0] is window.document.scenario and window.run_panel.run_button.isEnabled()
