@@ -180,8 +180,8 @@ def _cohort(patients: pd.DataFrame, strategy: str) -> _Cohort:
     censored = reason == 1
     bad = reason < 0
     if bad.any():
-        raise ValueError(f"patients['exit_reason']: value {patients['exit_reason'].iloc[int(np.argmax(bad))]!r} is invalid; "
-                         f"must be {ABSORBED!r} or {CENSORED!r}")
+        value = patients["exit_reason"].iloc[int(np.argmax(bad))]
+        raise ValueError(f"patients['exit_reason']: value {value!r} is invalid; must be {ABSORBED!r} or {CENSORED!r}")
     order = np.argsort(ids, kind="stable")
     ids = ids[order].astype(np.int64)
     dup = ids[1:] == ids[:-1]

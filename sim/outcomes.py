@@ -31,9 +31,8 @@ from .estimators import _per_patient, _prepare_log
 from .exact import population_pairs, solve_stacked
 from .model import Model
 
-__all__ = ["OUTCOMES", "OutcomeAccumulator", "with_exact", "patient_outcomes", "summarise", "incremental", "exact_outcomes",
-           "exact_outcomes_and_occupancy",
-           "outcome_names", "increments_from_values"]
+__all__ = ["OUTCOMES", "OutcomeAccumulator", "with_exact", "patient_outcomes", "summarise", "incremental",
+           "exact_outcomes", "exact_outcomes_and_occupancy", "outcome_names", "increments_from_values"]
 
 OUTCOMES = ("life_years", "life_years_discounted", "qalys", "qalys_discounted", "costs", "costs_discounted")
 

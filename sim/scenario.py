@@ -33,8 +33,8 @@ from .population import EmpiricalAge, FixedAge, NormalAge, Population, Populatio
 from .units import UnitError, rate_from_risk, rate_per_year, to_years
 from .valuation import Valuation, ValuationError
 
-__all__ = ["FORMAT_VERSION", "Scenario", "RunSettings", "ScenarioError", "ScenarioProblems", "load_scenario", "parse_scenario",
-           "scenario_text", "save_scenario", "document_from_model", "parse_duration"]
+__all__ = ["FORMAT_VERSION", "Scenario", "RunSettings", "ScenarioError", "ScenarioProblems", "load_scenario",
+           "parse_scenario", "scenario_text", "save_scenario", "document_from_model", "parse_duration"]
 
 FORMAT_VERSION = 1
 TIME_UNITS = ("days", "weeks", "months", "years")
