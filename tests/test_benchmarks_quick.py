@@ -28,3 +28,17 @@ def test_quick_benchmarks_run_and_print_the_table(tmp_path):
                    "Scaling:", "Discretization-error study", "Cohort trace", "GUI event-loop gap"):
         assert figure in out, f"row {figure!r} missing from the quick table"
     assert (results.read_bytes() if results.exists() else None) == before, "--quick must not write RESULTS.md"
+
+
+def test_quick_profiles_run_and_group_the_engine_time(tmp_path):
+    """benchmarks/profile_engine.py --quick (the profiles behind RESULTS.md's notes) still runs; it
+    writes no file in quick mode."""
+    profiles = ROOT / "benchmarks" / "PROFILES.md"
+    before = profiles.read_bytes() if profiles.exists() else None
+    proc = subprocess.run([sys.executable, str(ROOT / "benchmarks" / "profile_engine.py"), "--quick"], cwd=tmp_path,
+                          capture_output=True, text=True, timeout=180)
+    assert proc.returncode == 0, proc.stderr[-3000:]
+    for text in ("| Work (inside the round loop, `_run_strategy`) | ms | share |", "draws (counter-based generator",
+                 "hazards (conditional times)", "## batches", "## pipeline", "run_scenario"):
+        assert text in proc.stdout, f"{text!r} missing from the quick profiles"
+    assert (profiles.read_bytes() if profiles.exists() else None) == before, "--quick must not write PROFILES.md"

@@ -1,0 +1,176 @@
+"""Profiles behind the unmet figures of RESULTS.md, reproducible: where the engine's time goes.
+
+    .venv/bin/python benchmarks/profile_engine.py            # full sizes; writes benchmarks/PROFILES.md
+    .venv/bin/python benchmarks/profile_engine.py --quick    # small sizes, prints only (tests run this)
+
+Sections (``--only``):
+
+- ``engine``: line_profiler over the engine's hot functions (``sim.engine._run_strategy``,
+  ``sim.rng._sorted_draws``, ``sim.engine._simulate_chunk``, ``sim.engine._assemble``) for the
+  reference workload, 1,000,000 patients, one thread; the lines taking >= 2% of a function's time,
+  then the time grouped by kind of work (draws, hazards, competing minimum, bookkeeping, event
+  placement, table assembly).
+- ``batches``: pyinstrument over 300 calls of ``simulate(1,000 patients)``.
+- ``pipeline``: pyinstrument over ``sim.pipeline.run_scenario`` on the reference workload at 100,000
+  patients (what the desktop window runs; the study included).
+
+Profilers add their own overhead (line_profiler ~10-30% here), so the shares matter, not the totals.
+"""
+
+from __future__ import annotations
+
+import argparse
+import io
+import sys
+import time
+from pathlib import Path
+
+HERE = Path(__file__).resolve().parent
+sys.path.insert(0, str(HERE))
+
+from harness import machine  # noqa: E402
+from workloads import reference_model  # noqa: E402
+
+import sim.engine as engine  # noqa: E402
+import sim.rng as rng  # noqa: E402
+
+SECTIONS = ("engine", "batches", "pipeline")
+OUTPUT = HERE / "PROFILES.md"
+
+# engine source lines by kind of work: (kind, text that identifies the line)
+_KINDS = (
+    ("draws (counter-based generator, uniforms, log)", ("_sorted_draws(",)),
+    ("hazards (conditional times)", ("_latent_times(",)),
+    ("competing minimum", ("better = ", "best = np.where", "win = np.where")),
+    ("event placement (patient order)", ("first_slot", "dest", "place(", "ev_patient[", "ev_from[", "np.repeat")),
+)
+
+
+def _line_stats(lp) -> list[tuple[str, str, int, float]]:
+    """(function, source line, hits, seconds) for every timed line."""
+    stats = lp.get_stats()
+    out = []
+    for (filename, _first, name), timings in stats.timings.items():
+        lines = Path(filename).read_text().splitlines()
+        for lineno, hits, total in timings:
+            out.append((name, lines[lineno - 1].strip(), hits, total * stats.unit))
+    return out
+
+
+def engine_section(quick: bool) -> str:
+    from line_profiler import LineProfiler
+
+    n = 50_000 if quick else 1_000_000
+    model = reference_model()
+    engine.simulate(model, n, seed=1, workers=1)  # warm-up (the first large run pays fresh pages)
+    plain = []
+    for _ in range(3):
+        t0 = time.perf_counter()
+        engine.simulate(model, n, seed=1, workers=1)
+        plain.append(time.perf_counter() - t0)
+    lp = LineProfiler(engine._run_strategy, engine._simulate_chunk, engine._assemble, rng._sorted_draws)
+    saved = (engine._run_strategy, engine._simulate_chunk, engine._assemble, engine._sorted_draws)
+    engine._run_strategy = lp(engine._run_strategy)
+    engine._simulate_chunk = lp(engine._simulate_chunk)
+    engine._assemble = lp(engine._assemble)
+    engine._sorted_draws = lp(rng._sorted_draws)
+    try:
+        t0 = time.perf_counter()
+        engine.simulate(model, n, seed=1, workers=1)
+        profiled = time.perf_counter() - t0
+    finally:
+        engine._run_strategy, engine._simulate_chunk, engine._assemble, engine._sorted_draws = saved
+    rows = _line_stats(lp)
+    by_fn: dict[str, float] = {}
+    for fn, _src, _hits, sec in rows:
+        by_fn[fn] = by_fn.get(fn, 0.0) + sec
+    text = io.StringIO()
+    text.write(f"Reference workload, {n:,} patients, 1 thread: {sorted(plain)[1] * 1e3:.0f} ms without the profiler "
+               f"(median of 3), {profiled * 1e3:.0f} ms with it.\n\n")
+    # work by kind, within _run_strategy (the round loop) plus the draws of patient attributes
+    strategy_rows = [r for r in rows if r[0] == "_run_strategy"]
+    total = by_fn.get("_run_strategy", 0.0)
+    kinds: dict[str, float] = {}
+    for _fn, src, _hits, sec in strategy_rows:
+        kind = next((k for k, marks in _KINDS if any(m in src for m in marks)), "round bookkeeping (selection, "
+                    "occurrence counters, moves, censoring)")
+        kinds[kind] = kinds.get(kind, 0.0) + sec
+    text.write("| Work (inside the round loop, `_run_strategy`) | ms | share |\n|---|---|---|\n")
+    for kind, sec in sorted(kinds.items(), key=lambda kv: -kv[1]):
+        text.write(f"| {kind} | {sec * 1e3:.1f} | {sec / total:.0%} |\n")
+    draws = by_fn.get("_sorted_draws", 0.0)
+    attr = sum(sec for fn, src, _h, sec in rows if fn == "_simulate_chunk" and "_sorted_draws(" in src)
+    text.write(f"\nOutside the loop: patient attributes' draws {attr * 1e3:.1f} ms; joining the tables "
+               f"(`_assemble`) {by_fn.get('_assemble', 0.0) * 1e3:.1f} ms. All draws together "
+               f"(`_sorted_draws`): {draws * 1e3:.1f} ms.\n\n")
+    text.write("Lines taking >= 2% of their function's time:\n\n")
+    text.write("| function | line | hits | ms | share of function |\n|---|---|---|---|---|\n")
+    for fn, src, hits, sec in sorted(rows, key=lambda r: (r[0], -r[3])):
+        if by_fn[fn] > 0 and sec >= 0.02 * by_fn[fn]:
+            cell = src.replace("|", "\\|")[:110]
+            text.write(f"| `{fn}` | `{cell}` | {hits:,} | {sec * 1e3:.1f} | {sec / by_fn[fn]:.0%} |\n")
+    return text.getvalue()
+
+
+def _pyinstrument(fn, label: str) -> str:
+    from pyinstrument import Profiler
+
+    fn()  # warm-up
+    p = Profiler(interval=0.0005)
+    p.start()
+    fn()
+    p.stop()
+    tree = p.output_text(unicode=False, color=False, show_all=False)
+    return f"{label}\n\n```\n{tree.strip()}\n```\n"
+
+
+def batches_section(quick: bool) -> str:
+    model = reference_model()
+    calls = 30 if quick else 300
+
+    def go() -> None:
+        for i in range(calls):
+            engine.simulate(model, 1000, seed=i)
+    return _pyinstrument(go, f"{calls} calls of `simulate(model, 1000, seed=i)` (pyinstrument, 0.5 ms sampling):")
+
+
+def pipeline_section(quick: bool) -> str:
+    from sim.pipeline import run_scenario
+    from sim.scenario import RunSettings, document_from_model, parse_scenario, scenario_text
+
+    n = 10_000 if quick else 100_000
+    text = scenario_text(document_from_model(reference_model(), RunSettings(patients=n, seed=1, workers=2)),
+                         header="Benchmark reference workload (invented numbers).")
+    scenario = parse_scenario(text)
+    return _pyinstrument(lambda: run_scenario(scenario),
+                         f"`run_scenario` on the reference workload, {n:,} patients, 2 threads (pyinstrument; "
+                         "time in worker threads shows as waiting in the calling thread):")
+
+
+def main(argv: list[str] | None = None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--quick", action="store_true", help="small sizes; prints only")
+    ap.add_argument("--only", nargs="+", choices=SECTIONS)
+    ap.add_argument("--output", type=Path, help=f"where to write (default: {OUTPUT.name} in full mode)")
+    args = ap.parse_args(sys.argv[1:] if argv is None else argv)
+    info = machine()
+    parts = [f"# HazardTrace profiles\n\nWritten by `benchmarks/profile_engine.py` ({'quick' if args.quick else 'full'} "
+             f"mode) on {info['date (UTC)']} UTC: {info['cores']}, {info['CPU']}, numpy {info['numpy']}, "
+             f"line_profiler {info['line_profiler']}, pyinstrument {info['pyinstrument']}. See the notes in "
+             "RESULTS.md for what they show.\n"]
+    for name in SECTIONS:
+        if args.only and name not in args.only:
+            continue
+        print(f"profiling {name}...", flush=True)
+        parts.append(f"\n## {name}\n\n" + globals()[f"{name}_section"](args.quick))
+    text = "".join(parts)
+    print(text)
+    out = args.output or (None if args.quick else OUTPUT)
+    if out is not None:
+        out.write_text(text, encoding="utf-8")
+        print(f"written to {out}")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
