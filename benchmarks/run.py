@@ -10,7 +10,7 @@ used during each section is printed with it. Quick mode only proves that the sui
 sizes are too small for the targets to apply, so its "met" column says "quick".
 
 The suite is not part of the test suite's pass/fail (tests/test_benchmarks_quick.py only checks that
-``--quick`` still runs). Sections can be chosen with ``--only`` (names: engine, batches, memory,
+``--quick`` still runs). Sections can be chosen with ``--only`` (names: engine, threads, batches, memory,
 stream, scaling, study, trace, gui).
 """
 
