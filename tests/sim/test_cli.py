@@ -74,3 +74,11 @@ def test_bad_input_exits_2_with_the_message(tmp_path, capsys):
     assert "bad.toml:" in err and "transitions[1].rate: must be >= 0, got -0.15" in err
     code, _ = _run(["check", str(tmp_path / "missing.toml")])
     assert code == 2
+    # several problems: one reading lists them all, each with its line
+    bad.write_text((SCENARIO_DIR / DEMOS["lanthic"]).read_text().replace("rate = 0.15 ", "rate = -0.15 ")
+                   .replace("sd = 8.0", "sd = 0.0"))
+    code, _ = _run(["check", str(bad)])
+    assert code == 2
+    err = capsys.readouterr().err
+    assert "2 problems:" in err
+    assert "transitions[1].rate: must be >= 0, got -0.15" in err and "population.entry_age.sd: must be > 0" in err
