@@ -195,7 +195,9 @@ class MainWindow(QMainWindow):
             bad = any(not e.key for e in errors) if isinstance(ed, SourceEditor) else bool(ed.errors)
             item.setData(Qt.ItemDataRole.ForegroundRole, QColor(OKABE_ITO["vermillion"]) if bad else None)
             item.setText(ed.title + (" (problem)" if bad else ""))
-        self.statusBar().showMessage("Scenario valid" if scenario is not None else "Scenario has a problem")
+        n = len(errors)
+        self.statusBar().showMessage("Scenario valid" if scenario is not None else
+                                     "Scenario has a problem" if n <= 1 else f"Scenario has {n} problems")
 
     def _on_section_changed(self, row: int) -> None:
         self.stack.setCurrentIndex(row)

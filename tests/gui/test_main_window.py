@@ -87,6 +87,7 @@ def test_invalid_input_disables_run_with_the_loaders_message(window: MainWindow,
     assert len(window.document.errors) == 2
     assert window.run_panel.reason.text() == f"{err.message} (and 1 more problem)"
     assert window.go_button.text() == "Show next"
+    assert window.statusBar().currentMessage() == "Scenario has 2 problems"
     window.go_to_problem()  # the first problem, then the next, then the first again
     assert window.stack.currentWidget().widget() is editor
     window.go_to_problem()
