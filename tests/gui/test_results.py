@@ -300,3 +300,19 @@ def test_same_curves_groups_identical_series():
     a, b = Series(x, np.array([1.0, 0.8, 0.6])), Series(x, np.array([1.0, 0.7, 0.5]))
     assert same_curves({"p": a, "q": b, "r": Series(x.copy(), a.y.copy())}) == [["p", "r"]]
     assert same_curves({"p": a, "q": b}) == []
+
+
+def test_fitted_columns_are_never_narrower_than_qts_own_fit(qtbot):
+    # TableView measures the sampled cells' text itself (fast); the widths must hold the text as
+    # Qt's item-by-item fit does
+    from PySide6.QtWidgets import QTableView
+
+    frame = pd.DataFrame({"strategy": pd.Categorical(["usual care", "new therapy"] * 150),
+                          "value": np.linspace(-1e6, 2.5e7, 300), "tiny": np.geomspace(1e-9, 1.0, 300),
+                          "count": np.arange(300) * 1001, "note": ["a longer free-text note"] * 300})
+    view = TableView("t")
+    qtbot.addWidget(view)
+    view.set_frame(frame)
+    for c in range(len(frame.columns)):
+        assert view.sizeHintForColumn(c) >= QTableView.sizeHintForColumn(view, c)
+        assert view.columnWidth(c) >= QTableView.sizeHintForColumn(view, c)
