@@ -52,7 +52,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 
-from .labels import label_codes
+from .columns import label_codes, patient_ids, time_column
 
 __all__ = [
     "ABSORBED",
@@ -159,23 +159,9 @@ def _select(strategy: str | None, tables: dict[str, pd.DataFrame]) -> tuple[str,
     return strategy, out
 
 
-def _float_column(df: pd.DataFrame, table: str, column: str) -> NDArray[np.float64]:
-    try:
-        x = df[column].to_numpy(dtype=np.float64)
-    except (TypeError, ValueError) as exc:
-        raise ValueError(f"{table}['{column}']: values must be numbers ({exc})") from None
-    bad = ~np.isfinite(x) | (x < 0)
-    if bad.any():
-        raise ValueError(f"{table}['{column}']: value {float(x[bad][0])!r} (row {int(np.flatnonzero(bad)[0])}) is "
-                         "invalid; times must be finite and >= 0")
-    return x
-
-
 def _cohort(patients: pd.DataFrame, strategy: str) -> _Cohort:
-    ids = patients["patient"].to_numpy()
-    if not np.issubdtype(ids.dtype, np.integer):
-        raise ValueError(f"patients['patient']: dtype {ids.dtype} is invalid; patient ids must be integers")
-    exit_time = _float_column(patients, "patients", "exit_time")
+    ids = patient_ids(patients, "patients")
+    exit_time = time_column(patients, "patients", "exit_time")
     reason = label_codes(patients["exit_reason"], (ABSORBED, CENSORED))
     censored = reason == 1
     bad = reason < 0
@@ -183,7 +169,7 @@ def _cohort(patients: pd.DataFrame, strategy: str) -> _Cohort:
         value = patients["exit_reason"].iloc[int(np.argmax(bad))]
         raise ValueError(f"patients['exit_reason']: value {value!r} is invalid; must be {ABSORBED!r} or {CENSORED!r}")
     order = np.argsort(ids, kind="stable")
-    ids = ids[order].astype(np.int64)
+    ids = ids[order]
     dup = ids[1:] == ids[:-1]
     if dup.any():
         raise ValueError(f"patients['patient']: id {int(ids[1:][dup][0])} appears twice in strategy "
@@ -233,15 +219,13 @@ def _prepare_log(events: pd.DataFrame, patients: pd.DataFrame, states: Sequence[
     initial = _state_codes(pt["initial_state"], states_t, "patients['initial_state']")[order]
     final = _state_codes(pt["final_state"], states_t, "patients['final_state']")[order]
 
-    ev_ids = ev["patient"].to_numpy()
-    if not np.issubdtype(ev_ids.dtype, np.integer):
-        raise ValueError(f"events['patient']: dtype {ev_ids.dtype} is invalid; patient ids must be integers")
+    ev_ids = patient_ids(ev, "events")
     pidx = np.searchsorted(cohort.patient, ev_ids)
     known = (pidx < cohort.n) & (cohort.patient[np.minimum(pidx, cohort.n - 1)] == ev_ids)
     if not known.all():
         raise ValueError(f"events['patient']: id {int(ev_ids[~known][0])} has no row in patients for strategy "
                          f"{name!r}; every event must belong to a listed patient")
-    time = _float_column(ev, "events", "time")
+    time = time_column(ev, "events", "time")
     ev_from = _state_codes(ev["from_state"], states_t, "events['from_state']")
     ev_to = _state_codes(ev["to_state"], states_t, "events['to_state']")
     # transition names in the order of the categories (the model's order), else sorted

@@ -48,7 +48,7 @@ import pyarrow.parquet as pq
 from numpy.typing import NDArray
 
 from . import __version__
-from .labels import label_codes
+from .columns import label_codes, patient_ids, time_column
 from .model import Model
 
 __all__ = [
@@ -105,24 +105,6 @@ def _require(df: pd.DataFrame, name: str, columns: tuple[str, ...]) -> None:
     missing = [c for c in columns if c not in df.columns]
     if missing:
         raise ExportError(f"{name}: missing column(s) {missing}; long_format needs {list(columns)}")
-
-
-def _ids(df: pd.DataFrame, name: str) -> NDArray[np.int64]:
-    ids = df["patient"].to_numpy()
-    if not np.issubdtype(ids.dtype, np.integer):
-        raise ExportError(f"{name}['patient']: dtype {ids.dtype} is invalid; patient ids must be integers")
-    return ids.astype(np.int64, copy=False)
-
-
-def _times(df: pd.DataFrame, name: str, column: str) -> NDArray[np.float64]:
-    try:
-        x = df[column].to_numpy(dtype=np.float64)
-    except (TypeError, ValueError) as exc:
-        raise ExportError(f"{name}['{column}']: values must be numbers ({exc})") from None
-    bad = ~np.isfinite(x) | (x < 0)
-    if bad.any():
-        raise ExportError(f"{name}['{column}']: value {float(x[bad][0])!r} is invalid; times must be finite and >= 0")
-    return x
 
 
 def _exit_tables(model: Model) -> tuple[NDArray[np.intp], NDArray[np.intp], NDArray[np.intp], NDArray[np.intp]]:
@@ -232,9 +214,9 @@ def long_format(events: pd.DataFrame, patients: pd.DataFrame, model: Model,
 
     # ---- patients, sorted by (strategy code, id)
     p_strat = _strategy_codes(patients["strategy"], strategies, "patients['strategy']")
-    p_id = _ids(patients, "patients")
+    p_id = patient_ids(patients, "patients", ExportError)
     e_strat = _strategy_codes(events["strategy"], strategies, "events['strategy']")
-    e_id = _ids(events, "events")
+    e_id = patient_ids(events, "events", ExportError)
     n, n_ev = p_id.size, e_id.size
     lo = int(min(p_id.min(initial=0), e_id.min(initial=0)))
     span = int(max(p_id.max(initial=0), e_id.max(initial=0))) - lo + 1
@@ -251,7 +233,7 @@ def long_format(events: pd.DataFrame, patients: pd.DataFrame, model: Model,
                           f"{strategies[p_strat[i]]!r}; ids must be unique within a strategy")
     p_strat, p_id = p_strat[p_order], p_id[p_order]
     initial = _state_codes(patients["initial_state"], states, "patients['initial_state']")[p_order]
-    exit_time = _times(patients, "patients", "exit_time")[p_order]
+    exit_time = time_column(patients, "patients", "exit_time", ExportError)[p_order]
 
     # ---- events, mapped to patients and sorted by (patient, time, row)
     e_key = e_strat.astype(np.int64) * span + (e_id - lo)
@@ -261,7 +243,7 @@ def long_format(events: pd.DataFrame, patients: pd.DataFrame, model: Model,
         i = int(np.flatnonzero(~known)[0])
         raise ExportError(f"events['patient']: id {int(e_id[i])} (strategy {strategies[e_strat[i]]!r}) has no "
                           "row in patients; every event must belong to a listed patient")
-    time = _times(events, "events", "time")
+    time = time_column(events, "events", "time", ExportError)
     ev_from = _state_codes(events["from_state"], states, "events['from_state']")
     ev_to = _state_codes(events["to_state"], states, "events['to_state']")
     names = list(model.exit_names)
