@@ -7,7 +7,7 @@ from typing import Any
 
 from PySide6.QtCore import Qt, Signal
 from PySide6.QtGui import QBrush, QColor
-from PySide6.QtWidgets import QHBoxLayout, QListWidget, QPushButton, QVBoxLayout, QWidget
+from PySide6.QtWidgets import QFormLayout, QHBoxLayout, QListWidget, QPushButton, QVBoxLayout, QWidget
 
 from gui.document import FieldError, KeyPath
 from gui.editors.base import EditorPanel
@@ -64,6 +64,16 @@ class ListDetailPanel(EditorPanel):
 
     def _detail_signature(self, index: int) -> tuple:
         return ()
+
+    @staticmethod
+    def _detail_box() -> tuple[QWidget, QVBoxLayout, QFormLayout]:
+        """An empty detail: the widget, its column, and a form already placed at the top of it."""
+        box = QWidget()
+        outer = QVBoxLayout(box)
+        outer.setContentsMargins(0, 0, 0, 0)
+        form = QFormLayout()
+        outer.addLayout(form)
+        return box, outer, form
 
     def _refresh_detail(self) -> None:
         """Update the detail beyond its bound fields (labels computed from the values)."""

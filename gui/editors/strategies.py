@@ -6,7 +6,7 @@ from __future__ import annotations
 
 from typing import Any
 
-from PySide6.QtWidgets import QFormLayout, QGridLayout, QGroupBox, QLabel, QPushButton, QVBoxLayout, QWidget
+from PySide6.QtWidgets import QGridLayout, QGroupBox, QLabel, QPushButton, QVBoxLayout, QWidget
 
 from gui.document import set_value
 from gui.editors.hazard_form import ALL_HAZARD_KEYS, HazardForm
@@ -62,13 +62,9 @@ class StrategiesEditor(ListDetailPanel):
     def _build_detail(self, index: int) -> QWidget:
         f = self.detail_fields
         base = (self.array, index)
-        box = QWidget()
-        outer = QVBoxLayout(box)
-        outer.setContentsMargins(0, 0, 0, 0)
-        form = QFormLayout()
+        box, outer, form = self._detail_box()
         form.addRow("Name", f.line((*base, "name"), kind="text", help="Unique strategy name."))
         form.addRow("Description", f.line((*base, "description"), kind="text", help="Optional."))
-        outer.addLayout(form)
         transitions = self._names("transitions")
         repl = self.document.table((*base, "replacements"))
         hr_box = QGroupBox("Hazard ratios (empty = 1, no change)")

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from typing import Any
 
-from PySide6.QtWidgets import QFormLayout, QGroupBox, QVBoxLayout, QWidget
+from PySide6.QtWidgets import QGroupBox, QVBoxLayout, QWidget
 
 from gui.editors.hazard_form import HazardForm
 from gui.editors.listing import ListDetailPanel
@@ -46,11 +46,7 @@ class TransitionsEditor(ListDetailPanel):
     def _build_detail(self, index: int) -> QWidget:
         f = self.detail_fields
         base = (self.array, index)
-        box = QWidget()
-        outer = QVBoxLayout(box)
-        outer.setContentsMargins(0, 0, 0, 0)
-        form = QFormLayout()
-        outer.addLayout(form)
+        box, outer, form = self._detail_box()
         form.addRow("Name", f.line((*base, "name"), kind="text", help="Unique name of the transition.",
                                    commit=lambda v: self._rename(index, v)))
         states = self.state_names()
