@@ -9,8 +9,7 @@ import math
 import numpy as np
 import pyqtgraph as pg
 from PySide6.QtCore import Qt, Signal, Slot
-from PySide6.QtWidgets import (QComboBox, QDoubleSpinBox, QHBoxLayout, QLabel, QSplitter, QTabWidget,
-                               QVBoxLayout, QWidget)
+from PySide6.QtWidgets import QComboBox, QDoubleSpinBox, QHBoxLayout, QLabel, QTabWidget, QVBoxLayout, QWidget
 
 from sim.cohort import Conversion, Correction
 from sim.pipeline import RunResults
@@ -18,6 +17,7 @@ from sim.study import StudyResult
 
 from .. import palette
 from .labels import outcome_label, outcome_unit
+from .layout import column, two_panes
 from .plot_panel import PlotPanel
 from .series import cycle_label
 from .study_data import (abs_error_curves, coinciding, decision_changes, errors_table, largest_safe_cycle,
@@ -97,34 +97,16 @@ class ErrorStudyView(QWidget):
         self.decisions = TableView("decision_changes")
         self.decisions_note = QLabel()
         self.decisions_note.setWordWrap(True)
-        decisions_box = QWidget()
-        dl = QVBoxLayout(decisions_box)
-        dl.setContentsMargins(0, 0, 0, 0)
-        dl.addWidget(self.decisions_note)
-        dl.addWidget(self.decisions, 1)
+        decisions_box = column(self.decisions_note, self.decisions, stretch=self.decisions)
         self.safe_note = QLabel()
         self.safe_note.setWordWrap(True)
-        safe_box = QWidget()
-        sl = QVBoxLayout(safe_box)
-        sl.setContentsMargins(0, 0, 0, 0)
-        sl.addWidget(self.safe_note)
-        sl.addWidget(self.safe_table, 1)
+        safe_box = column(self.safe_note, self.safe_table, stretch=self.safe_table)
         self.tabs = QTabWidget()
         self.tabs.addTab(safe_box, "Largest safe cycle length")
         self.tabs.addTab(self.errors, "Errors (table behind the plot)")
         self.tabs.addTab(decisions_box, "Decision changes")
 
-        plot_box = QWidget()
-        pl = QVBoxLayout(plot_box)
-        pl.setContentsMargins(0, 0, 0, 0)
-        pl.addWidget(self.panel, 1)
-        pl.addWidget(self.overlap)
-        split = QSplitter(Qt.Orientation.Vertical)
-        split.addWidget(plot_box)
-        split.addWidget(self.tabs)
-        split.setStretchFactor(0, 3)
-        split.setStretchFactor(1, 2)
-        split.setChildrenCollapsible(False)
+        split = two_panes(column(self.panel, self.overlap, stretch=self.panel), self.tabs)
         self.empty = QLabel("This run did not include the cycle-length error study (tick it in the run settings).")
         self.empty.setAlignment(Qt.AlignmentFlag.AlignCenter)
         self.empty.setVisible(False)

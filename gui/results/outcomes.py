@@ -8,12 +8,12 @@ import html
 
 import numpy as np
 import pandas as pd
-from PySide6.QtCore import Qt
-from PySide6.QtWidgets import QLabel, QSplitter, QVBoxLayout, QWidget
+from PySide6.QtWidgets import QLabel, QVBoxLayout, QWidget
 
 from sim.pipeline import RunResults
 
 from .labels import outcome_label, outcome_unit, quantity_label
+from .layout import column, two_panes
 from .table_view import TableView
 
 __all__ = ["OutcomesView", "outcomes_frame", "increments_frame"]
@@ -68,23 +68,10 @@ class OutcomesView(QWidget):
         self.increments = TableView("increments")
         self.note = QLabel()
         self.note.setWordWrap(True)
-        top = QWidget()
-        tl = QVBoxLayout(top)
-        tl.setContentsMargins(0, 0, 0, 0)
-        tl.addWidget(QLabel("<b>Outcomes per strategy</b> (to the horizon)"))
-        tl.addWidget(self.outcomes, 1)
-        bottom = QWidget()
-        bl = QVBoxLayout(bottom)
-        bl.setContentsMargins(0, 0, 0, 0)
+        top = column(QLabel("<b>Outcomes per strategy</b> (to the horizon)"), self.outcomes, stretch=self.outcomes)
         self.increments_title = QLabel("<b>Increments against the comparator</b>")
-        bl.addWidget(self.increments_title)
-        bl.addWidget(self.increments, 1)
-        split = QSplitter(Qt.Orientation.Vertical)
-        split.addWidget(top)
-        split.addWidget(bottom)
-        split.setStretchFactor(0, 3)
-        split.setStretchFactor(1, 2)
-        split.setChildrenCollapsible(False)
+        bottom = column(self.increments_title, self.increments, stretch=self.increments)
+        split = two_panes(top, bottom)
         layout = QVBoxLayout(self)
         layout.addWidget(split, 1)
         layout.addWidget(self.note)
