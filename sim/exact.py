@@ -34,7 +34,7 @@ from .hazards import KERNEL_ERRSTATE
 from .model import Clock, Model, ResolvedExit
 
 __all__ = ["NoExactSolution", "ExactSolution", "StackedSolution", "solve_exact", "solve_stacked",
-           "occupancy_for_entry", "population_pairs"]
+           "occupancy_for_entry", "occupancy_frame", "population_pairs"]
 
 RTOL = 1e-10
 ATOL = 1e-12
@@ -211,6 +211,14 @@ def solve_stacked(model: Model, strategy: str | tuple[str, ...], entry_age: NDAr
     return StackedSolution(occ, integrals, flows, np.array([e.index for e in exits]))
 
 
+def occupancy_frame(strategy: str, times: NDArray[np.float64], states: tuple[str, ...],
+                    occupancy: NDArray[np.float64]) -> pd.DataFrame:
+    """Tidy table strategy, time, state, probability of an occupancy array (len(times), n_states)."""
+    return pd.DataFrame({"strategy": strategy, "time": np.repeat(times, len(states)),
+                         "state": np.tile(np.array(states, dtype=object), len(times)),
+                         "probability": np.asarray(occupancy, dtype=float).ravel()})
+
+
 def population_pairs(model: Model, n_nodes: int = 48) -> tuple[NDArray[np.float64], NDArray[np.int64],
                                                                   NDArray[np.float64]]:
     """(entry age, sex code, weight) pairs averaging over the entry-age distribution and sex mix."""
@@ -263,22 +271,19 @@ def solve_exact(model: Model, times: ArrayLike, strategies: tuple[str, ...] | No
     names = strategies if strategies is not None else model.strategy_names
     states = model.state_names
     alive = np.array([not s.absorbing for s in model.states])
-    occ_rows, tis_rows, le_rows = [], [], []
+    occ_parts, tis_rows, le_rows = [], [], []
     pair_age, pair_sex, pair_w = population_pairs(model, n_nodes)
     horizon = model.horizon.time_limit(pair_age)
     for name in names:
         sol = solve_stacked(model, name, pair_age, pair_sex, times, horizon, (0.0, discount_rate))
-        occ = np.einsum("m,mtn->tn", pair_w, sol.occupancy)
+        occ_parts.append(occupancy_frame(name, times, states, np.einsum("m,mtn->tn", pair_w, sol.occupancy)))
         yrs = pair_w @ sol.integrals[0]
         dyrs = pair_w @ sol.integrals[1]
-        for i, t in enumerate(times):
-            for j, s in enumerate(states):
-                occ_rows.append((name, t, s, occ[i, j]))
         for j, s in enumerate(states):
             tis_rows.append((name, s, yrs[j], dyrs[j]))
         le_rows.append((name, yrs[alive].sum(), dyrs[alive].sum()))
     return ExactSolution(
-        occupancy=pd.DataFrame(occ_rows, columns=["strategy", "time", "state", "probability"]),
+        occupancy=pd.concat(occ_parts, ignore_index=True),
         time_in_state=pd.DataFrame(tis_rows, columns=["strategy", "state", "years", "discounted_years"]),
         life_expectancy=pd.DataFrame(le_rows, columns=["strategy", "years", "discounted_years"]),
         discount_rate=float(discount_rate),

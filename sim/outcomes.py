@@ -28,7 +28,7 @@ from numpy.typing import NDArray
 
 from .engine import SimulationResult
 from .estimators import _per_patient, _prepare_log
-from .exact import population_pairs, solve_stacked
+from .exact import occupancy_frame, population_pairs, solve_stacked
 from .model import Model
 
 __all__ = ["OUTCOMES", "OutcomeAccumulator", "with_exact", "patient_outcomes", "summarise", "incremental",
@@ -193,10 +193,7 @@ def exact_outcomes_and_occupancy(model: Model, times: NDArray[np.float64], strat
         values = _combine(model, strategy, integrals[0], integrals[1], integrals[2],
                           (flows[0] @ c_exit, flows[2] @ c_exit))
         rows += [(strategy, k, float(v)) for k, v in values.items()]
-        occ = np.einsum("m,mtn->tn", w, sol.occupancy[block])
-        occupancy.append(pd.DataFrame({"strategy": strategy, "time": np.repeat(times, len(states)),
-                                       "state": np.tile(np.array(states, dtype=object), times.size),
-                                       "probability": occ.ravel()}))
+        occupancy.append(occupancy_frame(strategy, times, states, np.einsum("m,mtn->tn", w, sol.occupancy[block])))
     return (pd.DataFrame(rows, columns=["strategy", "outcome", "value"]),
             pd.concat(occupancy, ignore_index=True))
 
