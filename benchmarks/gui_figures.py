@@ -33,7 +33,7 @@ def main() -> None:
     app = QApplication.instance() or QApplication([])
     from gui.results import ResultsPanel
     from gui.run_panel import RunPanel
-    from sim.scenario import RunSettings, document_from_model, parse_scenario, scenario_text
+    from sim.io.scenario import RunSettings, document_from_model, parse_scenario, scenario_text
     from workloads import reference_model
 
     text = scenario_text(document_from_model(reference_model(), RunSettings(patients=n_small, seed=1, workers=2)),

@@ -5,13 +5,13 @@
 
 Sections (``--only``):
 
-- ``engine``: line_profiler over the engine's hot functions (``sim.engine._run_strategy``,
-  ``sim.rng._sorted_draws``, ``sim.engine._simulate_chunk``, ``sim.engine._assemble``) for the
+- ``engine``: line_profiler over the engine's hot functions (``sim.engine.histories._run_strategy``,
+  ``sim.engine.rng._sorted_draws``, ``sim.engine.histories._simulate_chunk``, ``sim.engine.histories._assemble``) for the
   reference workload, 1,000,000 patients, one thread; the lines taking >= 2% of a function's time,
   then the time grouped by kind of work (draws, hazards, competing minimum, bookkeeping, event
   placement, table assembly).
 - ``batches``: pyinstrument over 300 calls of ``simulate(1,000 patients)``.
-- ``pipeline``: pyinstrument over ``sim.pipeline.run_scenario`` on the reference workload at 100,000
+- ``pipeline``: pyinstrument over ``sim.pipeline.run.run_scenario`` on the reference workload at 100,000
   patients (what the desktop window runs; the study included).
 
 Profilers add their own overhead (line_profiler ~10-30% here), so the shares matter, not the totals.
@@ -31,8 +31,8 @@ sys.path.insert(0, str(HERE))
 from harness import machine  # noqa: E402
 from workloads import reference_model  # noqa: E402
 
-import sim.engine as engine  # noqa: E402
-import sim.rng as rng  # noqa: E402
+import sim.engine.histories as engine  # noqa: E402
+import sim.engine.rng as rng  # noqa: E402
 
 SECTIONS = ("engine", "batches", "pipeline")
 OUTPUT = HERE / "PROFILES.md"
@@ -135,8 +135,8 @@ def batches_section(quick: bool) -> str:
 
 
 def pipeline_section(quick: bool) -> str:
-    from sim.pipeline import run_scenario
-    from sim.scenario import RunSettings, document_from_model, parse_scenario, scenario_text
+    from sim.pipeline.run import run_scenario
+    from sim.io.scenario import RunSettings, document_from_model, parse_scenario, scenario_text
 
     n = 10_000 if quick else 100_000
     text = scenario_text(document_from_model(reference_model(), RunSettings(patients=n, seed=1, workers=2)),

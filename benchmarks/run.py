@@ -40,7 +40,7 @@ from harness import Load, Row, alternate, fmt_rate, fmt_time, machine, median, w
 from workloads import (SURVIVAL_TIMES, chain_model, engine_death_times, latent_draws,  # noqa: E402
                        reference_model, survival_of)
 
-from sim.engine import simulate, simulate_chunks  # noqa: E402
+from sim.engine.histories import simulate, simulate_chunks  # noqa: E402
 
 SECTIONS = ("engine", "threads", "batches", "memory", "stream", "scaling", "study", "trace", "gui")
 RESULTS = HERE / "RESULTS.md"
@@ -260,7 +260,7 @@ def _bias_row(cfg: Config, label: str, same_law: bool, eng, other) -> Row:
 
 
 def _exact_row(cfg: Config, model, eng) -> Row:
-    from sim.exact import solve_exact
+    from sim.reference.exact import solve_exact
 
     sol = solve_exact(model, list(SURVIVAL_TIMES))
     occ = sol.occupancy
@@ -274,7 +274,7 @@ def _exact_row(cfg: Config, model, eng) -> Row:
         parts.append(f"S({t:g}) {d:+.4f} ({d / se:+.1f})")
         zs.append(d / se)
     worst = max(abs(z) for z in zs)
-    return Row("Check: engine vs exact Kolmogorov solution (sim.exact)", "; ".join(parts), f"all |z| <= {Z:g}",
+    return Row("Check: engine vs exact Kolmogorov solution (sim.reference.exact)", "; ".join(parts), f"all |z| <= {Z:g}",
                **_judge(cfg, worst <= Z), how="difference (in engine MCSE)")
 
 
@@ -380,8 +380,8 @@ def scaling_section(cfg: Config) -> list[Row]:
 
 # ----------------------------------------------------------------------------- study and trace
 def study_section(cfg: Config) -> list[Row]:
-    from sim.demo import demo_model
-    from sim.study import DEFAULT_CYCLE_LENGTHS, discretization_study
+    from sim.io.demo import demo_model
+    from sim.reference.study import DEFAULT_CYCLE_LENGTHS, discretization_study
 
     model = demo_model()
     cycles = (1.0, 2.0) if cfg.quick else DEFAULT_CYCLE_LENGTHS
@@ -397,7 +397,7 @@ def study_section(cfg: Config) -> list[Row]:
 
 
 def trace_section(cfg: Config) -> list[Row]:
-    from sim.cohort import cohort_trace
+    from sim.reference.cohort import cohort_trace
 
     horizon = 50.0
     model = chain_model(10, horizon)
@@ -445,7 +445,7 @@ def gui_section(cfg: Config) -> list[Row]:
             how=f"10 ms QTimer on the GUI thread, offscreen, 2 threads, error study on; {load.text}"),
         Row(names[1], f"{shown:.2f} s (worker done after {out['run_to_ready_median']:.2f} s)", "< 1 s",
             met=shown < 1.0, how=f"RunPanel.start_run to ResultsPanel.results_shown, median of {cfg.rounds}; "
-                                 f"worker stages (sim.pipeline): {stages}"),
+                                 f"worker stages (sim.pipeline.run): {stages}"),
     ]
 
 

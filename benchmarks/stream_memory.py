@@ -1,5 +1,5 @@
 """Child process of the suite: stream N patients of the reference workload to Parquet with
-:class:`sim.export.RunWriter` and print one JSON line with the wall time and the peak resident set
+:class:`sim.io.export.RunWriter` and print one JSON line with the wall time and the peak resident set
 size (VmHWM, which includes the interpreter and imported libraries).
 
     .venv/bin/python benchmarks/stream_memory.py N OUT_DIR [CHUNK] [WORKERS]
@@ -29,8 +29,8 @@ def main() -> None:
     chunk = int(sys.argv[3]) if len(sys.argv) > 3 else 100_000
     workers = int(sys.argv[4]) if len(sys.argv) > 4 else 2
 
-    from sim.engine import simulate_chunks
-    from sim.export import RunWriter, metadata_for
+    from sim.engine.histories import simulate_chunks
+    from sim.io.export import RunWriter, metadata_for
     from workloads import reference_model
 
     model = reference_model()

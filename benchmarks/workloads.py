@@ -11,9 +11,9 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from sim.hazards import Exponential, Gompertz, Weibull
-from sim.model import BackgroundMortality, Clock, Horizon, Model, State, Strategy, Transition
-from sim.population import FixedAge, Population, UniformAge
+from sim.hazards.families import Exponential, Gompertz, Weibull
+from sim.model.multistate import BackgroundMortality, Clock, Horizon, Model, State, Strategy, Transition
+from sim.model.population import FixedAge, Population, UniformAge
 
 __all__ = ["REFERENCE", "reference_model", "chain_model", "latent_draws", "Survival", "survival_of",
            "SURVIVAL_TIMES"]

@@ -20,7 +20,7 @@ from PySide6.QtWidgets import (QGraphicsItem, QGraphicsPathItem, QGraphicsPolygo
 
 from gui.document import ScenarioDocument
 from gui.palette import OKABE_ITO
-from sim.model import BACKGROUND
+from sim.model.multistate import BACKGROUND
 
 __all__ = ["ModelDiagram", "layout_states", "diagram_edges", "Edge"]
 

@@ -3,7 +3,7 @@ recent files and autosave to a recovery file.
 
 Every edit goes into the tomlkit document (so comments, order and formatting of the user's file
 survive) and is pushed as an undoable command holding the text before and after. After each change
-the text is validated by :func:`sim.scenario.parse_scenario`; invalid text is kept and reported, never
+the text is validated by :func:`sim.io.scenario.parse_scenario`; invalid text is kept and reported, never
 rejected. No modelling here: conversions and checks all come from ``sim``.
 
 Key paths are tuples of table keys and array indices, e.g. ``("transitions", 0, "rate")``.
@@ -25,8 +25,8 @@ from tomlkit.exceptions import TOMLKitError
 from tomlkit.items import AoT, Array, Comment, InlineTable, Item, Table, Whitespace
 from tomlkit.toml_document import TOMLDocument
 
-from sim.demo import DEMOS, demo_path
-from sim.scenario import Scenario, ScenarioError, parse_scenario, save_scenario
+from sim.io.demo import DEMOS, demo_path
+from sim.io.scenario import Scenario, ScenarioError, parse_scenario, save_scenario
 
 __all__ = ["ScenarioDocument", "FieldError", "DocumentError", "KeyPath", "parse_key", "format_key",
            "display_value"]
@@ -308,7 +308,7 @@ class ScenarioDocument(QObject):
     changed()
         The text changed (edit, undo, redo, open); views re-read it.
     validated(object, list)
-        After every change: the :class:`~sim.scenario.Scenario` or ``None``, and a list of
+        After every change: the :class:`~sim.io.scenario.Scenario` or ``None``, and a list of
         :class:`FieldError` (empty when valid).
     dirty_changed(bool)
         Unsaved changes appeared or went away.

@@ -1,5 +1,5 @@
 """The ``hazardtrace`` command: ``hazardtrace gui [SCENARIO]`` opens the desktop window; every other
-verb is the headless command line in :mod:`sim.cli`. Qt is imported only for ``gui``."""
+verb is the headless command line in :mod:`sim.cli.commands`. Qt is imported only for ``gui``."""
 
 from __future__ import annotations
 

@@ -19,7 +19,7 @@ from gui.palette import OKABE_ITO
 from gui.preview import HazardPreview
 from gui.results import ResultsPanel
 from gui.run_panel import RunPanel
-from sim.demo import DEMOS
+from sim.io.demo import DEMOS
 
 __all__ = ["MainWindow"]
 

@@ -2,7 +2,7 @@
 cycle length, with the small-rate approximation ``p ~ r h`` and its error.
 
 The numbers come from :mod:`sim` (``Hazard.cumhazard``, ``Hazard.never_probability``,
-``sim.units.risk_from_rate``) through :func:`preview_curves` and :func:`cycle_point`, which hold no
+``sim.hazards.units.risk_from_rate``) through :func:`preview_curves` and :func:`cycle_point`, which hold no
 Qt; the widget only plots them. The per-cycle probability at clock value ``t`` is the conditional
 ``p = 1 - S(t + h) / S(t) = 1 - exp(-(H(t + h) - H(t)))``; for an attained-age clock ``t`` is the age.
 """
@@ -20,10 +20,10 @@ from PySide6.QtWidgets import (QComboBox, QDoubleSpinBox, QGridLayout, QHBoxLayo
 
 from gui.document import ScenarioDocument
 from gui.palette import OKABE_ITO
-from sim.hazards import Hazard
-from sim.model import BACKGROUND, Clock, Model
-from sim.scenario import Scenario, parse_duration
-from sim.units import risk_from_rate
+from sim.hazards.families import Hazard
+from sim.model.multistate import BACKGROUND, Clock, Model
+from sim.io.scenario import Scenario, parse_duration
+from sim.hazards.units import risk_from_rate
 
 __all__ = ["HazardPreview", "PreviewCurves", "CyclePoint", "preview_curves", "cycle_point", "clock_range",
            "make_plot", "CYCLE_CHOICES"]
@@ -96,7 +96,7 @@ def preview_curves(hazard: Hazard, t0: float, t1: float, cycle: float, points: i
 
 def cycle_point(hazard: Hazard, t: float, cycle: float) -> CyclePoint:
     """The rate-to-probability conversion over the cycle starting at clock value ``t``: the
-    cycle-average rate ``r``, ``p = 1 - exp(-r h)`` (``sim.units.risk_from_rate``, equal to
+    cycle-average rate ``r``, ``p = 1 - exp(-r h)`` (``sim.hazards.units.risk_from_rate``, equal to
     ``1 - S(t + h) / S(t)``), the approximation ``r h`` and its error ``r h - p``."""
     dH = float(hazard.cumhazard(t + cycle) - hazard.cumhazard(t))
     rate = dH / cycle
@@ -220,7 +220,7 @@ class HazardPreview(QWidget):
             self.exit_combo.setCurrentIndex(idx)
 
     def cycle_length(self) -> float | None:
-        """The chosen cycle length in years (``sim.scenario.parse_duration``), or None if unreadable."""
+        """The chosen cycle length in years (``sim.io.scenario.parse_duration``), or None if unreadable."""
         text = self.cycle_combo.currentText().strip()
         try:
             return parse_duration(float(text) if _is_number(text) else text)

@@ -15,13 +15,13 @@ from PySide6.QtGui import QCloseEvent, QRegularExpressionValidator
 from PySide6.QtWidgets import (QCheckBox, QFormLayout, QHBoxLayout, QLabel, QLineEdit, QProgressBar, QPushButton,
                                QSpinBox, QVBoxLayout, QWidget)
 
-from sim.scenario import RunSettings, Scenario
+from sim.io.scenario import RunSettings, Scenario
 
 from .worker import Job, RunWorker
 
 __all__ = ["RunPanel", "STAGE_TEXT", "settings_text"]
 
-#: What the user reads for each stage reported by ``sim.pipeline.run_scenario``.
+#: What the user reads for each stage reported by ``sim.pipeline.run.run_scenario``.
 STAGE_TEXT = {
     "simulating": "Simulating patient histories",
     "outcomes": "Computing outcomes",

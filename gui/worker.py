@@ -1,6 +1,6 @@
 """Long work off the GUI thread: worker objects run in a ``QThread`` and report through signals.
 
-- :class:`RunWorker` runs :func:`sim.pipeline.run_scenario` with a ``threading.Event`` as its cancel
+- :class:`RunWorker` runs :func:`sim.pipeline.run.run_scenario` with a ``threading.Event`` as its cancel
   flag and emits ``progress(stage, done, total)`` (throttled), ``finished(results)``,
   ``failed(message)`` or ``cancelled()``.
 - :class:`FunctionWorker` runs any callable (cohort traces, exports) and emits ``finished(value)``
@@ -31,9 +31,9 @@ from typing import Any, Callable, ClassVar
 
 from PySide6.QtCore import QCoreApplication, QObject, QThread, QTimer, Signal, Slot
 
-from sim.engine import SimulationCancelled
-from sim.pipeline import run_scenario
-from sim.scenario import Scenario
+from sim.engine.histories import SimulationCancelled
+from sim.pipeline.run import run_scenario
+from sim.io.scenario import Scenario
 
 __all__ = ["RunWorker", "FunctionWorker", "Job", "error_message"]
 

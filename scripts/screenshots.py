@@ -1,6 +1,6 @@
 """Screenshots of every results view for each bundled demo scenario, for a human look and the docs.
 
-Runs each demo of ``sim.demo.DEMOS`` through the run panel (worker thread, as in the window) with a
+Runs each demo of ``sim.io.demo.DEMOS`` through the run panel (worker thread, as in the window) with a
 modest number of patients, then saves a PNG of the run panel and of every results view to
 ``docs/screenshots/`` (``<demo>_<view>.png``).
 
@@ -19,7 +19,7 @@ sys.path.insert(0, str(ROOT))
 from PySide6.QtCore import QEventLoop, QTimer  # noqa: E402
 from PySide6.QtWidgets import QApplication, QHBoxLayout, QWidget  # noqa: E402
 
-from sim.demo import DEMOS, demo_scenario  # noqa: E402
+from sim.io.demo import DEMOS, demo_scenario  # noqa: E402
 
 
 def _wait(ms: int, signal=None) -> bool:

@@ -1,7 +1,7 @@
 """Background mortality (death from other causes): a hazard per sex, or a life table with a q/m
 choice and an optional Gompertz fit (b, g, doubling time and the fit against the table).
 
-Reading the table and fitting are done by :mod:`sim.lifetable`; this panel only shows the results.
+Reading the table and fitting are done by :mod:`sim.io.lifetable`; this panel only shows the results.
 """
 
 from __future__ import annotations
@@ -39,11 +39,11 @@ class LifeTableResult:
 
 def life_table_results(spec: dict, base_dir: Path) -> list[LifeTableResult]:
     """Read the life table named in ``spec`` (the ``[background.life_table]`` table) with
-    :func:`sim.lifetable.read_life_table` and, if asked, fit it with :func:`sim.lifetable.fit_gompertz`.
+    :func:`sim.io.lifetable.read_life_table` and, if asked, fit it with :func:`sim.io.lifetable.fit_gompertz`.
 
     Raises ``ValueError``/``OSError`` (from sim) when the table cannot be used.
     """
-    from sim import lifetable
+    from sim.io import lifetable
 
     columns = spec.get("columns", {})
     columns = {"all": columns} if isinstance(columns, str) else dict(columns)

@@ -1,7 +1,7 @@
 """The parameters of one hazard: family, time unit, the family's parameters and, for a constant
 hazard, how it is given (a rate, events per person-time, or a risk over a period).
 
-The converted rate per year and the assumption behind it come from :mod:`sim.units`; the
+The converted rate per year and the assumption behind it come from :mod:`sim.hazards.units`; the
 parameters the model actually uses (in years) come from the validated model.
 """
 
@@ -14,9 +14,9 @@ from PySide6.QtWidgets import QComboBox, QFormLayout, QLabel, QWidget
 
 from gui.document import KeyPath, ScenarioDocument, format_key, remove_value, set_value
 from gui.editors.fields import FieldSet
-from sim.hazards import FAMILIES, Hazard
-from sim.scenario import LOG_TIME_PARAMS, RATE_PARAMS, TIME_PARAMS, TIME_UNITS
-from sim.units import UnitError, rate_from_risk, rate_per_year, risk_from_rate
+from sim.hazards.families import FAMILIES, Hazard
+from sim.io.scenario import LOG_TIME_PARAMS, RATE_PARAMS, TIME_PARAMS, TIME_UNITS
+from sim.hazards.units import UnitError, rate_from_risk, rate_per_year, risk_from_rate
 
 __all__ = ["HazardForm", "family_params", "exponential_mode", "FAMILY_LABELS", "DEFAULTS", "MODES",
            "equivalent_form"]
@@ -69,7 +69,7 @@ def exponential_mode(values: Mapping[str, Any]) -> str:
 
 def equivalent_form(mode: str, rate: float) -> dict[str, Any]:
     """Keys giving the constant ``rate`` per year in ``mode`` (unit years): the rate itself, events
-    per 1000 person-years, or the one-year risk ``1 - exp(-rate)`` (sim.units.risk_from_rate)."""
+    per 1000 person-years, or the one-year risk ``1 - exp(-rate)`` (sim.hazards.units.risk_from_rate)."""
     if mode == "events":
         return {"events": float(f"{rate * 1000:.6g}"), "per": 1000, "unit": "years"}
     if mode == "risk":
@@ -197,7 +197,7 @@ class HazardForm(QWidget):
 
     # ------------------------------------------------------------------ display
     def _rate_per_year(self) -> float | None:
-        """The constant rate per year the current entries give (sim.units), or None."""
+        """The constant rate per year the current entries give (sim.hazards.units), or None."""
         return self._conversion()[0]
 
     def _conversion(self) -> tuple[float | None, str]:

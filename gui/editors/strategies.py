@@ -11,7 +11,7 @@ from PySide6.QtWidgets import QGridLayout, QGroupBox, QLabel, QPushButton, QVBox
 from gui.document import set_value
 from gui.editors.hazard_form import ALL_HAZARD_KEYS, HazardForm
 from gui.editors.listing import ListDetailPanel
-from sim.model import BACKGROUND
+from sim.model.multistate import BACKGROUND
 
 __all__ = ["StrategiesEditor"]
 

@@ -9,7 +9,7 @@ from PySide6.QtWidgets import QFormLayout, QGridLayout, QGroupBox, QLabel, QVBox
 
 from gui.editors.base import EditorPanel
 from gui.editors.fields import FieldSet
-from sim.model import BACKGROUND
+from sim.model.multistate import BACKGROUND
 
 __all__ = ["ValuationEditor"]
 

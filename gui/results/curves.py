@@ -16,8 +16,8 @@ from PySide6.QtGui import QColor, QPen
 from PySide6.QtWidgets import (QCheckBox, QComboBox, QGridLayout, QGroupBox, QHBoxLayout, QLabel, QSplitter,
                                QVBoxLayout, QWidget)
 
-from sim.cohort import Conversion
-from sim.pipeline import RunResults
+from sim.reference.cohort import Conversion
+from sim.pipeline.run import RunResults
 
 from .. import palette
 from ..worker import FunctionWorker, Job

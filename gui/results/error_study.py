@@ -11,9 +11,9 @@ import pyqtgraph as pg
 from PySide6.QtCore import Qt, Signal, Slot
 from PySide6.QtWidgets import QComboBox, QDoubleSpinBox, QHBoxLayout, QLabel, QTabWidget, QVBoxLayout, QWidget
 
-from sim.cohort import Conversion, Correction
-from sim.pipeline import RunResults
-from sim.study import StudyResult
+from sim.reference.cohort import Conversion, Correction
+from sim.pipeline.run import RunResults
+from sim.reference.study import StudyResult
 
 from .. import palette
 from .labels import outcome_label, outcome_unit

@@ -11,7 +11,7 @@ from PySide6.QtCore import QRegularExpression, Signal, Slot
 from PySide6.QtGui import QRegularExpressionValidator
 from PySide6.QtWidgets import QComboBox, QHBoxLayout, QLabel, QLineEdit, QPushButton, QVBoxLayout, QWidget
 
-from sim.pipeline import RunResults
+from sim.pipeline.run import RunResults
 
 from .table_view import TableView
 

@@ -1,5 +1,5 @@
 """Saving result data: the event log, patient table and multi-state long format as Parquet or CSV,
-and any shown table as CSV, through ``sim.export`` (atomic writes), in a worker thread.
+and any shown table as CSV, through ``sim.io.export`` (atomic writes), in a worker thread.
 
 The file dialog confirms overwriting, so the writes pass ``force=True``.
 """
@@ -13,8 +13,8 @@ import pandas as pd
 from PySide6.QtCore import QObject, Signal, Slot
 from PySide6.QtWidgets import QWidget
 
-from sim.export import long_format, write_table, write_tidy_csv
-from sim.pipeline import RunResults
+from sim.io.export import long_format, write_table, write_tidy_csv
+from sim.pipeline.run import RunResults
 
 from ..export_plot import ask_save_path
 from ..worker import FunctionWorker, Job

@@ -28,7 +28,7 @@ def outcome_unit(name: str, currency: str) -> str:
 
 
 def quantity_label(name: str, currency: str, willingness_to_pay: float) -> str:
-    """Words for the increments' quantities (discounted costs and QALYs, as in ``sim.outcomes``)."""
+    """Words for the increments' quantities (discounted costs and QALYs, as in ``sim.analysis.outcomes``)."""
     return {
         "delta_costs": f"incremental costs, discounted ({currency})",
         "delta_effects": "incremental QALYs, discounted",

@@ -10,7 +10,7 @@ import numpy as np
 import pandas as pd
 from PySide6.QtWidgets import QLabel, QVBoxLayout, QWidget
 
-from sim.pipeline import RunResults
+from sim.pipeline.run import RunResults
 
 from .labels import outcome_label, outcome_unit, quantity_label
 from .layout import column, two_panes

@@ -11,7 +11,7 @@ from PySide6.QtCore import QCoreApplication, Qt, Signal, Slot
 from PySide6.QtGui import QCloseEvent
 from PySide6.QtWidgets import QHBoxLayout, QLabel, QMenu, QStackedWidget, QTabWidget, QToolButton, QVBoxLayout, QWidget
 
-from sim.pipeline import RunResults
+from sim.pipeline.run import RunResults
 
 from ..run_panel import settings_text
 from .curves import CurvesView
@@ -30,7 +30,7 @@ def _stem(text: str) -> str:
 
 
 class ResultsPanel(QWidget):
-    """Shows a :class:`sim.pipeline.RunResults`; ``results_shown`` is emitted (from the GUI thread)
+    """Shows a :class:`sim.pipeline.run.RunResults`; ``results_shown`` is emitted (from the GUI thread)
     once every view has drawn it."""
 
     results_shown = Signal()

@@ -13,10 +13,10 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from sim.cohort import cohort_trace
-from sim.model import Model
-from sim.pipeline import RunResults
-from sim.study import MAX_TUNNEL_STATES
+from sim.reference.cohort import cohort_trace
+from sim.model.multistate import Model
+from sim.pipeline.run import RunResults
+from sim.reference.study import MAX_TUNNEL_STATES
 
 __all__ = ["Z95", "Series", "StrategyCurves", "TraceCurves", "cycle_label", "steps", "thin_steps",
            "simulated_curves", "trace_curves", "compute_traces", "same_curves", "survival_from_occupancy"]
@@ -159,10 +159,10 @@ def simulated_curves(results: RunResults, max_points: int = MAX_STEP_POINTS) -> 
 
 
 def trace_curves(model: Model, strategy: str, method: str, cycle_length: float, t_end: float) -> TraceCurves:
-    """Cycle-based cohort trace (``sim.cohort.cohort_trace(...).table()``) clipped to ``t_end``.
+    """Cycle-based cohort trace (``sim.reference.cohort.cohort_trace(...).table()``) clipped to ``t_end``.
 
     Models with time-in-state clocks get enough tunnel states to track the plotted range
-    (``ceil(t_end / h)``); beyond ``sim.study.MAX_TUNNEL_STATES`` the trace is skipped with a note.
+    (``ceil(t_end / h)``); beyond ``sim.reference.study.MAX_TUNNEL_STATES`` the trace is skipped with a note.
     """
     tunnels = None
     if not model.is_markov:

@@ -1,6 +1,6 @@
-"""Tables for the error-study view, reshaped from ``sim.study.StudyResult`` (pandas only, no Qt).
+"""Tables for the error-study view, reshaped from ``sim.reference.study.StudyResult`` (pandas only, no Qt).
 
-:func:`largest_safe_cycle` is ``sim.study.largest_cycle_within`` (the rule the study itself uses), so
+:func:`largest_safe_cycle` is ``sim.reference.study.largest_cycle_within`` (the rule the study itself uses), so
 the user can change the tolerance without re-running the study.
 """
 
@@ -9,7 +9,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 
-from sim.study import largest_cycle_within as largest_safe_cycle  # the study's own rule
+from sim.reference.study import largest_cycle_within as largest_safe_cycle  # the study's own rule
 
 from .series import cycle_label
 
@@ -67,7 +67,7 @@ def tolerance_in_units(table: pd.DataFrame, outcome: str, strategy: str, toleran
 
 def reference_noise(table: pd.DataFrame, outcome: str, strategy: str) -> float:
     """Twice the reference's Monte Carlo standard error (0 for an exact reference): errors below it
-    are within the reference's own noise (the floor ``sim.study`` uses for convergence orders)."""
+    are within the reference's own noise (the floor ``sim.reference.study`` uses for convergence orders)."""
     mcse = table.loc[(table["outcome"] == outcome) & (table["strategy"] == strategy), "reference_mcse"]
     return float(2.0 * mcse.iloc[0]) if len(mcse) and np.isfinite(mcse.iloc[0]) else 0.0
 

@@ -11,8 +11,8 @@ import pytest
 from PySide6.QtCore import QEvent, QSettings
 
 from gui.document import ScenarioDocument, format_key, parse_key
-from sim.demo import demo_path
-from sim.scenario import ScenarioError, parse_scenario
+from sim.io.demo import demo_path
+from sim.io.scenario import ScenarioError, parse_scenario
 
 DEMO_TEXT = demo_path("lanthic").read_text(encoding="utf-8")
 

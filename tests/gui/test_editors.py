@@ -18,9 +18,9 @@ from gui.editors import (BackgroundEditor, HorizonEditor, PopulationEditor, Sour
                          StrategiesEditor, TransitionsEditor, ValuationEditor)
 from gui.editors.fields import is_marked
 from gui.preview import HazardPreview, preview_curves
-from sim.lifetable import fit_gompertz, read_life_table
-from sim.model import BACKGROUND
-from sim.units import rate_from_risk, risk_from_rate
+from sim.io.lifetable import fit_gompertz, read_life_table
+from sim.model.multistate import BACKGROUND
+from sim.hazards.units import rate_from_risk, risk_from_rate
 
 
 

@@ -1,4 +1,4 @@
-"""Exports: event log, patient table and long format as Parquet and CSV (through sim.export), any
+"""Exports: event log, patient table and long format as Parquet and CSV (through sim.io.export), any
 shown table as CSV, and plots as PNG and SVG; file dialogs are monkeypatched."""
 
 from __future__ import annotations
@@ -16,9 +16,9 @@ from PySide6.QtWidgets import QFileDialog
 from gui.export_plot import ask_save_path, save_svg
 from gui.results import ResultsPanel
 from gui.results.exports import data_table, write_data
-from sim.demo import demo_scenario
-from sim.export import LONG_FORMAT_COLUMNS
-from sim.pipeline import run_scenario
+from sim.io.demo import demo_scenario
+from sim.io.export import LONG_FORMAT_COLUMNS
+from sim.pipeline.run import run_scenario
 
 SVG = "{http://www.w3.org/2000/svg}"
 

@@ -17,8 +17,8 @@ from gui.document import ScenarioDocument
 from gui.editors import HorizonEditor, TransitionsEditor
 from gui.main_window import MainWindow
 from sim import __version__
-from sim.demo import demo_path
-from sim.pipeline import run_scenario
+from sim.io.demo import demo_path
+from sim.pipeline.run import run_scenario
 
 DEMO_TEXT = demo_path("lanthic").read_text(encoding="utf-8")
 Button = QMessageBox.StandardButton

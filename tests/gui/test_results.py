@@ -19,10 +19,10 @@ from gui.results.series import Series, cycle_label, same_curves, steps, survival
 from gui.results.study_data import coinciding, largest_safe_cycle
 from gui.results.table_model import DataFrameModel, format_number
 from gui.results.table_view import TableView
-from sim.demo import demo_path, demo_scenario
-from sim.pipeline import run_scenario
-from sim.scenario import parse_scenario
-from sim.study import discretization_study
+from sim.io.demo import demo_path, demo_scenario
+from sim.pipeline.run import run_scenario
+from sim.io.scenario import parse_scenario
+from sim.reference.study import discretization_study
 
 N = 2000
 

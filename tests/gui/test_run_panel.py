@@ -11,9 +11,9 @@ from PySide6.QtCore import Qt, QTimer
 from gui.results import ResultsPanel
 from gui.run_panel import RunPanel
 from gui.worker import RunWorker
-from sim.demo import demo_scenario
-from sim.engine import SimulationError
-from sim.pipeline import RunResults
+from sim.io.demo import demo_scenario
+from sim.engine.histories import SimulationError
+from sim.pipeline.run import RunResults
 
 
 # PySide6 6.12.0 on CPython 3.11 drops references to None/True/False; see gui.app.
@@ -75,7 +75,7 @@ def test_run_through_the_worker_thread_shows_results(qtbot, panel):
 
 
 def test_error_study_progress_is_shown_as_a_fraction(panel):
-    # sim.pipeline reports the study trace by trace; other stages without a fraction show a busy bar
+    # sim.pipeline.run reports the study trace by trace; other stages without a fraction show a busy bar
     panel._on_progress("error study", 3, 12)
     assert (panel.progress.minimum(), panel.progress.maximum(), panel.progress.value()) == (0, 12, 3)
     assert panel.stage.text() == "Running the cycle-length error study: 3 of 12 cohort traces"

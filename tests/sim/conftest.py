@@ -8,9 +8,9 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from sim.hazards import Exponential, Gompertz, Weibull
-from sim.model import BackgroundMortality, Clock, Horizon, Model, State, Strategy, Transition
-from sim.population import FixedAge, NormalAge, Population
+from sim.hazards.families import Exponential, Gompertz, Weibull
+from sim.model.multistate import BackgroundMortality, Clock, Horizon, Model, State, Strategy, Transition
+from sim.model.population import FixedAge, NormalAge, Population
 
 FULL = os.environ.get("HAZARDTRACE_FULL") == "1"
 

@@ -9,8 +9,8 @@ from pathlib import Path
 import pandas as pd
 import pytest
 
-from sim.cli import main
-from sim.demo import DEMOS, SCENARIO_DIR
+from sim.cli.commands import main
+from sim.io.demo import DEMOS, SCENARIO_DIR
 
 
 def _run(args: list[str]) -> tuple[int, str]:

@@ -6,14 +6,14 @@ import numpy as np
 import pytest
 from scipy import integrate, linalg
 
-from sim.cohort import CohortError, _jump_over, cohort_trace, quadrature_weights, trace_outcomes
-from sim.exact import solve_exact
-from sim.hazards import Exponential, Gompertz, Weibull
-from sim.matrix_exp import expm_batched
-from sim.model import Clock, Horizon, Model, State, Transition
-from sim.population import FixedAge, Population, UniformAge
-from sim.study import observed_order
-from sim.valuation import Valuation
+from sim.reference.cohort import CohortError, _jump_over, cohort_trace, quadrature_weights, trace_outcomes
+from sim.reference.exact import solve_exact
+from sim.hazards.families import Exponential, Gompertz, Weibull
+from sim.reference.matrix_exp import expm_batched
+from sim.model.multistate import Clock, Horizon, Model, State, Transition
+from sim.model.population import FixedAge, Population, UniformAge
+from sim.reference.study import observed_order
+from sim.model.valuation import Valuation
 
 from .conftest import single_exit
 from .test_exact import Q_CONST, _constant_model
@@ -33,7 +33,7 @@ def test_expm_batched_matches_scipy():
 @pytest.mark.parametrize("size", [1e-7, 1e-3, 0.02, 0.1, 0.4])
 def test_expm_with_fewer_terms_for_small_generators_matches_scipy(size):
     # each stack is scaled alike, so the short Taylor series of small norms is what runs
-    from sim.matrix_exp import expm_rows
+    from sim.reference.matrix_exp import expm_rows
 
     rng = np.random.default_rng(11)
     q = rng.uniform(0.0, 1.0, size=(40, 4, 4))
@@ -143,7 +143,7 @@ def test_discount_factors_nice_and_us_panel_rates():
         out = trace_outcomes(cohort_trace(m, "base", 1.0, "competing-exit"), "start")
         np.testing.assert_allclose(out["qalys_discounted"], sum((1 + d) ** -k for k in range(10)), rtol=1e-13)
         # continuous-time value: integral of (1 + d)^-t over [0, 10] = (1 - (1 + d)^-10) / ln(1 + d)
-        from sim.outcomes import exact_outcomes
+        from sim.reference.exact_outcomes import exact_outcomes
 
         ex = exact_outcomes(m).set_index("outcome")["value"]
         np.testing.assert_allclose(ex["qalys_discounted"], (1 - (1 + d) ** -10) / np.log1p(d), rtol=1e-9)

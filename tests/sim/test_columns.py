@@ -1,4 +1,4 @@
-"""sim.columns.label_codes: the same codes for a column whether it is categorical or text."""
+"""sim.analysis.columns.label_codes: the same codes for a column whether it is categorical or text."""
 
 from __future__ import annotations
 
@@ -7,7 +7,7 @@ import pandas as pd
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from sim.columns import label_codes
+from sim.analysis.columns import label_codes
 
 _names = st.text(alphabet="abcxyz ", min_size=1, max_size=4)
 

@@ -9,11 +9,11 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from sim.engine import SimulationCancelled, SimulationError, simulate
-from sim.exact import solve_exact
-from sim.hazards import Exponential, Gompertz
-from sim.model import BackgroundMortality, Clock, Horizon, Model, State, Strategy, Transition
-from sim.population import FixedAge, Population, UniformAge
+from sim.engine.histories import SimulationCancelled, SimulationError, simulate
+from sim.reference.exact import solve_exact
+from sim.hazards.families import Exponential, Gompertz
+from sim.model.multistate import BackgroundMortality, Clock, Horizon, Model, State, Strategy, Transition
+from sim.model.population import FixedAge, Population, UniformAge
 
 from .conftest import FULL, illness_death, occupancy_from_log, single_exit
 
@@ -245,7 +245,7 @@ def test_kaplan_meier_of_engine_log_matches_lifelines():
     # engine's patient table, with censoring that varies by patient (horizon at attained age 85).
     from lifelines import KaplanMeierFitter
 
-    from sim.estimators import kaplan_meier
+    from sim.analysis.estimators import kaplan_meier
 
     model = illness_death(horizon=Horizon(85.0, "age"), entry_age=UniformAge(45, 75))
     pt = simulate(model, 5000, seed=31).patients
@@ -260,7 +260,7 @@ def test_kaplan_meier_of_engine_log_matches_lifelines():
 @pytest.mark.parametrize("n", [400_000 if FULL else 40_000])
 def test_aalen_johansen_of_engine_log_matches_kolmogorov(n):
     # Aalen-Johansen occupancy from the simulated log vs the exact forward equations, within 4 MCSE.
-    from sim.estimators import state_occupancy
+    from sim.analysis.estimators import state_occupancy
 
     model = illness_death(horizon=Horizon(30.0, "time"))
     times = np.array([3.0, 12.0, 25.0])
@@ -292,7 +292,7 @@ def test_memory_is_bounded_by_results_and_chunk(n, chunk):
 
 
 def test_streamed_chunks_equal_the_whole_run(two_strategy_model):
-    from sim.engine import simulate_chunks
+    from sim.engine.histories import simulate_chunks
 
     whole = simulate(two_strategy_model, 1000, seed=9)
     parts = list(simulate_chunks(two_strategy_model, 1000, seed=9, chunk_size=300, workers=2))

@@ -1,4 +1,4 @@
-"""Tests of sim.estimators on event logs simulated here with numpy (fixed seeds), in the engine's format.
+"""Tests of sim.analysis.estimators on event logs simulated here with numpy (fixed seeds), in the engine's format.
 
 References used as independent checks:
 - lifelines.KaplanMeierFitter and scipy.stats.ecdf(CensoredData) (general-purpose Kaplan-Meier with
@@ -20,7 +20,7 @@ import scipy.stats as st
 from lifelines import AalenJohansenFitter, KaplanMeierFitter
 from scipy.integrate import quad
 
-from sim.estimators import (
+from sim.analysis.estimators import (
     crude_rate,
     crude_risk,
     cumulative_incidence,
@@ -279,7 +279,7 @@ def test_state_occupancy_matches_product_integral_reference_with_censoring():
 
 def test_state_occupancy_small_block_size_gives_the_same_product(monkeypatch):
     # The product integral is evaluated in blocks of event times; the split must not matter.
-    import sim.estimators as est
+    import sim.analysis.estimators as est
 
     events, patients = illness_log(seed=8, n=120, staggered=True)
     times = [3.0, 7.0, 9.5]
@@ -602,8 +602,8 @@ def test_row_order_of_the_tables_does_not_change_the_estimates():
     """The engine writes events sorted by patient then time, and the estimators skip their sort for
     such logs; shuffled rows (object columns instead of categoricals, too) must give the same
     numbers through the sorting path."""
-    from sim.demo import demo_model
-    from sim.engine import simulate
+    from sim.io.demo import demo_model
+    from sim.engine.histories import simulate
 
     model = demo_model("lanthic")
     run = simulate(model, 3000, seed=5)

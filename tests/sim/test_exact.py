@@ -6,10 +6,10 @@ import numpy as np
 import pytest
 from scipy import integrate, linalg
 
-from sim.exact import NoExactSolution, occupancy_for_entry, solve_exact
-from sim.hazards import Exponential, Gompertz, Weibull
-from sim.model import BackgroundMortality, Clock, Horizon, Model, State, Strategy, Transition
-from sim.population import FixedAge, Population, UniformAge
+from sim.reference.exact import NoExactSolution, occupancy_for_entry, solve_exact
+from sim.hazards.families import Exponential, Gompertz, Weibull
+from sim.model.multistate import BackgroundMortality, Clock, Horizon, Model, State, Strategy, Transition
+from sim.model.population import FixedAge, Population, UniformAge
 
 from .conftest import illness_death, single_exit
 

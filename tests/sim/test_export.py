@@ -1,4 +1,4 @@
-"""Tests of sim.export: the multi-state long format, atomic table writes and streamed runs.
+"""Tests of sim.io.export: the multi-state long format, atomic table writes and streamed runs.
 
 Long-format layout: Putter, Fiocco & Geskus 2007, Stat Med 26(11):2389-2430 (section 4); the msprep
 layout of de Wreede, Fiocco & Putter 2011, J Stat Softw 38(7).
@@ -19,9 +19,9 @@ import pyarrow.parquet as pq
 import pytest
 
 import sim
-from sim.engine import simulate, simulate_chunks
-from sim.estimators import per_patient_time_in_states
-from sim.export import (
+from sim.engine.histories import simulate, simulate_chunks
+from sim.analysis.estimators import per_patient_time_in_states
+from sim.io.export import (
     LONG_FORMAT_COLUMNS,
     ExportError,
     RunWriter,
@@ -31,7 +31,7 @@ from sim.export import (
     write_table,
     write_tidy_csv,
 )
-from sim.model import Horizon, ModelError, Strategy
+from sim.model.multistate import Horizon, ModelError, Strategy
 
 from .conftest import illness_death
 
@@ -211,7 +211,7 @@ def test_long_format_matches_simulated_log():
     assert (lf["stop"] > lf["start"]).all()
 
     # time at risk through any one exit of a state = time spent in that state, patient by patient
-    # (independent computation: sim.estimators.per_patient_time_in_states)
+    # (independent computation: sim.analysis.estimators.per_patient_time_in_states)
     for strategy in model.strategy_names:
         expected = per_patient_time_in_states(ev, pt, model.state_names, strategy=strategy)
         rows = lf[lf["strategy"] == strategy]

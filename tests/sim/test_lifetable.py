@@ -1,4 +1,4 @@
-"""Tests for ``sim.lifetable``: reading life tables, converting them to hazards, Gompertz fits.
+"""Tests for ``sim.io.lifetable``: reading life tables, converting them to hazards, Gompertz fits.
 
 Check values are computed here from closed forms:
 * constant force within a band: r = -ln(1 - q) / n, so exp(-r n) = 1 - q and survival at band edges
@@ -24,8 +24,8 @@ import numpy as np
 import openpyxl
 import pytest
 
-from sim.hazards import Gompertz, GompertzMakeham, PiecewiseConstant
-from sim.lifetable import (
+from sim.hazards.families import Gompertz, GompertzMakeham, PiecewiseConstant
+from sim.io.lifetable import (
     NOMINAL_EXPOSURE,
     GompertzFit,
     LifeTable,

@@ -6,10 +6,10 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from sim.hazards import Exponential, Gompertz, Weibull
-from sim.model import (BACKGROUND, BackgroundMortality, Clock, Horizon, Model, ModelError, State,
+from sim.hazards.families import Exponential, Gompertz, Weibull
+from sim.model.multistate import (BACKGROUND, BackgroundMortality, Clock, Horizon, Model, ModelError, State,
                        Strategy, Transition)
-from sim.population import EmpiricalAge, FixedAge, NormalAge, Population, PopulationError, UniformAge
+from sim.model.population import EmpiricalAge, FixedAge, NormalAge, Population, PopulationError, UniformAge
 
 from .conftest import illness_death
 

@@ -6,12 +6,13 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from sim.engine import simulate
-from sim.hazards import Exponential
-from sim.model import Clock, Horizon, Model, State, Strategy, Transition
-from sim.outcomes import exact_outcomes, incremental, increments_from_values, patient_outcomes, summarise
-from sim.population import FixedAge, Population
-from sim.valuation import Valuation, ValuationError
+from sim.engine.histories import simulate
+from sim.hazards.families import Exponential
+from sim.model.multistate import Clock, Horizon, Model, State, Strategy, Transition
+from sim.reference.exact_outcomes import exact_outcomes, exact_outcomes_and_occupancy
+from sim.analysis.outcomes import incremental, increments_from_values, patient_outcomes, summarise
+from sim.model.population import FixedAge, Population
+from sim.model.valuation import Valuation, ValuationError
 
 from .conftest import FULL, illness_death
 
@@ -84,8 +85,8 @@ def test_valuation_errors():
 
 def test_streaming_accumulator_equals_whole_sample(two_strategies):
     # Chunk-by-chunk moments give the same means, MCSEs and paired increments as the whole table.
-    from sim.engine import SimulationResult, simulate_chunks
-    from sim.outcomes import OutcomeAccumulator
+    from sim.engine.histories import SimulationResult, simulate_chunks
+    from sim.analysis.outcomes import OutcomeAccumulator
 
     acc = OutcomeAccumulator("standard", VAL.willingness_to_pay)
     parts = []
@@ -107,11 +108,10 @@ def test_streaming_accumulator_equals_whole_sample(two_strategies):
 
 
 def test_exact_outcomes_and_occupancy_match_the_separate_solvers():
-    """One combined solve gives the same numbers as sim.exact.solve_exact (itself checked against
+    """One combined solve gives the same numbers as sim.reference.exact.solve_exact (itself checked against
     closed forms in test_exact.py) and exact_outcomes, to the ODE solver's tolerance."""
-    from sim.demo import demo_model
-    from sim.exact import solve_exact
-    from sim.outcomes import exact_outcomes_and_occupancy
+    from sim.io.demo import demo_model
+    from sim.reference.exact import solve_exact
 
     model = demo_model("lanthic")
     times = np.linspace(0.0, 30.0, 7)

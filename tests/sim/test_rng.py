@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from sim.rng import exponentials, key_from_seed, philox4x64, uniforms
+from sim.engine.rng import exponentials, key_from_seed, philox4x64, uniforms
 
 
 @pytest.mark.parametrize("counter", [(0, 0, 0, 0), (5, 7, 11, 13), (2**64 - 2, 1, 2**63, 99)])

@@ -12,9 +12,9 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from sim.demo import DEMOS, SCENARIO_DIR
-from sim.engine import SimulationError, simulate
-from sim.scenario import (ScenarioError, ScenarioProblems, document_from_model, load_scenario, parse_duration, parse_scenario,
+from sim.io.demo import DEMOS, SCENARIO_DIR
+from sim.engine.histories import SimulationError, simulate
+from sim.io.scenario import (ScenarioError, ScenarioProblems, document_from_model, load_scenario, parse_duration, parse_scenario,
                           save_scenario, scenario_text)
 
 DEMO = (SCENARIO_DIR / "lanthic_syndrome.toml").read_text()

@@ -5,12 +5,12 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from sim.demo import demo_model
-from sim.hazards import Exponential, Weibull
-from sim.model import Clock, Horizon, Model, State, Transition
-from sim.population import FixedAge, Population
-from sim.study import discretization_study, observed_order
-from sim.valuation import Valuation
+from sim.io.demo import demo_model
+from sim.hazards.families import Exponential, Weibull
+from sim.model.multistate import Clock, Horizon, Model, State, Transition
+from sim.model.population import FixedAge, Population
+from sim.reference.study import discretization_study, observed_order
+from sim.model.valuation import Valuation
 
 
 def test_observed_order_recovers_power_law():
@@ -86,9 +86,9 @@ def test_semi_markov_uses_a_simulation_reference():
 
 def test_study_honours_a_cancel_request():
     """A cancel request stops the study between traces with SimulationCancelled (the run's own
-    cancel token reaches it through sim.pipeline)."""
-    from sim.demo import demo_model
-    from sim.engine import SimulationCancelled
+    cancel token reaches it through sim.pipeline.run)."""
+    from sim.io.demo import demo_model
+    from sim.engine.histories import SimulationCancelled
 
     with pytest.raises(SimulationCancelled):
         discretization_study(demo_model("lanthic"), cycle_lengths=(1.0,), cancel=lambda: True)

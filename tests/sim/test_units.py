@@ -1,4 +1,4 @@
-"""Tests for ``sim.units``: time units and rate/risk conversions (METHODS.md section 1).
+"""Tests for ``sim.hazards.units``: time units and rate/risk conversions (METHODS.md section 1).
 
 Check values are computed here from the closed forms of Miller & Homan 1994 (Med Decis Making
 14:52-58) and Fleurence & Hollenbeak 2007 (PharmacoEconomics 25(1):3-6): p = 1 - exp(-r t),
@@ -14,7 +14,7 @@ import re
 import numpy as np
 import pytest
 
-from sim.units import (
+from sim.hazards.units import (
     DAYS_PER_YEAR,
     UNIT_IN_YEARS,
     RateConversion,

@@ -17,11 +17,12 @@ from typing import Callable
 import numpy as np
 import pandas as pd
 
-from .engine import SimulationCancelled, SimulationResult, cancel_requested, chunk_size_for, simulate
-from .estimators import kaplan_meier, state_occupancy
-from .outcomes import exact_outcomes_and_occupancy, incremental, patient_outcomes, summarise, with_exact
-from .scenario import Scenario
-from .study import StudyResult, discretization_study
+from ..engine.histories import SimulationCancelled, SimulationResult, cancel_requested, chunk_size_for, simulate
+from ..analysis.estimators import kaplan_meier, state_occupancy
+from ..analysis.outcomes import incremental, patient_outcomes, summarise
+from ..reference.exact_outcomes import exact_outcomes_and_occupancy, with_exact
+from ..io.scenario import Scenario
+from ..reference.study import StudyResult, discretization_study
 
 __all__ = ["RunResults", "run_scenario", "time_grid"]
 

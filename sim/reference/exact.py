@@ -30,8 +30,8 @@ import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 from scipy.integrate import solve_ivp
 
-from .hazards import KERNEL_ERRSTATE
-from .model import Clock, Model, ResolvedExit
+from ..hazards.families import KERNEL_ERRSTATE
+from ..model.multistate import Clock, Model, ResolvedExit
 
 __all__ = ["NoExactSolution", "ExactSolution", "StackedSolution", "solve_exact", "solve_stacked",
            "occupancy_for_entry", "occupancy_frame", "population_pairs"]

@@ -47,9 +47,9 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 from numpy.typing import NDArray
 
-from . import __version__
-from .columns import label_codes, patient_ids, time_column
-from .model import Model
+from .. import __version__
+from ..analysis.columns import label_codes, patient_ids, time_column
+from ..model.multistate import Model
 
 __all__ = [
     "ExportError",

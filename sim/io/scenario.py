@@ -27,11 +27,11 @@ from typing import Any, Iterable, Mapping
 import tomlkit
 from tomlkit.exceptions import ParseError
 
-from .hazards import FAMILIES, Hazard, HazardParameterError, make_hazard
-from .model import BACKGROUND, BackgroundMortality, Clock, Horizon, Model, ModelError, State, Strategy, Transition
-from .population import EmpiricalAge, FixedAge, NormalAge, Population, PopulationError, UniformAge
-from .units import UnitError, rate_from_risk, rate_per_year, to_years
-from .valuation import Valuation, ValuationError
+from ..hazards.families import FAMILIES, Hazard, HazardParameterError, make_hazard
+from ..model.multistate import BACKGROUND, BackgroundMortality, Clock, Horizon, Model, ModelError, State, Strategy, Transition
+from ..model.population import EmpiricalAge, FixedAge, NormalAge, Population, PopulationError, UniformAge
+from ..hazards.units import UnitError, rate_from_risk, rate_per_year, to_years
+from ..model.valuation import Valuation, ValuationError
 
 __all__ = ["FORMAT_VERSION", "Scenario", "RunSettings", "ScenarioError", "ScenarioProblems", "load_scenario",
            "parse_scenario", "scenario_text", "save_scenario", "document_from_model", "parse_duration"]

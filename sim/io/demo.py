@@ -4,12 +4,12 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from .model import Model
+from ..model.multistate import Model
 from .scenario import Scenario, load_scenario
 
 __all__ = ["SCENARIO_DIR", "DEMOS", "demo_path", "demo_scenario", "demo_model"]
 
-SCENARIO_DIR = Path(__file__).resolve().parents[1] / "scenarios"
+SCENARIO_DIR = Path(__file__).resolve().parents[2] / "scenarios"
 DEMOS = {
     "lanthic": "lanthic_syndrome.toml",
     "ferrovian": "ferrovian_progression.toml",

@@ -26,13 +26,12 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
-from .engine import SimulationResult
+from ..engine.histories import SimulationResult
 from .estimators import _per_patient, _prepare_log
-from .exact import occupancy_frame, population_pairs, solve_stacked
-from .model import Model
+from ..model.multistate import Model
 
-__all__ = ["OUTCOMES", "OutcomeAccumulator", "with_exact", "patient_outcomes", "summarise", "incremental",
-           "exact_outcomes", "exact_outcomes_and_occupancy", "outcome_names", "increments_from_values"]
+__all__ = ["OUTCOMES", "OutcomeAccumulator", "patient_outcomes", "summarise", "incremental", "outcome_names",
+           "increments_from_values", "combine_outcomes"]
 
 OUTCOMES = ("life_years", "life_years_discounted", "qalys", "qalys_discounted", "costs", "costs_discounted")
 
@@ -42,7 +41,7 @@ def outcome_names(model: Model) -> tuple[str, ...]:
     return OUTCOMES + tuple(f"years in {s.name}" for s in model.states if not s.absorbing)
 
 
-def _combine(model: Model, strategy: str, years: NDArray, years_e: NDArray, years_c: NDArray,
+def combine_outcomes(model: Model, strategy: str, years: NDArray, years_e: NDArray, years_c: NDArray,
              moves_c: NDArray) -> dict[str, NDArray]:
     """Outcomes from time in state (undiscounted, at the effects rate, at the costs rate; last axis =
     states) and discounted one-off costs already summed per unit (``moves_c``)."""
@@ -82,7 +81,7 @@ def patient_outcomes(run: SimulationResult) -> pd.DataFrame:
         pid = np.searchsorted(yrs.index.to_numpy(), ev["patient"].to_numpy())
         undisc = np.bincount(pid, weights=c, minlength=len(yrs))
         disc = np.bincount(pid, weights=c * np.exp(-d_c * ev["time"].to_numpy()), minlength=len(yrs))
-        values = _combine(model, strategy, yrs.to_numpy(), yrs_e.to_numpy(), yrs_c.to_numpy(), (undisc, disc))
+        values = combine_outcomes(model, strategy, yrs.to_numpy(), yrs_e.to_numpy(), yrs_c.to_numpy(), (undisc, disc))
         frame = pd.DataFrame(values)
         frame.insert(0, "patient", yrs.index.to_numpy())
         frame.insert(0, "strategy", strategy)
@@ -161,65 +160,6 @@ def increments_from_values(values: pd.DataFrame, comparator: str, willingness_to
         de = wide.loc[strategy, effect] - wide.loc[comparator, effect]
         rows.append((strategy, comparator, dc, de, dc / de if de != 0 else np.nan, willingness_to_pay * de - dc))
     return pd.DataFrame(rows, columns=["strategy", "comparator", "delta_costs", "delta_effects", "icer", "nmb"])
-
-
-# ----------------------------------------------------------------------------- exact
-def exact_outcomes(model: Model, strategies: tuple[str, ...] | None = None, n_nodes: int = 48) -> pd.DataFrame:
-    """Outcomes from the Kolmogorov forward solution (Markov models only): columns strategy, outcome,
-    value. Time in state and transition flows are integrated in the same ODE (see :mod:`sim.exact`)."""
-    return exact_outcomes_and_occupancy(model, np.zeros(1), strategies, n_nodes)[0]
-
-
-def exact_outcomes_and_occupancy(model: Model, times: NDArray[np.float64], strategies: tuple[str, ...] | None = None,
-                                 n_nodes: int = 48) -> tuple[pd.DataFrame, pd.DataFrame]:
-    """:func:`exact_outcomes` and the population-averaged state occupancy at ``times`` (columns
-    strategy, time, state, probability, as ``sim.exact.solve_exact(...).occupancy``) from one solve
-    of the forward equations for all strategies."""
-    val = model.valuation
-    rates = (0.0, val.discount_effects, val.discount_costs)
-    age, sex, w = population_pairs(model, n_nodes)
-    horizon = model.horizon.time_limit(age)
-    times = np.atleast_1d(np.asarray(times, dtype=float))
-    rows, occupancy = [], []
-    names = tuple(strategies or model.strategy_names)
-    sol = solve_stacked(model, names, age, sex, times, horizon, rates)  # one solve for all strategies
-    m0 = age.size
-    states = model.state_names
-    for j, strategy in enumerate(names):
-        block = slice(j * m0, (j + 1) * m0)
-        integrals = np.einsum("m,rmn->rn", w, sol.integrals[:, block])
-        flows = np.einsum("m,rmk->rk", w, sol.flows[:, block])
-        c_exit = model.exit_costs(strategy)[sol.exit_index]
-        values = _combine(model, strategy, integrals[0], integrals[1], integrals[2],
-                          (flows[0] @ c_exit, flows[2] @ c_exit))
-        rows += [(strategy, k, float(v)) for k, v in values.items()]
-        occupancy.append(occupancy_frame(strategy, times, states, np.einsum("m,mtn->tn", w, sol.occupancy[block])))
-    return (pd.DataFrame(rows, columns=["strategy", "outcome", "value"]),
-            pd.concat(occupancy, ignore_index=True))
-
-
-def with_exact(model: Model, summary: pd.DataFrame, increments: pd.DataFrame, comparator: str,
-               willingness_to_pay: float, exact: pd.DataFrame | None = None) -> tuple[pd.DataFrame, pd.DataFrame, str]:
-    """Add an ``exact`` column (and ``z`` = (mean - exact) / mcse) to simulated summaries and
-    increments. For a semi-Markov model the columns are NaN and the returned note says why.
-    ``exact`` is the :func:`exact_outcomes` table if the caller already has it."""
-    from .exact import NoExactSolution
-
-    try:
-        if exact is None:
-            exact = exact_outcomes(model)
-    except NoExactSolution as err:
-        summary = summary.assign(exact=np.nan, z=np.nan)
-        return summary, increments.assign(exact=np.nan), str(err)
-    summary = summary.merge(exact.rename(columns={"value": "exact"}), on=["strategy", "outcome"], how="left")
-    summary["z"] = (summary["mean"] - summary["exact"]) / summary["mcse"]
-    if len(increments):
-        ex_inc = increments_from_values(exact, comparator, willingness_to_pay).melt(
-            id_vars=["strategy", "comparator"], var_name="quantity", value_name="exact")
-        increments = increments.merge(ex_inc, on=["strategy", "comparator", "quantity"], how="left")
-    else:
-        increments = increments.assign(exact=np.nan)
-    return summary, increments, ""
 
 
 # ----------------------------------------------------------------------------- streaming summaries

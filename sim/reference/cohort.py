@@ -39,10 +39,10 @@ import pandas as pd
 from numpy.typing import NDArray
 
 from .exact import population_pairs
-from .hazards import KERNEL_ERRSTATE
+from ..hazards.families import KERNEL_ERRSTATE
 from .matrix_exp import expm_batched, expm_rows
-from .model import Clock, Model, ResolvedExit
-from .outcomes import _combine
+from ..model.multistate import Clock, Model, ResolvedExit
+from ..analysis.outcomes import combine_outcomes
 
 __all__ = ["Conversion", "RateRule", "Correction", "EntryAges", "CohortError", "CohortTrace",
            "cohort_trace", "trace_outcomes", "quadrature_weights"]
@@ -450,6 +450,6 @@ def trace_outcomes(trace: CohortTrace, correction: str | Correction) -> dict[str
     per_cycle = trace.moves @ c_exit  # (m, K)
     undisc = float(trace.weights @ per_cycle.sum(axis=1))
     disc = float(np.einsum("m,mk->", trace.weights, per_cycle * np.exp(-math.log1p(val.discount_costs) * t_cost)))
-    values = _combine(model, trace.strategy, integrate(0.0), integrate(val.discount_effects),
+    values = combine_outcomes(model, trace.strategy, integrate(0.0), integrate(val.discount_effects),
                       integrate(val.discount_costs), (undisc, disc))
     return {k: float(v) for k, v in values.items()}

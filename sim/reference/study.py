@@ -28,9 +28,10 @@ import numpy as np
 import pandas as pd
 
 from .cohort import Conversion, Correction, cohort_trace, trace_outcomes
-from .engine import CancelToken, SimulationCancelled, cancel_requested, simulate
-from .model import Model
-from .outcomes import exact_outcomes, increments_from_values, outcome_names, patient_outcomes, summarise
+from ..engine.histories import CancelToken, SimulationCancelled, cancel_requested, simulate
+from ..model.multistate import Model
+from ..analysis.outcomes import increments_from_values, outcome_names, patient_outcomes, summarise
+from .exact_outcomes import exact_outcomes
 
 __all__ = ["DEFAULT_CYCLE_LENGTHS", "StudyResult", "discretization_study", "observed_order", "largest_cycle_within"]
 

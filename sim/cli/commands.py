@@ -22,14 +22,15 @@ from typing import TextIO
 
 import pandas as pd
 
-from . import __version__
-from .demo import demo_path
-from .engine import SimulationResult, chunk_size_for, simulate_chunks
-from .export import ExportError, RunWriter, metadata_for, write_tidy_csv
-from .model import BACKGROUND, Clock
-from .outcomes import OutcomeAccumulator, patient_outcomes, with_exact
-from .scenario import Scenario, ScenarioError, load_scenario
-from .study import discretization_study
+from .. import __version__
+from ..io.demo import demo_path
+from ..engine.histories import SimulationResult, chunk_size_for, simulate_chunks
+from ..io.export import ExportError, RunWriter, metadata_for, write_tidy_csv
+from ..model.multistate import BACKGROUND, Clock
+from ..analysis.outcomes import OutcomeAccumulator, patient_outcomes
+from ..reference.exact_outcomes import with_exact
+from ..io.scenario import Scenario, ScenarioError, load_scenario
+from ..reference.study import discretization_study
 
 __all__ = ["main", "describe"]
 

@@ -73,7 +73,7 @@ import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 from scipy import optimize
 
-from sim.hazards import Gompertz, GompertzMakeham, PiecewiseConstant
+from ..hazards.families import Gompertz, GompertzMakeham, PiecewiseConstant
 
 __all__ = [
     "KINDS",

@@ -1,0 +1,15 @@
+"""What a simulation's event log says: Kaplan-Meier survival, Aalen-Johansen state occupancy and
+cumulative incidence, restricted means and time in state with Monte Carlo standard errors, and the
+health-economic outcomes (life years, QALYs, costs, increments, ICER, net benefit) with one set of
+definitions shared by simulated, exact and cycle-based results."""
+
+from .columns import label_codes, patient_ids, time_column
+from .estimators import (ABSORBED, CENSORED, crude_rate, crude_risk, cumulative_incidence, kaplan_meier,
+                         per_patient_time_in_states, restricted_mean_survival, state_occupancy, time_in_states)
+from .outcomes import (OUTCOMES, OutcomeAccumulator, combine_outcomes, incremental, increments_from_values,
+                       outcome_names, patient_outcomes, summarise)
+
+__all__ = ["label_codes", "patient_ids", "time_column", "ABSORBED", "CENSORED", "crude_rate", "crude_risk",
+           "cumulative_incidence", "kaplan_meier", "per_patient_time_in_states", "restricted_mean_survival",
+           "state_occupancy", "time_in_states", "OUTCOMES", "OutcomeAccumulator", "combine_outcomes", "incremental",
+           "increments_from_values", "outcome_names", "patient_outcomes", "summarise"]

@@ -1,0 +1,12 @@
+"""The continuous-time engine: individual patient histories simulated vectorised over patients, with
+competing risks and inverse-cumulative-hazard sampling driven by counter-based random numbers
+(Philox4x64-10 keyed on seed, patient, stream and occurrence), giving an event log and a patient
+table that are identical for any chunking or number of workers."""
+
+from .histories import (CancelToken, SimulationCancelled, SimulationError, SimulationResult, cancel_requested,
+                        chunk_size_for, simulate, simulate_chunks)
+from .rng import ATTRIBUTE_STREAM, exponentials, key_from_seed, philox4x64, uniforms
+
+__all__ = ["CancelToken", "SimulationCancelled", "SimulationError", "SimulationResult", "cancel_requested",
+           "chunk_size_for", "simulate", "simulate_chunks", "ATTRIBUTE_STREAM", "exponentials", "key_from_seed",
+           "philox4x64", "uniforms"]
