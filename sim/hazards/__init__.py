@@ -3,13 +3,14 @@ and a stable conditional inverse of H for each family (exponential, Weibull, Gom
 Gompertz-Makeham, log-logistic, log-normal, gamma, piecewise-constant, proportional hazards), and the
 conversions between rates, risks over a period and time units. See docs/methods.md."""
 
+from .dimensions import FAMILY_DIMENSIONS, Dimension, dimension_of, from_year_units, to_year_units
 from .families import (FAMILIES, KERNEL_ERRSTATE, Exponential, Gamma, Gompertz, GompertzMakeham, Hazard,
                        HazardParameterError, LogLogistic, LogNormal, PiecewiseConstant, ProportionalHazards,
                        Weibull, make_hazard)
 from .units import (DAYS_PER_YEAR, MONTHS_PER_YEAR, UNIT_IN_YEARS, RateConversion, UnitError, from_years,
                     rate_from_risk, rate_per_year, rescale_risk, risk_from_rate, to_years)
 
-__all__ = ["FAMILIES", "KERNEL_ERRSTATE", "Exponential", "Gamma", "Gompertz", "GompertzMakeham", "Hazard",
+__all__ = ["FAMILY_DIMENSIONS", "Dimension", "dimension_of", "from_year_units", "to_year_units", "FAMILIES", "KERNEL_ERRSTATE", "Exponential", "Gamma", "Gompertz", "GompertzMakeham", "Hazard",
            "HazardParameterError", "LogLogistic", "LogNormal", "PiecewiseConstant", "ProportionalHazards",
            "Weibull", "make_hazard", "DAYS_PER_YEAR", "MONTHS_PER_YEAR", "UNIT_IN_YEARS", "RateConversion",
            "UnitError", "from_years", "rate_from_risk", "rate_per_year", "rescale_risk", "risk_from_rate",
