@@ -3,79 +3,79 @@
 PNG is ``widget.grab()``. SVG does not use pyqtgraph's own SVG exporter (it fails on Qt 6.11+): the
 widget paints itself into a ``QSvgGenerator`` whose resolution is the widget's logical DPI, size the
 widget's size and view box the widget's rect, so text and lines keep their on-screen proportions.
-Files are written to a temporary name in the destination folder and then renamed into place.
+The image is drawn into memory, then written with :func:`sim.io.atomic.write_atomic` (a temporary
+file in the destination folder, renamed into place, with the mode a plain ``open()`` gives under the
+user's umask).
 """
 
 from __future__ import annotations
 
+import errno
 import os
-import tempfile
 from pathlib import Path
 
-from PySide6.QtCore import Signal, Slot
+from PySide6.QtCore import QBuffer, QByteArray, QIODevice, Signal, Slot
 from PySide6.QtGui import QPainter
 from PySide6.QtSvg import QSvgGenerator
 from PySide6.QtWidgets import QFileDialog, QHBoxLayout, QPushButton, QWidget
+
+from sim.io.atomic import AtomicWriteError, write_atomic
 
 __all__ = ["save_png", "save_svg", "ask_save_path", "PlotSaveBar"]
 
 _FILTERS = {"png": "PNG image (*.png)", "svg": "SVG vector image (*.svg)"}
 
 
-def _temp_in(path: Path) -> Path:
-    fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=path.suffix, dir=path.parent)
-    os.close(fd)
-    return Path(tmp)
-
-
 def _check_folder(path: Path) -> None:
+    """Refuse before painting anything: a missing folder or a folder as the file name."""
     if not path.parent.is_dir():
-        raise OSError(f"{path}: the folder {path.parent} does not exist")
+        raise AtomicWriteError(path, f"the folder {path.parent} does not exist", errno.ENOENT)
     if path.is_dir():
-        raise OSError(f"{path} is a folder; give a file name")
+        raise AtomicWriteError(path, "is a folder; give a file name", errno.EISDIR)
 
 
 def save_png(widget: QWidget, path: str | os.PathLike[str]) -> Path:
     """Save what ``widget`` shows as a PNG at screen resolution; returns the path."""
     p = Path(path)
     _check_folder(p)
-    tmp = _temp_in(p)
-    try:
-        if not widget.grab().save(str(tmp), "PNG"):
-            raise OSError(f"{p}: Qt could not write the PNG image")
-        os.replace(tmp, p)
-    finally:
-        tmp.unlink(missing_ok=True)
-    return p
+    data = QByteArray()
+    buffer = QBuffer(data)
+    buffer.open(QIODevice.OpenModeFlag.WriteOnly)
+    ok = widget.grab().save(buffer, "PNG")
+    buffer.close()
+    if not ok or data.isEmpty():
+        raise OSError(f"{p}: Qt could not write the PNG image")
+    png = data.data()
+    return write_atomic(p, lambda handle: handle.write(png))
 
 
 def save_svg(widget: QWidget, path: str | os.PathLike[str], title: str = "") -> Path:
     """Save ``widget`` as an SVG vector image (see the module docstring); returns the path."""
     p = Path(path)
     _check_folder(p)
-    tmp = _temp_in(p)
+    data = QByteArray()
+    buffer = QBuffer(data)
+    buffer.open(QIODevice.OpenModeFlag.WriteOnly)
+    gen = QSvgGenerator()
+    gen.setOutputDevice(buffer)
+    gen.setSize(widget.size())
+    gen.setViewBox(widget.rect())
+    gen.setResolution(widget.logicalDpiX())
+    gen.setTitle(title or p.stem)
+    gen.setDescription("Plot saved by HazardTrace")
+    painter = QPainter()
+    if not painter.begin(gen):
+        raise OSError(f"{p}: Qt could not start writing the SVG image")
     try:
-        gen = QSvgGenerator()
-        gen.setFileName(str(tmp))
-        gen.setSize(widget.size())
-        gen.setViewBox(widget.rect())
-        gen.setResolution(widget.logicalDpiX())
-        gen.setTitle(title or p.stem)
-        gen.setDescription("Plot saved by HazardTrace")
-        painter = QPainter()
-        if not painter.begin(gen):
-            raise OSError(f"{p}: Qt could not start writing the SVG image")
-        try:
-            widget.render(painter)
-        finally:
-            painter.end()
-        del gen  # closes the file
-        if tmp.stat().st_size == 0:
-            raise OSError(f"{p}: Qt wrote an empty SVG image")
-        os.replace(tmp, p)
+        widget.render(painter)
     finally:
-        tmp.unlink(missing_ok=True)
-    return p
+        painter.end()  # writes the closing tags into the buffer
+    del gen
+    buffer.close()
+    if data.isEmpty():
+        raise OSError(f"{p}: Qt wrote an empty SVG image")
+    svg = data.data()
+    return write_atomic(p, lambda handle: handle.write(svg))
 
 
 def ask_save_path(parent: QWidget | None, title: str, suggested: str,

@@ -4,6 +4,8 @@ shown table as CSV, and plots as PNG and SVG; file dialogs are monkeypatched."""
 from __future__ import annotations
 
 import dataclasses
+import os
+import stat
 import xml.etree.ElementTree as ET
 from pathlib import Path
 
@@ -13,7 +15,7 @@ import pytest
 from PySide6.QtGui import QImage
 from PySide6.QtWidgets import QFileDialog
 
-from gui.export_plot import ask_save_path, save_svg
+from gui.export_plot import ask_save_path, save_png, save_svg
 from gui.results import ResultsPanel
 from gui.results.exports import data_table, write_data
 from sim.io.demo import demo_scenario
@@ -175,3 +177,23 @@ def test_every_plot_saves_as_png_and_svg(qtbot, monkeypatch, tmp_path, panel, ki
 def test_save_svg_reports_a_missing_folder(qtbot, tmp_path, panel):
     with pytest.raises(OSError, match="does not exist"):
         save_svg(panel.curves.survival_panel.graphics, tmp_path / "nope" / "plot.svg")
+
+
+@pytest.mark.skipif(os.name != "posix", reason="file modes and umask are POSIX")
+@pytest.mark.parametrize("kind", ["png", "svg"])
+def test_saved_plot_gets_the_mode_of_a_plain_open(qtbot, tmp_path, panel, kind):
+    """A saved image is readable by others under umask 022 (0644), like any file the user creates
+    (it used to keep the 0600 of its temporary file); written atomically, no temporary left."""
+    graphics = panel.curves.survival_panel.graphics
+    old = os.umask(0o022)
+    try:
+        out = (save_png if kind == "png" else save_svg)(graphics, tmp_path / f"plot.{kind}")
+    finally:
+        os.umask(old)
+    assert stat.S_IMODE(out.stat().st_mode) == 0o644
+    assert [p.name for p in tmp_path.iterdir()] == [f"plot.{kind}"]
+
+
+def test_save_png_refuses_a_folder_as_file_name(qtbot, tmp_path, panel):
+    with pytest.raises(OSError, match="is a folder"):
+        save_png(panel.curves.survival_panel.graphics, tmp_path)
