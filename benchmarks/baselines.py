@@ -24,7 +24,7 @@ import random
 
 import numpy as np
 
-from sim.hazards.families import Gompertz, Weibull
+from sim.hazards import Gompertz, Weibull
 
 from workloads import REFERENCE
 

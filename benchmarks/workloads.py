@@ -11,7 +11,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from sim.hazards.families import Exponential, Gompertz, Weibull
+from sim.hazards import Exponential, Gompertz, Weibull
 from sim.model.multistate import BackgroundMortality, Clock, Horizon, Model, State, Strategy, Transition
 from sim.model.population import FixedAge, Population, UniformAge
 

@@ -20,7 +20,7 @@ from PySide6.QtWidgets import (QComboBox, QDoubleSpinBox, QGridLayout, QHBoxLayo
 
 from gui.document import ScenarioDocument
 from gui.palette import OKABE_ITO
-from sim.hazards.families import Hazard
+from sim.hazards import Hazard
 from sim.model.multistate import BACKGROUND, Clock, Model
 from sim.io.scenario import Scenario, parse_duration
 from sim.hazards.units import risk_from_rate

@@ -14,7 +14,7 @@ from PySide6.QtWidgets import QComboBox, QFormLayout, QLabel, QWidget
 
 from gui.document import KeyPath, ScenarioDocument, format_key, remove_value, set_value
 from gui.editors.fields import FieldSet
-from sim.hazards.families import FAMILIES, Hazard
+from sim.hazards import FAMILIES, Hazard
 from sim.io.scenario import LOG_TIME_PARAMS, RATE_PARAMS, TIME_PARAMS, TIME_UNITS
 from sim.hazards.units import UnitError, rate_from_risk, rate_per_year, risk_from_rate
 

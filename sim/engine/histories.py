@@ -30,7 +30,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
-from ..hazards.families import KERNEL_ERRSTATE
+from ..hazards import KERNEL_ERRSTATE
 from ..model.multistate import Clock, Model, ResolvedExit
 from .rng import ATTRIBUTE_STREAM, _BulkWords, _sorted_draws, key_from_seed
 

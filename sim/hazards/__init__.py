@@ -4,9 +4,15 @@ Gompertz-Makeham, log-logistic, log-normal, gamma, piecewise-constant, proportio
 conversions between rates, risks over a period and time units. See docs/methods.md."""
 
 from .dimensions import FAMILY_DIMENSIONS, Dimension, dimension_of, from_year_units, to_year_units
-from .families import (FAMILIES, KERNEL_ERRSTATE, Exponential, Gamma, Gompertz, GompertzMakeham, Hazard,
-                       HazardParameterError, LogLogistic, LogNormal, PiecewiseConstant, ProportionalHazards,
-                       Weibull, make_hazard)
+from .base import KERNEL_ERRSTATE, Hazard, HazardParameterError
+from .exponential import Exponential
+from .gamma import Gamma
+from .gompertz import Gompertz, GompertzMakeham
+from .lognormal import LogNormal
+from .piecewise import PiecewiseConstant
+from .proportional import ProportionalHazards
+from .registry import FAMILIES, make_hazard
+from .shape_scale import LogLogistic, Weibull
 from .units import (DAYS_PER_YEAR, MONTHS_PER_YEAR, UNIT_IN_YEARS, RateConversion, UnitError, from_years,
                     rate_from_risk, rate_per_year, rescale_risk, risk_from_rate, to_years)
 

@@ -73,7 +73,7 @@ import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 from scipy import optimize
 
-from ..hazards.families import Gompertz, GompertzMakeham, PiecewiseConstant
+from ..hazards import Gompertz, GompertzMakeham, PiecewiseConstant
 
 __all__ = [
     "KINDS",

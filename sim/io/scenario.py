@@ -27,7 +27,7 @@ from typing import Any, Iterable, Mapping
 import tomlkit
 from tomlkit.exceptions import ParseError
 
-from ..hazards.families import FAMILIES, Hazard, HazardParameterError, make_hazard
+from ..hazards import FAMILIES, Hazard, HazardParameterError, make_hazard
 from ..model.multistate import BACKGROUND, BackgroundMortality, Clock, Horizon, Model, ModelError, State, Strategy, Transition
 from ..model.population import EmpiricalAge, FixedAge, NormalAge, Population, PopulationError, UniformAge
 from ..hazards.units import UnitError, rate_from_risk, rate_per_year, to_years

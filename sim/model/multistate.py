@@ -12,7 +12,7 @@ from typing import Mapping
 
 import numpy as np
 
-from ..hazards.families import Exponential, Hazard, PiecewiseConstant, ProportionalHazards
+from ..hazards import Exponential, Hazard, PiecewiseConstant, ProportionalHazards
 from .population import Population
 from .valuation import Valuation
 

@@ -39,7 +39,7 @@ import pandas as pd
 from numpy.typing import NDArray
 
 from .exact import population_pairs
-from ..hazards.families import KERNEL_ERRSTATE
+from ..hazards import KERNEL_ERRSTATE
 from .matrix_exp import expm_batched, expm_rows
 from ..model.multistate import Clock, Model, ResolvedExit
 from ..analysis.outcomes import combine_outcomes

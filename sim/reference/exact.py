@@ -30,7 +30,7 @@ import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 from scipy.integrate import solve_ivp
 
-from ..hazards.families import KERNEL_ERRSTATE
+from ..hazards import KERNEL_ERRSTATE
 from ..model.multistate import Clock, Model, ResolvedExit
 
 __all__ = ["NoExactSolution", "ExactSolution", "StackedSolution", "solve_exact", "solve_stacked",

@@ -8,7 +8,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from sim.hazards.families import Exponential, Gompertz, Weibull
+from sim.hazards import Exponential, Gompertz, Weibull
 from sim.model.multistate import BackgroundMortality, Clock, Horizon, Model, State, Strategy, Transition
 from sim.model.population import FixedAge, NormalAge, Population
 

@@ -8,7 +8,7 @@ from scipy import integrate, linalg
 
 from sim.reference.cohort import CohortError, _jump_over, cohort_trace, quadrature_weights, trace_outcomes
 from sim.reference.exact import solve_exact
-from sim.hazards.families import Exponential, Gompertz, Weibull
+from sim.hazards import Exponential, Gompertz, Weibull
 from sim.reference.matrix_exp import expm_batched
 from sim.model.multistate import Clock, Horizon, Model, State, Transition
 from sim.model.population import FixedAge, Population, UniformAge

@@ -11,7 +11,7 @@ import pytest
 
 from sim.engine.histories import SimulationCancelled, SimulationError, simulate
 from sim.reference.exact import solve_exact
-from sim.hazards.families import Exponential, Gompertz
+from sim.hazards import Exponential, Gompertz
 from sim.model.multistate import BackgroundMortality, Clock, Horizon, Model, State, Strategy, Transition
 from sim.model.population import FixedAge, Population, UniformAge
 

@@ -7,7 +7,7 @@ import pytest
 from scipy import integrate, linalg
 
 from sim.reference.exact import NoExactSolution, occupancy_for_entry, solve_exact
-from sim.hazards.families import Exponential, Gompertz, Weibull
+from sim.hazards import Exponential, Gompertz, Weibull
 from sim.model.multistate import BackgroundMortality, Clock, Horizon, Model, State, Strategy, Transition
 from sim.model.population import FixedAge, Population, UniformAge
 

@@ -1,4 +1,4 @@
-"""Tests for ``sim.hazards.families``.
+"""Tests for ``sim.hazards`` (the hazard families).
 
 Identities for every family (METHODS.md section 2): ``sf == exp(-H)``, ``H(H^-1(y)) == y``,
 ``H(x + T) - H(x) == e`` for the conditional time, ``h == dH/dt`` (quadrature). Independent
@@ -19,7 +19,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from scipy import integrate, stats
 
-from sim.hazards.families import (
+from sim.hazards import (
     FAMILIES,
     Exponential,
     Gamma,

@@ -24,7 +24,7 @@ import numpy as np
 import openpyxl
 import pytest
 
-from sim.hazards.families import Gompertz, GompertzMakeham, PiecewiseConstant
+from sim.hazards import Gompertz, GompertzMakeham, PiecewiseConstant
 from sim.io.lifetable import (
     NOMINAL_EXPOSURE,
     GompertzFit,

@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from sim.hazards.families import Exponential, Gompertz, Weibull
+from sim.hazards import Exponential, Gompertz, Weibull
 from sim.model.multistate import (BACKGROUND, BackgroundMortality, Clock, Horizon, Model, ModelError, State,
                        Strategy, Transition)
 from sim.model.population import EmpiricalAge, FixedAge, NormalAge, Population, PopulationError, UniformAge

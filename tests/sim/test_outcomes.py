@@ -7,7 +7,7 @@ import pandas as pd
 import pytest
 
 from sim.engine.histories import simulate
-from sim.hazards.families import Exponential
+from sim.hazards import Exponential
 from sim.model.multistate import Clock, Horizon, Model, State, Strategy, Transition
 from sim.reference.exact_outcomes import exact_outcomes, exact_outcomes_and_occupancy
 from sim.analysis.outcomes import incremental, increments_from_values, patient_outcomes, summarise

@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 
 from sim.io.demo import demo_model
-from sim.hazards.families import Exponential, Weibull
+from sim.hazards import Exponential, Weibull
 from sim.model.multistate import Clock, Horizon, Model, State, Transition
 from sim.model.population import FixedAge, Population
 from sim.reference.study import discretization_study, observed_order

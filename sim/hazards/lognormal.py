@@ -1,0 +1,83 @@
+"""The log-normal event time as a hazard, accurate in both tails (``log_ndtr``, ``erfcx``,
+``ndtri_exp``)."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import ClassVar
+
+import numpy as np
+from scipy import special as sc
+
+from ._numerics import FloatArray
+from .base import Hazard, _param
+
+__all__ = ["LogNormal"]
+
+
+@dataclass(frozen=True)
+class LogNormal(Hazard):
+    """Log-normal event time: :math:`\\log T \\sim N(\\mu, \\sigma^2)`.
+
+    Parameters
+    ----------
+    mu : float
+        Mean of log time (log years), finite.
+    sigma : float
+        Standard deviation of log time, ``> 0``.
+
+    Notes
+    -----
+    With :math:`w = (\\log t - \\mu)/\\sigma`: :math:`S(t) = \\Phi(-w)`,
+    :math:`H(t) = -\\log\\Phi(-w)` via ``scipy.special.log_ndtr`` (accurate in both tails),
+    :math:`h(t) = \\varphi(w) / (\\sigma t \\Phi(-w))` (in log space for ``w < 0``, as
+    :math:`\\sqrt{2/\\pi} / (\\sigma t\\,\\mathrm{erfcx}(w/\\sqrt 2))` for ``w >= 0``), and
+    :math:`H^{-1}(y) = \\exp(\\mu - \\sigma\\,\\Phi^{-1}(e^{-y}))` via ``ndtri_exp``.
+    scipy: ``lognorm(s=sigma, scale=exp(mu))``. Conditional time: the base-class inversion
+    with Newton polishing.
+    """
+
+    mu: float
+    sigma: float
+    family: ClassVar[str] = "lognormal"
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "mu", _param(self.family, "mu", self.mu, "finite"))
+        object.__setattr__(self, "sigma", _param(self.family, "sigma", self.sigma, "positive"))
+
+    @property
+    def cumhazard_limit(self) -> float:
+        return math.inf
+
+    def params(self) -> dict[str, float]:
+        return {"mu": self.mu, "sigma": self.sigma}
+
+    def _w(self, t: FloatArray) -> FloatArray:
+        return (np.log(t) - self.mu) / self.sigma
+
+    def _hazard(self, t: FloatArray) -> FloatArray:
+        w = self._w(t)
+        with np.errstate(invalid="ignore"):  # t = 0 and t = inf lanes, replaced below
+            # w < 0: log phi(w) - log Phi(-w) with log Phi(-w) ~ 0 (no cancellation);
+            # w >= 0: phi(w) / Phi(-w) = sqrt(2/pi) / erfcx(w / sqrt 2), free of the cancellation
+            # between -w^2/2 and log Phi(-w) in the upper tail.
+            log_h = -0.5 * w * w - 0.5 * math.log(2.0 * math.pi) - sc.log_ndtr(-w) - np.log(self.sigma * t)
+            upper = math.sqrt(2.0 / math.pi) / (self.sigma * t * sc.erfcx(np.maximum(w, 0.0) / math.sqrt(2.0)))
+            h = np.where(w >= 0.0, upper, np.exp(log_h))
+        return np.where((t > 0.0) & (t < np.inf), h, 0.0)
+
+    def _cumhazard(self, t: FloatArray) -> FloatArray:
+        return -sc.log_ndtr(-self._w(t))
+
+    def _inv_cumhazard(self, y: FloatArray) -> FloatArray:
+        w = -sc.ndtri_exp(-y)
+        far = (y > 3000.0) & np.isfinite(y)
+        if np.any(far):
+            # ndtri_exp loses digits beyond H ~ 1e4 (1e-12 relative at 1e5, checked against 60-digit
+            # arithmetic); one Newton step on log Phi(-w) = -y with the accurate log_ndtr restores them.
+            wf = w[far]
+            log_sf = sc.log_ndtr(-wf)
+            w = np.array(w, dtype=np.float64)
+            w[far] = wf + (log_sf + y[far]) * np.exp(0.5 * wf * wf + 0.5 * math.log(2.0 * math.pi) + log_sf)
+        return np.exp(self.mu + self.sigma * w)

@@ -1,0 +1,146 @@
+"""Two-parameter families with a shape and a time scale and closed-form inverses: Weibull and
+log-logistic (the gamma family shares their parameters; see :mod:`.gamma`).
+
+Both conditional times are evaluated in log space, free of the cancellation in
+``H^{-1}(H(x) + e) - x`` (METHODS.md section 2; Bender, Augustin & Blettner 2005, Stat Med
+24(11):1713-1723).
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import ClassVar
+
+import numpy as np
+
+from ._numerics import FloatArray, _log_expm1, _power_or_log, _softplus
+from .base import Hazard, _param
+
+__all__ = ["Weibull", "LogLogistic"]
+
+
+@dataclass(frozen=True)
+class _ShapeScale(Hazard):
+    """Shared parameters of the proper two-parameter families with a shape and a time scale
+    (Weibull, log-logistic, gamma): both must be positive and finite."""
+
+    shape: float
+    scale: float
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "shape", _param(self.family, "shape", self.shape, "positive"))
+        object.__setattr__(self, "scale", _param(self.family, "scale", self.scale, "positive"))
+
+    @property
+    def cumhazard_limit(self) -> float:
+        return math.inf
+
+    def params(self) -> dict[str, float]:
+        return {"shape": self.shape, "scale": self.scale}
+
+
+@dataclass(frozen=True)
+class Weibull(_ShapeScale):
+    """Weibull hazard in the scale parameterisation.
+
+    Parameters
+    ----------
+    shape : float
+        :math:`k > 0`; ``k > 1`` rising hazard, ``k < 1`` falling (infinite at 0), ``k = 1`` constant.
+    scale : float
+        :math:`\\lambda > 0` in years (the time by which :math:`H = 1`, i.e. 63.2 % have the event).
+
+    Notes
+    -----
+    :math:`H(t) = (t/\\lambda)^k`, :math:`h(t) = (k/\\lambda)(t/\\lambda)^{k-1}`,
+    :math:`H^{-1}(y) = \\lambda y^{1/k}` (METHODS.md section 2). Bender et al. (2005) write
+    :math:`H(t) = \\lambda_B t^{\\nu}`, i.e. :math:`\\nu = k` and :math:`\\lambda_B = \\lambda^{-k}`.
+    scipy: ``weibull_min(c=shape, scale=scale)``.
+
+    Conditional time: with :math:`z = \\log(1 + e/H(x)) / k` (computed as a softplus of
+    :math:`\\log e - \\log H(x)`), :math:`x + T = \\lambda (H(x) + e)^{1/k}` and
+    :math:`T = (x + T)(1 - e^{-z})`, free of cancellation for any ``e / H(x)``.
+    """
+
+    family: ClassVar[str] = "weibull"
+
+    def _hazard(self, t: FloatArray) -> FloatArray:
+        k, lam = self.shape, self.scale
+        return _power_or_log(k / lam, t / lam, k - 1.0, np.log(t) - math.log(lam))
+
+    def _cumhazard(self, t: FloatArray) -> FloatArray:
+        k, lam = self.shape, self.scale
+        return _power_or_log(1.0, t / lam, k, np.log(t) - math.log(lam))
+
+    def _inv_cumhazard(self, y: FloatArray) -> FloatArray:
+        return _power_or_log(self.scale, y, 1.0 / self.shape, np.log(y))
+
+    def _conditional_time(self, x: FloatArray, e: FloatArray) -> FloatArray:
+        k, log_lam = self.shape, math.log(self.scale)
+        if not x.any():
+            # every clock at 0 (a first visit on the entry clock, any visit on the time-in-state
+            # clock): T = lambda e^(1/k). The general form below reduces to exactly these
+            # operations there (logaddexp(-inf, a) = a, expm1(-inf) = -1), so the bits agree.
+            return np.exp(log_lam + np.log(e) / k)
+        log_hx = k * (np.log(x) - log_lam)  # -inf at x = 0
+        log_e = np.log(e)
+        with np.errstate(invalid="ignore"):  # x = 0 and e = 0 together: fixed by the where below
+            z = _softplus(log_e - log_hx) / k  # log((x + T) / x)
+            log_end = log_lam + np.logaddexp(log_hx, log_e) / k  # log(x + T)
+            t = np.exp(log_end) * -np.expm1(-z)
+        return np.where(e > 0.0, t, 0.0)
+
+
+
+@dataclass(frozen=True)
+class LogLogistic(_ShapeScale):
+    """Log-logistic hazard (unimodal for shape > 1, decreasing for shape <= 1).
+
+    Parameters
+    ----------
+    shape : float
+        :math:`k > 0`.
+    scale : float
+        :math:`\\lambda > 0` in years (the median).
+
+    Notes
+    -----
+    :math:`S(t) = 1 / (1 + (t/\\lambda)^k)`, :math:`H(t) = \\log(1 + (t/\\lambda)^k)`,
+    :math:`h(t) = (k/t)\\,a/(1 + a)` with :math:`a = (t/\\lambda)^k`,
+    :math:`H^{-1}(y) = \\lambda (e^{y} - 1)^{1/k}`. scipy: ``fisk(c=shape, scale=scale)``.
+    Conditional time: :math:`a' = (1 + a) e^{e} - 1`, so
+    :math:`\\log((x+T)/x) = \\log(1 + \\mathrm{expm1}(e)(1 + 1/a)) / k` (a softplus in log space)
+    and :math:`T = (x + T)(1 - (x/(x+T)))` without cancellation.
+    """
+
+    family: ClassVar[str] = "loglogistic"
+
+    def _hazard(self, t: FloatArray) -> FloatArray:
+        k = self.shape
+        h0 = math.inf if k < 1.0 else (1.0 / self.scale if k == 1.0 else 0.0)
+        log_t = np.log(t)
+        with np.errstate(invalid="ignore"):  # t = 0 and t = inf lanes, replaced below
+            # h = (k/t) a/(1 + a) = exp(log k - log t - softplus(-log a)), free of over/underflow
+            h = np.exp(math.log(k) - log_t - _softplus(-k * (log_t - math.log(self.scale))))
+        return np.where(t > 0.0, np.where(t < np.inf, h, 0.0), h0)
+
+    def _cumhazard(self, t: FloatArray) -> FloatArray:
+        k = self.shape
+        log_u = np.log(t) - math.log(self.scale)
+        a = _power_or_log(1.0, t / self.scale, k, log_u)
+        return np.where(np.isinf(a), k * log_u, np.log1p(a))
+
+    def _inv_cumhazard(self, y: FloatArray) -> FloatArray:
+        k, lam = self.shape, self.scale
+        return _power_or_log(lam, np.expm1(y), 1.0 / k, _log_expm1(y))
+
+    def _conditional_time(self, x: FloatArray, e: FloatArray) -> FloatArray:
+        k, log_lam = self.shape, math.log(self.scale)
+        la = k * (np.log(x) - log_lam)  # log a(x), -inf at x = 0
+        lem1 = _log_expm1(e)  # log(expm1(e)), -inf at e = 0
+        with np.errstate(invalid="ignore"):  # e = 0 or e = inf lanes, replaced below
+            z = _softplus(lem1 + _softplus(-la)) / k  # log((x + T) / x)
+            log_end = log_lam + np.logaddexp(la + e, lem1) / k  # log(x + T)
+            t = np.exp(log_end) * -np.expm1(-z)
+        return np.where(e > 0.0, np.where(e < np.inf, t, np.inf), 0.0)
