@@ -4,8 +4,11 @@ health-economic outcomes (life years, QALYs, costs, increments, ICER, net benefi
 definitions shared by simulated, exact and cycle-based results."""
 
 from .columns import label_codes, patient_ids, time_column
-from .estimators import (ABSORBED, CENSORED, crude_rate, crude_risk, cumulative_incidence, kaplan_meier,
-                         per_patient_time_in_states, restricted_mean_survival, state_occupancy, time_in_states)
+from ._event_log import ABSORBED, CENSORED
+from .aalen_johansen import cumulative_incidence, state_occupancy
+from .crude import crude_rate, crude_risk
+from .kaplan_meier import kaplan_meier
+from .time_in_state import per_patient_time_in_states, restricted_mean_survival, time_in_states
 from .outcomes import (OUTCOMES, OutcomeAccumulator, combine_outcomes, incremental, increments_from_values,
                        outcome_names, patient_outcomes, summarise)
 

@@ -27,7 +27,8 @@ import pandas as pd
 from numpy.typing import NDArray
 
 from ..engine.histories import SimulationResult
-from .estimators import _per_patient, _prepare_log
+from ._event_log import _prepare_log
+from .time_in_state import _per_patient
 from ..model.multistate import Model
 
 __all__ = ["OUTCOMES", "OutcomeAccumulator", "patient_outcomes", "summarise", "incremental", "outcome_names",

@@ -18,7 +18,7 @@ import numpy as np
 import pandas as pd
 
 from ..engine.histories import SimulationCancelled, SimulationResult, cancel_requested, chunk_size_for, simulate
-from ..analysis.estimators import kaplan_meier, state_occupancy
+from ..analysis import kaplan_meier, state_occupancy
 from ..analysis.outcomes import incremental, patient_outcomes, summarise
 from ..reference.exact_outcomes import exact_outcomes_and_occupancy, with_exact
 from ..io.scenario import Scenario

@@ -245,7 +245,7 @@ def test_kaplan_meier_of_engine_log_matches_lifelines():
     # engine's patient table, with censoring that varies by patient (horizon at attained age 85).
     from lifelines import KaplanMeierFitter
 
-    from sim.analysis.estimators import kaplan_meier
+    from sim.analysis import kaplan_meier
 
     model = illness_death(horizon=Horizon(85.0, "age"), entry_age=UniformAge(45, 75))
     pt = simulate(model, 5000, seed=31).patients
@@ -260,7 +260,7 @@ def test_kaplan_meier_of_engine_log_matches_lifelines():
 @pytest.mark.parametrize("n", [400_000 if FULL else 40_000])
 def test_aalen_johansen_of_engine_log_matches_kolmogorov(n):
     # Aalen-Johansen occupancy from the simulated log vs the exact forward equations, within 4 MCSE.
-    from sim.analysis.estimators import state_occupancy
+    from sim.analysis import state_occupancy
 
     model = illness_death(horizon=Horizon(30.0, "time"))
     times = np.array([3.0, 12.0, 25.0])

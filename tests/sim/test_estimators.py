@@ -1,4 +1,5 @@
-"""Tests of sim.analysis.estimators on event logs simulated here with numpy (fixed seeds), in the engine's format.
+"""Tests of the sim.analysis estimators (Kaplan-Meier, Aalen-Johansen, time in state, crude rates) on
+event logs simulated here with numpy (fixed seeds), in the engine's format.
 
 References used as independent checks:
 - lifelines.KaplanMeierFitter and scipy.stats.ecdf(CensoredData) (general-purpose Kaplan-Meier with
@@ -20,7 +21,7 @@ import scipy.stats as st
 from lifelines import AalenJohansenFitter, KaplanMeierFitter
 from scipy.integrate import quad
 
-from sim.analysis.estimators import (
+from sim.analysis import (
     crude_rate,
     crude_risk,
     cumulative_incidence,
@@ -279,7 +280,7 @@ def test_state_occupancy_matches_product_integral_reference_with_censoring():
 
 def test_state_occupancy_small_block_size_gives_the_same_product(monkeypatch):
     # The product integral is evaluated in blocks of event times; the split must not matter.
-    import sim.analysis.estimators as est
+    import sim.analysis.aalen_johansen as est
 
     events, patients = illness_log(seed=8, n=120, staggered=True)
     times = [3.0, 7.0, 9.5]

@@ -20,7 +20,7 @@ import pytest
 
 import sim
 from sim.engine.histories import simulate, simulate_chunks
-from sim.analysis.estimators import per_patient_time_in_states
+from sim.analysis import per_patient_time_in_states
 from sim.io.export import (
     LONG_FORMAT_COLUMNS,
     ExportError,
@@ -211,7 +211,7 @@ def test_long_format_matches_simulated_log():
     assert (lf["stop"] > lf["start"]).all()
 
     # time at risk through any one exit of a state = time spent in that state, patient by patient
-    # (independent computation: sim.analysis.estimators.per_patient_time_in_states)
+    # (independent computation: sim.analysis.per_patient_time_in_states)
     for strategy in model.strategy_names:
         expected = per_patient_time_in_states(ev, pt, model.state_names, strategy=strategy)
         rows = lf[lf["strategy"] == strategy]
