@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import dataclasses
 import math
+import pickle
 import re
 
 import numpy as np
@@ -21,6 +22,8 @@ from scipy import integrate, stats
 
 from sim.hazards import (
     FAMILIES,
+    FAMILY_DIMENSIONS,
+    UNIT_IN_YEARS,
     Exponential,
     Gamma,
     Gompertz,
@@ -33,7 +36,9 @@ from sim.hazards import (
     ProportionalHazards,
     Weibull,
     make_hazard,
+    to_year_units,
 )
+from sim.problems import NO_VALUE, ValidationError
 
 EPS = np.finfo(np.float64).eps
 
@@ -555,3 +560,88 @@ def test_weibull_all_zero_clocks_give_the_same_bits_as_mixed_clocks() -> None:
     np.testing.assert_array_equal(zero, mixed)
     ref = stats.weibull_min(c=1.3, scale=25.0).isf(np.exp(-e[:2000]))
     np.testing.assert_allclose(zero[:2000], ref, rtol=1e-12)
+
+
+def test_parameter_errors_carry_the_parameter_value_and_rule_as_data() -> None:
+    # HazardParameterError is a sim.problems.ValidationError (and still a ValueError): the field is
+    # read from its problems, never from the message text.
+    cases = [
+        (lambda: Weibull(shape=-1.0, scale=2.0), ("shape",), -1.0, "must be > 0 and finite"),
+        (lambda: Weibull(shape="1.5", scale=2.0), ("shape",), "1.5", "must be a real number (> 0 and finite)"),
+        (lambda: Gompertz(rate=1e-5, shape=math.inf), ("shape",), math.inf, "must be finite"),
+        (lambda: PiecewiseConstant((0, 5), (0.1, -0.2)), ("rates", 1), -0.2, "must be >= 0 and finite"),
+        (lambda: PiecewiseConstant((1, 5), (0.1, 0.2)), ("breaks", 0), 1.0,
+         "must be 0 (the first band starts at clock 0)"),
+        (lambda: PiecewiseConstant((0, 5, 5), (0.1, 0.2, 0.3)), ("breaks", 2), 5.0,
+         "must be greater than breaks[1] = 5.0 (breaks strictly increasing)"),
+        (lambda: PiecewiseConstant((0, 5), (0.1,)), ("rates",), (0.1,), "must have the same length as breaks (2)"),
+        (lambda: Weibull(1.0, 2.0).scaled(-1.0), ("hr",), -1.0, "must be >= 0 and finite"),
+        (lambda: ProportionalHazards(base="weibull", hr=2.0), ("base",), "weibull", "must be a Hazard"),
+        (lambda: make_hazard("weibul", shape=1.0), ("family",), "weibul", "must be one of the known families: "
+         "exponential, gamma, gompertz, gompertz_makeham, loglogistic, lognormal, piecewise, weibull"),
+    ]
+    for make, path, value, rule in cases:
+        with pytest.raises(HazardParameterError) as info:
+            make()
+        err = info.value
+        assert isinstance(err, ValidationError) and isinstance(err, ValueError)
+        assert len(err.problems) == 1
+        assert (err.problem.path, err.problem.value, err.problem.rule) == (path, value, rule)
+
+
+def test_unknown_and_missing_parameters_are_one_problem_each_and_errors_pickle() -> None:
+    with pytest.raises(HazardParameterError) as info:
+        make_hazard("gompertz_makeham", rate=1e-5, slope=0.1, extra=2.0)
+    err = info.value
+    assert str(err) == ("gompertz_makeham: unknown parameter(s) 'extra', 'slope'; missing parameter(s) 'shape', "
+                        "'constant'; expected parameters: rate, shape, constant")
+    assert [(p.path, p.value) for p in err.problems] == [(("extra",), 2.0), (("slope",), 0.1),
+                                                          (("shape",), NO_VALUE), (("constant",), NO_VALUE)]
+    assert all("gompertz_makeham" in p.rule for p in err.problems)
+    # process and Dask executors send errors between processes: message and problems survive
+    back = pickle.loads(pickle.dumps(err))
+    assert type(back) is HazardParameterError and str(back) == str(err) and back.problems == err.problems
+    # seen from an enclosing table (the scenario loader), the paths are prefixed
+    inner = err.within("transitions", 2)
+    assert inner.problems[0].path == ("transitions", 2, "extra")
+
+
+# --------------------------------------------------------------------------------------------
+# Parameter dimensions (sim.hazards.dimensions) and time units
+# --------------------------------------------------------------------------------------------
+
+def test_family_dimensions_list_each_constructor_parameter_in_order() -> None:
+    assert set(FAMILY_DIMENSIONS) == set(FAMILIES)
+    for family, cls in FAMILIES.items():
+        constructor = [f.name for f in dataclasses.fields(cls) if f.init]
+        assert list(FAMILY_DIMENSIONS[family]) == constructor, family
+
+
+# Each family parameterised on a clock in months (invented values of plausible size).
+IN_MONTHS: dict[str, dict[str, float | tuple[float, ...]]] = {
+    "exponential": {"rate": 0.004},
+    "weibull": {"shape": 1.4, "scale": 90.0},
+    "gompertz": {"rate": 2e-4, "shape": 0.006},
+    "gompertz_makeham": {"rate": 2e-4, "shape": -0.004, "constant": 1e-3},
+    "loglogistic": {"shape": 2.2, "scale": 40.0},
+    "lognormal": {"mu": 3.5, "sigma": 0.9},
+    "gamma": {"shape": 2.5, "scale": 18.0},
+    "piecewise": {"breaks": (0.0, 6.0, 24.0, 60.0), "rates": (0.01, 0.002, 0.0, 0.005)},
+}
+
+
+@pytest.mark.parametrize("family", sorted(FAMILIES))
+def test_month_parameters_converted_to_years_describe_the_same_hazard(family: str) -> None:
+    # Change of clock s = 12 t (months per year): a hazard written in months and the same hazard
+    # with each parameter converted by its dimension (to_year_units) must satisfy
+    # H_years(t) = H_months(12 t) and h_years(t) = 12 h_months(12 t) (chain rule).
+    assert set(IN_MONTHS) == set(FAMILIES)
+    months = IN_MONTHS[family]
+    per_unit = UNIT_IN_YEARS["months"]
+    years = {name: to_year_units(FAMILY_DIMENSIONS[family][name], value, per_unit) for name, value in months.items()}
+    h_months, h_years = make_hazard(family, **months), make_hazard(family, **years)
+    t = np.array([0.0, 0.01, 0.3, 0.5, 1.0, 2.0, 4.5, 7.0, 15.0])  # years (0.5 and 2 are band starts)
+    s = t / per_unit  # the same instants in months
+    np.testing.assert_allclose(h_years.cumhazard(t), h_months.cumhazard(s), rtol=1e-12, atol=0)
+    np.testing.assert_allclose(h_years.hazard(t), h_months.hazard(s) / per_unit, rtol=1e-12, atol=0)
+    assert h_years.cumhazard_limit == pytest.approx(h_months.cumhazard_limit, rel=1e-12)
