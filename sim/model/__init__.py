@@ -1,12 +1,24 @@
 """The validated multi-state patient model: states, transitions on clocks, background mortality, the
 entry population, the horizon, strategies and the valuation (utilities, costs, discounting).
-Everything downstream (engine, exact solver, cycle-based traces) reads a :class:`Model`."""
+Everything downstream (engine, exact solver, cycle-based traces) reads a :class:`Model`.
 
-from .multistate import (BACKGROUND, BackgroundMortality, Clock, Horizon, Model, ModelError, ResolvedExit, State,
-                         Strategy, Transition)
-from .population import EmpiricalAge, EntryAge, FixedAge, NormalAge, Population, PopulationError, UniformAge
-from .valuation import Valuation, ValuationError
+Model objects are frozen, hashable and deep-immutable (their tables are :class:`FrozenMap`); they
+check their values on construction with :mod:`sim.model.checks` (the one number check of ``sim``)
+and report every problem at once as a :class:`ModelError` (a :class:`sim.problems.ValidationError`)
+whose key paths use the scenario file's names, with items of a list named by their ``name``:
+``("transitions", "progression", "from")``.
+"""
 
-__all__ = ["BACKGROUND", "BackgroundMortality", "Clock", "Horizon", "Model", "ModelError", "ResolvedExit", "State",
-           "Strategy", "Transition", "EmpiricalAge", "EntryAge", "FixedAge", "NormalAge", "Population",
-           "PopulationError", "UniformAge", "Valuation", "ValuationError"]
+from . import checks
+from .checks import Problems
+from .errors import ModelError, PopulationError, ValuationError
+from .frozen import FrozenMap
+from .multistate import Model, ResolvedExit, is_constant_hazard
+from .parts import BACKGROUND, BackgroundMortality, Clock, Horizon, State, Strategy, Transition, item_key
+from .population import EmpiricalAge, EntryAge, FixedAge, NormalAge, Population, UniformAge
+from .valuation import Valuation
+
+__all__ = ["checks", "Problems", "FrozenMap", "BACKGROUND", "BackgroundMortality", "Clock", "Horizon", "Model",
+           "ModelError", "ResolvedExit", "State", "Strategy", "Transition", "is_constant_hazard", "item_key",
+           "EmpiricalAge", "EntryAge", "FixedAge", "NormalAge", "Population", "PopulationError", "UniformAge",
+           "Valuation", "ValuationError"]

@@ -7,6 +7,8 @@ the entry-age distribution: E[f(A)] = integral_0^1 f(F^-1(u)) du, by Gauss-Legen
 
 from __future__ import annotations
 
+import math
+from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
 from typing import Protocol
 
@@ -14,14 +16,14 @@ import numpy as np
 from numpy.typing import NDArray
 from scipy import stats
 
+from .checks import Problems, number, number_map, string
+from .errors import PopulationError
+from .frozen import FrozenMap
+
 __all__ = [
     "EntryAge", "FixedAge", "UniformAge", "NormalAge", "EmpiricalAge", "Population",
     "PopulationError",
 ]
-
-
-class PopulationError(ValueError):
-    """Invalid population definition; the message names the field, the value and the rule."""
 
 
 class EntryAge(Protocol):
@@ -37,11 +39,24 @@ class EntryAge(Protocol):
     def high(self) -> float: ...
 
 
-def _finite(name: str, value: float, minimum: float = 0.0, maximum: float = 130.0) -> float:
-    value = float(value)
-    if not (np.isfinite(value) and minimum <= value <= maximum):
-        raise PopulationError(f"{name} must be a finite age in [{minimum:g}, {maximum:g}] years, got {value!r}")
-    return value
+ENTRY_AGE = ("population", "entry_age")
+MAX_AGE = 130.0
+
+
+def _age(found: Problems, key: str | tuple, value: object) -> float | None:
+    """An attained age in [0, 130] years at ``population.entry_age.<key>``, or None (recorded)."""
+    path = (*ENTRY_AGE, *((key,) if isinstance(key, str) else key))
+    return found.check(number, path, value, minimum=0.0, maximum=MAX_AGE, error=PopulationError)
+
+
+def _set(obj: object, **values: object) -> None:
+    for name, value in values.items():
+        object.__setattr__(obj, name, value)
+
+
+def _low_below_high(found: Problems, low: float | None, high: float | None) -> None:
+    if low is not None and high is not None and not high > low:
+        found.add((*ENTRY_AGE, "high"), f"must be > entry_age.low ({low!r})", high)
 
 
 def _quantile_nodes(ppf, n: int) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
@@ -57,17 +72,19 @@ class FixedAge:
     age: float
 
     def __post_init__(self) -> None:
-        _finite("entry_age.age", self.age)
+        found = Problems()
+        _set(self, age=_age(found, "age", self.age))
+        found.raise_if_any(PopulationError)
 
     def ppf(self, u: NDArray[np.float64]) -> NDArray[np.float64]:
-        return np.full(np.shape(u), float(self.age))
+        return np.full(np.shape(u), self.age)
 
     def nodes(self, n: int = 24) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
-        return np.array([float(self.age)]), np.array([1.0])
+        return np.array([self.age]), np.array([1.0])
 
-    mean = property(lambda self: float(self.age))
-    low = property(lambda self: float(self.age))
-    high = property(lambda self: float(self.age))
+    mean = property(lambda self: self.age)
+    low = property(lambda self: self.age)
+    high = property(lambda self: self.age)
 
 
 @dataclass(frozen=True)
@@ -78,11 +95,11 @@ class UniformAge:
     high: float
 
     def __post_init__(self) -> None:
-        _finite("entry_age.low", self.low)
-        _finite("entry_age.high", self.high)
-        if not self.high > self.low:
-            raise PopulationError(
-                f"entry_age.high must be > entry_age.low, got low={self.low!r}, high={self.high!r}")
+        found = Problems()
+        low, high = _age(found, "low", self.low), _age(found, "high", self.high)
+        _low_below_high(found, low, high)
+        found.raise_if_any(PopulationError)
+        _set(self, low=low, high=high)
 
     def ppf(self, u: NDArray[np.float64]) -> NDArray[np.float64]:
         return self.low + (self.high - self.low) * np.asarray(u, dtype=float)
@@ -97,7 +114,8 @@ class UniformAge:
 
 @dataclass(frozen=True)
 class NormalAge:
-    """Normal entry age with ``mean`` and ``sd``, truncated to [low, high]."""
+    """Normal entry age with mean ``mu`` (the scenario key ``mean``) and ``sd``, truncated to
+    [low, high]."""
 
     mu: float
     sd: float
@@ -105,14 +123,13 @@ class NormalAge:
     high: float
 
     def __post_init__(self) -> None:
-        _finite("entry_age.low", self.low)
-        _finite("entry_age.high", self.high)
-        _finite("entry_age.mean", self.mu)
-        if not (np.isfinite(self.sd) and self.sd > 0):
-            raise PopulationError(f"entry_age.sd must be > 0 and finite, got {self.sd!r}")
-        if not self.high > self.low:
-            raise PopulationError(
-                f"entry_age.high must be > entry_age.low, got low={self.low!r}, high={self.high!r}")
+        found = Problems()
+        low, high = _age(found, "low", self.low), _age(found, "high", self.high)
+        mu = _age(found, "mean", self.mu)
+        sd = found.check(number, (*ENTRY_AGE, "sd"), self.sd, minimum=0.0, strict_min=True, error=PopulationError)
+        _low_below_high(found, low, high)
+        found.raise_if_any(PopulationError)
+        _set(self, mu=mu, sd=sd, low=low, high=high)
 
     @property
     def _dist(self):
@@ -130,27 +147,37 @@ class NormalAge:
         return float(self._dist.mean())
 
 
+def _number_list(found: Problems, key: str, values: object) -> list[object] | None:
+    if isinstance(values, (str, bytes, Mapping)) or not isinstance(values, Iterable):
+        found.add((*ENTRY_AGE, key), "must be a non-empty list of numbers", values)
+        return None
+    items = list(values)
+    if not items:
+        found.add((*ENTRY_AGE, key), "must be a non-empty list of numbers", items)
+        return None
+    return items
+
+
 @dataclass(frozen=True)
 class EmpiricalAge:
-    """Discrete entry ages ``ages`` with relative ``weights`` (e.g. a cohort's observed ages)."""
+    """Discrete entry ages ``ages`` with relative ``weights`` (e.g. a cohort's observed ages); both
+    are kept as tuples of floats."""
 
     ages: tuple[float, ...]
     weights: tuple[float, ...]
 
     def __post_init__(self) -> None:
-        ages = np.asarray(self.ages, dtype=float)
-        weights = np.asarray(self.weights, dtype=float)
-        if ages.ndim != 1 or ages.size == 0 or ages.shape != weights.shape:
-            raise PopulationError(
-                f"entry_age.ages and entry_age.weights must be non-empty lists of equal length, "
-                f"got {ages.size} ages and {weights.size} weights")
-        for i, a in enumerate(ages):
-            _finite(f"entry_age.ages[{i}]", a)
-        if np.any(~np.isfinite(weights)) or np.any(weights < 0) or weights.sum() <= 0:
-            raise PopulationError(
-                f"entry_age.weights must be finite, >= 0 and not all 0, got {list(self.weights)!r}")
-        object.__setattr__(self, "ages", tuple(float(a) for a in ages))
-        object.__setattr__(self, "weights", tuple(float(w) for w in weights))
+        found = Problems()
+        ages, weights = _number_list(found, "ages", self.ages), _number_list(found, "weights", self.weights)
+        if ages is not None and weights is not None and len(ages) != len(weights):
+            found.add((*ENTRY_AGE, "weights"), f"must have one weight per age ({len(ages)})", weights)
+        ages = [_age(found, ("ages", i), a) for i, a in enumerate(ages or ())]
+        weights = [found.check(number, (*ENTRY_AGE, "weights", i), w, minimum=0.0, error=PopulationError)
+                   for i, w in enumerate(weights or ())]
+        if not found and sum(weights) <= 0:
+            found.add((*ENTRY_AGE, "weights"), "must not be all 0", list(self.weights))
+        found.raise_if_any(PopulationError)
+        _set(self, ages=tuple(ages), weights=tuple(weights))
 
     @property
     def _cum(self) -> NDArray[np.float64]:
@@ -179,22 +206,30 @@ class Population:
     """The entering cohort: entry-age distribution, sex mix and starting state.
 
     ``sex_mix`` maps a sex label (e.g. ``"female"``) to its share; shares must sum to 1. A single
-    label ``{"all": 1.0}`` means background mortality is not sex-specific.
+    label ``{"all": 1.0}`` means background mortality is not sex-specific. It is kept as a read-only
+    :class:`~sim.model.FrozenMap` of floats.
     """
 
     entry_age: EntryAge
     initial_state: str
-    sex_mix: dict[str, float] = field(default_factory=lambda: {"all": 1.0})
+    sex_mix: Mapping[str, float] = field(default_factory=lambda: FrozenMap({"all": 1.0}))
 
     def __post_init__(self) -> None:
-        if not self.sex_mix:
-            raise PopulationError("population.sex_mix must name at least one sex, got {}")
-        shares = np.array(list(self.sex_mix.values()), dtype=float)
-        if np.any(~np.isfinite(shares)) or np.any(shares < 0):
-            raise PopulationError(f"population.sex_mix shares must be finite and >= 0, got {self.sex_mix!r}")
-        if not np.isclose(shares.sum(), 1.0, rtol=0, atol=1e-9):
-            raise PopulationError(f"population.sex_mix shares must sum to 1, got {self.sex_mix!r} "
-                                  f"(sum {shares.sum():g})")
+        found = Problems()
+        path = ("population",)
+        if not all(hasattr(self.entry_age, a) for a in ("ppf", "nodes", "mean", "low", "high")):
+            found.add((*path, "entry_age"), "must be an entry-age distribution (fixed, uniform, normal or "
+                                            "empirical)", self.entry_age)
+        found.check(string, (*path, "initial_state"), self.initial_state, error=PopulationError)
+        mix = found.check(number_map, (*path, "sex_mix"), self.sex_mix, minimum=0.0, maximum=1.0,
+                          error=PopulationError)
+        if isinstance(self.sex_mix, Mapping) and not self.sex_mix:
+            found.add((*path, "sex_mix"), "must name at least one sex", {})
+        elif mix and len(mix) == len(self.sex_mix) and not math.isclose(math.fsum(mix.values()), 1.0,
+                                                                        rel_tol=0.0, abs_tol=1e-9):
+            found.add((*path, "sex_mix"), f"shares must sum to 1 (sum {math.fsum(mix.values()):g})", dict(mix))
+        found.raise_if_any(PopulationError)
+        _set(self, sex_mix=FrozenMap(mix))
 
     @property
     def sexes(self) -> tuple[str, ...]:
@@ -205,5 +240,3 @@ class Population:
         cum = np.cumsum(np.array(list(self.sex_mix.values()), dtype=float))
         cum[-1] = 1.0
         return np.minimum(np.searchsorted(cum, u, side="left"), len(cum) - 1).astype(np.int8)
-
-

@@ -10,21 +10,17 @@ evaluations manual, 2022) or 3%/year (Sanders et al. 2016, JAMA 316(10):1093-110
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass, field
 from typing import Mapping
 
+from .checks import Problems, number, number_map, string
+from .errors import ValuationError
+from .frozen import FrozenMap
+
 __all__ = ["Valuation", "ValuationError"]
 
-
-class ValuationError(ValueError):
-    """Invalid valuation; the message names the field, the value and the rule."""
-
-
-def _finite(where: str, value: float) -> float:
-    if not isinstance(value, (int, float)) or not math.isfinite(value):
-        raise ValuationError(f"{where} must be a finite number, got {value!r}")
-    return float(value)
+# a discount rate of 1 (100% a year) or more makes no sense as an annual rate
+_MAX_DISCOUNT = 1.0
 
 
 @dataclass(frozen=True)
@@ -40,27 +36,39 @@ class Valuation:
     discount_costs, discount_effects : annual discount rates in [0, 1).
     willingness_to_pay : value of one QALY, for net monetary benefit and decisions.
     currency : label for reports.
+
+    The three tables are kept as read-only :class:`~sim.model.FrozenMap` of floats; every number is
+    checked by :func:`sim.model.checks.number` and every problem is reported (problems under
+    ``("valuation", key, ...)``).
     """
 
-    utilities: Mapping[str, float] = field(default_factory=dict)
-    state_costs: Mapping[str, float] = field(default_factory=dict)
-    transition_costs: Mapping[str, float] = field(default_factory=dict)
+    utilities: Mapping[str, float] = field(default_factory=FrozenMap)
+    state_costs: Mapping[str, float] = field(default_factory=FrozenMap)
+    transition_costs: Mapping[str, float] = field(default_factory=FrozenMap)
     discount_costs: float = 0.035
     discount_effects: float = 0.035
     willingness_to_pay: float = 20_000.0
     currency: str = "EUR"
 
     def __post_init__(self) -> None:
-        for name in ("utilities", "state_costs", "transition_costs"):
-            object.__setattr__(self, name, {k: _finite(f"valuation.{name}[{k!r}]", v)
-                                            for k, v in dict(getattr(self, name)).items()})
-        for k, u in self.utilities.items():
-            if u > 1:
-                raise ValuationError(f"valuation.utilities[{k!r}] must be <= 1 (full health), got {u!r}")
-        for name in ("discount_costs", "discount_effects"):
-            d = getattr(self, name)
-            if not (isinstance(d, (int, float)) and math.isfinite(d) and 0 <= d < 1):
-                raise ValuationError(f"valuation.{name} must be an annual rate in [0, 1), got {d!r}")
-        wtp = self.willingness_to_pay
-        if not (isinstance(wtp, (int, float)) and math.isfinite(wtp) and wtp >= 0):
-            raise ValuationError(f"valuation.willingness_to_pay must be a finite number >= 0, got {wtp!r}")
+        found = Problems()
+        p = "valuation"
+        tables = {
+            "utilities": found.check(number_map, (p, "utilities"), self.utilities, maximum=1.0, error=ValuationError),
+            "state_costs": found.check(number_map, (p, "state_costs"), self.state_costs, error=ValuationError),
+            "transition_costs": found.check(number_map, (p, "transition_costs"), self.transition_costs,
+                                            error=ValuationError),
+        }
+        rates = {name: found.check(number, (p, name), getattr(self, name), minimum=0.0, maximum=_MAX_DISCOUNT,
+                                   strict_max=True, error=ValuationError)
+                 for name in ("discount_costs", "discount_effects")}
+        wtp = found.check(number, (p, "willingness_to_pay"), self.willingness_to_pay, minimum=0.0,
+                          error=ValuationError)
+        currency = found.check(string, (p, "currency"), self.currency, error=ValuationError)
+        found.raise_if_any(ValuationError)
+        for name, table in tables.items():
+            object.__setattr__(self, name, FrozenMap(table))
+        for name, rate in rates.items():
+            object.__setattr__(self, name, rate)
+        object.__setattr__(self, "willingness_to_pay", wtp)
+        object.__setattr__(self, "currency", currency)

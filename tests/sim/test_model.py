@@ -10,6 +10,8 @@ from sim.hazards import Exponential, Gompertz, Weibull
 from sim.model.multistate import (BACKGROUND, BackgroundMortality, Clock, Horizon, Model, ModelError, State,
                        Strategy, Transition)
 from sim.model.population import EmpiricalAge, FixedAge, NormalAge, Population, PopulationError, UniformAge
+from sim.model.valuation import Valuation
+from sim.problems import NO_VALUE
 
 from .conftest import illness_death
 
@@ -25,48 +27,85 @@ def _model(**kw):
     return Model(**base)
 
 
-@pytest.mark.parametrize("kw, message", [
-    (dict(states=(State("a"), State("b"))), "at least one state must be absorbing"),
-    (dict(states=(State("well"), State("well"), State("dead", absorbing=True))), "duplicates \\['well'\\]"),
-    (dict(transitions=(Transition("x", "well", "nowhere", Exponential(0.1)),)), "target must name a state.*'nowhere'"),
-    (dict(transitions=(Transition("x", "well", "well", Exponential(0.1)),)), "source and target must differ"),
-    (dict(transitions=(Transition("x", "dead", "well", Exponential(0.1)),)), "'dead' is absorbing"),
-    (dict(transitions=(Transition("onset", "well", "sick", Exponential(0.1)),)), "states\\['sick'\\] is not absorbing but has no exits"),
-    (dict(population=Population(FixedAge(50), "dead")), "initial_state must name a non-absorbing state, got 'dead'"),
-    (dict(horizon=Horizon(40.0, "age")), "must exceed the lowest entry age 50.0"),
-    (dict(strategies=(Strategy("s", hazard_ratios={"cure": 0.5}),)), "refers to transition 'cure'"),
-    (dict(background=BackgroundMortality("sick", {"all": Exponential(0.01)})), "background.target must name an absorbing state, got 'sick'"),
-])
-def test_model_errors(kw, message):
-    with pytest.raises(ModelError, match=message):
+# each mistake: the model's keyword changed, the problem's key path, words of its rule, its value
+_ONE_MISTAKE = [
+    (dict(states=(State("a"), State("b"))), ("states",), "at least one state must be absorbing", NO_VALUE),
+    (dict(transitions=(Transition("x", "well", "nowhere", Exponential(0.1)),)), ("transitions", "x", "to"),
+     "must name a state ['well', 'sick', 'dead']", "nowhere"),
+    (dict(transitions=(Transition("x", "well", "well", Exponential(0.1)),)), ("transitions", "x", "to"),
+     "must differ from 'from'", "well"),
+    (dict(transitions=(Transition("x", "dead", "well", Exponential(0.1)),)), ("transitions", "x", "from"),
+     "is an absorbing state; absorbing states have no exits", "dead"),
+    (dict(transitions=(Transition("onset", "well", "sick", Exponential(0.1)),)), ("states", "sick"),
+     "is not absorbing but has no exits", NO_VALUE),
+    (dict(population=Population(FixedAge(50), "dead")), ("population", "initial_state"),
+     "must name a non-absorbing state", "dead"),
+    (dict(horizon=Horizon(40.0, "age")), ("horizon", "value"), "must exceed the lowest entry age 50.0", 40.0),
+    (dict(strategies=(Strategy("s", hazard_ratios={"cure": 0.5}),)), ("strategies", "s", "hazard_ratios", "cure"),
+     "must name a transition ['onset', 'death']", "cure"),
+    (dict(background=BackgroundMortality("sick", {"all": Exponential(0.01)})), ("background", "to"),
+     "must name an absorbing state", "sick"),
+    (dict(valuation=Valuation(utilities={"dead": 0.1})), ("valuation", "utilities", "dead"),
+     "must be 0 for an absorbing state", 0.1),
+    (dict(valuation=Valuation(state_costs={"limbo": 10})), ("valuation", "state_costs", "limbo"),
+     "must name a state", "limbo"),
+]
+
+
+@pytest.mark.parametrize("kw, path, rule, value", _ONE_MISTAKE)
+def test_model_errors(kw, path, rule, value):
+    with pytest.raises(ModelError) as info:
         _model(**kw)
+    found = [p for p in info.value.problems if p.path == path and rule in p.rule]
+    assert len(found) == 1, info.value.problems
+    problem = found[0]
+    assert problem.value == value if value is not NO_VALUE else not problem.has_value
+    assert str(problem) in str(info.value)
+
+
+def test_duplicate_state_names():
+    with pytest.raises(ModelError) as info:
+        _model(states=(State("well"), State("well"), State("sick"), State("dead", absorbing=True)))
+    assert [(p.path, p.rule, p.value) for p in info.value.problems] == [
+        (("states", "well", "name"), "duplicate state name", "well")]
 
 
 def test_field_level_errors():
-    with pytest.raises(ModelError, match="clock must be one of \\['age', 'entry', 'state'\\], got 'calendar'"):
-        Transition("x", "a", "b", Exponential(0.1), "calendar")
-    with pytest.raises(ModelError, match="horizon.value must be a finite number of years > 0, got -3"):
-        Horizon(-3)
-    with pytest.raises(ModelError, match="horizon.scale must be 'time' or 'age', got 'cycles'"):
-        Horizon(10, "cycles")
-    with pytest.raises(ModelError, match="hazard_ratios\\['onset'\\] must be a finite number >= 0, got -0.5"):
-        Strategy("s", hazard_ratios={"onset": -0.5})
-    with pytest.raises(ModelError, match="sex in population.sex_mix"):
+    def problem(fn, *args):
+        with pytest.raises(ModelError) as info:
+            fn(*args)
+        (p,) = info.value.problems
+        return p.path, p.rule, p.value
+
+    assert problem(Transition, "x", "a", "b", Exponential(0.1), "calendar") == (
+        ("transitions", "x", "clock"), "must be one of ['age', 'entry', 'state']", "calendar")
+    assert problem(Horizon, -3) == (("horizon", "value"), "must be > 0", -3)
+    assert problem(Horizon, 10, "cycles") == (("horizon", "scale"), "must be one of ['time', 'age']", "cycles")
+    assert problem(Horizon, 140, "age") == (("horizon", "value"),
+                                            "must be an attained age <= 130 when horizon.scale is 'age'", 140)
+    assert problem(lambda: Strategy("s", hazard_ratios={"onset": -0.5})) == (
+        ("strategies", "s", "hazard_ratios", "onset"), "must be >= 0", -0.5)
+    with pytest.raises(ModelError, match="sex in population.sex_mix") as info:
         _model(population=Population(FixedAge(50), "well", {"female": 0.5, "male": 0.5}),
                background=BackgroundMortality("dead", {"female": Exponential(0.01)}))
+    assert info.value.problem.path == ("background",) and info.value.problem.value == ["female"]
 
 
 def test_population_errors():
-    with pytest.raises(PopulationError, match="entry_age.age must be a finite age in \\[0, 130\\] years, got 150"):
-        FixedAge(150)
-    with pytest.raises(PopulationError, match="entry_age.high must be > entry_age.low"):
-        UniformAge(60, 50)
-    with pytest.raises(PopulationError, match="entry_age.sd must be > 0"):
-        NormalAge(50, 0, 40, 60)
-    with pytest.raises(PopulationError, match="sex_mix shares must sum to 1"):
-        Population(FixedAge(50), "well", {"female": 0.5, "male": 0.6})
-    with pytest.raises(PopulationError, match="weights must be finite, >= 0"):
-        EmpiricalAge((50, 60), (1, -1))
+    def problem(fn, *args):
+        with pytest.raises(PopulationError) as info:
+            fn(*args)
+        (p,) = info.value.problems
+        return p.path, p.rule, p.value
+
+    assert problem(FixedAge, 150) == (("population", "entry_age", "age"), "must be <= 130", 150)
+    assert problem(UniformAge, 60, 50) == (("population", "entry_age", "high"), "must be > entry_age.low (60.0)", 50)
+    assert problem(NormalAge, 50, 0, 40, 60) == (("population", "entry_age", "sd"), "must be > 0", 0)
+    assert problem(Population, FixedAge(50), "well", {"female": 0.5, "male": 0.6}) == (
+        ("population", "sex_mix"), "shares must sum to 1 (sum 1.1)", {"female": 0.5, "male": 0.6})
+    assert problem(EmpiricalAge, (50, 60), (1, -1)) == (("population", "entry_age", "weights", 1), "must be >= 0", -1)
+    assert problem(EmpiricalAge, (50, 60), (0, 0)) == (("population", "entry_age", "weights"), "must not be all 0",
+                                                      [0, 0])
 
 
 def test_strategy_resolution_applies_ratios_and_replacements():

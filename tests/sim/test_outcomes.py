@@ -75,11 +75,11 @@ def test_simulated_outcomes_match_exact(two_strategies, n):
 
 
 def test_valuation_errors():
-    with pytest.raises(ValuationError, match="utilities\\['sick'\\] must be <= 1 \\(full health\\), got 1.2"):
+    with pytest.raises(ValuationError, match="^valuation.utilities.sick: must be <= 1, got 1.2$"):
         Valuation(utilities={"sick": 1.2})
-    with pytest.raises(ValuationError, match="discount_costs must be an annual rate in \\[0, 1\\), got 1.5"):
+    with pytest.raises(ValuationError, match="^valuation.discount_costs: must be < 1, got 1.5$"):
         Valuation(discount_costs=1.5)
-    with pytest.raises(ValuationError, match="state_costs\\['x'\\] must be a finite number, got nan"):
+    with pytest.raises(ValuationError, match="^valuation.state_costs.x: must be finite, got nan$"):
         Valuation(state_costs={"x": float("nan")})
 
 

@@ -1,0 +1,191 @@
+"""The parts of a multi-state model: states, transitions on clocks, background mortality, the
+horizon and strategies. Frozen data classes, validated once at construction with the checks of
+:mod:`sim.model.checks`, holding read-only tables (:class:`~sim.model.FrozenMap`); each reports every
+problem it finds as one :class:`~sim.model.ModelError` whose key paths use the scenario file's names.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from enum import Enum
+from typing import Any, Mapping
+
+import numpy as np
+
+from ..hazards import Hazard
+from ..problems import KeyPath
+from .checks import Problems, flag, number, number_map, string
+from .errors import ModelError
+from .frozen import FrozenMap
+
+__all__ = ["BACKGROUND", "Clock", "State", "Transition", "BackgroundMortality", "Horizon", "Strategy", "item_key"]
+
+BACKGROUND = "background death"
+
+
+def item_key(name: Any) -> str:
+    """How an item of a list of tables (a state, transition, strategy) is named in a key path: by its
+    ``name``, or by the ``repr`` of an invalid name (a path part that is an int means a position)."""
+    return name if isinstance(name, str) else repr(name)
+
+
+def _set(obj: object, **values: object) -> None:
+    for name, value in values.items():
+        object.__setattr__(obj, name, value)
+
+
+class Clock(str, Enum):
+    """The time scale a transition's hazard is written on.
+
+    AGE: attained age (entry age + time since entry). ENTRY: time since entry into the model.
+    STATE: time since entering the current state (clock reset on every entry: semi-Markov).
+    """
+
+    AGE = "age"
+    ENTRY = "entry"
+    STATE = "state"
+
+    @classmethod
+    def parse(cls, value: "str | Clock", path: KeyPath = ("clock",)) -> "Clock":
+        """The clock named ``value``; a :class:`ModelError` at ``path`` otherwise."""
+        try:
+            return cls(value)
+        except (ValueError, TypeError):
+            raise ModelError(tuple(path), f"must be one of {[c.value for c in cls]}", value) from None
+
+
+@dataclass(frozen=True)
+class State:
+    """A health state. ``absorbing`` states (e.g. death) have no exits."""
+
+    name: str
+    absorbing: bool = False
+
+    def __post_init__(self) -> None:
+        found = Problems()
+        where = ("states", item_key(self.name))
+        found.check(string, (*where, "name"), self.name, error=ModelError)
+        absorbing = found.check(flag, (*where, "absorbing"), self.absorbing, error=ModelError)
+        found.raise_if_any(ModelError)
+        _set(self, absorbing=absorbing)
+
+
+@dataclass(frozen=True)
+class Transition:
+    """A possible move ``source -> target`` (the scenario keys ``from`` and ``to``) with its
+    cause-specific hazard on a clock."""
+
+    name: str
+    source: str
+    target: str
+    hazard: Hazard
+    clock: Clock = Clock.ENTRY
+
+    def __post_init__(self) -> None:
+        found = Problems()
+        where = ("transitions", item_key(self.name))
+        found.check(string, (*where, "name"), self.name, error=ModelError)
+        found.check(string, (*where, "from"), self.source, error=ModelError)
+        found.check(string, (*where, "to"), self.target, error=ModelError)
+        clock = found.check(Clock.parse, self.clock, (*where, "clock"))
+        if not isinstance(self.hazard, Hazard):
+            found.add((*where, "hazard"), "must be a Hazard", self.hazard)
+        found.raise_if_any(ModelError)
+        _set(self, clock=clock)
+
+
+def _hazard_map(found: Problems, path: KeyPath, hazards: Any) -> FrozenMap:
+    """A read-only table ``name = Hazard``; problems at ``(*path, name)``."""
+    if not isinstance(hazards, Mapping):
+        found.add(path, "must be a table of name = hazard", hazards)
+        return FrozenMap()
+    for key, h in hazards.items():
+        if not isinstance(key, str) or not key.strip():
+            found.add(path, "names must be non-empty strings", key)
+        elif not isinstance(h, Hazard):
+            found.add((*path, key), "must be a Hazard", h)
+    return FrozenMap(hazards)
+
+
+@dataclass(frozen=True)
+class BackgroundMortality:
+    """Death from other causes, competing from every non-absorbing state.
+
+    ``hazards`` maps each sex label of the population's sex mix (or ``"all"``) to a hazard on
+    ``clock`` (attained age by default: a Gompertz law or a piecewise-constant life table); it is kept
+    as a read-only :class:`~sim.model.FrozenMap`. In a scenario file the hazards are the tables
+    ``[background.<sex>]``, so their problems are at ``("background", sex)``.
+    """
+
+    target: str
+    hazards: Mapping[str, Hazard]
+    clock: Clock = Clock.AGE
+
+    def __post_init__(self) -> None:
+        found = Problems()
+        found.check(string, ("background", "to"), self.target, error=ModelError)
+        clock = found.check(Clock.parse, self.clock, ("background", "clock"))
+        hazards = _hazard_map(found, ("background",), self.hazards)
+        if isinstance(self.hazards, Mapping) and not self.hazards:
+            found.add(("background",), "must give at least one hazard (per sex or 'all')", {})
+        found.raise_if_any(ModelError)
+        _set(self, clock=clock, hazards=hazards)
+
+
+MAX_AGE = 130.0
+
+
+@dataclass(frozen=True)
+class Horizon:
+    """End of follow-up: ``value`` years since entry (scale ``"time"``) or attained age (``"age"``)."""
+
+    value: float
+    scale: str = "time"
+
+    def __post_init__(self) -> None:
+        found = Problems()
+        scale = found.check(string, ("horizon", "scale"), self.scale, choices=("time", "age"), error=ModelError)
+        value = found.check(number, ("horizon", "value"), self.value, minimum=0.0, strict_min=True,
+                            error=ModelError)
+        if scale == "age" and value is not None and value > MAX_AGE:
+            found.add(("horizon", "value"), f"must be an attained age <= {MAX_AGE:g} when horizon.scale is 'age'",
+                      self.value)
+        found.raise_if_any(ModelError)
+        _set(self, value=value)
+
+    def time_limit(self, entry_age):
+        """Follow-up time available to a patient entering at ``entry_age`` (numpy-broadcast)."""
+        if self.scale == "time":
+            return np.full(np.shape(entry_age), self.value)
+        return np.maximum(self.value - np.asarray(entry_age, dtype=float), 0.0)
+
+
+@dataclass(frozen=True)
+class Strategy:
+    """A named variant of the model: hazard ratios on, or replacement hazards for, named transitions,
+    and costs it adds (e.g. a treatment's yearly cost while in a state, or a one-off cost at a move).
+
+    The four tables are kept as read-only :class:`~sim.model.FrozenMap`; problems are at
+    ``("strategies", name, key, item)``.
+    """
+
+    name: str
+    hazard_ratios: Mapping[str, float] = field(default_factory=FrozenMap)
+    replacements: Mapping[str, Hazard] = field(default_factory=FrozenMap)
+    state_costs: Mapping[str, float] = field(default_factory=FrozenMap)
+    transition_costs: Mapping[str, float] = field(default_factory=FrozenMap)
+
+    def __post_init__(self) -> None:
+        found = Problems()
+        where = ("strategies", item_key(self.name))
+        found.check(string, (*where, "name"), self.name, error=ModelError)
+        hrs = found.check(number_map, (*where, "hazard_ratios"), self.hazard_ratios, minimum=0.0, error=ModelError)
+        replacements = _hazard_map(found, (*where, "replacements"), self.replacements)
+        costs = {key: found.check(number_map, (*where, key), getattr(self, key), error=ModelError)
+                 for key in ("state_costs", "transition_costs")}
+        for t in sorted(set(hrs or ()) & set(replacements)):
+            found.add((*where, "hazard_ratios", t), "give either a hazard ratio or a replacement hazard for a "
+                                                    "transition, not both", hrs[t])
+        found.raise_if_any(ModelError)
+        _set(self, hazard_ratios=FrozenMap(hrs), replacements=replacements,
+             **{key: FrozenMap(table) for key, table in costs.items()})
