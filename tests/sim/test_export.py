@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import json
 import os
+import pickle
 import stat
 import tracemalloc
 from datetime import datetime, timedelta, timezone
@@ -19,6 +20,7 @@ import pyarrow.parquet as pq
 import pytest
 
 import sim
+from sim.problems import NO_VALUE, ValidationError
 from sim.engine.histories import simulate, simulate_chunks
 from sim.analysis import per_patient_time_in_states
 from sim.io.export import (
@@ -176,8 +178,13 @@ def _broken(column_table: str, index: int, column: str, value):
 ])
 def test_long_format_rejects_inconsistent_logs(table, index, column, value, message):
     events, patients = _broken(table, index, column, value)
-    with pytest.raises(ExportError, match=message):
+    with pytest.raises(ExportError, match=message) as info:
         long_format(events, patients, illness_death())
+    # the same facts as data (sim.problems): the column at fault and the value received
+    assert isinstance(info.value, ValidationError)
+    (problem,) = info.value.problems
+    assert problem.path == (table, column)
+    assert problem.value == value
 
 
 def test_long_format_requires_columns():
@@ -523,3 +530,28 @@ def test_run_writer_add_table(tmp_path, small_run):
     files = json.loads(writer.paths["metadata"].read_text(encoding="utf-8"))["files"]
     assert files[2:] == [{"name": "summary.csv", "table": "summary", "rows": 1},
                          {"name": "time_in_states.csv", "table": "time_in_states", "rows": len(per)}]
+
+
+def test_export_errors_carry_problems_as_data_and_keep_their_wording(tmp_path):
+    with pytest.raises(ExportError) as info:
+        metadata_for("x", -3, 10)
+    err = info.value
+    assert str(err) == "seed: expected a non-negative integer, got -3"  # the established message
+    assert isinstance(err, ValidationError) and isinstance(err, ValueError)
+    assert (err.problem.path, err.problem.value, err.problem.rule) == (("seed",), -3,
+                                                                        "must be a non-negative integer")
+    back = pickle.loads(pickle.dumps(err))  # process and Dask executors send errors between processes
+    assert type(back) is ExportError and str(back) == str(err) and back.problems == err.problems
+
+    path = tmp_path / "t.csv"
+    path.write_text("old\n")
+    with pytest.raises(ExportError) as info:
+        write_table(pd.DataFrame({"a": [1]}), path)
+    assert str(info.value) == f"{path} exists; pass force=True (--force) to overwrite"
+    problem = info.value.problem
+    assert (problem.file, problem.path, problem.value) == (str(path), (), NO_VALUE)
+    assert problem.rule == "exists; pass force=True (--force) to overwrite"
+
+    with pytest.raises(ExportError, match="format 'feather' is not supported") as info:
+        write_table(pd.DataFrame({"a": [1]}), tmp_path / "u.csv", fmt="feather")
+    assert (info.value.problem.path, info.value.problem.value) == (("fmt",), "feather")

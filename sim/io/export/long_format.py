@@ -21,6 +21,8 @@ multi-state models. J Stat Softw 38(7):1-30.
 
 from __future__ import annotations
 
+from typing import Any
+
 import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
@@ -35,22 +37,25 @@ LONG_FORMAT_COLUMNS: tuple[str, ...] = (
     "strategy", "patient", "from_state", "to_state", "transition", "start", "stop", "status")
 
 
-def _codes(values: pd.Series, labels: list[str], where: str, what: str, plural: str) -> NDArray[np.intp]:
-    """``label_codes`` of a column; a value outside ``labels`` is an ExportError naming it."""
+def _codes(df: pd.DataFrame, table: str, column: str, labels: list[str], what: str,
+           plural: str) -> NDArray[np.intp]:
+    """``label_codes`` of ``df[column]``; a value outside ``labels`` is an ExportError naming it."""
+    values = df[column]
     codes = label_codes(values, labels)
     bad = codes < 0
     if bad.any():
-        raise ExportError(f"{where}: {what} {values.iloc[int(np.argmax(bad))]!r} is not one of the model's "
-                          f"{plural} {labels}")
+        value = values.iloc[int(np.argmax(bad))]
+        raise ExportError(f"{table}['{column}']: {what} {value!r} is not one of the model's {plural} {labels}",
+                          key=(table, column), value=value, rule=f"must be one of the model's {plural} {labels}")
     return codes
 
 
-def _strategy_codes(values: pd.Series, categories: list[str], where: str) -> NDArray[np.intp]:
-    return _codes(values, categories, where, "strategy", "strategies")
+def _strategy_codes(df: pd.DataFrame, table: str, categories: list[str]) -> NDArray[np.intp]:
+    return _codes(df, table, "strategy", categories, "strategy", "strategies")
 
 
-def _state_codes(values: pd.Series, states: list[str], where: str) -> NDArray[np.intp]:
-    return _codes(values, states, where, "state", "states")
+def _state_codes(df: pd.DataFrame, table: str, column: str, states: list[str]) -> NDArray[np.intp]:
+    return _codes(df, table, column, states, "state", "states")
 
 
 def _require(df: pd.DataFrame, name: str, columns: tuple[str, ...]) -> None:
@@ -58,7 +63,8 @@ def _require(df: pd.DataFrame, name: str, columns: tuple[str, ...]) -> None:
         raise TypeError(f"{name}: expected a pandas DataFrame, got {type(df).__name__}")
     missing = [c for c in columns if c not in df.columns]
     if missing:
-        raise ExportError(f"{name}: missing column(s) {missing}; long_format needs {list(columns)}")
+        raise ExportError(f"{name}: missing column(s) {missing}; long_format needs {list(columns)}",
+                          key=(name,), value=missing, rule=f"must have the columns {list(columns)}; these are missing")
 
 
 def _exit_tables(model: Model) -> tuple[NDArray[np.intp], NDArray[np.intp], NDArray[np.intp], NDArray[np.intp]]:
@@ -156,27 +162,30 @@ def long_format(events: pd.DataFrame, patients: pd.DataFrame, model: Model,
     unknown = sorted(set(map(str, strategies)) - set(model.strategy_names))
     if unknown:
         raise ExportError(f"patients['strategy']: {unknown} are not strategies of the model "
-                          f"{list(model.strategy_names)}")
+                          f"{list(model.strategy_names)}", key=("patients", "strategy"), value=unknown,
+                          rule=f"categories must be strategies of the model {list(model.strategy_names)}")
     if strategy is not None:
         model.strategy(strategy)  # raises ModelError naming the valid strategies
         pmask = (patients["strategy"] == strategy).to_numpy(dtype=bool)
         if not pmask.any():
-            raise ExportError(f"strategy: {strategy!r} has no rows in patients; strategies present: "
-                              f"{sorted(map(str, patients['strategy'].dropna().unique()))}")
+            present = sorted(map(str, patients["strategy"].dropna().unique()))
+            raise ExportError(f"strategy: {strategy!r} has no rows in patients; strategies present: {present}",
+                              key=("strategy",), value=strategy,
+                              rule=f"must have rows in patients; strategies present: {present}")
         patients = patients.loc[pmask]
         events = events.loc[(events["strategy"] == strategy).to_numpy(dtype=bool)]
 
     # ---- patients, sorted by (strategy code, id)
-    p_strat = _strategy_codes(patients["strategy"], strategies, "patients['strategy']")
+    p_strat = _strategy_codes(patients, "patients", strategies)
     p_id = patient_ids(patients, "patients", ExportError)
-    e_strat = _strategy_codes(events["strategy"], strategies, "events['strategy']")
+    e_strat = _strategy_codes(events, "events", strategies)
     e_id = patient_ids(events, "events", ExportError)
     n, n_ev = p_id.size, e_id.size
     lo = int(min(p_id.min(initial=0), e_id.min(initial=0)))
     span = int(max(p_id.max(initial=0), e_id.max(initial=0))) - lo + 1
     if span * max(len(strategies), 1) >= 2**62:
-        raise ExportError(f"patients['patient']: ids span {span}, too wide to key with {len(strategies)} "
-                          "strategies; renumber the patients")
+        rule = f"ids span {span}, too wide to key with {len(strategies)} strategies; renumber the patients"
+        raise ExportError(f"patients['patient']: {rule}", key=("patients", "patient"), rule=rule)
     p_key = p_strat.astype(np.int64) * span + (p_id - lo)
     p_order = np.argsort(p_key, kind="stable")
     p_key = p_key[p_order]
@@ -184,9 +193,11 @@ def long_format(events: pd.DataFrame, patients: pd.DataFrame, model: Model,
     if dup.any():
         i = p_order[1:][dup][0]
         raise ExportError(f"patients['patient']: id {int(p_id[i])} appears twice in strategy "
-                          f"{strategies[p_strat[i]]!r}; ids must be unique within a strategy")
+                          f"{strategies[p_strat[i]]!r}; ids must be unique within a strategy",
+                          key=("patients", "patient"), value=int(p_id[i]),
+                          rule=f"ids must be unique within a strategy (strategy {strategies[p_strat[i]]!r})")
     p_strat, p_id = p_strat[p_order], p_id[p_order]
-    initial = _state_codes(patients["initial_state"], states, "patients['initial_state']")[p_order]
+    initial = _state_codes(patients, "patients", "initial_state", states)[p_order]
     exit_time = time_column(patients, "patients", "exit_time", ExportError)[p_order]
 
     # ---- events, mapped to patients and sorted by (patient, time, row)
@@ -196,15 +207,19 @@ def long_format(events: pd.DataFrame, patients: pd.DataFrame, model: Model,
     if not known.all():
         i = int(np.flatnonzero(~known)[0])
         raise ExportError(f"events['patient']: id {int(e_id[i])} (strategy {strategies[e_strat[i]]!r}) has no "
-                          "row in patients; every event must belong to a listed patient")
+                          "row in patients; every event must belong to a listed patient",
+                          key=("events", "patient"), value=int(e_id[i]),
+                          rule=f"every event must belong to a patient listed in patients (strategy "
+                               f"{strategies[e_strat[i]]!r})")
     time = time_column(events, "events", "time", ExportError)
-    ev_from = _state_codes(events["from_state"], states, "events['from_state']")
-    ev_to = _state_codes(events["to_state"], states, "events['to_state']")
+    ev_from = _state_codes(events, "events", "from_state", states)
+    ev_to = _state_codes(events, "events", "to_state", states)
     names = list(model.exit_names)
     ev_name = label_codes(events["transition"], names)
     if (ev_name < 0).any():
         bad = events["transition"].iloc[int(np.argmax(ev_name < 0))]
-        raise ExportError(f"events['transition']: {bad!r} is not one of the model's exits {names}")
+        raise ExportError(f"events['transition']: {bad!r} is not one of the model's exits {names}",
+                          key=("events", "transition"), value=bad, rule=f"must be one of the model's exits {names}")
     o = np.lexsort((time, pidx))  # stable: ties keep row order (and are rejected below)
     pidx, time, ev_from, ev_to, ev_name = pidx[o], time[o], ev_from[o], ev_to[o], ev_name[o]
 
@@ -223,44 +238,48 @@ def long_format(events: pd.DataFrame, patients: pd.DataFrame, model: Model,
     last = entry + count
     soj_stop[last] = exit_time
 
-    def fail(j: int, rule: str) -> ExportError:
-        return ExportError(f"events: patient {int(p_id[pidx[j]])} (strategy {strategies[p_strat[pidx[j]]]!r}), "
-                           f"move {names[ev_name[j]]!r} at time {float(time[j])!r}: {rule}")
+    def fail(j: int, rule: str, column: str, value: Any) -> ExportError:
+        move = (f"patient {int(p_id[pidx[j]])} (strategy {strategies[p_strat[pidx[j]]]!r}), "
+                f"move {names[ev_name[j]]!r} at time {float(time[j])!r}")
+        return ExportError(f"events: {move}: {rule}", key=("events", column), value=value, rule=f"{move}: {rule}")
 
     prev_start = soj_start[ev_pos - 1]
     not_after = time <= prev_start
     if not_after.any():
         j = int(np.flatnonzero(not_after)[0])
         raise fail(j, f"must come strictly after the previous move or entry (time {float(prev_start[j])!r}); "
-                      "a sojourn of zero length has nobody at risk")
+                      "a sojourn of zero length has nobody at risk", "time", float(time[j]))
     late = time > exit_time[pidx]
     if late.any():
         j = int(np.flatnonzero(late)[0])
-        raise fail(j, f"is after the patient's exit_time {float(exit_time[pidx[j]])!r}")
+        raise fail(j, f"is after the patient's exit_time {float(exit_time[pidx[j]])!r}", "time", float(time[j]))
     here = soj_state[ev_pos - 1]
     wrong_from = ev_from != here
     if wrong_from.any():
         j = int(np.flatnonzero(wrong_from)[0])
-        raise fail(j, f"from_state {states[ev_from[j]]!r} is not the state the patient is in ({states[here[j]]!r})")
+        raise fail(j, f"from_state {states[ev_from[j]]!r} is not the state the patient is in ({states[here[j]]!r})",
+                   "from_state", states[ev_from[j]])
     n_exits, exit_name, exit_target, slot_of = _exit_tables(model)
     slot = slot_of[ev_from, ev_name]
     if (slot < 0).any():
         j = int(np.flatnonzero(slot < 0)[0])
         raise fail(j, f"is not an exit of state {states[ev_from[j]]!r}; its exits are "
-                      f"{model.exits_of(states[ev_from[j]])}")
+                      f"{model.exits_of(states[ev_from[j]])}", "transition", names[ev_name[j]])
     wrong_to = exit_target[ev_from, slot] != ev_to
     if wrong_to.any():
         j = int(np.flatnonzero(wrong_to)[0])
         raise fail(j, f"to_state {states[ev_to[j]]!r} is not the target of this exit "
-                      f"({states[exit_target[ev_from[j], slot[j]]]!r})")
+                      f"({states[exit_target[ev_from[j], slot[j]]]!r})", "to_state", states[ev_to[j]])
     end_state = soj_state[last]
     if "final_state" in patients.columns:
-        final = _state_codes(patients["final_state"], states, "patients['final_state']")[p_order]
+        final = _state_codes(patients, "patients", "final_state", states)[p_order]
         bad = final != end_state
         if bad.any():
             i = int(np.flatnonzero(bad)[0])
+            rule = f"must agree with the log, whose moves for patient {int(p_id[i])} end in {states[end_state[i]]!r}"
             raise ExportError(f"patients['final_state']: {states[final[i]]!r} for patient {int(p_id[i])} "
-                              f"contradicts the log, whose moves end in {states[end_state[i]]!r}")
+                              f"contradicts the log, whose moves end in {states[end_state[i]]!r}",
+                              key=("patients", "final_state"), value=states[final[i]], rule=rule)
     if "exit_reason" in patients.columns:
         code = label_codes(patients["exit_reason"], ("absorbed", "censored"))[p_order]
         absorbed = absorbing[end_state]
@@ -269,10 +288,13 @@ def long_format(events: pd.DataFrame, patients: pd.DataFrame, model: Model,
         if bad.any():
             i = int(np.flatnonzero(bad)[0])
             reason = patients["exit_reason"].to_numpy()[p_order]
+            log = (f"last state {states[end_state[i]]!r} from time {float(soj_start[last[i]])!r}, "
+                   f"exit_time {float(exit_time[i])!r}")
+            meaning = ("'absorbed' means a move into an absorbing state at exit_time, 'censored' means follow-up "
+                       "ended in a non-absorbing state")
             raise ExportError(f"patients['exit_reason']: {reason[i]!r} for patient {int(p_id[i])} contradicts the "
-                              f"log (last state {states[end_state[i]]!r} from time {float(soj_start[last[i]])!r}, "
-                              f"exit_time {float(exit_time[i])!r}); 'absorbed' means a move into an absorbing "
-                              "state at exit_time, 'censored' means follow-up ended in a non-absorbing state")
+                              f"log ({log}); {meaning}", key=("patients", "exit_reason"), value=reason[i],
+                              rule=f"must agree with the log of patient {int(p_id[i])} ({log}); {meaning}")
 
     # ---- expand: one row per kept sojourn per exit of its state
     end_slot = np.full(n_soj, -1, dtype=np.intp)

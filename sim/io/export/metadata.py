@@ -39,8 +39,10 @@ def _metadata_json(metadata: Mapping[str, Any], where: Path) -> str:
     try:
         return json.dumps(metadata, indent=2, ensure_ascii=False, allow_nan=False, default=_json_default) + "\n"
     except (TypeError, ValueError) as exc:
+        rule = "must be JSON: numbers, strings, lists and dicts (NaN and infinity are not allowed)"
         raise ExportError(f"{where}: metadata cannot be stored as JSON ({exc}); pass numbers, strings, lists "
-                          "and dicts (NaN and infinity are not allowed)") from None
+                          "and dicts (NaN and infinity are not allowed)", key=("metadata",), rule=f"{rule}; {exc}",
+                          file=where) from None
 
 
 def _utc_now() -> str:
@@ -75,11 +77,15 @@ def metadata_for(scenario_text: str, seed: int, n_patients: int, extra: Mapping[
         A bad seed, patient count or scenario text, or ``extra`` reusing a key.
     """
     if not isinstance(scenario_text, str):
-        raise ExportError(f"scenario_text: expected the scenario file's text (str), got {type(scenario_text).__name__}")
+        raise ExportError(f"scenario_text: expected the scenario file's text (str), got {type(scenario_text).__name__}",
+                          key=("scenario_text",), value=type(scenario_text).__name__,
+                          rule="must be the scenario file's text (str)")
     if isinstance(seed, bool) or not isinstance(seed, (int, np.integer)) or seed < 0:
-        raise ExportError(f"seed: expected a non-negative integer, got {seed!r}")
+        raise ExportError(f"seed: expected a non-negative integer, got {seed!r}", key=("seed",), value=seed,
+                          rule="must be a non-negative integer")
     if isinstance(n_patients, bool) or not isinstance(n_patients, (int, np.integer)) or n_patients < 1:
-        raise ExportError(f"n_patients: expected a positive integer, got {n_patients!r}")
+        raise ExportError(f"n_patients: expected a positive integer, got {n_patients!r}", key=("n_patients",),
+                          value=n_patients, rule="must be a positive integer")
     meta: dict[str, Any] = {
         "tool": "HazardTrace",
         "tool_version": __version__,
@@ -96,6 +102,7 @@ def metadata_for(scenario_text: str, seed: int, n_patients: int, extra: Mapping[
     if extra:
         clash = sorted(set(extra) & set(meta))
         if clash:
-            raise ExportError(f"extra: keys {clash} are set by metadata_for; use other names")
+            raise ExportError(f"extra: keys {clash} are set by metadata_for; use other names", key=("extra",),
+                              value=clash, rule="may not reuse the keys set by metadata_for; use other names")
         meta.update(extra)
     return meta

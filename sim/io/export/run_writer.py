@@ -51,21 +51,28 @@ class _Sink:
     def _check(self, df: pd.DataFrame) -> None:
         if self._dtypes is None:
             if len(set(map(str, df.columns))) != df.shape[1]:
-                raise ExportError(f"{self.path}: table {self.name!r} has repeated column names {list(df.columns)}")
+                raise ExportError(f"{self.path}: table {self.name!r} has repeated column names {list(df.columns)}",
+                                  key=(self.name, "columns"), value=list(df.columns),
+                                  rule="column names must be unique", file=self.path)
             self._dtypes = df.dtypes
             return
         first = self._dtypes
         if list(df.columns) != list(first.index):
             raise ExportError(f"{self.path}: chunk {self.chunks} of table {self.name!r} has columns "
                               f"{list(df.columns)}, the first chunk had {list(first.index)}; every chunk "
-                              "must have the same columns")
+                              "must have the same columns", key=(self.name, "columns"), value=list(df.columns),
+                              rule=f"chunk {self.chunks} must have the first chunk's columns {list(first.index)}",
+                              file=self.path)
         for col, dt in df.dtypes.items():
             if dt != first[col]:
                 what = (f"categories {list(dt.categories)} (first chunk: {list(first[col].categories)})"
                         if isinstance(dt, pd.CategoricalDtype) and isinstance(first[col], pd.CategoricalDtype)
                         else f"dtype {dt} (first chunk: {first[col]})")
                 raise ExportError(f"{self.path}: chunk {self.chunks} of table {self.name!r}, column {col!r} has "
-                                  f"{what}; every chunk must have the same dtypes and categories")
+                                  f"{what}; every chunk must have the same dtypes and categories",
+                                  key=(self.name, str(col)), value=str(dt), file=self.path,
+                                  rule=f"chunk {self.chunks} must have the first chunk's dtype and categories "
+                                       f"(it has {what})")
 
     def write(self, df: pd.DataFrame) -> None:
         self._check(df)
@@ -161,20 +168,26 @@ class RunWriter:
                  progress: RunProgress | None = None) -> None:
         self.out_dir = Path(out_dir)
         if fmt not in FORMATS:
-            raise ExportError(f"{self.out_dir}: format {fmt!r} is not supported; use one of {sorted(FORMATS)}")
+            raise ExportError(f"{self.out_dir}: format {fmt!r} is not supported; use one of {sorted(FORMATS)}",
+                              key=("fmt",), value=fmt, rule=f"must be one of {sorted(FORMATS)}", file=self.out_dir)
         if not isinstance(metadata, Mapping):
             raise TypeError(f"metadata: expected a dict, got {type(metadata).__name__}")
         reserved = [k for k in _RESERVED_METADATA if k in metadata]
         if reserved:
-            raise ExportError(f"{self.out_dir}: metadata keys {reserved} are reserved; the writer fills them in")
+            raise ExportError(f"{self.out_dir}: metadata keys {reserved} are reserved; the writer fills them in",
+                              key=("metadata", reserved[0]), value=metadata[reserved[0]], file=self.out_dir,
+                              rule=f"the keys {list(_RESERVED_METADATA)} are reserved; the writer fills them in")
         if "format" in metadata and metadata["format"] != fmt:
             raise ExportError(f"{self.out_dir}: metadata['format'] is {metadata['format']!r} but the tables are "
-                              f"written as {fmt!r}; drop the key or make them agree")
+                              f"written as {fmt!r}; drop the key or make them agree", key=("metadata", "format"),
+                              value=metadata["format"], file=self.out_dir,
+                              rule=f"must equal the table format {fmt!r}; drop the key or make them agree")
         if long_format_model is not None and not isinstance(long_format_model, Model):
             raise TypeError(f"long_format_model: expected a sim.model.Model or None, got "
                             f"{type(long_format_model).__name__}")
         if (self.out_dir.exists() or self.out_dir.is_symlink()) and not force:
-            raise ExportError(f"{self.out_dir} exists; pass force=True (--force) to overwrite")
+            raise ExportError(f"{self.out_dir} exists; pass force=True (--force) to overwrite", file=self.out_dir,
+                              rule="exists; pass force=True (--force) to overwrite")
         self.fmt, self.force = fmt, bool(force)
         self.metadata = dict(metadata)
         _metadata_json(self.metadata, self.out_dir)  # fail now, not after the whole run
@@ -205,7 +218,7 @@ class RunWriter:
     def open(self) -> None:
         """Create the temporary folder (and any missing parents of ``out_dir``)."""
         if self._state != "new":
-            raise ExportError(f"{self.out_dir}: the writer is {self._state}; open it once")
+            raise self._error(f"the writer is {self._state}; open it once")
         missing = []
         parent = self.out_dir.parent
         while not parent.exists():
@@ -216,7 +229,7 @@ class RunWriter:
                 folder.mkdir()
                 self._made_parents.append(folder)
             if not self.out_dir.parent.is_dir():
-                raise ExportError(f"{self.out_dir}: parent {self.out_dir.parent} is not a folder")
+                raise self._error(f"parent {self.out_dir.parent} is not a folder")
             tmp = self.out_dir.parent / f".{self.out_dir.name}.tmp-{uuid.uuid4().hex[:12]}"
             tmp.mkdir()  # default mode under the umask (mkdtemp's 0700 would stick to the output)
             self._tmp = tmp
@@ -231,7 +244,7 @@ class RunWriter:
     def write_chunk(self, events: pd.DataFrame, patients: pd.DataFrame) -> None:
         """Append one chunk of whole patients (its events and patient rows) to every table."""
         if self._state != "open":
-            raise ExportError(f"{self.out_dir}: cannot write a chunk, the writer is {self._state}")
+            raise self._error(f"cannot write a chunk, the writer is {self._state}")
         try:
             for name, df in (("events", events), ("patients", patients)):
                 if not isinstance(df, pd.DataFrame):
@@ -269,13 +282,15 @@ class RunWriter:
             writing aborts the run (see :meth:`abort`).
         """
         if self._state != "open":
-            raise ExportError(f"{self.out_dir}: cannot add table {name!r}, the writer is {self._state}")
+            raise self._error(f"cannot add table {name!r}, the writer is {self._state}")
         # caller mistakes found before anything is written leave the run open
         if not (isinstance(name, str) and name and name.replace("_", "").replace("-", "").isalnum()
                 and name.isascii()):
-            raise ExportError(f"{self.out_dir}: table name {name!r} is invalid; use letters, digits, '_' and '-'")
+            raise ExportError(f"{self.out_dir}: table name {name!r} is invalid; use letters, digits, '_' and '-'",
+                              key=("name",), value=name, rule="use letters, digits, '_' and '-'", file=self.out_dir)
         if name in self._sinks or name in self._extra or name == "metadata":
-            raise ExportError(f"{self.out_dir}: table name {name!r} is already used in this run")
+            raise ExportError(f"{self.out_dir}: table name {name!r} is already used in this run", key=("name",),
+                              value=name, rule="must not be used already in this run", file=self.out_dir)
         assert self._tmp is not None
         path = self._tmp / f"{name}.csv"
         out = _tidy(df, self.out_dir / path.name)
@@ -300,12 +315,12 @@ class RunWriter:
             :meth:`add_table`) and ``metadata``.
         """
         if self._state != "open":
-            raise ExportError(f"{self.out_dir}: cannot close, the writer is {self._state}")
+            raise self._error(f"cannot close, the writer is {self._state}")
         try:
             assert self._tmp is not None
             n_chunks = self._sinks["events"].chunks
             if n_chunks == 0:
-                raise ExportError(f"{self.out_dir}: no chunks were written; a run needs at least one chunk")
+                raise self._error("no chunks were written; a run needs at least one chunk")
             for sink in self._sinks.values():
                 sink.close()
             meta = dict(self.metadata)
@@ -335,8 +350,8 @@ class RunWriter:
         out = self.out_dir
         if out.exists() or out.is_symlink():
             if not self.force:
-                raise ExportError(f"{out} exists (created while the run was being written); "
-                                  "pass force=True (--force) to overwrite")
+                rule = "exists (created while the run was being written); pass force=True (--force) to overwrite"
+                raise ExportError(f"{out} {rule}", file=out, rule=rule)
             backup = out.parent / f".{out.name}.old-{uuid.uuid4().hex[:12]}"
             os.rename(out, backup)
             try:
@@ -365,6 +380,10 @@ class RunWriter:
             self._tmp = None
         self._remove_parents()
         self._state = "aborted"
+
+    def _error(self, rule: str) -> ExportError:
+        """An ExportError about the output folder as a whole: ``"<out_dir>: <rule>"``."""
+        return ExportError(f"{self.out_dir}: {rule}", file=self.out_dir, rule=rule)
 
     def _remove_parents(self) -> None:
         for folder in reversed(self._made_parents):
@@ -409,6 +428,7 @@ def write_run(out_dir: str | os.PathLike[str], chunks: Iterable[tuple[pd.DataFra
                 events, patients = item
             except (TypeError, ValueError):
                 raise ExportError(f"{out_dir}: each chunk must be an (events, patients) pair, got "
-                                  f"{type(item).__name__}") from None
+                                  f"{type(item).__name__}", key=("chunks",), value=type(item).__name__,
+                                  rule="each chunk must be an (events, patients) pair", file=out_dir) from None
             writer.write_chunk(events, patients)
     return dict(writer.paths)

@@ -33,12 +33,15 @@ _SUFFIXES: dict[str, str] = {".parquet": "parquet", ".pq": "parquet", ".csv": "c
 def _format_for(path: Path, fmt: str | None) -> str:
     if fmt is not None:
         if fmt not in FORMATS:
-            raise ExportError(f"{path}: format {fmt!r} is not supported; use one of {sorted(FORMATS)}")
+            raise ExportError(f"{path}: format {fmt!r} is not supported; use one of {sorted(FORMATS)}",
+                              key=("fmt",), value=fmt, rule=f"must be one of {sorted(FORMATS)}", file=path)
         return fmt
     suffix = path.suffix.lower()
     if suffix not in _SUFFIXES:
+        rule = f"use one of the suffixes {sorted(_SUFFIXES)} or pass fmt='parquet' or fmt='csv'"
         raise ExportError(f"{path}: cannot tell the format from the suffix {suffix!r}; use one of "
-                          f"{sorted(_SUFFIXES)} or pass fmt='parquet' or fmt='csv'")
+                          f"{sorted(_SUFFIXES)} or pass fmt='parquet' or fmt='csv'",
+                          key=("path",), value=suffix, rule=rule, file=path)
     return _SUFFIXES[suffix]
 
 
@@ -54,11 +57,18 @@ def _write_csv(df: pd.DataFrame, handle: IO[str], header: bool) -> None:
 
 def _check_destination(path: Path, force: bool) -> None:
     if path.is_dir():
-        raise ExportError(f"{path} is a folder; write_table writes a file")
+        raise ExportError(f"{path} is a folder; write_table writes a file", file=path,
+                          rule="is a folder; write_table writes a file")
     if (path.exists() or path.is_symlink()) and not force:
-        raise ExportError(f"{path} exists; pass force=True (--force) to overwrite")
+        raise _exists(path)
     if not path.parent.is_dir():
-        raise ExportError(f"{path}: folder {path.parent} does not exist; create it first")
+        raise ExportError(f"{path}: folder {path.parent} does not exist; create it first", file=path,
+                          rule=f"folder {path.parent} does not exist; create it first")
+
+
+def _exists(path: Path) -> ExportError:
+    return ExportError(f"{path} exists; pass force=True (--force) to overwrite", file=path,
+                       rule="exists; pass force=True (--force) to overwrite")
 
 
 def _atomic_write(path: Path, force: bool, write: Callable[[BinaryIO], None]) -> Path:
@@ -68,8 +78,8 @@ def _atomic_write(path: Path, force: bool, write: Callable[[BinaryIO], None]) ->
         return write_atomic(path, write, force=force)
     except AtomicWriteError as err:  # the destination changed after the check above
         if err.errno == errno.EEXIST:
-            raise ExportError(f"{path} exists; pass force=True (--force) to overwrite") from None
-        raise ExportError(str(err)) from None
+            raise _exists(path) from None
+        raise ExportError(str(err), file=path, rule=err.reason) from None
 
 
 def write_table(df: pd.DataFrame, path: str | os.PathLike[str], fmt: str | None = None,
@@ -169,8 +179,10 @@ def _tidy(df: pd.DataFrame, where: Path) -> pd.DataFrame:
     if not isinstance(df, pd.DataFrame):
         raise TypeError(f"df: expected a pandas DataFrame, got {type(df).__name__}")
     if isinstance(df.columns, pd.MultiIndex):
+        rule = "a tidy table has one column level (use DataFrame.melt or flatten the column names first)"
         raise ExportError(f"{where}: the table has {df.columns.nlevels} column levels; a tidy table has one "
-                          "(use DataFrame.melt or flatten the column names first)")
+                          "(use DataFrame.melt or flatten the column names first)",
+                          key=("df", "columns"), value=df.columns.nlevels, rule=rule, file=where)
     index = df.index
     default = (isinstance(index, pd.RangeIndex) and index.start == 0 and index.step == 1
                and all(name is None for name in index.names))
@@ -178,5 +190,7 @@ def _tidy(df: pd.DataFrame, where: Path) -> pd.DataFrame:
     cols = [str(c) for c in out.columns]
     if len(set(cols)) != len(cols):
         dups = sorted({c for c in cols if cols.count(c) > 1})
-        raise ExportError(f"{where}: column names {dups} are repeated; tidy tables need unique column names")
+        raise ExportError(f"{where}: column names {dups} are repeated; tidy tables need unique column names",
+                          key=("df", "columns"), value=dups, rule="tidy tables need unique column names",
+                          file=where)
     return out
