@@ -153,7 +153,7 @@ def _number_list(found: Problems, key: str, values: object) -> list[object] | No
         return None
     items = list(values)
     if not items:
-        found.add((*ENTRY_AGE, key), "must be a non-empty list of numbers", items)
+        found.add((*ENTRY_AGE, key), "must be a non-empty list of numbers", values)
         return None
     return items
 

@@ -23,7 +23,7 @@ def _cycle_lengths(found: Problems, values: Any) -> tuple[float, ...] | None:
         return None
     items = list(values)
     if not items:
-        found.add(path, "must be a non-empty list of durations", items)
+        found.add(path, "must be a non-empty list of durations", values)
         return None
     out = [found.check(number, (*path, i), v, minimum=0.0, strict_min=True, error=ModelError)
            for i, v in enumerate(items)]
