@@ -17,6 +17,7 @@ from __future__ import annotations
 import dataclasses
 import importlib.util
 import math
+import pickle
 import re
 from pathlib import Path
 
@@ -25,6 +26,7 @@ import openpyxl
 import pytest
 
 from sim.hazards import Gompertz, GompertzMakeham, PiecewiseConstant
+from sim.problems import ValidationError
 from sim.io.lifetable import (
     NOMINAL_EXPOSURE,
     GompertzFit,
@@ -178,8 +180,10 @@ def test_xlsx_default_sheet_and_row_numbers_in_messages(tmp_path: Path) -> None:
     path = tmp_path / "t.xlsx"
     wb.save(path)
     with pytest.raises(LifeTableError, match=re.escape(f"{path} sheet 'first' row 4, column 'q': 1.2 is "
-                                                       f"outside [0, 1]")):
+                                                       f"outside [0, 1]")) as info:
         read_life_table(path, kind="q", value_columns="q")
+    problem = info.value.problem
+    assert (problem.file, problem.line, problem.path, problem.value) == (str(path), 4, ("first", "q"), 1.2)
     with pytest.raises(LifeTableError, match=re.escape("has no sheet 'nope'; sheets: 'first'")):
         read_life_table(path, kind="q", value_columns="q", sheet="nope")
 
@@ -202,8 +206,12 @@ def test_q_outside_unit_interval_names_file_line_column_value_and_rule(tmp_path:
     path = write_csv(tmp_path / "x.csv", "age,q_female,q_male\n0,0.01,0.01\n1,0.002,0.003\n2,0.002,0.003\n"
                                          "3,0.002,0.003\n4,0.002,0.003\n5,1.2,0.003\n10,1,1\n")
     with pytest.raises(LifeTableError, match=re.escape(f"{path} line 7, column 'q_female': 1.2 is outside "
-                                                       f"[0, 1]")):
+                                                       f"[0, 1]")) as info:
         read_life_table(path, kind="q", value_columns=SEXES)
+    # the same facts as data (sim.problems): file, line, column, value and rule
+    (problem,) = info.value.problems
+    assert (problem.file, problem.line, problem.path, problem.value) == (str(path), 7, ("q_female",), 1.2)
+    assert problem.rule == "q is a probability, in [0, 1]"
     neg = write_csv(tmp_path / "n.csv", "age,q\n0,0.01\n1,-0.002\n5,1\n")
     with pytest.raises(LifeTableError, match=re.escape(f"{neg} line 3, column 'q': -0.002 is outside [0, 1]")):
         read_life_table(neg, kind="q", value_columns="q")
@@ -310,8 +318,13 @@ def test_structural_problems_are_rejected(tmp_path: Path) -> None:
 
 def test_life_table_constructor_validates_and_unknown_sex_is_named() -> None:
     with pytest.raises(LifeTableError,
-                       match=re.escape("LifeTable data row 2, column 'all': 1.5 is outside [0, 1]")):
+                       match=re.escape("LifeTable data row 2, column 'all': 1.5 is outside [0, 1]")) as info:
         LifeTable(ages=(0, 1, 2), values={"all": (0.1, 1.5, 1.0)}, kind="q")
+    assert (info.value.problem.path, info.value.problem.value, info.value.problem.file) == (("values", "all", 1),
+                                                                                            1.5, None)
+    with pytest.raises(LifeTableError, match=re.escape("LifeTable data row 2, column 'age': 0.0 does not")) as info:
+        LifeTable(ages=(1, 0), values={"all": (0.1, 0.2)}, kind="m")
+    assert (info.value.problem.path, info.value.problem.value) == (("ages", 1), 0.0)
     with pytest.raises(LifeTableError, match=re.escape("column 'all' has 2 values for 3 ages")):
         LifeTable(ages=(0, 1, 2), values={"all": (0.1, 0.2)}, kind="m")
     t = LifeTable(ages=(0, 1), values={"female": (0.1, 1.0)}, kind="q")
@@ -451,8 +464,26 @@ def test_fit_argument_errors_name_argument_value_and_rule() -> None:
         fit_gompertz(t, sex="male")
     with pytest.raises(LifeTableError, match=re.escape("exposure must have one value per table row (24)")):
         fit_gompertz(t, exposure=[1.0, 2.0])
-    with pytest.raises(LifeTableError, match=re.escape("exposure[9] (age 40) must be > 0 and finite, got 0.0")):
+    with pytest.raises(LifeTableError,
+                       match=re.escape("exposure[9] (age 40) must be > 0 and finite, got 0.0")) as info:
         fit_gompertz(t, exposure=np.where(np.array(t.ages) == 40, 0.0, 1.0))
+    assert (info.value.problem.path, info.value.problem.value) == (("exposure", 9), 0.0)
+    with pytest.raises(LifeTableError) as info:
+        fit_gompertz(t, method="ols")
+    assert (info.value.problem.path, info.value.problem.value) == (("method",), "ols")
+
+
+def test_life_table_errors_are_validation_errors_that_keep_their_wording() -> None:
+    with pytest.raises(LifeTableError) as info:
+        fit_gompertz(law_table(3e-5, 0.09, 0.0, ABRIDGED, "q"), age_range=(90, 40))
+    err = info.value
+    assert isinstance(err, ValidationError) and isinstance(err, ValueError)
+    assert str(err) == ("fit_gompertz: age_range must be (low, high) with 0 <= low < high, low finite, "
+                        "got (90, 40)")
+    assert (err.problem.path, err.problem.value) == (("age_range",), (90, 40))
+    assert err.problem.rule == "must be (low, high) with 0 <= low < high, low finite"
+    back = pickle.loads(pickle.dumps(err))  # process and Dask executors send errors between processes
+    assert type(back) is LifeTableError and str(back) == str(err) and back.problems == err.problems
 
 
 # --------------------------------------------------------------------------------------------

@@ -321,12 +321,15 @@ def fit_gompertz(table: LifeTable, sex: str = "all", age_range: tuple[float, flo
     .. [2] Finch CE, Pike MC, Witten M. Science 1990;249:902-905.
     """
     if not isinstance(table, LifeTable):
-        raise LifeTableError(f"fit_gompertz: table must be a LifeTable, got {type(table).__name__}")
+        raise LifeTableError(f"fit_gompertz: table must be a LifeTable, got {type(table).__name__}",
+                             key=("table",), value=type(table).__name__, rule="must be a LifeTable")
     sex = table._sex("fit_gompertz", sex)
     if method not in _FIT_METHODS:
-        raise LifeTableError(f"fit_gompertz: method must be 'poisson' or 'wls', got {method!r}")
+        raise LifeTableError(f"fit_gompertz: method must be 'poisson' or 'wls', got {method!r}", key=("method",),
+                             value=method, rule="must be 'poisson' or 'wls'")
     if not isinstance(makeham, (bool, np.bool_)):
-        raise LifeTableError(f"fit_gompertz: makeham must be True or False, got {makeham!r}")
+        raise LifeTableError(f"fit_gompertz: makeham must be True or False, got {makeham!r}", key=("makeham",),
+                             value=makeham, rule="must be True or False")
     makeham = bool(makeham)
     lo, hi = _age_range(age_range)
 
@@ -338,8 +341,9 @@ def fit_gompertz(table: LifeTable, sex: str = "all", age_range: tuple[float, flo
     if not np.any(sel):
         closed = (f"the table's closed bands span ages {_num(ages[0])} to {_num(ages[-1])}"
                   if ages.size > 1 else "the table has no closed band")
-        raise LifeTableError(f"fit_gompertz: age_range {(lo, hi)!r} contains no whole band; {closed} "
-                             f"(a band [x, x + n) is used when low <= x and x + n <= high)")
+        rule = f"contains no whole band; {closed} (a band [x, x + n) is used when low <= x and x + n <= high)"
+        raise LifeTableError(f"fit_gompertz: age_range {(lo, hi)!r} {rule}", key=("age_range",), value=(lo, hi),
+                             rule=rule)
     if exposure is None:
         expo_all = NOMINAL_EXPOSURE * np.where(np.isfinite(widths), widths, 0.0)
         nominal = True
@@ -347,12 +351,14 @@ def fit_gompertz(table: LifeTable, sex: str = "all", age_range: tuple[float, flo
         expo_all = np.asarray(exposure, dtype=np.float64)
         if expo_all.shape != ages.shape:
             raise LifeTableError(f"fit_gompertz: exposure must have one value per table row "
-                                 f"({ages.size}), got shape {expo_all.shape}")
+                                 f"({ages.size}), got shape {expo_all.shape}", key=("exposure",),
+                                 value=expo_all.shape, rule=f"must have one value per table row ({ages.size})")
         bad = sel & ~((expo_all > 0.0) & np.isfinite(expo_all))
         if np.any(bad):
             i = int(np.flatnonzero(bad)[0])
             raise LifeTableError(f"fit_gompertz: exposure[{i}] (age {_num(ages[i])}) must be > 0 and "
-                                 f"finite, got {_fmt(expo_all[i])}")
+                                 f"finite, got {_fmt(expo_all[i])}", key=("exposure", i), value=float(expo_all[i]),
+                                 rule=f"must be > 0 and finite (age {_num(ages[i])})")
         nominal = False
 
     x, n, r, e = ages[sel], widths[sel], rates_all[sel], expo_all[sel]
@@ -360,9 +366,10 @@ def fit_gompertz(table: LifeTable, sex: str = "all", age_range: tuple[float, flo
     n_par = 3 if makeham else 2
     n_pos = int(np.count_nonzero(r > 0.0))
     if n_pos < n_par + 1:
-        raise LifeTableError(f"fit_gompertz: age_range {(lo, hi)!r} holds {x.size} bands, {n_pos} with a "
-                             f"positive rate; a {'Gompertz-Makeham' if makeham else 'Gompertz'} fit needs "
-                             f"at least {n_par + 1} (parameters + 1)")
+        rule = (f"holds {x.size} bands, {n_pos} with a positive rate; a "
+                f"{'Gompertz-Makeham' if makeham else 'Gompertz'} fit needs at least {n_par + 1} (parameters + 1)")
+        raise LifeTableError(f"fit_gompertz: age_range {(lo, hi)!r} {rule}", key=("age_range",), value=(lo, hi),
+                             rule=rule)
 
     pos = r > 0.0
     a_ref = float(np.sum(d * (x + 0.5 * n)) / d.sum())
@@ -376,7 +383,8 @@ def fit_gompertz(table: LifeTable, sex: str = "all", age_range: tuple[float, flo
     (mu,) = model.mu(th)
     if not (np.all(np.isfinite(mu)) and math.isfinite(b) and b > 0.0 and math.isfinite(g)):
         raise LifeTableError(f"fit_gompertz: the {method} fit failed ({msg}); check the rates in "
-                             f"age_range {(lo, hi)!r}")
+                             f"age_range {(lo, hi)!r}", key=("age_range",), value=(lo, hi),
+                             rule=f"the {method} fit failed ({msg}); check the rates in this age range")
     deviance = 2.0 * _half_deviance(d, e * mu, pos)
     wrss = float(np.sum(d[pos] * (np.log(r[pos]) - np.log(mu[pos])) ** 2))
     max_rel = float(np.max(np.abs(mu[pos] / r[pos] - 1.0)))
@@ -394,8 +402,9 @@ def _age_range(age_range: Any) -> tuple[float, float]:
         lo, hi = float(age_range[0]), float(age_range[1])
         if 0.0 <= lo < hi and math.isfinite(lo) and not math.isnan(hi):
             return lo, hi
-    raise LifeTableError(f"fit_gompertz: age_range must be (low, high) with 0 <= low < high, low finite, "
-                         f"got {age_range!r}")
+    rule = "must be (low, high) with 0 <= low < high, low finite"
+    raise LifeTableError(f"fit_gompertz: age_range {rule}, got {age_range!r}", key=("age_range",), value=age_range,
+                         rule=rule)
 
 
 def _start(t: FloatArray, r: FloatArray, w: FloatArray, makeham: bool) -> FloatArray:

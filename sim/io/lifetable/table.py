@@ -30,8 +30,12 @@ KINDS: Mapping[str, str] = MappingProxyType({
 """Accepted table kinds and their meaning (read-only)."""
 
 
-Locator = Callable[[int, str], str]
-"""(row index, column label) -> message prefix, e.g. 'x.csv line 7, column 'age''."""
+Located = tuple[str, Mapping[str, Any]]
+"""A message prefix (``"x.csv line 7, column 'age'"``) and where that is as data: keyword arguments
+of :class:`LifeTableError` (``key``, and ``file`` and ``line`` for a file)."""
+
+Locator = Callable[[int, str, "str | None"], Located]
+"""(row index, column label, sex or None for the age column) -> :data:`Located`."""
 
 
 def _fmt(v: float) -> str:
@@ -39,56 +43,72 @@ def _fmt(v: float) -> str:
     return repr(float(v))
 
 
+def _cell_error(located: Located, text: str, value: float, rule: str) -> LifeTableError:
+    """``"<prefix>: <text>"`` with the cell's location, ``value`` and ``rule`` as data."""
+    prefix, at = located
+    return LifeTableError(f"{prefix}: {text}", value=value, rule=rule, **at)
+
+
 def _validate(ages: FloatArray, values: Mapping[str, FloatArray], kind: str, locate: Locator,
-              age_label: str, value_labels: Mapping[str, str], where: str) -> None:
+              age_label: str, value_labels: Mapping[str, str], where: str,
+              table_at: Mapping[str, Any]) -> None:
     """Check ages and values against the table rules; raise :class:`LifeTableError` on the first break.
 
-    ``locate(i, column)`` builds the message prefix for row ``i``; ``where`` names the table as a
-    whole (for rules about the table rather than a cell).
+    ``locate(i, column, sex)`` locates row ``i`` of a column (``sex`` None for the ages); ``where``
+    names the table as a whole in messages about the table rather than a cell, ``table_at`` says the
+    same as data (``file``, or nothing for a table built in code).
     """
     if ages.size == 0:
-        raise LifeTableError(f"{where}: the table has no data rows (at least one is needed)")
+        rule = "the table has no data rows (at least one is needed)"
+        raise LifeTableError(f"{where}: {rule}", rule=rule, **table_at)
     for i, a in enumerate(ages):
+        at = locate(i, age_label, None)
         if not math.isfinite(a):
-            raise LifeTableError(f"{locate(i, age_label)}: {_fmt(a)} is not a finite number "
-                                 f"(ages must be finite and >= 0)")
+            raise _cell_error(at, f"{_fmt(a)} is not a finite number (ages must be finite and >= 0)", a,
+                              "ages must be finite and >= 0")
         if a < 0.0:
-            raise LifeTableError(f"{locate(i, age_label)}: {_fmt(a)} is negative (ages must be >= 0)")
+            raise _cell_error(at, f"{_fmt(a)} is negative (ages must be >= 0)", a, "ages must be >= 0")
         if i > 0 and not a > ages[i - 1]:
-            raise LifeTableError(f"{locate(i, age_label)}: {_fmt(a)} does not exceed the previous age "
-                                 f"{_fmt(ages[i - 1])} (ages must be strictly increasing)")
+            raise _cell_error(at, f"{_fmt(a)} does not exceed the previous age {_fmt(ages[i - 1])} (ages must be "
+                                  f"strictly increasing)", a,
+                              f"ages must be strictly increasing (the previous age is {_fmt(ages[i - 1])})")
     n = ages.size
     if kind == "q" and n < 2:
-        raise LifeTableError(f"{where}: a kind 'q' table needs at least 2 rows, got 1 (the last row is "
-                             f"the open band, whose q is read over the width of the band before it)")
+        rule = ("a kind 'q' table needs at least 2 rows, got 1 (the last row is the open band, whose q is read "
+                "over the width of the band before it)")
+        raise LifeTableError(f"{where}: {rule}", rule=rule, **table_at)
     for sex, vals in values.items():
         col = value_labels[sex]
         if vals.shape != ages.shape:
-            raise LifeTableError(f"{where}: column {col!r} has {vals.size} values for {n} ages")
+            raise LifeTableError(f"{where}: column {col!r} has {vals.size} values for {n} ages",
+                                 **{**table_at, "key": ("values", sex)}, value=vals.size,
+                                 rule=f"must have one value per age ({n})")
         for i, v in enumerate(vals):
+            at = locate(i, col, sex)
             if not math.isfinite(v):
-                raise LifeTableError(f"{locate(i, col)}: {_fmt(v)} is not a finite number "
-                                     f"(every {kind} must be finite)")
+                raise _cell_error(at, f"{_fmt(v)} is not a finite number (every {kind} must be finite)", v,
+                                  f"every {kind} must be finite")
             if kind == "q":
                 if not 0.0 <= v <= 1.0:
-                    raise LifeTableError(f"{locate(i, col)}: {_fmt(v)} is outside [0, 1] "
-                                         f"(q is a probability)")
+                    raise _cell_error(at, f"{_fmt(v)} is outside [0, 1] (q is a probability)", v,
+                                      "q is a probability, in [0, 1]")
                 if v == 1.0 and i < n - 1:
-                    raise LifeTableError(f"{locate(i, col)}: q = 1 (certain death) is allowed only in the "
-                                         f"last row (the open band); here it would make the band's "
-                                         f"hazard infinite")
+                    rule = ("q = 1 (certain death) is allowed only in the last row (the open band); here it "
+                            "would make the band's hazard infinite")
+                    raise _cell_error(at, rule, v, rule)
             elif v < 0.0:
-                raise LifeTableError(f"{locate(i, col)}: {_fmt(v)} is negative (m is a rate, >= 0)")
+                raise _cell_error(at, f"{_fmt(v)} is negative (m is a rate, >= 0)", v, "m is a rate, >= 0")
         if kind == "q" and vals[-1] == 1.0 and vals[-2] == 0.0:
-            raise LifeTableError(f"{locate(n - 1, col)}: q = 1 in the last row gives the open band the "
-                                 f"last finite rate, but the band before it has q = 0 (rate 0), which "
-                                 f"contradicts certain death")
+            rule = ("q = 1 in the last row gives the open band the last finite rate, but the band before it "
+                    "has q = 0 (rate 0), which contradicts certain death")
+            raise _cell_error(locate(n - 1, col, sex), rule, float(vals[-1]), rule)
 
 
 def _check_kind(func: str, kind: Any) -> str:
     if not isinstance(kind, str) or kind not in KINDS:
         allowed = " or ".join(f"{k!r} ({v})" for k, v in KINDS.items())
-        raise LifeTableError(f"{func}: kind must be {allowed}, got {kind!r}")
+        raise LifeTableError(f"{func}: kind must be {allowed}, got {kind!r}", key=("kind",), value=kind,
+                             rule=f"must be {allowed}")
     return kind
 
 
@@ -135,26 +155,30 @@ class LifeTable:
 
     def __post_init__(self) -> None:
         kind = _check_kind("LifeTable", self.kind)
-        ages = _float_tuple("LifeTable", "ages", self.ages)
+        ages = _float_tuple("LifeTable", "ages", self.ages, ("ages",))
         if not isinstance(self.values, Mapping) or not self.values:
-            raise LifeTableError(f"LifeTable: values must be a non-empty mapping of sex label to values, "
-                                 f"got {self.values!r}")
+            rule = "must be a non-empty mapping of sex label to values"
+            raise LifeTableError(f"LifeTable: values {rule}, got {self.values!r}", key=("values",),
+                                 value=self.values, rule=rule)
         vals: dict[str, tuple[float, ...]] = {}
         for sex, v in self.values.items():
             if not isinstance(sex, str) or not sex:
-                raise LifeTableError(f"LifeTable: sex labels must be non-empty strings, got {sex!r}")
-            vals[sex] = _float_tuple("LifeTable", f"values[{sex!r}]", v)
+                raise LifeTableError(f"LifeTable: sex labels must be non-empty strings, got {sex!r}",
+                                     key=("values",), value=sex, rule="sex labels must be non-empty strings")
+            vals[sex] = _float_tuple("LifeTable", f"values[{sex!r}]", v, ("values", sex))
         cols = dict(self.columns) if self.columns is not None else {s: s for s in vals}
         if set(cols) != set(vals):
-            raise LifeTableError(f"LifeTable: columns must name a source column for each sex "
-                                 f"{sorted(vals)}, got {sorted(cols)}")
+            rule = f"must name a source column for each sex {sorted(vals)}"
+            raise LifeTableError(f"LifeTable: columns {rule}, got {sorted(cols)}", key=("columns",),
+                                 value=sorted(cols), rule=rule)
         where = f"life table {self.source}" if self.source else "LifeTable"
 
-        def locate(i: int, col: str) -> str:
-            return f"{where} data row {i + 1}, column {col!r}"
+        def locate(i: int, col: str, sex: str | None) -> Located:
+            return (f"{where} data row {i + 1}, column {col!r}",
+                    {"key": ("ages", i) if sex is None else ("values", sex, i)})
 
         _validate(np.array(ages), {s: np.array(v) for s, v in vals.items()}, kind, locate, "age",
-                  cols, where)
+                  cols, where, {})
         object.__setattr__(self, "ages", ages)
         object.__setattr__(self, "values", MappingProxyType(vals))
         object.__setattr__(self, "columns", MappingProxyType(cols))
@@ -177,8 +201,9 @@ class LifeTable:
 
     def _sex(self, func: str, sex: Any) -> str:
         if sex not in self.values:
-            raise LifeTableError(f"{func}: sex {sex!r} is not in this table; sexes available: "
-                                 f"{', '.join(map(repr, self.values))}")
+            available = ", ".join(map(repr, self.values))
+            raise LifeTableError(f"{func}: sex {sex!r} is not in this table; sexes available: {available}",
+                                 key=("sex",), value=sex, rule=f"must be a sex of this table: {available}")
         return sex
 
     def band_rates(self, sex: str = "all") -> FloatArray:
@@ -315,12 +340,14 @@ def _years(x: float) -> str:
     return f"{_num(x)} year" + ("" if float(x) == 1.0 else "s")
 
 
-def _float_tuple(func: str, name: str, value: Any) -> tuple[float, ...]:
+def _float_tuple(func: str, name: str, value: Any, key: tuple[str, ...]) -> tuple[float, ...]:
     if isinstance(value, (str, bytes)) or np.ndim(value) != 1:
-        raise LifeTableError(f"{func}: {name} must be a 1-D sequence of numbers, got {value!r}")
+        raise LifeTableError(f"{func}: {name} must be a 1-D sequence of numbers, got {value!r}", key=key,
+                             value=value, rule="must be a 1-D sequence of numbers")
     out = []
     for i, v in enumerate(np.asarray(value, dtype=object).tolist()):
         if isinstance(v, (bool, np.bool_)) or not isinstance(v, numbers.Real):
-            raise LifeTableError(f"{func}: {name}[{i}] must be a real number, got {v!r}")
+            raise LifeTableError(f"{func}: {name}[{i}] must be a real number, got {v!r}", key=(*key, i),
+                                 value=v, rule="must be a real number")
         out.append(float(v))
     return tuple(out)
