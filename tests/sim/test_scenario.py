@@ -91,7 +91,8 @@ def _bad(old: str, new: str, count: int = 1) -> str:
     # families and parameters
     (_bad('family = "weibull"', 'family = "wiebull"'), "transitions[0].family", "must be one of", None),
     (_bad("shape = 1.3\n", ""), "transitions[0]", "missing parameter 'shape' of the weibull family", None),
-    (_bad("shape = 1.3", "shape = -1.3"), "transitions[0]", "shape must be > 0", None),
+    (_bad("shape = 1.3", "shape = -1.3"), "transitions[0].shape", "must be > 0 and finite, got -1.3",
+     "shape = -1.3"),  # the family's own rule, at the parameter
     # population, horizon, valuation, run
     (_bad("sd = 8.0", "sd = 0.0"), "population.entry_age.sd", "must be > 0", None),
     (_bad("value = 100 ", "value = 140 "), "horizon.value", "must be <= 130", "value = 140"),
@@ -115,8 +116,9 @@ def test_validation_messages(text, key, message, line_of):
 def test_model_level_rules_name_the_file():
     # no absorbing state
     text = _bad("absorbing = true\n", "")
-    with pytest.raises(ScenarioError, match=r"^scen.toml: .*at least one state must be absorbing"):
+    with pytest.raises(ScenarioError, match=r"^scen.toml:\d+: states: at least one state must be absorbing") as info:
         parse_scenario(text, "scen.toml")
+    assert info.value.path == ("states",) and info.value.line == _line(text, "[[states]]")  # where, as data
     # a state that cannot be reached from the initial state
     text = _bad('[[states]]\nname = "dead"', '[[states]]\nname = "limbo"\n\n[[states]]\nname = "dead"')
     with pytest.raises(ScenarioError, match=r"states\[2\]\.name: cannot be reached from the initial state 'well'"):
@@ -130,13 +132,14 @@ def test_one_reading_reports_every_independent_problem():
     with pytest.raises(ScenarioProblems) as info:
         parse_scenario(text, "scen.toml")
     err = info.value
-    assert [p.key for p in err.problems] == ["transitions[0]", "population.entry_age.sd", "run.threads"]
-    assert [p.line for p in err.problems][1:] == [_line(text, "sd = 0.0"), _line(text, "threads = 4")]
+    assert [p.key for p in err.problems] == ["transitions[0].shape", "population.entry_age.sd", "run.threads"]
+    assert [p.line for p in err.problems] == [_line(text, "shape = -1.3"), _line(text, "sd = 0.0"),
+                                              _line(text, "threads = 4")]
     message = str(err)
     assert message.startswith("scen.toml: 3 problems:")
     for p in err.problems:
         assert str(p) in message
-    assert isinstance(err, ScenarioError) and err.key == "transitions[0]"  # the first, for single-error callers
+    assert isinstance(err, ScenarioError) and err.key == "transitions[0].shape"  # the first, for single-error callers
     # a problem in one state does not make the transitions that name it fail too
     text = _bad('name = "lanthic"\n', 'name = "lanthic"\nabsorbing = "no"\n')
     with pytest.raises(ScenarioError) as info:

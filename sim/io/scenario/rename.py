@@ -1,0 +1,61 @@
+"""Renaming a state or a transition together with every reference to it, wherever the schema
+declares that a key names one (:func:`.schema.references`)."""
+
+from __future__ import annotations
+
+from typing import Any, Iterator, MutableMapping
+
+from .schema import Ref, references
+
+__all__ = ["rename", "RENAMEABLE"]
+
+RENAMEABLE = {"states": Ref.STATE, "transitions": Ref.TRANSITION}
+"""The arrays of tables whose items can be renamed, and what their names are."""
+
+_FOLLOWS = {Ref.STATE: (Ref.STATE,), Ref.TRANSITION: (Ref.TRANSITION, Ref.EXIT)}
+
+
+def _places(doc: Any, pattern: tuple, prefix: tuple = ()) -> Iterator[tuple[Any, Any]]:
+    """(container, key) pairs of ``doc`` matching ``pattern`` (``"*"``: every item of an array)."""
+    if not pattern:
+        return
+    head, rest = pattern[0], pattern[1:]
+    if head == "*":
+        if isinstance(doc, list):
+            for item in doc:
+                yield from _places(item, rest)
+        return
+    if not isinstance(doc, MutableMapping) or head not in doc:
+        return
+    if rest:
+        yield from _places(doc[head], rest)
+    else:
+        yield doc, head
+
+
+def rename(doc: Any, array: str, index: int, new: str) -> None:
+    """Rename item ``index`` of ``[[array]]`` (``"states"`` or ``"transitions"``) in the document
+    ``doc`` (a tomlkit document or plain mapping, changed in place) to ``new``, and every reference
+    to its old name. A name already in use (or an item without a name) is set without touching
+    references: the reader then reports the duplicate.
+    """
+    kind = RENAMEABLE[array]
+    items = doc[array]
+    item = items[index]
+    old = item.get("name")
+    taken = any(isinstance(x, MutableMapping) and x.get("name") == new for x in items)
+    item["name"] = new
+    if taken or not isinstance(old, str) or not old or old == new:
+        return
+    for ref in references():
+        if ref.ref not in _FOLLOWS[kind]:
+            continue
+        for container, key in _places(doc, ref.pattern):
+            value = container[key]
+            if ref.as_key:
+                if isinstance(value, MutableMapping) and old in value:
+                    moved = value[old]
+                    del value[old]
+                    value[new] = moved
+            elif value == old:
+                container[key] = new
