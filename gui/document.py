@@ -12,7 +12,6 @@ Key paths are tuples of table keys and array indices, e.g. ``("transitions", 0, 
 from __future__ import annotations
 
 import hashlib
-import re
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Callable, Iterable
@@ -26,10 +25,10 @@ from tomlkit.items import AoT, Array, Comment, InlineTable, Item, Table, Whitesp
 from tomlkit.toml_document import TOMLDocument
 
 from sim.io.demo import DEMOS, demo_path
-from sim.io.scenario import Scenario, ScenarioError, parse_scenario, save_scenario
+from sim.io.scenario import Scenario, ScenarioError, parse_scenario, problem_text, rename, save_scenario
+from sim.problems import Problem, format_key
 
-__all__ = ["ScenarioDocument", "FieldError", "DocumentError", "KeyPath", "parse_key", "format_key",
-           "display_value"]
+__all__ = ["ScenarioDocument", "FieldError", "DocumentError", "KeyPath", "format_key", "display_value"]
 
 KeyPath = tuple[Any, ...]
 RECENT_KEY = "recent_files"
@@ -209,45 +208,15 @@ def remove_table(doc: Any, path: KeyPath, index: int) -> None:
         aot[index - 1].value.body.extend(tail)
 
 
-# ----------------------------------------------------------------------------- key paths as text
-_TOKEN = re.compile(r"""\[(\d+)\]|\[\s*'([^']*)'\s*\]|\[\s*"([^"]*)"\s*\]|\.?"([^"]*)"|\.?([A-Za-z0-9_-]+)""")
-
-
-def parse_key(text: str | None) -> KeyPath:
-    """Key path from the loader's notation: ``transitions[0].rate``, ``valuation.utilities."x y"``,
-    ``strategies['new therapy'].state_costs``."""
-    if not text:
-        return ()
-    out: list[Any] = []
-    pos = 0
-    while pos < len(text):
-        m = _TOKEN.match(text, pos)
-        if not m or m.end() == pos:
-            break
-        idx, sq, dq, quoted, bare = m.groups()
-        out.append(int(idx) if idx is not None else next(x for x in (sq, dq, quoted, bare) if x is not None))
-        pos = m.end()
-    return tuple(out)
-
-
-def format_key(path: Iterable[Any]) -> str:
-    """The loader's notation for a key path (inverse of :func:`parse_key`)."""
-    out = ""
-    for p in path:
-        if isinstance(p, int):
-            out += f"[{p}]"
-        else:
-            out += ("." if out else "") + (p if re.fullmatch(r"[A-Za-z0-9_-]+", str(p)) else f'"{p}"')
-    return out
-
-
 # ----------------------------------------------------------------------------- validation problems
 @dataclass(frozen=True)
 class FieldError:
-    """One problem found by the loader.
+    """One problem found by the loader, taken from its data (:class:`sim.problems.Problem`), never
+    from the wording of its message.
 
-    ``key`` is the key path it concerns (``()`` when unknown), ``line`` the line in the text,
-    ``message`` the loader's full message (``str(ScenarioError)``) and ``rule`` the rule alone.
+    ``key`` is the key path it concerns in document positions (``()`` for the whole file),
+    ``line`` the line in the text, ``message`` the loader's message for it and ``rule`` the rule
+    alone.
     """
 
     key: KeyPath
@@ -263,11 +232,9 @@ class FieldError:
         """True when the problem is at ``path`` or inside it."""
         return self.key[:len(path)] == tuple(path)
 
-
-_NAMED_ARRAYS = ("states", "transitions", "strategies")
-_MODEL_FIELDS = {"source": "from", "target": "to"}
-_LEAD = re.compile(r"^([A-Za-z_]+(?:\[[^\]]*\]|\.[A-Za-z_]+)*)")
-_PARAM_RULE = re.compile(r"^[a-z_]+: ([a-z_]+)(?:\[\d+\])? must")
+    @classmethod
+    def from_problem(cls, problem: Problem) -> "FieldError":
+        return cls(key=tuple(problem.path), line=problem.line, message=problem_text(problem), rule=problem.rule)
 
 
 class DocumentError(Exception):
@@ -459,20 +426,16 @@ class ScenarioDocument(QObject):
         return self.edit(label or f"Remove {array}[{index}]", lambda d: remove_table(d, (array,), index))
 
     def rename_state(self, index: int, new: str) -> bool:
-        """Rename state ``index`` and every reference to it (transitions, background, population,
-        utilities and costs). A name already in use is set without touching references, and the
-        loader then reports the duplicate."""
+        """Rename state ``index`` and every reference to it, wherever the scenario schema says a key
+        names a state (:func:`sim.io.scenario.rename`). A name already in use is set without
+        touching references, and the loader then reports the duplicate."""
         old = self.get(("states", index, "name"))
-        names = [s.get("name") for s in self.get(("states",), [])]
-        return self.edit(f"Rename state {old!r} to {new!r}",
-                         lambda d: _rename_state(d, index, old, new, new in names))
+        return self.edit(f"Rename state {old!r} to {new!r}", lambda d: rename(d, "states", index, new))
 
     def rename_transition(self, index: int, new: str) -> bool:
-        """Rename transition ``index`` and every reference to it (hazard ratios, replacements, costs)."""
+        """Rename transition ``index`` and every reference to it (as :meth:`rename_state`)."""
         old = self.get(("transitions", index, "name"))
-        names = [t.get("name") for t in self.get(("transitions",), [])]
-        return self.edit(f"Rename transition {old!r} to {new!r}",
-                         lambda d: _rename_transition(d, index, old, new, new in names))
+        return self.edit(f"Rename transition {old!r} to {new!r}", lambda d: rename(d, "transitions", index, new))
 
     def set_text(self, text: str, label: str = "Edit scenario text", merge: bool = False) -> bool:
         """Replace the whole text (e.g. typed in the source view); ``merge`` joins consecutive typing."""
@@ -501,43 +464,8 @@ class ScenarioDocument(QObject):
             self._errors = []
         except ScenarioError as err:
             self._scenario = None
-            self._errors = [self._field_error(e) for e in err.problems]
+            self._errors = [FieldError.from_problem(p) for p in err.problems]
         self.validated.emit(self._scenario, self.errors)
-
-    def _field_error(self, err: ScenarioError) -> FieldError:
-        key = parse_key(err.key) or self._guess_key(err.rule)
-        return FieldError(key=self._refine(key, err.rule), line=err.line, message=str(err), rule=err.rule)
-
-    def _refine(self, key: KeyPath, rule: str) -> KeyPath:
-        """Narrow a table-level problem to the field its rule names (``entry_age.high must be ...``
-        under ``population``; ``weibull: shape must be ...`` under a transition)."""
-        if not key:
-            return key
-        m = _PARAM_RULE.match(rule) or _LEAD.match(rule)
-        if m:
-            sub = parse_key(m.group(1))
-            for candidate in ((*key, *sub), sub):
-                if sub and candidate[:len(key)] == key and self.has(candidate):
-                    return candidate
-        return key
-
-    def _guess_key(self, rule: str) -> KeyPath:
-        """Key path named at the start of a model-level message (``states['x'] is not absorbing...``);
-        names in arrays of tables become indices."""
-        m = _LEAD.match(rule)
-        if not m:
-            return ()
-        key = list(parse_key(m.group(1)))
-        if not key or key[0] not in (*_NAMED_ARRAYS, "population", "background", "horizon", "valuation", "run"):
-            return ()
-        if len(key) > 1 and key[0] in _NAMED_ARRAYS and isinstance(key[1], str):
-            names = [x.get("name") if isinstance(x, dict) else None for x in self.get((key[0],), [])]
-            if key[1] not in names:
-                return (key[0],)
-            key[1] = names.index(key[1])
-        if len(key) > 2 and key[0] == "transitions":
-            key[2] = _MODEL_FIELDS.get(key[2], key[2])
-        return tuple(key)
 
     # ------------------------------------------------------------------ files
     def load_text(self, text: str, path: Path | None = None, origin: str = "") -> None:
@@ -670,38 +598,3 @@ class ScenarioDocument(QObject):
         """Delete the current file's recovery file (after a save, or when the user discards edits)."""
         self.recovery_path().unlink(missing_ok=True)
         self._autosaved = self._text
-
-
-# ----------------------------------------------------------------------------- renaming references
-def _rename_keys(table: Any, old: str, new: str) -> None:
-    if isinstance(table, (Table, InlineTable)) and old in table:
-        value = table[old]
-        del table[old]
-        table[new] = value
-
-
-def _rename_state(doc: Any, index: int, old: str, new: str, taken: bool) -> None:
-    set_value(doc, ("states", index, "name"), new)
-    if taken or not old:
-        return
-    for t in get_item(doc, ("transitions",)) or []:
-        for end in ("from", "to"):
-            if to_plain(t.get(end)) == old:
-                t[end] = new
-    for path in (("background", "to"), ("population", "initial_state")):
-        if to_plain(get_item(doc, path)) == old:
-            set_value(doc, path, new)
-    for path in (("valuation", "utilities"), ("valuation", "state_costs")):
-        _rename_keys(get_item(doc, path), old, new)
-    for st in get_item(doc, ("strategies",)) or []:
-        _rename_keys(st.get("state_costs"), old, new)
-
-
-def _rename_transition(doc: Any, index: int, old: str, new: str, taken: bool) -> None:
-    set_value(doc, ("transitions", index, "name"), new)
-    if taken or not old:
-        return
-    _rename_keys(get_item(doc, ("valuation", "transition_costs")), old, new)
-    for st in get_item(doc, ("strategies",)) or []:
-        for key in ("hazard_ratios", "replacements", "transition_costs"):
-            _rename_keys(st.get(key), old, new)

@@ -7,16 +7,15 @@ parameters the model actually uses (in years) come from the validated model.
 
 from __future__ import annotations
 
-import dataclasses
 from typing import Any, Mapping
 
 from PySide6.QtWidgets import QComboBox, QFormLayout, QLabel, QWidget
 
 from gui.document import KeyPath, ScenarioDocument, format_key, remove_value, set_value
 from gui.editors.fields import FieldSet
-from sim.hazards import FAMILIES, Hazard
-from sim.io.scenario import LOG_TIME_PARAMS, RATE_PARAMS, TIME_PARAMS, TIME_UNITS
-from sim.hazards.units import UnitError, rate_from_risk, rate_per_year, risk_from_rate
+from sim.hazards import (FAMILIES, FAMILY_DIMENSIONS, Dimension, Hazard, UnitError, rate_from_risk, rate_per_year,
+                         risk_from_rate)
+from sim.io.scenario import TIME_UNITS
 
 __all__ = ["HazardForm", "family_params", "exponential_mode", "FAMILY_LABELS", "DEFAULTS", "MODES",
            "equivalent_form"]
@@ -48,11 +47,8 @@ _EXP_KEYS = ("rate", "events", "per", "risk", "period")
 
 
 def family_params(family: str) -> list[str]:
-    """Parameter names of a family, in the family's order."""
-    cls = FAMILIES.get(family)
-    if cls is None:
-        return []
-    return [f.name for f in dataclasses.fields(cls) if f.init and not f.name.startswith("_")]
+    """Parameter names of a family, in the family's order (:data:`sim.hazards.FAMILY_DIMENSIONS`)."""
+    return list(FAMILY_DIMENSIONS.get(family, ()))
 
 
 ALL_HAZARD_KEYS = frozenset({"family", "unit", *_EXP_KEYS, *(p for fam in FAMILIES for p in family_params(fam))})
@@ -78,12 +74,13 @@ def equivalent_form(mode: str, rate: float) -> dict[str, Any]:
 
 
 def _unit_text(family: str, name: str, unit: str) -> str:
-    one = unit[:-1]
-    if name in TIME_PARAMS.get(family, ()):
+    """How a parameter of ``family`` written in ``unit`` is labelled, from its dimension."""
+    dimension = FAMILY_DIMENSIONS.get(family, {}).get(name)
+    if dimension is Dimension.TIME:
         return f"{unit}"
-    if name in RATE_PARAMS.get(family, ()):
-        return f"per {one}"
-    if name in LOG_TIME_PARAMS.get(family, ()):
+    if dimension is Dimension.RATE:
+        return f"per {unit[:-1]}"
+    if dimension is Dimension.LOG_TIME:
         return f"log of {unit}"
     return "no unit"
 

@@ -5,12 +5,14 @@ from __future__ import annotations
 import gc
 import os
 import time
+from dataclasses import replace
 from pathlib import Path
 
 import pytest
 from PySide6.QtCore import QEvent, QSettings
 
-from gui.document import ScenarioDocument, format_key, parse_key
+import gui.document
+from gui.document import ScenarioDocument, format_key
 from sim.io.demo import demo_path
 from sim.io.scenario import ScenarioError, parse_scenario
 
@@ -77,6 +79,30 @@ def test_problems_are_located_at_the_field(doc: ScenarioDocument, path: tuple, v
     doc.set_value(path, value)
     (err,) = doc.errors
     assert err.key == key, err.message
+
+
+@pytest.mark.parametrize(("path", "value", "key"), [
+    (("valuation", "utilities", "dead"), 0.5, ("valuation", "utilities", "dead")),  # a rule of the model
+    (("population", "entry_age", "high"), 30.0, ("population", "entry_age", "high")),
+    (("transitions", 0, "shape"), -1.0, ("transitions", 0, "shape")),  # a hazard family's rule
+    (("strategies", 1, "hazard_ratios", "onset"), "x", ("strategies", 1, "hazard_ratios", "onset")),
+])
+def test_fields_come_from_the_problems_data_not_their_wording(monkeypatch, doc: ScenarioDocument, path: tuple,
+                                                             value: object, key: tuple) -> None:
+    # every rule reworded into text that names no field: the window still marks the right one
+    real = gui.document.parse_scenario
+
+    def reworded(text, file=None):
+        try:
+            return real(text, file)
+        except ScenarioError as err:
+            raise ScenarioError.of(replace(p, rule="is not acceptable here") for p in err.problems) from None
+
+    monkeypatch.setattr(gui.document, "parse_scenario", reworded)
+    doc.set_value(path, value)
+    (err,) = doc.errors
+    assert err.key == key and err.rule == "is not acceptable here", err.message
+    assert err.line is not None and err.message.endswith(f"{format_key(key)}: is not acceptable here, got {value!r}")
 
 
 def test_every_problem_is_located_at_its_field(doc: ScenarioDocument) -> None:
@@ -214,7 +240,7 @@ def test_recent_files(doc: ScenarioDocument, tmp_path: Path) -> None:
     assert doc.recent_files() == []
 
 
-def test_key_paths_round_trip() -> None:
-    for text in ('transitions[0].rate', 'valuation.utilities."disease death"', 'run.cycle_lengths[2]'):
-        assert format_key(parse_key(text)) == text
-    assert parse_key("strategies['new therapy'].state_costs") == ("strategies", "new therapy", "state_costs")
+def test_key_paths_as_text() -> None:
+    assert format_key(("transitions", 0, "rate")) == "transitions[0].rate"
+    assert format_key(("valuation", "utilities", "disease death")) == 'valuation.utilities."disease death"'
+    assert format_key(("run", "cycle_lengths", 2)) == "run.cycle_lengths[2]"
