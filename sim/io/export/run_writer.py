@@ -2,6 +2,8 @@
 
 The run is written into a hidden temporary sibling folder that is renamed to the output folder only
 once every file is complete; an existing output folder is never touched unless ``force=True``.
+Temporary folders left by a killed run into the same place are removed by the next one
+(:mod:`.leftovers`).
 """
 
 from __future__ import annotations
@@ -23,6 +25,7 @@ import pyarrow.parquet as pq
 from ...model.multistate import Model
 from ..atomic import fsync_folder
 from .errors import ExportError
+from .leftovers import remove_leftovers, remove_owner, temporary_folder_for, write_owner
 from .long_format import long_format
 from .metadata import _metadata_json, _utc_now
 from .tables import FORMATS, _arrow_table, _TextView, _tidy, _write_csv
@@ -198,6 +201,7 @@ class RunWriter:
         self.paths: dict[str, Path] = {}
         self.patients_done = 0
         self._tmp: Path | None = None
+        self.leftovers_removed: list[Path] = []
         self._made_parents: list[Path] = []
         self._sinks: dict[str, _Sink] = {}
         self._extra: dict[str, tuple[Path, int]] = {}
@@ -230,9 +234,11 @@ class RunWriter:
                 self._made_parents.append(folder)
             if not self.out_dir.parent.is_dir():
                 raise self._error(f"parent {self.out_dir.parent} is not a folder")
-            tmp = self.out_dir.parent / f".{self.out_dir.name}.tmp-{uuid.uuid4().hex[:12]}"
+            self.leftovers_removed = remove_leftovers(self.out_dir)  # of runs killed before
+            tmp = temporary_folder_for(self.out_dir)
             tmp.mkdir()  # default mode under the umask (mkdtemp's 0700 would stick to the output)
             self._tmp = tmp
+            write_owner(tmp)
         except BaseException:
             self._remove_parents()
             raise
@@ -329,6 +335,7 @@ class RunWriter:
             meta["chunks"] = n_chunks
             meta["files"] = ([{"name": s.path.name, "table": name, "rows": s.rows} for name, s in self._sinks.items()]
                              + [{"name": p.name, "table": name, "rows": rows} for name, (p, rows) in self._extra.items()])
+            remove_owner(self._tmp)
             meta_path = self._tmp / "metadata.json"
             with open(meta_path, "x", encoding="utf-8") as handle:
                 handle.write(_metadata_json(meta, self.out_dir))
