@@ -4,9 +4,9 @@ competing risks and inverse-cumulative-hazard sampling driven by counter-based r
 table that are identical for any chunking or number of workers."""
 
 from .histories import (CancelToken, SimulationCancelled, SimulationError, SimulationResult, cancel_requested,
-                        chunk_size_for, simulate, simulate_chunks)
+                        chunk_size_for, simulate, simulate_chunks, simulate_range)
 from .rng import ATTRIBUTE_STREAM, exponentials, key_from_seed, philox4x64, uniforms
 
 __all__ = ["CancelToken", "SimulationCancelled", "SimulationError", "SimulationResult", "cancel_requested",
-           "chunk_size_for", "simulate", "simulate_chunks", "ATTRIBUTE_STREAM", "exponentials", "key_from_seed",
+           "chunk_size_for", "simulate", "simulate_chunks", "simulate_range", "ATTRIBUTE_STREAM", "exponentials", "key_from_seed",
            "philox4x64", "uniforms"]

@@ -34,7 +34,7 @@ from ..hazards import KERNEL_ERRSTATE
 from ..model.multistate import Clock, Model, ResolvedExit
 from .rng import ATTRIBUTE_STREAM, _BulkWords, _sorted_draws, key_from_seed
 
-__all__ = ["simulate", "simulate_chunks", "SimulationResult", "SimulationCancelled", "SimulationError", "CancelToken",
+__all__ = ["simulate", "simulate_chunks", "simulate_range", "SimulationResult", "SimulationCancelled", "SimulationError", "CancelToken",
            "cancel_requested", "chunk_size_for"]
 
 ProgressCallback = Callable[[int, int], None]
@@ -459,6 +459,21 @@ def simulate_chunks(model: Model, n_patients: int, seed: int, *, strategies: tup
     names = _validate_run(model, n_patients, chunk_size, workers, strategies)
     for out, table in _chunk_outputs(model, n_patients, seed, names, chunk_size, workers, cancel, max_transitions):
         yield _assemble(model, names, [out], table)
+
+
+def simulate_range(model: Model, seed: int, start: int, stop: int, *, strategies: tuple[str, ...] | None = None,
+                   max_transitions: int = 10_000) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """``(events, patients)`` of patients ``start .. stop - 1`` under each strategy: a pure function
+    of its arguments, the unit of work an executor (threads, processes, a cluster) runs. The rows
+    are those of one chunk of :func:`simulate_chunks` covering the same patients (by strategy, then
+    patient), so any split of ``0 .. n`` into ranges gives the histories of :func:`simulate`."""
+    if not all(isinstance(v, (int, np.integer)) for v in (start, stop)) or not 0 <= start < stop:
+        raise ValueError(f"patients start .. stop must be integers with 0 <= start < stop, got {start!r} .. {stop!r}")
+    names = _validate_run(model, int(stop - start), int(stop - start), 1, strategies)
+    table = _PatientTable(int(start), int(stop - start), len(names), _code_dtype(len(model.state_names)))
+    out = _simulate_chunk(model, [model.resolve(nm) for nm in names], key_from_seed(seed), int(start), int(stop),
+                          max_transitions, table)
+    return _assemble(model, names, [out], table)
 
 
 def simulate(model: Model, n_patients: int, seed: int, *, strategies: tuple[str, ...] | None = None,
