@@ -2,7 +2,8 @@
 within-cycle correction change the answer and the decision.
 
 One call computes the reference (the exact Kolmogorov solution for a Markov model; for a semi-Markov
-model a large simulation, whose Monte Carlo standard error is reported) and a grid of cohort
+model a large simulation, whose Monte Carlo standard error is reported: by default the study runs
+one, and a run passes its own as ``simulated_reference``) and a grid of cohort
 approximations (cycle lengths x conversions x corrections), and returns tidy tables:
 
 - ``table``: outcome, strategy, cycle_length, method, correction, value, reference, error,
@@ -32,6 +33,7 @@ from ..engine.histories import CancelToken, SimulationCancelled, cancel_requeste
 from ..model.multistate import Model
 from ..analysis.outcomes import increments_from_values, outcome_names, patient_outcomes, summarise
 from .exact_outcomes import exact_outcomes
+from ..problems import ValidationError
 
 __all__ = ["DEFAULT_CYCLE_LENGTHS", "StudyResult", "discretization_study", "observed_order", "largest_cycle_within"]
 
@@ -79,14 +81,38 @@ def _reference_kind(model: Model, n_patients: int, seed: int) -> str:
     return "exact" if model.is_markov else f"simulation ({n_patients:,} patients, seed {seed})"
 
 
-def _reference(model: Model, n_patients: int, seed: int, n_nodes: int, cancel) -> pd.DataFrame:
+REFERENCE_COLUMNS = ("strategy", "outcome", "mean", "mcse")
+
+
+def _checked_reference(model: Model, simulated: pd.DataFrame) -> pd.DataFrame:
+    """A caller's simulated reference (a :func:`summarise` table) as ``strategy, outcome, value,
+    mcse``, after checking that it has those columns and every outcome of every strategy."""
+    path = ("simulated_reference",)
+    if not isinstance(simulated, pd.DataFrame):
+        raise ValidationError(path, "must be a pandas DataFrame (a summarise() table)", type(simulated).__name__)
+    missing = [c for c in REFERENCE_COLUMNS if c not in simulated.columns]
+    if missing:
+        raise ValidationError(path, f"must have the columns {list(REFERENCE_COLUMNS)}", list(simulated.columns))
+    have = set(zip(simulated["strategy"], simulated["outcome"]))
+    needed = [(s, o) for s in model.strategy_names for o in outcome_names(model)]
+    absent = [pair for pair in needed if pair not in have]
+    if absent:
+        raise ValidationError(path, "must hold every outcome of every strategy of the model (value: the missing "
+                              "strategy and outcome pairs)", absent)
+    ref = simulated[list(REFERENCE_COLUMNS)].rename(columns={"mean": "value"})
+    return ref.drop_duplicates(["strategy", "outcome"]).reset_index(drop=True)
+
+
+def _reference(model: Model, n_patients: int, seed: int, n_nodes: int, cancel,
+               simulated: pd.DataFrame | None = None) -> pd.DataFrame:
     if model.is_markov:
         ref = exact_outcomes(model, n_nodes=n_nodes)
         ref["mcse"] = 0.0
         return ref
+    if simulated is not None:  # already checked by _checked_reference
+        return simulated
     run = simulate(model, n_patients, seed, workers=2, cancel=cancel)
-    s = summarise(patient_outcomes(run)).rename(columns={"mean": "value"})
-    return s[["strategy", "outcome", "value", "mcse"]]
+    return _checked_reference(model, summarise(patient_outcomes(run)))
 
 
 def discretization_study(model: Model, cycle_lengths: tuple[float, ...] = DEFAULT_CYCLE_LENGTHS,
@@ -97,7 +123,8 @@ def discretization_study(model: Model, cycle_lengths: tuple[float, ...] = DEFAUL
                          willingness_to_pay: float | None = None, tunnel_years: float | None = None,
                          n_patients: int = 200_000, seed: int = 1, n_nodes: int = 16,
                          workers: int = 2, cancel: CancelToken | Callable[[], bool] | None = None,
-                         progress: Callable[[int, int], None] | None = None) -> StudyResult:
+                         progress: Callable[[int, int], None] | None = None,
+                         simulated_reference: pd.DataFrame | None = None) -> StudyResult:
     """Run the reference and the grid of cohort approximations; see the module docstring.
 
     Parameters
@@ -109,7 +136,8 @@ def discretization_study(model: Model, cycle_lengths: tuple[float, ...] = DEFAUL
     tunnel_years : for semi-Markov models, how long time-in-state clocks are tracked by tunnel states
         (default: the longest follow-up); cycle lengths needing more than 400 tunnel states are
         skipped with a note.
-    n_patients, seed : size of the simulation reference for semi-Markov models.
+    n_patients, seed : size and seed of the simulation reference for semi-Markov models (when
+        ``simulated_reference`` is given: of the simulation it summarises, for the label).
     n_nodes : entry-age strata, shared by the exact reference and the traces so that the table
         isolates the discretization error (the quadrature error itself is far smaller: about 4e-6
         relative in life expectancy at 16 nodes on the demo model, measured against 64 nodes).
@@ -117,13 +145,24 @@ def discretization_study(model: Model, cycle_lengths: tuple[float, ...] = DEFAUL
     cancel : an object with ``is_set()`` or a callable; checked before each trace (and between the
         chunks of a simulation reference); a request raises :class:`sim.engine.SimulationCancelled`.
     progress : called as ``progress(done, total)`` in the calling thread as the traces finish.
+    simulated_reference : for a semi-Markov model, the summary of a simulation already run (columns
+        strategy, outcome, mean, mcse, as :func:`sim.analysis.summarise`), used as the reference
+        instead of simulating ``n_patients`` histories again: a run passes its own simulation. Ignored
+        for a Markov model, whose reference is the exact solution.
+
+    Raises
+    ------
+    sim.problems.ValidationError
+        A bad grid, tolerance or ``simulated_reference`` (missing columns, strategies or outcomes).
     """
     if not cycle_lengths or any(not (math.isfinite(h) and h > 0) for h in cycle_lengths):
-        raise ValueError(f"cycle_lengths must be positive numbers of years, got {cycle_lengths!r}")
+        raise ValidationError(("cycle_lengths",), "must be positive numbers of years", cycle_lengths)
     if not (math.isfinite(tolerance) and tolerance > 0):
-        raise ValueError(f"tolerance must be > 0, got {tolerance!r}")
+        raise ValidationError(("tolerance",), "must be a number > 0", tolerance)
     comparator = comparator or model.strategy_names[0]
     model.strategy(comparator)
+    given = (None if simulated_reference is None or model.is_markov
+             else _checked_reference(model, simulated_reference))  # checked before any work
     wtp = model.valuation.willingness_to_pay if willingness_to_pay is None else float(willingness_to_pay)
     names = outcome_names(model)
     kind = _reference_kind(model, n_patients, seed)
@@ -162,7 +201,7 @@ def discretization_study(model: Model, cycle_lengths: tuple[float, ...] = DEFAUL
     # the reference and the traces are independent; numpy releases the GIL in the traces' heavy
     # steps while the reference's ODE solver runs Python, so they overlap well in threads
     with ThreadPoolExecutor(max_workers=max(1, workers)) as pool:
-        reference = pool.submit(_reference, model, n_patients, seed, n_nodes, cancel)
+        reference = pool.submit(_reference, model, n_patients, seed, n_nodes, cancel, given)
         results = []
         for result in pool.map(run, tasks):
             results.append(result)
@@ -200,7 +239,7 @@ def largest_cycle_within(table: pd.DataFrame, tolerance: float, relative: bool =
     the outcome's unit); NaN when even the shortest fails. Works on a study table, so a new
     tolerance needs no new study."""
     if not (np.isfinite(tolerance) and tolerance > 0):
-        raise ValueError(f"tolerance must be > 0, got {tolerance!r}")
+        raise ValidationError(("tolerance",), "must be a number > 0", tolerance)
     keys = ["outcome", "strategy", "method", "correction"]
     measure = "relative_error" if relative else "error"
     t = table.sort_values("cycle_length", kind="stable")

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import numpy as np
+import pandas as pd
 import pytest
 
 from sim.io.demo import demo_model
@@ -103,3 +104,62 @@ def test_study_reports_progress_per_trace():
     total = len(model.strategy_names) * 3 * 2
     assert calls == [(i, total) for i in range(1, total + 1)]
     assert len(study.jump_over) == total
+
+
+def _semi_markov_model() -> Model:
+    """Well -> sick -> dead with a Weibull death hazard on time in state (semi-Markov; invented)."""
+    return Model(states=(State("well"), State("sick"), State("dead", absorbing=True)),
+                 transitions=(Transition("onset", "well", "sick", Exponential(0.2)),
+                              Transition("death", "sick", "dead", Weibull(1.5, 3.0), Clock.STATE)),
+                 population=Population(FixedAge(50), "well"), horizon=Horizon(8.0),
+                 valuation=Valuation(utilities={"well": 1.0, "sick": 0.5}))
+
+
+def test_a_given_simulated_reference_replaces_the_studys_own_simulation(monkeypatch):
+    """A simulation already run (its summarise() table) is the reference: the same tables as the
+    study simulating the same patients with the same seed itself, and no second simulation."""
+    import sim.reference.study as study_module
+    from sim.analysis import patient_outcomes, summarise
+    from sim.engine import simulate
+
+    model = _semi_markov_model()
+    kwargs = dict(cycle_lengths=(0.25, 1.0), methods=("competing-exit",), n_patients=5_000, seed=3)
+    own = discretization_study(model, **kwargs)
+    summary = summarise(patient_outcomes(simulate(model, 5_000, 3, chunk_size=1_000)))
+
+    def no_simulation(*args, **kwargs):
+        raise AssertionError("the study simulated although it was given its reference")
+
+    monkeypatch.setattr(study_module, "simulate", no_simulation)
+    given = discretization_study(model, simulated_reference=summary, **kwargs)
+    assert given.reference_kind == own.reference_kind == "simulation (5,000 patients, seed 3)"
+    for name in ("table", "reference", "orders", "largest_cycle", "jump_over"):
+        pd.testing.assert_frame_equal(getattr(given, name), getattr(own, name), check_exact=True)
+    # the reference is the given summary, mean and Monte Carlo standard error as given
+    ref = given.reference.set_index(["strategy", "outcome"])
+    s = summary.set_index(["strategy", "outcome"])
+    np.testing.assert_array_equal(ref.loc[s.index, "value"], s["mean"])
+    np.testing.assert_array_equal(ref.loc[s.index, "mcse"], s["mcse"])
+
+
+def test_a_simulated_reference_is_ignored_for_a_markov_model():
+    model = demo_model("lanthic")
+    bogus = pd.DataFrame({"strategy": ["x"], "outcome": ["y"], "mean": [1.0], "mcse": [0.1]})
+    res = discretization_study(model, cycle_lengths=(1.0,), methods=("competing-exit",), simulated_reference=bogus)
+    assert res.reference_kind == "exact"
+
+
+def test_a_simulated_reference_must_hold_every_outcome_of_every_strategy():
+    from sim.analysis import outcome_names
+    from sim.problems import ValidationError
+
+    model = _semi_markov_model()
+    names = outcome_names(model)
+    full = pd.DataFrame({"strategy": model.strategy_names[0], "outcome": list(names), "mean": 1.0, "mcse": 0.1})
+    with pytest.raises(ValidationError) as err:
+        discretization_study(model, cycle_lengths=(1.0,), simulated_reference=full.iloc[1:])
+    assert err.value.problem.path == ("simulated_reference",)
+    assert err.value.problem.value == [(model.strategy_names[0], names[0])]
+    with pytest.raises(ValidationError) as err:
+        discretization_study(model, cycle_lengths=(1.0,), simulated_reference=full.drop(columns="mcse"))
+    assert err.value.problem.path == ("simulated_reference",) and "mcse" in err.value.problem.rule
