@@ -15,7 +15,6 @@ from __future__ import annotations
 
 import argparse
 import sys
-import time
 import traceback
 from pathlib import Path
 from typing import TextIO
@@ -23,78 +22,18 @@ from typing import TextIO
 import pandas as pd
 
 from .. import __version__
-from ..io.demo import demo_path
-from ..engine.histories import SimulationResult, chunk_size_for, simulate_chunks
+from ..io import Scenario, ScenarioError, demo_path, load_scenario
 from ..io.export import ExportError, RunWriter, metadata_for, write_tidy_csv
-from ..model.multistate import BACKGROUND, Clock
-from ..analysis.outcomes import OutcomeAccumulator, patient_outcomes
-from ..reference.exact_outcomes import with_exact
-from ..io.scenario import Scenario, ScenarioError, load_scenario
-from ..reference.study import discretization_study
+from ..pipeline import RunPlan, StreamSink, run_plan
+from ..reference import discretization_study
+from .describe import describe
+from .progress import ProgressBar, StageProgress
 
 __all__ = ["main", "describe"]
 
 SHOWN = ("life_years", "qalys_discounted", "costs_discounted")
 CAUTION = ("HazardTrace is a modelling aid, not for clinical decisions about individual patients; results "
            "depend on the inputs. Follow local HTA guidance and have models reviewed by qualified people.")
-_CLOCK_WORDS = {Clock.AGE: "attained age", Clock.ENTRY: "time since entry", Clock.STATE: "time in the current state"}
-
-
-class _Progress:
-    """A progress bar on stderr: redrawn in place on a terminal, a line per 10% otherwise."""
-
-    def __init__(self, label: str, stream: TextIO = sys.stderr) -> None:
-        self.label, self.stream, self.last = label, stream, -1
-        self.tty = hasattr(stream, "isatty") and stream.isatty()
-
-    def __call__(self, done: int, total: int | None) -> None:
-        if not total:
-            return
-        pct = int(100 * done / total)
-        if self.tty:
-            bar = "#" * (pct // 4)
-            self.stream.write(f"\r{self.label} [{bar:<25}] {pct:3d}% ({done:,}/{total:,})")
-            if done >= total:
-                self.stream.write("\n")
-        elif pct // 10 != self.last // 10 or done >= total:
-            self.stream.write(f"{self.label}: {pct}% ({done:,}/{total:,})\n")
-        self.last = pct
-        self.stream.flush()
-
-
-def describe(scenario: Scenario) -> str:
-    """The model in words (for ``check``)."""
-    m = scenario.model
-    lines = [f"{m.name}", ""]
-    lines.append("States: " + ", ".join(f"{s.name}{' (absorbing)' if s.absorbing else ''}" for s in m.states))
-    lines.append("Transitions:")
-    for t in m.transitions:
-        lines.append(f"  {t.name}: {t.source} -> {t.target}, {t.hazard.family} {t.hazard.params()} "
-                     f"on {_CLOCK_WORDS[t.clock]}")
-    if m.background is not None:
-        bg = m.background
-        for sex, h in bg.hazards.items():
-            lines.append(f"  {BACKGROUND} ({sex}): every living state -> {bg.target}, {h.family} "
-                         f"on {_CLOCK_WORDS[bg.clock]}")
-    p = m.population
-    lines.append(f"Population: start in {p.initial_state!r}, entry age {type(p.entry_age).__name__} "
-                 f"(mean {p.entry_age.mean:.1f}), sex mix {dict(p.sex_mix)}")
-    lines.append(f"Horizon: {m.horizon.value:g} {'years since entry' if m.horizon.scale == 'time' else '(attained age)'}")
-    lines.append("Strategies:")
-    for st in m.strategies:
-        parts = [f"hazard ratio {v:g} on {k}" for k, v in st.hazard_ratios.items()]
-        parts += [f"{k} replaced by {h.family}" for k, h in st.replacements.items()]
-        parts += [f"+{v:g}/year in {k}" for k, v in st.state_costs.items()]
-        lines.append(f"  {st.name}: " + ("; ".join(parts) if parts else "as defined"))
-    v = m.valuation
-    lines.append(f"Discount rates: costs {100 * v.discount_costs:g}%, effects {100 * v.discount_effects:g}% per "
-                 f"year; willingness to pay {v.willingness_to_pay:,.0f} {v.currency} per QALY")
-    lines.append("Markov (exact solution available)" if m.is_markov else
-                 f"Semi-Markov through {m.semi_markov_transitions()}: no exact solution; a large simulation "
-                 f"serves as the reference")
-    for note in scenario.conversions:
-        lines.append(f"Conversion: {note}")
-    return "\n".join(lines)
 
 
 def _study_summary(study) -> pd.DataFrame:
@@ -125,44 +64,23 @@ def _print_table(df: pd.DataFrame, out: TextIO) -> None:
 
 
 def _run(scenario: Scenario, args: argparse.Namespace, out: TextIO) -> int:
-    model, settings = scenario.model, scenario.run
-    n = args.patients or settings.patients
-    seed = settings.seed if args.seed is None else args.seed
-    workers = args.threads or settings.workers
-    chunk = chunk_size_for(n, settings.chunk_size)
+    """Simulate through the run pipeline, streaming every chunk to the output folder (memory bounded
+    by the chunks in flight), then print the summary, increments and error-study tables."""
+    model = scenario.model
+    plan = RunPlan.from_scenario(scenario, patients=args.patients, seed=args.seed, workers=args.threads)
+    n, seed, workers = plan.patients, plan.seed, plan.workers
     folder = Path(args.output) if args.output else Path("out") / (scenario.path.stem if scenario.path else "run")
     comparator = model.strategy_names[0]
-    wtp = model.valuation.willingness_to_pay
-    acc = OutcomeAccumulator(comparator, wtp)
     meta = metadata_for(scenario.text, seed, n, extra={
-        "scenario_file": str(scenario.path) if scenario.path else None, "threads": workers, "chunk_size": chunk,
-        "format": args.format, "conversions": list(scenario.conversions), "command": "run"})
-    t0 = time.perf_counter()
-    events = 0
-    with RunWriter(folder, fmt=args.format, force=args.force, metadata=meta,
-                   long_format_model=model if args.long_format else None,
-                   progress=_Progress("simulating")) as writer:
-        for ev, pt in simulate_chunks(model, n, seed, chunk_size=chunk, workers=workers):
-            res = SimulationResult(model, seed, int(pt["patient"].nunique()), ev, pt, chunk, workers,
-                                   {"strategies": model.strategy_names})
-            acc.add(patient_outcomes(res))
-            events += len(ev)
-            writer.write_chunk(ev, pt)
-        seconds = time.perf_counter() - t0
-        summary = acc.summary()
-        increments = acc.increments()
-        summary, increments, exact_note = with_exact(model, summary, increments, comparator, wtp)
-        writer.add_table("summary", summary)
-        writer.add_table("increments", increments)
-        study = None
-        if not args.no_study:
-            study = discretization_study(model, cycle_lengths=settings.cycle_lengths, tolerance=settings.tolerance,
-                                         n_patients=min(n, 200_000), seed=seed, progress=_Progress("error study"))
-            writer.add_table("error_study", study.table)
-            writer.add_table("error_study_orders", study.orders)
-            writer.add_table("error_study_largest_cycle", study.largest_cycle)
-            if len(study.decisions):
-                writer.add_table("error_study_decisions", study.decisions)
+        "scenario_file": str(scenario.path) if scenario.path else None, "threads": workers,
+        "chunk_size": plan.chunk_size, "format": args.format, "conversions": list(scenario.conversions),
+        "command": "run"})
+    writer = RunWriter(folder, fmt=args.format, force=args.force, metadata=meta,
+                       long_format_model=model if args.long_format else None)
+    results = run_plan(scenario, plan, sinks=(StreamSink(writer),), study=not args.no_study,
+                       progress=StageProgress())
+    summary, increments, exact_note, study = results.outcomes, results.increments, results.exact_note, results.study
+    events, seconds = results.n_events, results.seconds["simulation"]
     out.write(f"{model.name}: {n:,} simulated patients per strategy (seed {seed}, {workers} threads), "
               f"{events:,} events in {seconds:.1f} s\nOutput: {folder}/ ({args.format})\n")
     v = model.valuation
@@ -189,7 +107,7 @@ def _compare(scenario: Scenario, args: argparse.Namespace, out: TextIO) -> int:
     study = discretization_study(scenario.model, cycle_lengths=settings.cycle_lengths,
                                  tolerance=args.tolerance or settings.tolerance, relative=not args.absolute,
                                  n_patients=args.patients or min(settings.patients, 200_000), seed=settings.seed,
-                                 progress=_Progress("error study"))
+                                 progress=ProgressBar("error study"))
     csv = Path(args.csv) if args.csv else Path(f"{scenario.path.stem if scenario.path else 'scenario'}_error_study.csv")
     write_tidy_csv(study.table, csv, force=args.force)
     out.write(f"{scenario.model.name}: reference {study.reference_kind}; {len(study.table):,} rows written to {csv}\n\n")

@@ -6,11 +6,15 @@ import io
 import json
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 import pytest
 
+import sim.reference.study as study_module
 from sim.cli.commands import main
+from sim.io import load_scenario
 from sim.io.demo import DEMOS, SCENARIO_DIR
+from sim.pipeline import run_scenario
 
 
 def _run(args: list[str]) -> tuple[int, str]:
@@ -20,7 +24,11 @@ def _run(args: list[str]) -> tuple[int, str]:
 
 
 @pytest.mark.parametrize("name", sorted(DEMOS))
-def test_run_writes_tables_summary_and_metadata(name, tmp_path):
+def test_run_writes_tables_summary_and_metadata(name, tmp_path, monkeypatch):
+    def no_second_simulation(*args, **kwargs):
+        raise AssertionError("the error study simulated the run's histories again")
+
+    monkeypatch.setattr(study_module, "simulate", no_second_simulation)
     scen = SCENARIO_DIR / DEMOS[name]
     folder = tmp_path / "out"
     code, text = _run(["run", str(scen), "--patients", "3000", "--threads", "1", "--output", str(folder),
@@ -35,7 +43,13 @@ def test_run_writes_tables_summary_and_metadata(name, tmp_path):
     assert (lf["status"] == 1).sum() == len(events)  # one status-1 row per move
     summary = pd.read_csv(folder / "summary.csv")
     assert {"strategy", "outcome", "mean", "mcse"} <= set(summary.columns)
-    assert (folder / "error_study.csv").exists()
+    study = pd.read_csv(folder / "error_study.csv", float_precision="round_trip")
+    if not load_scenario(scen).model.is_markov:
+        # semi-Markov: the study's reference is the run's own simulation (all its patients)
+        assert "vs the simulation (3,000 patients, seed" in text
+        ref = study.drop_duplicates(["strategy", "outcome"]).set_index(["strategy", "outcome"])["reference"]
+        means = pd.read_csv(folder / "summary.csv", float_precision="round_trip").set_index(["strategy", "outcome"])
+        np.testing.assert_array_equal(ref.to_numpy(), means.loc[ref.index, "mean"].to_numpy())
     meta = json.loads((folder / "metadata.json").read_text())
     assert meta["seed"] is not None and meta["patients"] == 3000
     assert meta["scenario_sha256"] if "scenario_sha256" in meta else meta.get("scenario_hash")
@@ -45,6 +59,31 @@ def test_run_writes_tables_summary_and_metadata(name, tmp_path):
     code, _ = _run(["run", str(scen), "--patients", "100", "--output", str(folder), "--no-study", "--force"])
     assert code == 0
     assert len(pd.read_parquet(folder / "patients.parquet")) == 100 * patients["strategy"].nunique()
+
+
+def test_run_summary_equals_the_windows_pipeline_run(tmp_path):
+    """The command line streams its run to disk (outcomes accumulated chunk by chunk) and the window
+    keeps it in memory (outcomes from every patient's row): one pipeline, the same summary (means up
+    to the rounding of the accumulated sums), the same increments and the same error study."""
+    scen = SCENARIO_DIR / DEMOS["lanthic"]
+    code, text = _run(["run", str(scen), "--patients", "4000", "--seed", "17", "--threads", "2", "--output",
+                       str(tmp_path / "out"), "--format", "csv"])
+    assert code == 0, text
+    window = run_scenario(load_scenario(scen), patients=4000, seed=17, workers=2)
+    summary = pd.read_csv(tmp_path / "out" / "summary.csv", float_precision="round_trip")
+    assert list(summary.columns) == list(window.outcomes.columns)
+    for col in ("strategy", "outcome", "n"):
+        assert list(summary[col]) == list(window.outcomes[col])
+    np.testing.assert_array_equal(summary["exact"], window.outcomes["exact"])
+    np.testing.assert_allclose(summary["mean"], window.outcomes["mean"], rtol=1e-12)
+    np.testing.assert_allclose(summary["mcse"], window.outcomes["mcse"], rtol=1e-9)
+    increments = pd.read_csv(tmp_path / "out" / "increments.csv", float_precision="round_trip")
+    assert list(increments["quantity"]) == list(window.increments["quantity"])
+    np.testing.assert_allclose(increments[["value", "exact"]], window.increments[["value", "exact"]], rtol=1e-10)
+    study = pd.read_csv(tmp_path / "out" / "error_study.csv", float_precision="round_trip")
+    np.testing.assert_array_equal(study["value"], window.study.table["value"])  # Markov: exact reference
+    np.testing.assert_array_equal(study["reference"], window.study.table["reference"])
+    assert "4,000 simulated patients per strategy (seed 17, 2 threads)" in text
 
 
 def test_check_describes_the_model():

@@ -1,0 +1,45 @@
+"""The model in words, for ``hazardtrace check``."""
+
+from __future__ import annotations
+
+from ..io import Scenario
+from ..model import BACKGROUND, Clock
+
+__all__ = ["describe"]
+
+CLOCK_WORDS = {Clock.AGE: "attained age", Clock.ENTRY: "time since entry", Clock.STATE: "time in the current state"}
+
+
+def describe(scenario: Scenario) -> str:
+    """The model in words (for ``check``)."""
+    m = scenario.model
+    lines = [f"{m.name}", ""]
+    lines.append("States: " + ", ".join(f"{s.name}{' (absorbing)' if s.absorbing else ''}" for s in m.states))
+    lines.append("Transitions:")
+    for t in m.transitions:
+        lines.append(f"  {t.name}: {t.source} -> {t.target}, {t.hazard.family} {t.hazard.params()} "
+                     f"on {CLOCK_WORDS[t.clock]}")
+    if m.background is not None:
+        bg = m.background
+        for sex, h in bg.hazards.items():
+            lines.append(f"  {BACKGROUND} ({sex}): every living state -> {bg.target}, {h.family} "
+                         f"on {CLOCK_WORDS[bg.clock]}")
+    p = m.population
+    lines.append(f"Population: start in {p.initial_state!r}, entry age {type(p.entry_age).__name__} "
+                 f"(mean {p.entry_age.mean:.1f}), sex mix {dict(p.sex_mix)}")
+    lines.append(f"Horizon: {m.horizon.value:g} {'years since entry' if m.horizon.scale == 'time' else '(attained age)'}")
+    lines.append("Strategies:")
+    for st in m.strategies:
+        parts = [f"hazard ratio {v:g} on {k}" for k, v in st.hazard_ratios.items()]
+        parts += [f"{k} replaced by {h.family}" for k, h in st.replacements.items()]
+        parts += [f"+{v:g}/year in {k}" for k, v in st.state_costs.items()]
+        lines.append(f"  {st.name}: " + ("; ".join(parts) if parts else "as defined"))
+    v = m.valuation
+    lines.append(f"Discount rates: costs {100 * v.discount_costs:g}%, effects {100 * v.discount_effects:g}% per "
+                 f"year; willingness to pay {v.willingness_to_pay:,.0f} {v.currency} per QALY")
+    lines.append("Markov (exact solution available)" if m.is_markov else
+                 f"Semi-Markov through {m.semi_markov_transitions()}: no exact solution; a large simulation "
+                 f"serves as the reference")
+    for note in scenario.conversions:
+        lines.append(f"Conversion: {note}")
+    return "\n".join(lines)
