@@ -1,8 +1,9 @@
 """Long work off the GUI thread: worker objects run in a ``QThread`` and report through signals.
 
-- :class:`RunWorker` runs :func:`sim.pipeline.run.run_scenario` with a ``threading.Event`` as its cancel
-  flag and emits ``progress(stage, done, total)`` (throttled), ``finished(results)``,
-  ``failed(message)`` or ``cancelled()``.
+- :class:`RunWorker` runs :func:`sim.pipeline.run_scenario` (the run pipeline the command line uses
+  too) with the event log kept in memory (:class:`sim.pipeline.MemorySink`, for the curves and the
+  event log view) and a ``threading.Event`` as its cancel flag; it emits ``progress(stage, done,
+  total)`` (throttled), ``finished(results)``, ``failed(message)`` or ``cancelled()``.
 - :class:`FunctionWorker` runs any callable (cohort traces, exports) and emits ``finished(value)``
   or ``failed(message)``.
 - :class:`Job` owns one worker and its thread from the GUI thread. It relays the worker's signals
@@ -31,9 +32,9 @@ from typing import Any, Callable, ClassVar
 
 from PySide6.QtCore import QCoreApplication, QObject, QThread, QTimer, Signal, Slot
 
-from sim.engine.histories import SimulationCancelled
-from sim.pipeline.run import run_scenario
-from sim.io.scenario import Scenario
+from sim.engine import SimulationCancelled
+from sim.io import Scenario
+from sim.pipeline import MemorySink, run_scenario
 
 __all__ = ["RunWorker", "FunctionWorker", "Job", "error_message"]
 
@@ -103,7 +104,8 @@ class RunWorker(QObject):
     @Slot()
     def run(self) -> None:
         try:
-            results = run_scenario(self._scenario, progress=self._report, cancel=self._cancel, **self._args)
+            results = run_scenario(self._scenario, progress=self._report, cancel=self._cancel, sinks=(MemorySink(),),
+                                   **self._args)
         except SimulationCancelled:
             self.cancelled.emit()
         except Exception as err:  # every failure reaches the user as a message, never a dead thread

@@ -3,8 +3,11 @@ cancel, failures, progress throttling, and a GUI thread that keeps running durin
 
 from __future__ import annotations
 
+import io
 import time
 
+import numpy as np
+import pandas as pd
 import pytest
 from PySide6.QtCore import Qt, QTimer
 
@@ -13,7 +16,8 @@ from gui.run_panel import RunPanel
 from gui.worker import RunWorker
 from sim.io.demo import demo_scenario
 from sim.engine.histories import SimulationError
-from sim.pipeline.run import RunResults
+from sim.cli import main as cli_main
+from sim.pipeline import RunResults, run_scenario
 
 
 # PySide6 6.12.0 on CPython 3.11 drops references to None/True/False; see gui.app.
@@ -72,6 +76,32 @@ def test_run_through_the_worker_thread_shows_results(qtbot, panel):
     assert panel.run_button.isEnabled() and not panel.cancel_button.isEnabled()
     assert panel.stage.text() == "Done"
     results_panel.shutdown()
+
+
+def test_the_window_runs_the_same_pipeline_as_the_command_line(qtbot, panel, scenario, tmp_path):
+    """The worker runs sim.pipeline with the log kept in memory: the same results as run_scenario
+    called directly, every stage timed, and the summary the command line writes for the same
+    scenario, seed and patients (its means accumulated chunk by chunk, equal up to rounding)."""
+    panel.patients.setValue(1500)
+    panel.seed.setText("21")
+    panel.threads.setValue(2)
+    got: list[RunResults] = []
+    panel.results_ready.connect(got.append)
+    with qtbot.waitSignal(panel.results_ready, timeout=60_000):
+        panel.start_run()
+    window = got[0]
+    assert window.simulation is not None and window.survival is not None and window.skipped == {}
+    assert set(window.seconds) == {"simulation", "outcomes", "exact", "estimates", "study"}
+    direct = run_scenario(scenario, patients=1500, seed=21, workers=2)
+    pd.testing.assert_frame_equal(window.outcomes, direct.outcomes, check_exact=True)
+    pd.testing.assert_frame_equal(window.simulation.events, direct.simulation.events, check_exact=True)
+    pd.testing.assert_frame_equal(window.occupancy, direct.occupancy, check_exact=True)
+    assert cli_main(["run", str(scenario.path), "--patients", "1500", "--seed", "21", "--threads", "2",
+                     "--output", str(tmp_path / "cli"), "--format", "csv", "--no-study"], out=io.StringIO()) == 0
+    cli = pd.read_csv(tmp_path / "cli" / "summary.csv", float_precision="round_trip")
+    assert list(cli["outcome"]) == list(window.outcomes["outcome"]) and (cli["n"] == window.outcomes["n"]).all()
+    np.testing.assert_allclose(cli["mean"], window.outcomes["mean"], rtol=1e-12)
+    np.testing.assert_array_equal(cli["exact"], window.outcomes["exact"])
 
 
 def test_error_study_progress_is_shown_as_a_fraction(panel):
