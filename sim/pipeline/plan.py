@@ -5,6 +5,8 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+import numpy as np
+
 from ..engine import chunk_size_for
 from ..io import Scenario
 from ..model import Model
@@ -34,12 +36,12 @@ class RunPlan:
     tolerance: float
 
     def __post_init__(self) -> None:
-        for key in ("patients", "workers", "chunk_size"):
+        for key, low in (("patients", 1), ("workers", 1), ("chunk_size", 1), ("seed", 0)):
             value = getattr(self, key)
-            if isinstance(value, bool) or not isinstance(value, int) or value < 1:
-                raise ValidationError((key,), "must be a positive integer", value)
-        if isinstance(self.seed, bool) or not isinstance(self.seed, int) or self.seed < 0:
-            raise ValidationError(("seed",), "must be an integer >= 0", self.seed)
+            if isinstance(value, bool) or not isinstance(value, (int, np.integer)) or value < low:
+                raise ValidationError((key,), "must be a positive integer" if low else "must be an integer >= 0",
+                                      value)
+            object.__setattr__(self, key, int(value))  # numpy integers recorded as plain int
 
     @classmethod
     def from_scenario(cls, scenario: Scenario, *, patients: int | None = None, seed: int | None = None,

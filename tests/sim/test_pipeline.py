@@ -242,3 +242,34 @@ def test_semi_markov_study_uses_the_runs_simulation(ferrovian, monkeypatch):
     ref = res.study.reference.set_index(["strategy", "outcome"])["value"]
     mean = res.outcomes.set_index(["strategy", "outcome"])["mean"]
     np.testing.assert_array_equal(ref.loc[mean.index].to_numpy(), mean.to_numpy())
+
+
+class _ProcessExecutor:
+    """The Executor protocol on a process pool (what a process or cluster executor does next): the
+    chunk function and its jobs cross process boundaries, and the log stays bit-identical."""
+
+    workers = 2
+
+    def map(self, fn, items):
+        from concurrent.futures import ProcessPoolExecutor
+        import multiprocessing
+
+        with ProcessPoolExecutor(max_workers=self.workers, mp_context=multiprocessing.get_context("spawn")) as pool:
+            yield from pool.map(fn, items)
+
+
+def test_a_process_pool_executor_gives_the_same_log(lanthic):
+    plan = _plan(lanthic, patients=1200, workers=2, chunk_size=400)
+    res = run_plan(lanthic, plan, executor=_ProcessExecutor(), study=False)
+    ref = simulate(lanthic.model, 1200, plan.seed)
+    pd.testing.assert_frame_equal(res.simulation.events, ref.events, check_exact=True)
+    pd.testing.assert_frame_equal(res.simulation.patients, ref.patients, check_exact=True)
+
+
+def test_run_plan_checks_its_settings(lanthic):
+    plan = _plan(lanthic)
+    for key, bad in (("patients", 0), ("workers", -1), ("chunk_size", 2.5), ("seed", -3)):
+        with pytest.raises(ValidationError) as err:
+            dataclasses.replace(plan, **{key: bad})
+        assert err.value.problem.path == (key,) and err.value.problem.value == bad
+    assert type(dataclasses.replace(plan, patients=np.int64(7)).patients) is int
