@@ -224,3 +224,50 @@ def test_life_table_errors_name_the_scenario_key_and_the_table_line(tmp_path):
         parse_scenario(text, tmp_path / "scen.toml")
     msg = str(info.value)
     assert "background.life_table.file" in msg and "lt.csv line 4" in msg and "1.5" in msg
+
+
+# ----------------------------------------------------------------------------- wrong types are clean errors
+FERROVIAN = (SCENARIO_DIR / DEMOS["ferrovian"]).read_text()
+_AGES = 'entry_age = { distribution = "normal", mean = 55.0, sd = 8.0, low = 40.0, high = 75.0 }'
+_COLUMNS = 'columns = { female = "q_female", male = "q_male" }'
+
+
+@pytest.mark.parametrize("text, key, rule", [
+    (FERROVIAN.replace('age_column = "age"', 'age_column = "age"\nfit = "gompertz"\nfit_ages = 5'),
+     "background.life_table.fit_ages", "must be a non-empty list of numbers, got 5"),
+    (FERROVIAN.replace('age_column = "age"', "age_column = 5"), "background.life_table.age_column",
+     "must be a non-empty string, got 5"),
+    (FERROVIAN.replace('age_column = "age"', 'age_column = "age"\nsheet = 3'), "background.life_table.sheet",
+     "must be a non-empty string, got 3"),
+    (FERROVIAN.replace(_COLUMNS, "columns = 5"), "background.life_table.columns",
+     "must be a column name or a table of sex = column, got 5"),
+    (DEMO.replace(_AGES, 'entry_age = { distribution = "empirical", ages = [40, {}], weights = [1, 1] }'),
+     "population.entry_age.ages[1]", "must be a number, got {}"),
+    (DEMO.replace(_AGES, 'entry_age = { distribution = "empirical", ages = ["1.5"], weights = [1] }'),
+     "population.entry_age.ages[0]", "must be a number, got '1.5'"),
+    (DEMO.replace(_AGES, 'entry_age = { distribution = "empirical", ages = [true], weights = [1] }'),
+     "population.entry_age.ages[0]", "must be a number, got True"),
+    (DEMO.replace('family = "weibull"       # H(t) = (t / scale)^shape\nshape = 1.3\nscale = 30.0',
+                  'family = "lognormal"\nmu = [1.0]\nsigma = 1.0'), "transitions[0].mu", "must be a number, got [1.0]"),
+    (DEMO.replace("format_version = 1", "format_version = true"), "format_version", "must be a number, got True"),
+    (DEMO.replace("format_version = 1", "format_version = 1.0"), "format_version", "must be a whole number, got 1.0"),
+    (DEMO.replace('name = "Lanthic syndrome (invented demo)"', 'name = ""'), "name",
+     "must be a non-empty string, got ''"),
+    (DEMO.replace('description = "Standard care', 'description = 5\nnote = "Standard care'), "description",
+     "must be a string, got 5"),
+])
+def test_wrong_types_are_clean_errors_at_their_key(text, key, rule):
+    with pytest.raises(ScenarioError) as info:
+        parse_scenario(text, SCENARIO_DIR / "scen.toml")
+    found = {p.key: p for p in info.value.problems}
+    assert key in found, str(info.value)
+    assert str(found[key]).endswith(f"{key}: {rule}")
+    assert found[key].line is not None
+
+
+def test_a_file_that_is_not_utf8_is_a_clean_error(tmp_path):
+    path = tmp_path / "latin1.toml"
+    path.write_bytes(DEMO.encode("utf-8").replace(b"Standard care", b"Soins habituels \xe9"))  # latin-1 e-acute
+    with pytest.raises(ScenarioError, match="not UTF-8 text") as info:
+        load_scenario(path)
+    assert info.value.file == str(path)

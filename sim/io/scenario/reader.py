@@ -19,7 +19,7 @@ from tomlkit.exceptions import ParseError
 
 from ...model import (BACKGROUND, BackgroundMortality, Horizon, Model, Population, RunSettings, State, Strategy,
                       Transition, Valuation)
-from ...problems import KeyPath, Problem, ValidationError
+from ...problems import Problem, ValidationError
 from .checking import Checker, Invalid
 from .errors import ScenarioError
 from .hazard_reading import read_hazard, read_life_table_hazards
