@@ -1,5 +1,6 @@
 """Crude rates (events per person-year at risk) and crude risks (proportion with the event by a
-time) from a simulated event log, with Poisson and binomial standard errors (METHODS.md section 1)."""
+time) from a simulated event log, with Poisson and binomial standard errors (docs/methods.md,
+'Rates, risks and units')."""
 
 from __future__ import annotations
 
@@ -47,8 +48,8 @@ def crude_rate(events: pd.DataFrame, patients: pd.DataFrame, transition: str, st
 
     Notes
     -----
-    For a constant hazard r the ratio d / PY is its maximum likelihood estimate (METHODS.md
-    section 1: rate = events / person-time at risk).
+    For a constant hazard r the ratio d / PY is its maximum likelihood estimate (docs/methods.md,
+    'Rates, risks and units': rate = events / person-time at risk).
     """
     log = _prepare_log(events, patients, states, strategy)
     if not isinstance(transition, str):
@@ -107,7 +108,7 @@ def crude_risk(patients: pd.DataFrame, by_time: float, events: pd.DataFrame | No
 
     Notes
     -----
-    METHODS.md section 1: risk = events / people at risk over a stated period. A patient absorbed
+    docs/methods.md, 'Rates, risks and units': risk = events / people at risk over a stated period. A patient absorbed
     before ``by_time`` without the transition counts as a non-event (absorption is final).
     """
     t = _check_time(by_time, "by_time")

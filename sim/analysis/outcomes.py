@@ -1,6 +1,6 @@
 """Health-economic outcomes with one set of definitions for simulated, exact and cohort results.
 
-Outcomes per strategy (all to the horizon; METHODS.md section 4):
+Outcomes per strategy (all to the horizon; docs/methods.md, 'Outcomes and increments'):
 
 - ``life_years``: time alive (in non-absorbing states); ``life_years_discounted`` at the effects rate;
 - ``qalys`` and ``qalys_discounted``: sum over states of utility x (discounted) time in the state;

@@ -19,7 +19,7 @@ __all__ = ["restricted_mean_survival", "per_patient_time_in_states", "time_in_st
 
 
 def _mean_se(x: NDArray[np.float64]) -> tuple[float, float]:
-    """Sample mean and its Monte Carlo standard error s / sqrt(N) (METHODS.md section 4)."""
+    """Sample mean and its Monte Carlo standard error s / sqrt(N) (docs/methods.md, 'Estimators')."""
     n = x.shape[0]
     mean = x.mean(axis=0)
     if n < 2:
@@ -42,7 +42,7 @@ def restricted_mean_survival(patients: pd.DataFrame, strategy: str | None = None
     -------
     dict
         ``mean`` = (1/N) sum_i exit_time_i, ``std_error`` = s / sqrt(N) (Monte Carlo standard error,
-        METHODS.md section 4; NaN for N = 1), ``n`` = N.
+        docs/methods.md, 'Estimators'; NaN for N = 1), ``n`` = N.
 
     Notes
     -----
@@ -116,7 +116,7 @@ def per_patient_time_in_states(events: pd.DataFrame, patients: pd.DataFrame, sta
     -----
     Each sojourn runs from entry (t = 0) or a move to the patient's next move or exit_time, exactly
     as logged. Undiscounted it contributes t1 - t0; with continuous discounting at
-    delta = ln(1 + d) it contributes (METHODS.md section 4)
+    delta = ln(1 + d) it contributes (docs/methods.md, 'Outcomes and increments')
 
         integral_{t0}^{t1} exp(-delta t) dt = (exp(-delta t0) - exp(-delta t1)) / delta,
 
@@ -149,7 +149,7 @@ def time_in_states(events: pd.DataFrame, patients: pd.DataFrame, states: Sequenc
     -------
     pandas.DataFrame
         Columns ``state`` (Categorical in ``states`` order), ``mean``, ``std_error`` = s / sqrt(N)
-        (METHODS.md section 4; NaN for N = 1).
+        (docs/methods.md, 'Estimators'; NaN for N = 1).
 
     Notes
     -----

@@ -2,7 +2,7 @@
 
 Every family describes a non-negative hazard :math:`h(t)` on a clock :math:`t \\ge 0` measured in
 **years**, with cumulative hazard :math:`H(t) = \\int_0^t h(s)\\,ds` and survival
-:math:`S(t) = \\exp(-H(t))` (METHODS.md section 2). All methods are vectorised: arguments broadcast
+:math:`S(t) = \\exp(-H(t))` (docs/methods.md, 'Hazards and survival'). All methods are vectorised: arguments broadcast
 with numpy rules and results are float64 ndarrays (0-d for scalar input).
 
 Sampling uses inverse cumulative hazard sampling (Bender, Augustin & Blettner 2005): with
@@ -204,7 +204,7 @@ class Hazard(abc.ABC):
 
         Notes
         -----
-        Left-truncated inverse cumulative hazard sampling (METHODS.md section 2; Bender et al.
+        Left-truncated inverse cumulative hazard sampling (docs/methods.md, 'Hazards and survival'; Bender et al.
         2005). Each family evaluates it without forming ``H(x) + e`` or subtracting ``x`` where
         that would cancel.
         """

@@ -83,7 +83,7 @@ class Gompertz(Hazard):
     Notes
     -----
     :math:`h(t) = b e^{g t}`, :math:`H(t) = (b/g)(e^{g t} - 1) = b t\\,\\mathrm{exprel}(g t)`,
-    :math:`H^{-1}(y) = \\log(1 + g y / b) / g` (METHODS.md section 2; Bender et al. 2005).
+    :math:`H^{-1}(y) = \\log(1 + g y / b) / g` (docs/methods.md, 'Hazards and survival'; Bender et al. 2005).
     For :math:`g < 0`, :math:`H(\\infty) = b/|g|` and the event never happens with probability
     :math:`e^{b/g}`; :math:`H^{-1}(y) = +\\infty` for :math:`y \\ge b/|g|`.
     Conditional time: :math:`T = \\log(1 + g e / (b e^{g x})) / g`, evaluated with ``log1p``
@@ -136,7 +136,7 @@ class GompertzMakeham(Hazard):
 
     Notes
     -----
-    :math:`h(t) = c + b e^{g t}`, :math:`H(t) = c t + (b/g)(e^{g t} - 1)` (METHODS.md section 2).
+    :math:`h(t) = c + b e^{g t}`, :math:`H(t) = c t + (b/g)(e^{g t} - 1)` (docs/methods.md, 'Hazards and survival').
     Proper whenever ``c > 0``.
 
     Conditional time from clock ``x`` solves :math:`F(T) = c T + B T\\,\\mathrm{exprel}(g T) = e`

@@ -34,7 +34,7 @@ class PiecewiseConstant(Hazard):
     With :math:`H_j = \\sum_{i<j} r_i (b_{i+1} - b_i)` the cumulative hazard at band starts,
     :math:`H(t) = H_j + r_j (t - b_j)` for :math:`b_j \\le t < b_{j+1}`, and the inverse is exact:
     find :math:`j` with :math:`H_j \\le y < H_{j+1}` by ``np.searchsorted`` and return
-    :math:`b_j + (y - H_j)/r_j` (METHODS.md section 2). Zero-rate bands are stepped over.
+    :math:`b_j + (y - H_j)/r_j` (docs/methods.md, 'Hazards and survival'). Zero-rate bands are stepped over.
     Conditional time: if ``e`` is below the hazard left in the current band, ``T = e / r`` exactly;
     otherwise the time to the band end plus the inversion of the remainder from the next band.
     Life-table probabilities ``q`` over ``n`` years convert to band rates ``-log(1 - q)/n`` (constant

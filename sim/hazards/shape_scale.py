@@ -2,7 +2,7 @@
 log-logistic (the gamma family shares their parameters; see :mod:`.gamma`).
 
 Both conditional times are evaluated in log space, free of the cancellation in
-``H^{-1}(H(x) + e) - x`` (METHODS.md section 2; Bender, Augustin & Blettner 2005, Stat Med
+``H^{-1}(H(x) + e) - x`` (docs/methods.md, 'Hazards and survival'; Bender, Augustin & Blettner 2005, Stat Med
 24(11):1713-1723).
 """
 
@@ -54,7 +54,7 @@ class Weibull(_ShapeScale):
     Notes
     -----
     :math:`H(t) = (t/\\lambda)^k`, :math:`h(t) = (k/\\lambda)(t/\\lambda)^{k-1}`,
-    :math:`H^{-1}(y) = \\lambda y^{1/k}` (METHODS.md section 2). Bender et al. (2005) write
+    :math:`H^{-1}(y) = \\lambda y^{1/k}` (docs/methods.md, 'Hazards and survival'). Bender et al. (2005) write
     :math:`H(t) = \\lambda_B t^{\\nu}`, i.e. :math:`\\nu = k` and :math:`\\lambda_B = \\lambda^{-k}`.
     scipy: ``weibull_min(c=shape, scale=scale)``.
 

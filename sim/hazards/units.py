@@ -8,8 +8,8 @@ Internally HazardTrace measures time in **years**. Other units convert with the 
 which are common practice, no source: a study that counts 365-day years or 30-day months should
 convert its numbers first.
 
-Definitions (METHODS.md section 1): a *rate* is events per person-time at risk; a *risk* (probability)
-is the share of people at risk who have the event within a stated period. Under the assumption that
+Definitions (docs/methods.md, 'Rates, risks and units'): a *rate* is events per person-time at risk; a *risk*
+(probability) is the share of people at risk who have the event within a stated period. Under the assumption that
 the rate ``r`` is constant over the period ``t``,
 
 .. math:: p = 1 - e^{-r t}, \\qquad r = -\\ln(1 - p) / t, \\qquad p' = 1 - (1 - p)^{t'/t}

@@ -1,7 +1,7 @@
 """What outcomes are worth: utilities and costs per state, one-off transition costs, discount rates.
 
-Conventions (METHODS.md section 4): utilities are QALY weights per year spent in a state; state costs
-are per year; a transition cost is paid once at the moment of the move. Annual discount rates d for
+Conventions (docs/methods.md, 'Outcomes and increments'): utilities are QALY weights per year spent in a state; state
+costs are per year; a transition cost is paid once at the moment of the move. Annual discount rates d for
 costs and for effects are given separately and applied continuously at delta = ln(1 + d): a sojourn
 from t0 to t1 accrues (exp(-delta t0) - exp(-delta t1)) / delta discounted years and a one-off cost at
 time t is multiplied by exp(-delta t). Reference-case rates: 3.5%/year (NICE health technology

@@ -3,7 +3,7 @@
 Per cycle [t_k, t_k + h] and per competing exit, a rate is taken from the model's hazard at the
 cohort's clock values, either from the cumulative-hazard increment r = (H(x + h) - H(x)) / h
 (``"cumulative"``) or at the cycle midpoint r = h(x + h/2) (``"midpoint"``). Rates become the cycle's
-transition matrix P_k by one of three conversions (METHODS.md sections 1 and 3):
+transition matrix P_k by one of three conversions (docs/methods.md, 'Cycle-based cohort traces'):
 
 ``per-transition``
     each rate on its own, p = 1 - exp(-r h), and "stay" as the remainder (common practice; wrong

@@ -7,7 +7,7 @@ entered at age a0 solves
     dp/dt = p Q(t; a0),  p(0) = e_initial,
 
 with Q the generator: Q_ij(t) = sum of the hazards of the exits i -> j at their clock values, and
-Q_ii = -sum_j Q_ij (METHODS.md section 3; the forward equations for a time-inhomogeneous Markov
+Q_ii = -sum_j Q_ij (docs/methods.md, 'Exact solution'; the forward equations for a time-inhomogeneous Markov
 process, e.g. Andersen, Borgan, Gill & Keiding 1993, from memory). Time in each state up to the horizon
 T is the integral of p over [0, T], computed alongside p in the same ODE, undiscounted and with
 continuous discounting at delta = ln(1 + d): integral of exp(-delta t) p(t) dt.

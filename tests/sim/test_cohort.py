@@ -68,7 +68,7 @@ def test_three_state_closed_form():
 
 def test_competing_exit_probabilities_match_expm():
     # Two exits to two different absorbing states: expm(h Q) row 0 equals the competing-exit formula
-    # p_k = r_k / sum r (1 - exp(-h sum r)) (METHODS.md section 1; scipy.linalg.expm reference).
+    # p_k = r_k / sum r (1 - exp(-h sum r)) (docs/methods.md, 'Cycle-based cohort traces'; scipy.linalg.expm reference).
     r1, r2, h = 0.3, 0.7, 0.5
     model = Model(states=(State("alive"), State("d1", absorbing=True), State("d2", absorbing=True)),
                   transitions=(Transition("x", "alive", "d1", Exponential(r1)), Transition("y", "alive", "d2", Exponential(r2))),

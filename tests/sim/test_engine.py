@@ -164,7 +164,7 @@ def test_rate_and_risk_from_constant_hazard():
 
 def test_gompertz_on_age_is_conditional_survival():
     # Everyone enters alive at 60: S(t | 60) = S(60 + t) / S(60) with the Gompertz survival
-    # S(a) = exp(-(b/g)(exp(g a) - 1)) (METHODS.md section 2).
+    # S(a) = exp(-(b/g)(exp(g a) - 1)) (docs/methods.md, 'Hazards and survival').
     b, g, a0, n = 5e-5, 0.09, 60.0, 40_000
     run = simulate(single_exit(Gompertz(rate=b, shape=g), Clock.AGE, age=a0, horizon=40.0), n, seed=7)
     pt = run.patients
@@ -175,7 +175,7 @@ def test_gompertz_on_age_is_conditional_survival():
 
 
 def test_improper_gompertz_never_event_fraction():
-    # g < 0: with probability exp(b/g) the event never happens (METHODS.md section 2).
+    # g < 0: with probability exp(b/g) the event never happens (docs/methods.md, 'Hazards and survival').
     b, g, n = 0.5, -0.4, 40_000
     run = simulate(single_exit(Gompertz(rate=b, shape=g), Clock.ENTRY, horizon=100.0), n, seed=8)
     never = float((run.patients["exit_reason"] == "censored").mean())

@@ -6,8 +6,8 @@ References used as independent checks:
   Greenwood intervals); lifelines.AalenJohansenFitter (competing-risks cumulative incidence);
 - a plain-loop Aalen-Johansen product integral written below from its definition (Aalen & Johansen
   1978, Scand J Stat 5:141-150);
-- closed forms for a constant hazard (METHODS.md section 1, Miller & Homan 1994, Med Decis Making
-  14:52-58) and for discounting (METHODS.md section 4) checked with scipy.integrate.quad.
+- closed forms for a constant hazard (docs/methods.md, 'Rates, risks and units', Miller & Homan 1994, Med Decis Making
+  14:52-58) and for discounting (docs/methods.md, 'Outcomes and increments') checked with scipy.integrate.quad.
 """
 
 from __future__ import annotations
@@ -435,7 +435,7 @@ def test_time_in_states_hand_example():
 def test_discounted_time_in_states_matches_quadrature():
     ev, pt = tiny_history()
     rate = 0.035
-    delta = math.log1p(rate)  # METHODS.md section 4: continuous rate ln(1 + d)
+    delta = math.log1p(rate)  # docs/methods.md, 'Outcomes and increments': continuous rate ln(1 + d)
 
     def disc(a, b):
         return quad(lambda t: math.exp(-delta * t), a, b, epsabs=0, epsrel=1e-13)[0]
@@ -459,8 +459,8 @@ def test_per_patient_rows_add_up_to_exit_time():
 # --------------------------------------------------------------------------- statistical check
 def test_constant_hazard_estimates_agree_with_closed_forms_within_four_standard_errors():
     # Death at constant rate r, fixed horizon T. Closed forms: E min(T_death, T) = (1 - exp(-rT)) / r;
-    # deaths / person-years estimates r; P(death by T) = 1 - exp(-rT) (METHODS.md section 1, Miller &
-    # Homan 1994, Med Decis Making 14:52-58). Each within 4 Monte Carlo standard errors.
+    # deaths / person-years estimates r; P(death by T) = 1 - exp(-rT) (docs/methods.md, 'Rates, risks and units', Miller
+    # & Homan 1994, Med Decis Making 14:52-58). Each within 4 Monte Carlo standard errors.
     r, horizon, n = 0.1, 10.0, 20_000
     rng = np.random.default_rng(424242)
     events, patients = simulate(rng, n, ("alive", "dead"), (("death", "alive", "dead", r),), "alive", horizon)

@@ -36,7 +36,7 @@ Q_CONST = np.array([[-(0.12 + 0.02), 0.12, 0.02],
 
 
 def test_constant_intensities_match_matrix_exponential():
-    # P(t) = expm(t Q) for constant intensities (METHODS.md section 1; scipy.linalg.expm reference).
+    # P(t) = expm(t Q) for constant intensities (docs/methods.md, 'Exact solution'; scipy.linalg.expm reference).
     times = np.array([0.0, 0.5, 1.0, 3.0, 7.5, 12.0])
     occ = solve_exact(_constant_model(), times).occupancy.pivot(index="time", columns="state", values="probability")
     for t in times:
@@ -62,7 +62,7 @@ def test_time_in_state_matches_van_loan_integral():
 
 
 def test_gompertz_on_age_closed_form_and_life_expectancy():
-    # S(t | a0) = exp(-(b/g)(exp(g (a0 + t)) - exp(g a0))) (Gompertz survival, METHODS.md section 2);
+    # S(t | a0) = exp(-(b/g)(exp(g (a0 + t)) - exp(g a0))) (Gompertz survival, docs/methods.md, 'Hazards and survival');
     # restricted life expectancy = integral of S over [0, T] by scipy.integrate.quad.
     b, g, a0, T = 4e-5, 0.09, 65.0, 35.0
     model = single_exit(Gompertz(rate=b, shape=g), Clock.AGE, age=a0, horizon=T)

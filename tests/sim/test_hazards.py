@@ -1,6 +1,6 @@
 """Tests for ``sim.hazards`` (the hazard families).
 
-Identities for every family (METHODS.md section 2): ``sf == exp(-H)``, ``H(H^-1(y)) == y``,
+Identities for every family (docs/methods.md, 'Hazards and survival'): ``sf == exp(-H)``, ``H(H^-1(y)) == y``,
 ``H(x + T) - H(x) == e`` for the conditional time, ``h == dH/dt`` (quadrature). Independent
 references: scipy.stats distributions, and the closed forms of Bender, Augustin & Blettner 2005
 (Stat Med 24(11):1713-1723) computed in the test. Plus improper families, extreme inputs,
@@ -239,7 +239,7 @@ def test_inverse_matches_bender_closed_forms(beta_x: float) -> None:
 def test_improper_gompertz_never_event_limit() -> None:
     b, g = 0.05, -0.1
     h = Gompertz(rate=b, shape=g)
-    limit = b / -g  # H(inf) = b/|g|; P(never) = exp(b/g) (METHODS.md section 2)
+    limit = b / -g  # H(inf) = b/|g|; P(never) = exp(b/g) (docs/methods.md, 'Hazards and survival')
     assert h.cumhazard_limit == pytest.approx(limit, rel=1e-15)
     assert h.never_probability == pytest.approx(math.exp(b / g), rel=1e-15)
     assert np.isfinite(h.inv_cumhazard(limit * (1 - 1e-12)))
@@ -290,7 +290,8 @@ def test_gompertz_makeham_conditional_time_is_exact(b: float, g: float, c: float
 
 
 def test_gompertz_conditional_time_closed_form() -> None:
-    # T = (1/g) log(1 + g e / (b exp(g x))) (Bender et al. 2005 with left truncation, METHODS.md 2).
+    # T = (1/g) log(1 + g e / (b exp(g x))) (Bender et al. 2005 with left truncation, docs/methods.md,
+    # 'Hazards and survival').
     b, g = 3e-5, 0.085
     x, e = (a.ravel() for a in np.meshgrid(X_GRID, E_GRID))
     expected = np.log1p(g * e / (b * np.exp(g * x))) / g

@@ -2,12 +2,12 @@
 
 Check values are computed here from closed forms:
 * constant force within a band: r = -ln(1 - q) / n, so exp(-r n) = 1 - q and survival at band edges
-  is prod(1 - q) (METHODS.md section 2; Preston, Heuveline & Guillot 2001, from memory);
+  is prod(1 - q) (docs/methods.md, 'Life tables and Gompertz fits'; Preston, Heuveline & Guillot 2001, from memory);
 * Gompertz(-Makeham) band integral: int_x^{x+n} (c + b e^{g s}) ds = c n + (b / g) e^{g x}(e^{g n} - 1)
-  (METHODS.md section 2);
+  (docs/methods.md, 'Life tables and Gompertz fits');
 * Poisson log-linear regression by iteratively reweighted least squares and weighted least squares on
   log rates (textbook GLM algorithms, McCullagh & Nelder 1989, from memory; the WLS weighting is the
-  one of Tai & Noymer 2018, Popul Ecol, cited in METHODS.md);
+  one of Tai & Noymer 2018, Popul Ecol, cited in docs/methods.md, 'Life tables and Gompertz fits');
 * doubling time ln 2 / g, human adult slope near 0.085/year (Finch, Pike & Witten 1990, Science
   249:902-905).
 """

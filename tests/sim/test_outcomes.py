@@ -23,7 +23,7 @@ VAL = Valuation(utilities={"healthy": 0.9, "sick": 0.6}, state_costs={"healthy":
 
 def test_exact_outcomes_constant_hazard_closed_forms():
     # One exit at rate r, horizon T, utility u, yearly cost c, one-off cost D at death; continuous
-    # discounting delta = ln(1 + d) (METHODS.md section 4). Integrals of e^{-(r + delta) t} and of
+    # discounting delta = ln(1 + d) (docs/methods.md, 'Outcomes and increments'). Integrals of e^{-(r + delta) t} and of
     # e^{-delta t} r e^{-r t} over [0, T] (common practice, no source).
     r, T, u, c, D, dc, de = 0.12, 15.0, 0.8, 1000.0, 5000.0, 0.035, 0.03
     model = Model(states=(State("alive"), State("dead", absorbing=True)),

@@ -1,4 +1,4 @@
-"""Tests for ``sim.hazards.units``: time units and rate/risk conversions (METHODS.md section 1).
+"""Tests for ``sim.hazards.units``: time units and rate/risk conversions (docs/methods.md, 'Rates, risks and units').
 
 Check values are computed here from the closed forms of Miller & Homan 1994 (Med Decis Making
 14:52-58) and Fleurence & Hollenbeak 2007 (PharmacoEconomics 25(1):3-6): p = 1 - exp(-r t),
@@ -75,7 +75,7 @@ def test_risk_from_rate_matches_closed_form_and_inverts() -> None:
         assert rate_from_risk(risk_from_rate(r, t), t).rate == pytest.approx(r, rel=1e-13)
     assert risk_from_rate(rate_from_risk(0.2, 5.0).rate, 5.0) == pytest.approx(0.2, rel=1e-15)
     assert risk_from_rate(0.12, 30, unit="days") == pytest.approx(1.0 - math.exp(-0.12 * 30 / 365.25), rel=1e-14)
-    # Small r t: p = r t - (r t)^2 / 2 + ... (Taylor series; METHODS.md section 1). 1 - exp(-r t)
+    # Small r t: p = r t - (r t)^2 / 2 + ... (Taylor series; docs/methods.md, 'Rates, risks and units'). 1 - exp(-r t)
     # computed naively would lose most digits here; -expm1 keeps them.
     rt = 1e-12
     assert risk_from_rate(rt, 1.0) == pytest.approx(rt - rt**2 / 2, rel=1e-15)

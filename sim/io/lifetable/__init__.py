@@ -12,8 +12,8 @@ A life table gives, for age bands :math:`[x_i, x_{i+1})`, either
 
 The user states which; it is never guessed. The last row starts the open band :math:`[x_{n-1}, \\infty)`.
 
-Conversion to a hazard (METHODS.md section 2)
----------------------------------------------
+Conversion to a hazard (docs/methods.md, 'Life tables and Gompertz fits')
+-------------------------------------------------------------------------
 Each band gets a constant force of mortality :math:`r_i` on attained age (years), so that the result
 is a :class:`~sim.hazards.PiecewiseConstant` on the age clock:
 
@@ -56,7 +56,7 @@ References
 .. [1] Preston SH, Heuveline P, Guillot M. Demography: Measuring and Modeling Population Processes.
    Oxford: Blackwell; 2001 (cited from memory).
 .. [2] Tai TH, Noymer A. Models for estimating empirical Gompertz mortality: with an application to
-   evolution of the Gompertzian slope. Popul Ecol 2018 (cited in METHODS.md).
+   evolution of the Gompertzian slope. Popul Ecol 2018 (cited in docs/methods.md, 'Life tables and Gompertz fits').
 .. [3] Finch CE, Pike MC, Witten M. Slow mortality rate accelerations during aging in some animals
    approximate that of humans. Science 1990;249:902-905.
 """
