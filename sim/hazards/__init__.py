@@ -3,21 +3,21 @@ and a stable conditional inverse of H for each family (exponential, Weibull, Gom
 Gompertz-Makeham, log-logistic, log-normal, gamma, piecewise-constant, proportional hazards), and the
 conversions between rates, risks over a period and time units. See docs/methods.md."""
 
-from .dimensions import FAMILY_DIMENSIONS, Dimension, dimension_of, from_year_units, to_year_units
 from .base import KERNEL_ERRSTATE, Hazard, HazardParameterError
+from .dimensions import Dimension, from_year_units, to_year_units
 from .exponential import Exponential
 from .gamma import Gamma
 from .gompertz import Gompertz, GompertzMakeham
 from .lognormal import LogNormal
 from .piecewise import PiecewiseConstant
 from .proportional import ProportionalHazards
-from .registry import FAMILIES, make_hazard
+from .registry import FAMILIES, FAMILY_DIMENSIONS, make_hazard
 from .shape_scale import LogLogistic, Weibull
 from .units import (DAYS_PER_YEAR, MONTHS_PER_YEAR, UNIT_IN_YEARS, RateConversion, UnitError, from_years,
                     rate_from_risk, rate_per_year, rescale_risk, risk_from_rate, to_years)
 
-__all__ = ["FAMILY_DIMENSIONS", "Dimension", "dimension_of", "from_year_units", "to_year_units", "FAMILIES", "KERNEL_ERRSTATE", "Exponential", "Gamma", "Gompertz", "GompertzMakeham", "Hazard",
-           "HazardParameterError", "LogLogistic", "LogNormal", "PiecewiseConstant", "ProportionalHazards",
+__all__ = ["FAMILY_DIMENSIONS", "Dimension", "from_year_units", "to_year_units", "FAMILIES", "KERNEL_ERRSTATE",
+           "Exponential", "Gamma", "Gompertz", "GompertzMakeham", "Hazard", "HazardParameterError", "LogLogistic", "LogNormal", "PiecewiseConstant", "ProportionalHazards",
            "Weibull", "make_hazard", "DAYS_PER_YEAR", "MONTHS_PER_YEAR", "UNIT_IN_YEARS", "RateConversion",
            "UnitError", "from_years", "rate_from_risk", "rate_per_year", "rescale_risk", "risk_from_rate",
            "to_years"]

@@ -43,7 +43,7 @@ from __future__ import annotations
 import abc
 import math
 import numbers
-from collections.abc import Iterable
+from collections.abc import Iterable, Mapping
 from typing import Any, ClassVar
 
 import numpy as np
@@ -51,6 +51,7 @@ from numpy.typing import ArrayLike
 
 from ..problems import NO_VALUE, KeyPath, Problem, ValidationError, format_key
 from ._numerics import _GL_NODES, _GL_WEIGHTS, FloatArray, _out
+from .dimensions import Dimension
 
 __all__ = ["KERNEL_ERRSTATE", "Hazard", "HazardParameterError"]
 
@@ -157,6 +158,9 @@ class Hazard(abc.ABC):
     """
 
     family: ClassVar[str]
+    #: the dimension of each constructor parameter (time, rate, log-time, dimensionless), in order;
+    #: drives unit conversion in the scenario reader, writer and editors (:mod:`.dimensions`)
+    dimensions: ClassVar[Mapping[str, Dimension]]
 
     # ---- public API -----------------------------------------------------------------------
     def hazard(self, t: ArrayLike) -> FloatArray:

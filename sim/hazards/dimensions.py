@@ -9,7 +9,8 @@ and stored in years. How a value changes with the unit follows from its dimensio
 - ``LOG_TIME`` (the log-normal location mu = E[log T]): shifted by log(years per unit);
 - ``DIMENSIONLESS`` (shape parameters, log-normal sigma): unchanged.
 
-Model inputs outside the hazards use ``RATIO`` (hazard ratios), ``SHARE`` (utilities, proportions)
+Each family declares its parameters' dimensions (``Weibull.dimensions``);
+:data:`sim.hazards.FAMILY_DIMENSIONS` collects them by family name. Model inputs outside the hazards use ``RATIO`` (hazard ratios), ``SHARE`` (utilities, proportions)
 and ``MONEY`` (costs), none of which depends on the time unit. The scenario schema
 (:mod:`sim.io.scenario`) and the window's editors read the dimensions from here.
 """
@@ -18,10 +19,9 @@ from __future__ import annotations
 
 import math
 from enum import Enum
-from types import MappingProxyType
-from typing import Mapping, Sequence
+from typing import Sequence
 
-__all__ = ["Dimension", "FAMILY_DIMENSIONS", "dimension_of", "to_year_units", "from_year_units"]
+__all__ = ["Dimension", "to_year_units", "from_year_units"]
 
 
 class Dimension(str, Enum):
@@ -34,27 +34,6 @@ class Dimension(str, Enum):
     RATIO = "ratio"
     SHARE = "share"
     MONEY = "money"
-
-
-_T, _R, _L, _D = Dimension.TIME, Dimension.RATE, Dimension.LOG_TIME, Dimension.DIMENSIONLESS
-
-FAMILY_DIMENSIONS: Mapping[str, Mapping[str, Dimension]] = MappingProxyType({
-    "exponential": MappingProxyType({"rate": _R}),
-    "weibull": MappingProxyType({"shape": _D, "scale": _T}),
-    "gompertz": MappingProxyType({"rate": _R, "shape": _R}),
-    "gompertz_makeham": MappingProxyType({"rate": _R, "shape": _R, "constant": _R}),
-    "loglogistic": MappingProxyType({"shape": _D, "scale": _T}),
-    "lognormal": MappingProxyType({"mu": _L, "sigma": _D}),
-    "gamma": MappingProxyType({"shape": _D, "scale": _T}),
-    "piecewise": MappingProxyType({"breaks": _T, "rates": _R}),
-})
-"""Per hazard family (:data:`sim.hazards.FAMILIES`), the dimension of each parameter, in the order
-of the family's constructor."""
-
-
-def dimension_of(family: str, parameter: str) -> Dimension:
-    """The dimension of ``parameter`` of hazard ``family`` (``KeyError`` if either is unknown)."""
-    return FAMILY_DIMENSIONS[family][parameter]
 
 
 def to_year_units(dimension: Dimension, value: float | Sequence[float], years_per_unit: float

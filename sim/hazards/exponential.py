@@ -4,13 +4,16 @@ risk over a period converts to (:mod:`sim.hazards.units`)."""
 from __future__ import annotations
 
 import math
+from collections.abc import Mapping
 from dataclasses import dataclass
+from types import MappingProxyType
 from typing import ClassVar
 
 import numpy as np
 
 from ._numerics import FloatArray
 from .base import Hazard, _param
+from .dimensions import Dimension
 
 __all__ = ["Exponential"]
 
@@ -32,6 +35,7 @@ class Exponential(Hazard):
 
     rate: float
     family: ClassVar[str] = "exponential"
+    dimensions: ClassVar[Mapping[str, Dimension]] = MappingProxyType({"rate": Dimension.RATE})
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "rate", _param(self.family, "rate", self.rate, "nonnegative"))

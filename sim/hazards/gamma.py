@@ -4,13 +4,16 @@ the far upper tail (where ``Q(a, z)`` underflows) from Legendre's continued frac
 from __future__ import annotations
 
 import math
+from collections.abc import Mapping
 from dataclasses import dataclass
+from types import MappingProxyType
 from typing import ClassVar
 
 import numpy as np
 from scipy import special as sc
 
 from ._numerics import FloatArray
+from .dimensions import Dimension
 from .shape_scale import _ShapeScale
 
 __all__ = ["Gamma"]
@@ -72,6 +75,7 @@ class Gamma(_ShapeScale):
     """
 
     family: ClassVar[str] = "gamma"
+    dimensions: ClassVar[Mapping[str, Dimension]] = MappingProxyType({"shape": Dimension.DIMENSIONLESS, "scale": Dimension.TIME})
 
     def _log_q(self, z: FloatArray) -> FloatArray:
         """log Q(a, z), finite wherever z is finite."""

@@ -12,7 +12,9 @@ approximate that of humans. Science 1990;249:902-905.
 from __future__ import annotations
 
 import math
+from collections.abc import Mapping
 from dataclasses import dataclass
+from types import MappingProxyType
 from typing import ClassVar
 
 import numpy as np
@@ -20,6 +22,7 @@ from scipy import special as sc
 
 from ._numerics import FloatArray, _log1prel, _log_exprel, _softplus
 from .base import Hazard, _param
+from .dimensions import Dimension
 
 __all__ = ["Gompertz", "GompertzMakeham"]
 
@@ -94,6 +97,7 @@ class Gompertz(Hazard):
     rate: float
     shape: float
     family: ClassVar[str] = "gompertz"
+    dimensions: ClassVar[Mapping[str, Dimension]] = MappingProxyType({"rate": Dimension.RATE, "shape": Dimension.RATE})
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "rate", _param(self.family, "rate", self.rate, "positive"))
@@ -153,6 +157,7 @@ class GompertzMakeham(Hazard):
     shape: float
     constant: float
     family: ClassVar[str] = "gompertz_makeham"
+    dimensions: ClassVar[Mapping[str, Dimension]] = MappingProxyType({"rate": Dimension.RATE, "shape": Dimension.RATE, "constant": Dimension.RATE})
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "rate", _param(self.family, "rate", self.rate, "positive"))

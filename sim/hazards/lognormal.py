@@ -4,7 +4,9 @@
 from __future__ import annotations
 
 import math
+from collections.abc import Mapping
 from dataclasses import dataclass
+from types import MappingProxyType
 from typing import ClassVar
 
 import numpy as np
@@ -12,6 +14,7 @@ from scipy import special as sc
 
 from ._numerics import FloatArray
 from .base import Hazard, _param
+from .dimensions import Dimension
 
 __all__ = ["LogNormal"]
 
@@ -41,6 +44,7 @@ class LogNormal(Hazard):
     mu: float
     sigma: float
     family: ClassVar[str] = "lognormal"
+    dimensions: ClassVar[Mapping[str, Dimension]] = MappingProxyType({"mu": Dimension.LOG_TIME, "sigma": Dimension.DIMENSIONLESS})
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "mu", _param(self.family, "mu", self.mu, "finite"))

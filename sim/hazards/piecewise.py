@@ -4,7 +4,9 @@ conditional time by band lookup."""
 from __future__ import annotations
 
 import math
+from collections.abc import Mapping
 from dataclasses import dataclass, field
+from types import MappingProxyType
 from typing import ClassVar
 
 import numpy as np
@@ -12,6 +14,7 @@ from numpy.typing import NDArray
 
 from ._numerics import FloatArray
 from .base import Hazard, _invalid, _param, _seq
+from .dimensions import Dimension
 
 __all__ = ["PiecewiseConstant"]
 
@@ -44,6 +47,7 @@ class PiecewiseConstant(Hazard):
     breaks: tuple[float, ...]
     rates: tuple[float, ...]
     family: ClassVar[str] = "piecewise"
+    dimensions: ClassVar[Mapping[str, Dimension]] = MappingProxyType({"breaks": Dimension.TIME, "rates": Dimension.RATE})
     _b: FloatArray = field(init=False, repr=False, compare=False)
     _r: FloatArray = field(init=False, repr=False, compare=False)
     _end: FloatArray = field(init=False, repr=False, compare=False)

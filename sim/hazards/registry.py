@@ -10,6 +10,7 @@ from typing import Any
 
 from ..problems import Problem
 from .base import Hazard, HazardParameterError
+from .dimensions import Dimension
 from .exponential import Exponential
 from .gamma import Gamma
 from .gompertz import Gompertz, GompertzMakeham
@@ -17,7 +18,7 @@ from .lognormal import LogNormal
 from .piecewise import PiecewiseConstant
 from .shape_scale import LogLogistic, Weibull
 
-__all__ = ["FAMILIES", "make_hazard"]
+__all__ = ["FAMILIES", "FAMILY_DIMENSIONS", "make_hazard"]
 
 FAMILIES: Mapping[str, type[Hazard]] = MappingProxyType({
     cls.family: cls
@@ -25,6 +26,11 @@ FAMILIES: Mapping[str, type[Hazard]] = MappingProxyType({
                 PiecewiseConstant)
 })
 """Read-only map from family name to class (``ProportionalHazards`` is made by ``.scaled``)."""
+
+FAMILY_DIMENSIONS: Mapping[str, Mapping[str, Dimension]] = MappingProxyType(
+    {name: cls.dimensions for name, cls in FAMILIES.items()})
+"""Per family name, the dimension of each parameter in constructor order, as each family declares
+it (``Weibull.dimensions``); see :mod:`sim.hazards.dimensions`."""
 
 
 def make_hazard(family: str, **params: Any) -> Hazard:

@@ -9,13 +9,16 @@ Both conditional times are evaluated in log space, free of the cancellation in
 from __future__ import annotations
 
 import math
+from collections.abc import Mapping
 from dataclasses import dataclass
+from types import MappingProxyType
 from typing import ClassVar
 
 import numpy as np
 
 from ._numerics import FloatArray, _log_expm1, _power_or_log, _softplus
 from .base import Hazard, _param
+from .dimensions import Dimension
 
 __all__ = ["Weibull", "LogLogistic"]
 
@@ -64,6 +67,7 @@ class Weibull(_ShapeScale):
     """
 
     family: ClassVar[str] = "weibull"
+    dimensions: ClassVar[Mapping[str, Dimension]] = MappingProxyType({"shape": Dimension.DIMENSIONLESS, "scale": Dimension.TIME})
 
     def _hazard(self, t: FloatArray) -> FloatArray:
         k, lam = self.shape, self.scale
@@ -115,6 +119,7 @@ class LogLogistic(_ShapeScale):
     """
 
     family: ClassVar[str] = "loglogistic"
+    dimensions: ClassVar[Mapping[str, Dimension]] = MappingProxyType({"shape": Dimension.DIMENSIONLESS, "scale": Dimension.TIME})
 
     def _hazard(self, t: FloatArray) -> FloatArray:
         k = self.shape
