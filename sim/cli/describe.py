@@ -3,11 +3,24 @@
 from __future__ import annotations
 
 from ..io import Scenario
-from ..model import BACKGROUND, Clock
+from ..model import BACKGROUND, Clock, Population
 
 __all__ = ["describe"]
 
 CLOCK_WORDS = {Clock.AGE: "attained age", Clock.ENTRY: "time since entry", Clock.STATE: "time in the current state"}
+
+
+def _initial_words(p: Population) -> str:
+    """``'well'``, or a mix such as ``well 80%, lanthic 20%`` (per sex: ``female: ...; male: ...``)."""
+    if p.single_initial_state is not None:
+        return repr(p.single_initial_state)
+
+    def shares(table) -> str:
+        return ", ".join(f"{s} {100 * v:.4g}%" for s, v in table.items())
+
+    if p.initial_by_sex:
+        return "a mix by sex (" + "; ".join(f"{sex}: {shares(p.initial_shares(sex))}" for sex in p.sexes) + ")"
+    return f"a mix ({shares(p.initial_state)})"
 
 
 def describe(scenario: Scenario) -> str:
@@ -25,7 +38,7 @@ def describe(scenario: Scenario) -> str:
             lines.append(f"  {BACKGROUND} ({sex}): every living state -> {bg.target}, {h.family} "
                          f"on {CLOCK_WORDS[bg.clock]}")
     p = m.population
-    lines.append(f"Population: start in {p.initial_state!r}, entry age {type(p.entry_age).__name__} "
+    lines.append(f"Population: start in {_initial_words(p)}, entry age {type(p.entry_age).__name__} "
                  f"(mean {p.entry_age.mean:.1f}), sex mix {dict(p.sex_mix)}")
     lines.append(f"Horizon: {m.horizon.value:g} {'years since entry' if m.horizon.scale == 'time' else '(attained age)'}")
     lines.append("Strategies:")

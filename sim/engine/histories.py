@@ -2,7 +2,8 @@
 
 Algorithm (per chunk of patients, per strategy):
 
-1. Draw entry age and sex from the patient's attribute stream.
+1. Draw entry age, sex and (for a mix of initial states) the initial state from the patient's
+   attribute stream, common to every strategy.
 2. In rounds, for every patient still at risk, group by current state ``s``. For each competing exit
    ``k`` of ``s`` draw E_k ~ Exp(1) from the counter ``(patient, 1 + s, occurrence, block)`` and turn
    it into a latent time by conditional inverse cumulative hazard sampling,
@@ -98,6 +99,7 @@ class _PatientTable:
         self.first, self.n, self.n_st = first, n, n_st
         self.entry_age = np.empty(n)
         self.sex = np.empty(n, dtype=np.int8)
+        self.initial = np.empty(n, dtype=state_code)  # initial state, common to every strategy
         self.exit_time = np.empty(n * n_st)
         self.final_state = np.empty(n * n_st, dtype=state_code)
         self.exit_reason = np.empty(n * n_st, dtype=np.int8)  # codes of ("absorbed", "censored")
@@ -146,8 +148,8 @@ def _latent_times(ex: ResolvedExit, x: NDArray[np.float64], e: NDArray[np.float6
 
 
 def _run_strategy(model: Model, resolved: list[list[ResolvedExit]], bulk: _BulkWords, start: int,
-                  entry_age: NDArray[np.float64], sex: NDArray[np.int8], limit: NDArray[np.float64],
-                  max_transitions: int, t: NDArray[np.float64], cur: NDArray,
+                  entry_age: NDArray[np.float64], sex: NDArray[np.int8], initial: NDArray,
+                  limit: NDArray[np.float64], max_transitions: int, t: NDArray[np.float64], cur: NDArray,
                   reason: NDArray[np.int8]) -> dict[str, NDArray]:
     """Histories of one chunk under one strategy. ``t``, ``cur`` and ``reason`` are the chunk's rows
     of the patient table (exit time, final state, exit reason), used as the working state."""
@@ -156,7 +158,7 @@ def _run_strategy(model: Model, resolved: list[list[ResolvedExit]], bulk: _BulkW
     state_code = _code_dtype(n_states)
     exit_code = _code_dtype(len(model.exit_names))
     absorbing = np.array([s.absorbing for s in model.states])
-    cur[...] = model.state_index(model.population.initial_state)
+    cur[...] = initial
     t[...] = 0.0
     active = limit > 0.0
     absorbed = np.zeros(n, dtype=bool)
@@ -289,19 +291,26 @@ def _run_strategy(model: Model, resolved: list[list[ResolvedExit]], bulk: _BulkW
 def _simulate_chunk(model: Model, plans: list[list[list[ResolvedExit]]], key: tuple[int, int],
                     start: int, stop: int, max_transitions: int, table: _PatientTable) -> _ChunkOut:
     bulk = _BulkWords(key)
-    u = _sorted_draws(bulk, np.arange(start, stop, dtype=np.int64), ATTRIBUTE_STREAM, 0, 2, exponential=False)
+    pop = model.population
+    single = pop.single_initial_state
+    # attribute words: entry age, sex and (for a mix of initial states only, so that a single initial
+    # state draws exactly what it always did) the initial state
+    u = _sorted_draws(bulk, np.arange(start, stop, dtype=np.int64), ATTRIBUTE_STREAM, 0, 2 if single else 3,
+                      exponential=False)
     rows = table.rows(0, start, stop)
     entry_age = table.entry_age[rows]
     entry_age[...] = model.population.entry_age.ppf(u[:, 0])
     sex = table.sex[rows]
     # with a single sex every patient has code 0 (what sex_codes returns for any u in (0, 1])
     sex[...] = 0 if len(model.population.sexes) == 1 else model.population.sex_codes(u[:, 1])
+    initial = table.initial[rows]
+    initial[...] = model.state_index(single) if single else pop.initial_codes(u[:, 2], sex, model.state_names)
     del u
     limit = model.horizon.time_limit(entry_age)
     per = []
     for k, plan in enumerate(plans):
         rows = table.rows(k, start, stop)
-        per.append(_run_strategy(model, plan, bulk, start, entry_age, sex, limit, max_transitions,
+        per.append(_run_strategy(model, plan, bulk, start, entry_age, sex, initial, limit, max_transitions,
                                  table.exit_time[rows], table.final_state[rows], table.exit_reason[rows]))
     return _ChunkOut(start, stop, per)
 
@@ -366,8 +375,7 @@ def _assemble(model: Model, strategies: tuple[str, ...], chunks: list[_ChunkOut]
         "patient": ids if n_st == 1 else np.tile(ids, n_st),
         "entry_age": entry_all,
         "sex": _cat(table.sex if n_st == 1 else np.tile(table.sex, n_st), model.population.sexes),
-        "initial_state": _cat(np.full(n_pat * n_st, model.state_index(model.population.initial_state),
-                                      dtype=state_code), states),
+        "initial_state": _cat(table.initial if n_st == 1 else np.tile(table.initial, n_st), states),
         "exit_time": table.exit_time,
         "exit_age": entry_all + table.exit_time,
         "final_state": _cat(table.final_state, states),

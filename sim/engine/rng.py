@@ -13,9 +13,10 @@ Counter layout used by the engine (four 64-bit words)::
 
     (patient id, stream, occurrence, block)
 
-stream 0 holds patient attributes (entry age, sex); stream 1 + s holds the latent times for the exits
-of state ``s``; occurrence is the number of earlier entries of the patient into that state; block
-``b`` holds exits ``4 b .. 4 b + 3`` of the state (one Philox call gives four 64-bit words).
+stream 0 holds patient attributes (entry age, sex, the initial state of a mix); stream 1 + s holds
+the latent times for the exits of state ``s``; occurrence is the number of earlier entries of the
+patient into that state; block ``b`` holds exits ``4 b .. 4 b + 3`` of the state (one Philox call
+gives four 64-bit words).
 """
 
 from __future__ import annotations

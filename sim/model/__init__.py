@@ -16,10 +16,10 @@ from .frozen import FrozenMap
 from .multistate import Model, ResolvedExit, is_constant_hazard
 from .parts import BACKGROUND, BackgroundMortality, Clock, Horizon, State, Strategy, Transition, item_key
 from .settings import RunSettings
-from .population import EmpiricalAge, EntryAge, FixedAge, NormalAge, Population, UniformAge
+from .population import EmpiricalAge, EntryAge, FixedAge, InitialState, NormalAge, Population, UniformAge
 from .valuation import Valuation
 
 __all__ = ["checks", "Problems", "FrozenMap", "BACKGROUND", "BackgroundMortality", "Clock", "Horizon", "Model",
            "ModelError", "ResolvedExit", "State", "Strategy", "Transition", "is_constant_hazard", "item_key",
-           "EmpiricalAge", "EntryAge", "FixedAge", "NormalAge", "Population", "PopulationError", "UniformAge",
+           "EmpiricalAge", "EntryAge", "FixedAge", "InitialState", "NormalAge", "Population", "PopulationError", "UniformAge",
            "Valuation", "ValuationError", "RunSettings"]

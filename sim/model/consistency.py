@@ -1,5 +1,6 @@
 """The rules that relate the parts of a model (each part has checked its own values already): names
 are unique, transitions join existing states, absorbing states have no exits and no utility, the
+initial state (or every state of an initial mix) is a living state, the
 background mortality covers every sex, the strategies and the valuation name existing transitions
 and states, the horizon lies beyond the youngest entry age.
 
@@ -98,9 +99,7 @@ def model_problems(model: "Model") -> list[Problem]:
             add(("states", s.name), "is not absorbing but has no exits; mark it absorbing or add a transition")
 
     # population and horizon
-    init = model.population.initial_state
-    if init not in by_name or by_name[init].absorbing:
-        add(("population", "initial_state"), "must name a non-absorbing state", init)
+    _initial_state_problems(add, model.population, by_name)
     low = model.population.entry_age.low
     if model.horizon.scale == "age" and model.horizon.value <= low:
         add(("horizon", "value"), f"must exceed the lowest entry age {low!r} when horizon.scale is 'age'",
@@ -135,3 +134,22 @@ def _unknown(add: Any, path: tuple, table: Iterable[str], known: list[str], what
     for key in table:
         if key not in known:
             add((*path, key), f"must name a {what} {known}", key)
+
+
+def _initial_state_problems(add: Any, population: Population, by_name: dict[str, State]) -> None:
+    """The initial state, or every state of an initial mix, names a non-absorbing state of the model
+    (key paths ``population.initial_state[.sex].state`` for a mix)."""
+    init = population.initial_state
+    if isinstance(init, str):
+        if init not in by_name or by_name[init].absorbing:
+            add(("population", "initial_state"), "must name a non-absorbing state", init)
+        return
+    tables = init.items() if population.initial_by_sex else [(None, init)]
+    for sex, shares in tables:
+        for state in shares:
+            path = ("population", "initial_state", *(() if sex is None else (sex,)), state)
+            if state not in by_name:
+                add(path, f"must name a non-absorbing state {[n for n, s in by_name.items() if not s.absorbing]}",
+                    state)
+            elif by_name[state].absorbing:
+                add(path, "must name a non-absorbing state (patients cannot start in an absorbing state)", state)

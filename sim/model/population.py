@@ -10,7 +10,7 @@ from __future__ import annotations
 import math
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
-from typing import Protocol
+from typing import Protocol, Union
 
 import numpy as np
 from numpy.typing import NDArray
@@ -22,7 +22,7 @@ from .frozen import FrozenMap
 
 __all__ = [
     "EntryAge", "FixedAge", "UniformAge", "NormalAge", "EmpiricalAge", "Population",
-    "PopulationError",
+    "PopulationError", "InitialState", "SHARE_TOLERANCE",
 ]
 
 
@@ -201,17 +201,84 @@ class EmpiricalAge:
     high = property(lambda self: float(max(self.ages)))
 
 
+InitialState = Union[str, Mapping[str, float], Mapping[str, Mapping[str, float]]]
+"""A state name, a table ``state = share`` or a table ``sex = {state = share}``."""
+
+SHARE_TOLERANCE = 1e-9
+"""Shares (sex mix, initial states) must sum to 1 within this absolute tolerance."""
+
+
+INITIAL = ("population", "initial_state")
+_INITIAL_FORMS = "must be a state name, a table of state = share, or a table of sex = {state = share}"
+
+
+def _shares(found: Problems, path: tuple, table: object) -> FrozenMap | None:
+    """A table ``state = share`` (shares in [0, 1] summing to 1 within 1e-9) as a FrozenMap, or None
+    (problems recorded)."""
+    if isinstance(table, Mapping) and not table:
+        found.add(path, "must name at least one state", {})
+        return None
+    got = found.check(number_map, path, table, minimum=0.0, maximum=1.0, error=PopulationError)
+    if got is None or len(got) != len(table):
+        return None
+    total = math.fsum(got.values())
+    if not math.isclose(total, 1.0, rel_tol=0.0, abs_tol=SHARE_TOLERANCE):
+        found.add(path, f"shares must sum to 1 (sum {total:.12g})", dict(got))
+        return None
+    return FrozenMap(got)
+
+
+def _initial_state(found: Problems, value: object, sexes: tuple[str, ...] | None) -> InitialState | None:
+    """The checked, deep-frozen initial state (``sexes``: the sex mix's labels, None if it is bad)."""
+    if isinstance(value, str):
+        return found.check(string, INITIAL, value, error=PopulationError)
+    if not isinstance(value, Mapping):
+        found.add(INITIAL, _INITIAL_FORMS, value)
+        return None
+    tables = [isinstance(v, Mapping) for v in value.values()]
+    if not (value and all(tables)):
+        if any(tables):
+            found.add(INITIAL, _INITIAL_FORMS, _plain(value))
+            return None
+        return _shares(found, INITIAL, value)
+    per_sex, bad = {}, False
+    for sex, table in value.items():
+        if sexes is not None and sex not in sexes:
+            found.add((*INITIAL, sex), f"must name a sex of population.sex_mix {list(sexes)}", sex)
+            bad = True
+            continue
+        got = _shares(found, (*INITIAL, sex), table)
+        bad = bad or got is None
+        per_sex[sex] = got
+    missing = [s for s in (sexes or ()) if s not in value]
+    if missing:
+        found.add(INITIAL, f"must give the shares of every sex of population.sex_mix (missing {missing})",
+                  _plain(value))
+        bad = True
+    return None if bad else FrozenMap(per_sex)
+
+
+def _plain(value: object) -> object:
+    return {k: _plain(v) for k, v in value.items()} if isinstance(value, Mapping) else value
+
+
 @dataclass(frozen=True)
 class Population:
-    """The entering cohort: entry-age distribution, sex mix and starting state.
+    """The entering cohort: entry-age distribution, sex mix and starting state(s).
 
     ``sex_mix`` maps a sex label (e.g. ``"female"``) to its share; shares must sum to 1. A single
     label ``{"all": 1.0}`` means background mortality is not sex-specific. It is kept as a read-only
     :class:`~sim.model.FrozenMap` of floats.
+
+    ``initial_state`` is one state name (everyone starts there), a table ``state = share`` (a
+    prevalent cohort: each patient starts in a state drawn with these probabilities) or a table
+    ``sex = {state = share}`` with one such table per sex of the mix. Shares are in [0, 1] and sum to
+    1 within 1e-9; tables are kept as read-only FrozenMaps. That the names are non-absorbing states
+    of the model is checked by the model (:mod:`sim.model.consistency`).
     """
 
     entry_age: EntryAge
-    initial_state: str
+    initial_state: InitialState
     sex_mix: Mapping[str, float] = field(default_factory=lambda: FrozenMap({"all": 1.0}))
 
     def __post_init__(self) -> None:
@@ -220,16 +287,19 @@ class Population:
         if not all(hasattr(self.entry_age, a) for a in ("ppf", "nodes", "mean", "low", "high")):
             found.add((*path, "entry_age"), "must be an entry-age distribution (fixed, uniform, normal or "
                                             "empirical)", self.entry_age)
-        found.check(string, (*path, "initial_state"), self.initial_state, error=PopulationError)
-        mix = found.check(number_map, (*path, "sex_mix"), self.sex_mix, minimum=0.0, maximum=1.0,
-                          error=PopulationError)
+        in_mix = Problems()  # reported after the initial state's, in the order of the fields
+        mix = in_mix.check(number_map, (*path, "sex_mix"), self.sex_mix, minimum=0.0, maximum=1.0,
+                           error=PopulationError)
         if isinstance(self.sex_mix, Mapping) and not self.sex_mix:
-            found.add((*path, "sex_mix"), "must name at least one sex", {})
+            in_mix.add((*path, "sex_mix"), "must name at least one sex", {})
         elif mix and len(mix) == len(self.sex_mix) and not math.isclose(math.fsum(mix.values()), 1.0,
-                                                                        rel_tol=0.0, abs_tol=1e-9):
-            found.add((*path, "sex_mix"), f"shares must sum to 1 (sum {math.fsum(mix.values()):g})", dict(mix))
+                                                                        rel_tol=0.0, abs_tol=SHARE_TOLERANCE):
+            in_mix.add((*path, "sex_mix"), f"shares must sum to 1 (sum {math.fsum(mix.values()):g})", dict(mix))
+        sexes = tuple(mix) if mix and len(mix) == len(self.sex_mix) else None
+        initial = _initial_state(found, self.initial_state, sexes)
+        found.extend(in_mix.items)
         found.raise_if_any(PopulationError)
-        _set(self, sex_mix=FrozenMap(mix))
+        _set(self, sex_mix=FrozenMap(mix), initial_state=initial)
 
     @property
     def sexes(self) -> tuple[str, ...]:
@@ -240,3 +310,73 @@ class Population:
         cum = np.cumsum(np.array(list(self.sex_mix.values()), dtype=float))
         cum[-1] = 1.0
         return np.minimum(np.searchsorted(cum, u, side="left"), len(cum) - 1).astype(np.int8)
+
+    # ------------------------------------------------------------------ initial states
+    @property
+    def single_initial_state(self) -> str | None:
+        """The one state everyone starts in, or None for a mix (even one with all weight on a state)."""
+        return self.initial_state if isinstance(self.initial_state, str) else None
+
+    @property
+    def initial_by_sex(self) -> bool:
+        """Whether the initial shares are given per sex."""
+        return isinstance(self.initial_state, Mapping) and all(
+            isinstance(v, Mapping) for v in self.initial_state.values())
+
+    def initial_shares(self, sex: str) -> Mapping[str, float]:
+        """The initial shares ``state = share`` of ``sex`` (``{name: 1.0}`` for a single state)."""
+        if isinstance(self.initial_state, str):
+            return FrozenMap({self.initial_state: 1.0})
+        if self.initial_by_sex:
+            return self.initial_state[sex]
+        return self.initial_state
+
+    @property
+    def named_initial_states(self) -> tuple[str, ...]:
+        """Every state the initial state names (zero shares included), in order of appearance."""
+        if isinstance(self.initial_state, str):
+            return (self.initial_state,)
+        tables = self.initial_state.values() if self.initial_by_sex else (self.initial_state,)
+        return tuple(dict.fromkeys(k for t in tables for k in t))
+
+    @property
+    def initial_states(self) -> tuple[str, ...]:
+        """The states some patients start in (a share > 0 for some sex), in order of appearance."""
+        return tuple(s for s in self.named_initial_states
+                     if any(self.initial_shares(x).get(s, 0.0) > 0.0 for x in self.sexes))
+
+    def initial_matrix(self, states: tuple[str, ...]) -> NDArray[np.float64]:
+        """Read-only array (len(sexes), len(states)): row ``i`` is the initial distribution p(0) of
+        sex ``sexes[i]`` over ``states`` (the model's state order). A single initial state gives rows
+        with exactly 1.0 in its column and 0.0 elsewhere.
+
+        Raises
+        ------
+        KeyError : a named state is not in ``states``.
+        """
+        index = {s: j for j, s in enumerate(states)}
+        out = np.zeros((len(self.sexes), len(states)))
+        for i, sex in enumerate(self.sexes):
+            for s, share in self.initial_shares(sex).items():
+                out[i, index[s]] = share
+        out.flags.writeable = False
+        return out
+
+    def initial_codes(self, u: NDArray[np.float64], sex: NDArray[np.integer],
+                      states: tuple[str, ...]) -> NDArray[np.int64]:
+        """Initial state codes (indices into ``states``) for uniforms ``u`` in (0, 1] and sex codes
+        ``sex``, by the inverse CDF of each sex's shares over the states with a positive share (a
+        state with share 0 is never drawn, whatever the rounding of the cumulative sums)."""
+        u = np.asarray(u, dtype=float)
+        sex = np.asarray(sex)
+        out = np.empty(u.shape, dtype=np.int64)
+        p = self.initial_matrix(states)
+        for code in range(len(self.sexes)):
+            rows = sex == code
+            if not rows.any():
+                continue
+            cols = np.flatnonzero(p[code] > 0.0)
+            cum = np.cumsum(p[code, cols])
+            cum[-1] = 1.0
+            out[rows] = cols[np.minimum(np.searchsorted(cum, u[rows], side="left"), cols.size - 1)]
+        return out

@@ -262,7 +262,9 @@ def cohort_trace(model: Model, strategy: str, cycle_length: float, conversion: s
     n_exp, n_states = len(space.labels), len(model.states)
     n_exits = len(model.exit_names)
     x = np.zeros((m, n_exp))
-    x[:, space.first[model.state_index(model.population.initial_state)]] = 1.0
+    # each stratum starts in its sex's initial distribution, in the entry copy of each state
+    # (prevalent patients start their time-in-state clock at 0, as in the simulation)
+    x[:, space.first] = model.population.initial_matrix(model.state_names)[sex]
     occupancy = np.zeros((m, n_cycles + 1, n_states))
     moves = np.zeros((m, n_cycles, n_exits))
     jump = np.zeros((m, n_cycles))

@@ -4,7 +4,7 @@ For a model whose exits depend only on attained age and time since entry (a cons
 time-in-state clock is memoryless and allowed), the state occupancy row vector p(t) of a patient who
 entered at age a0 solves
 
-    dp/dt = p Q(t; a0),  p(0) = e_initial,
+    dp/dt = p Q(t; a0),  p(0) = p0 (e_initial, or the initial shares of the patient's sex),
 
 with Q the generator: Q_ij(t) = sum of the hazards of the exits i -> j at their clock values, and
 Q_ii = -sum_j Q_ij (docs/methods.md, 'Exact solution'; the forward equations for a time-inhomogeneous Markov
@@ -168,29 +168,34 @@ def solve_stacked(model: Model, strategy: str | tuple[str, ...], entry_age: NDAr
 
     y0 = np.zeros(size_p + size_i + size_f)
     p0 = y0[:size_p].reshape(m, n)
-    init = model.state_index(model.population.initial_state)
-    p0[:, init] = 1.0
+    # p(0): each pair's initial distribution (its sex's row; one 1.0 for a single initial state)
+    p0[:] = model.population.initial_matrix(model.state_names)[sex]
+    init = set(np.flatnonzero(p0.any(axis=0)).tolist())  # states some pair starts in
     t_end = max(float(horizon.max(initial=0.0)), float(times.max(initial=0.0)))
     t0 = 0.0
     if not np.all(np.isfinite(rates(0.0))):
         # A hazard infinite at clock 0 (e.g. Weibull shape < 1): step over [0, t0] with the
-        # competing-exit formula on the cumulative hazards; the neglected second moves are O(H^2).
+        # competing-exit formula on the cumulative hazards, from each initial state with its initial
+        # mass a; the neglected second moves are O(H^2).
         t0 = 1e-12 * max(t_end, 1.0)
         dh = np.zeros((k_ex, m))
         for k, (s_k, _, groups, offset, moving) in enumerate(plan):
-            if s_k != init:
+            if s_k not in init:
                 continue
             for h, rows in groups:
                 x = offset[rows]
                 dh[k, rows] = (h.cumhazard(x + t0) - h.cumhazard(x)) if moving else h.hazard(x) * t0
-        total = dh.sum(axis=0)
-        pos = total > 0
-        p0[pos, init] = np.exp(-total[pos])
-        moved = np.where(pos, -np.expm1(-total) / np.where(pos, total, 1.0), 0.0)
+        a = p0.copy()
+        total = np.zeros((m, n))
         for k in range(k_ex):
-            p0[:, dst[k]] += moved * dh[k]
+            total[:, src[k]] += dh[k]
+        pos = total > 0
+        p0[pos] = a[pos] * np.exp(-total[pos])
+        moved = np.where(pos, a * (-np.expm1(-total) / np.where(pos, total, 1.0)), 0.0)
+        for k in range(k_ex):
+            p0[:, dst[k]] += moved[:, src[k]] * dh[k]
         f0 = y0[size_p + size_i:].reshape(r_n, m, k_ex)
-        f0[:] = (moved * dh).T[None]
+        f0[:] = (moved[:, src] * dh.T)[None]
     occ = np.empty((m, times.size, n))
     if t_end <= t0:
         occ[:] = p0[:, None, :]

@@ -13,8 +13,8 @@ from typing import Any, Callable, Iterable, Mapping, NoReturn, TypeVar
 from ...model.checks import flag, number, string
 from ...problems import NO_VALUE, KeyPath, Problem, ValidationError
 from .durations import parse_duration
-from .schema import (Durations, Flag, FreeText, HazardTable, Items, NameMap, Node, Number, Numbers, Table, Text,
-                     TextOrMap, Variant)
+from .schema import (Durations, Flag, FreeText, HazardTable, Items, NameMap, Node, Number, Numbers, StateOrShares,
+                     Table, Text, TextOrMap, Variant)
 
 __all__ = ["Invalid", "Checker"]
 
@@ -82,7 +82,33 @@ class Checker:
             if not isinstance(raw, Mapping) or not raw:
                 self.fail(path, "must be a column name or a table of sex = column", raw)
             return self.name_map(NameMap(value=node.value), raw, path)
+        if isinstance(node, StateOrShares):
+            return self.state_or_shares(node, raw, path)
         raise TypeError(f"{type(node).__name__} is not a leaf of the schema")  # pragma: no cover
+
+    def state_or_shares(self, node: StateOrShares, raw: Any, path: KeyPath) -> Any:
+        """A state name, or its tables with each share checked; what the shares mean together (sum,
+        sexes, states) is checked by :class:`sim.model.Population` and the model."""
+        if isinstance(raw, str):
+            return self.guarded(lambda: string(path, raw))
+        if not isinstance(raw, Mapping) or not raw:
+            self.fail(path, "must be a state name, a table of state = share, or a table of sex = "
+                            "{state = share}", raw)
+        if node.per_sex(raw):
+            shares = NameMap(value=node.share)
+            out, bad = {}, False
+            for sex, table in raw.items():
+                try:
+                    out[sex] = self.name_map(shares, table, (*path, sex))
+                except Invalid:
+                    bad = True
+            if bad:
+                raise Invalid
+            return out
+        if any(isinstance(v, Mapping) for v in raw.values()):
+            self.fail(path, "must be a table of state = share, or a table of sex = {state = share} "
+                            "(not both)", raw)
+        return self.name_map(NameMap(value=node.share), raw, path)
 
     def numbers(self, node: Numbers, raw: Any, path: KeyPath) -> tuple:
         if not isinstance(raw, list) or not raw:

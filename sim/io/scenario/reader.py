@@ -284,8 +284,9 @@ def _document_paths(problems: tuple[Problem, ...], doc: Mapping) -> list[Problem
 
 
 def _check_reachable(model: Model) -> None:
-    """Every state must be reachable from the initial state (else it is a typo or dead code)."""
-    reach = {model.population.initial_state}
+    """Every state must be reachable from an initial state (else it is a typo or dead code)."""
+    starts = model.population.initial_states
+    reach = set(starts)
     edges = [(t.source, t.target) for t in model.transitions]
     if model.background is not None:
         edges += [(s.name, model.background.target) for s in model.states if not s.absorbing]
@@ -298,8 +299,8 @@ def _check_reachable(model: Model) -> None:
                 changed = True
     for i, s in enumerate(model.states):
         if s.name not in reach:
-            raise ScenarioError(f"cannot be reached from the initial state {model.population.initial_state!r}",
-                                path=("states", i, "name"), value=s.name)
+            where = f"the initial state {starts[0]!r}" if len(starts) == 1 else f"the initial states {list(starts)}"
+            raise ScenarioError(f"cannot be reached from {where}", path=("states", i, "name"), value=s.name)
 
 
 def parse_scenario(text: str, file: str | Path | None = None, base_dir: Path | None = None) -> Scenario:

@@ -5,6 +5,7 @@ from __future__ import annotations
 
 from typing import Any, Iterator, MutableMapping
 
+from ...model.checks import is_number
 from .schema import Ref, references
 
 __all__ = ["rename", "RENAMEABLE"]
@@ -16,7 +17,8 @@ _FOLLOWS = {Ref.STATE: (Ref.STATE,), Ref.TRANSITION: (Ref.TRANSITION, Ref.EXIT)}
 
 
 def _places(doc: Any, pattern: tuple, prefix: tuple = ()) -> Iterator[tuple[Any, Any]]:
-    """(container, key) pairs of ``doc`` matching ``pattern`` (``"*"``: every item of an array)."""
+    """(container, key) pairs of ``doc`` matching ``pattern`` (``"*"``: every item of an array, or
+    every key of a table)."""
     if not pattern:
         return
     head, rest = pattern[0], pattern[1:]
@@ -24,6 +26,12 @@ def _places(doc: Any, pattern: tuple, prefix: tuple = ()) -> Iterator[tuple[Any,
         if isinstance(doc, list):
             for item in doc:
                 yield from _places(item, rest)
+        elif isinstance(doc, MutableMapping):
+            for key in list(doc):
+                if rest:
+                    yield from _places(doc[key], rest)
+                else:
+                    yield doc, key
         return
     if not isinstance(doc, MutableMapping) or head not in doc:
         return
@@ -53,6 +61,9 @@ def rename(doc: Any, array: str, index: int, new: str) -> None:
         for container, key in _places(doc, ref.pattern):
             value = container[key]
             if ref.as_key:
+                if ref.numbers_only and isinstance(value, MutableMapping) and not all(
+                        is_number(v) for v in value.values()):
+                    continue
                 if isinstance(value, MutableMapping) and old in value:
                     moved = value[old]
                     del value[old]

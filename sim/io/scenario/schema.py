@@ -14,8 +14,8 @@ numbers), :class:`Durations` (a list of durations), :class:`Table` (fixed keys, 
 of one kind named by a reference), :class:`Items` (an array of tables with unique names),
 :class:`NameMap` (a table ``name = value`` whose names may refer to states or transitions),
 :class:`Variant` (a table whose keys depend on a tag such as ``distribution``), :class:`TextOrMap`
-(a name, or a table of them) and :class:`HazardTable` (``family``, ``unit`` and the family's
-parameters).
+(a name, or a table of them), :class:`StateOrShares` (a state, or shares of states, optionally per
+sex) and :class:`HazardTable` (``family``, ``unit`` and the family's parameters).
 """
 
 from __future__ import annotations
@@ -30,7 +30,7 @@ from ...model import BACKGROUND, Clock, EmpiricalAge, FixedAge, NormalAge, RunSe
 from ...problems import KeyPath
 
 __all__ = ["FORMAT_VERSION", "TIME_UNITS", "Ref", "Node", "Number", "Text", "FreeText", "Flag", "Numbers",
-           "Durations", "Table", "Items", "NameMap", "Variant", "TextOrMap", "HazardTable", "SCHEMA",
+           "Durations", "Table", "Items", "NameMap", "Variant", "TextOrMap", "StateOrShares", "HazardTable", "SCHEMA",
            "LIST_PARAMETERS", "EXPONENTIAL_FORMS", "ENTRY_AGES", "hazard_keys", "Reference", "references", "declared_keys"]
 
 FORMAT_VERSION = 1
@@ -147,6 +147,19 @@ class TextOrMap(Node):
 
 
 @dataclass(frozen=True)
+class StateOrShares(Node):
+    """Where patients start: a state name, a table ``state = share``, or a table
+    ``sex = {state = share}`` with one table per sex of the sex mix (which form: the values are
+    numbers or tables). ``share`` declares each share."""
+
+    share: Number = field(default_factory=Number)
+
+    def per_sex(self, value: Any) -> bool:
+        """Whether ``value`` is the per-sex form (a non-empty table of tables)."""
+        return isinstance(value, Mapping) and bool(value) and all(isinstance(v, Mapping) for v in value.values())
+
+
+@dataclass(frozen=True)
 class HazardTable(Node):
     """A hazard: ``family``, ``unit`` and the family's parameters (:func:`hazard_keys`), plus the
     table's own ``keys`` (a transition's name, ends and clock)."""
@@ -232,7 +245,8 @@ SCHEMA = Table(keys={
         }),
     }, extra=HazardTable(), extra_ref=Ref.SEX),
     "population": Table(required=True, keys={
-        "initial_state": Text(required=True, ref=Ref.STATE),
+        "initial_state": StateOrShares(required=True, share=Number(minimum=0, maximum=1, dimension=Dimension.SHARE),
+                                       doc="a state, {state = share, ...} or {sex = {state = share, ...}, ...}"),
         "sex_mix": NameMap(value=Number(minimum=0, maximum=1, dimension=Dimension.SHARE), key_ref=Ref.SEX),
         "entry_age": Variant(required=True, tag="distribution", variants={
             "fixed": {"age": Number(required=True, **_AGE)},
@@ -320,6 +334,10 @@ def _children(node: Node, value: Any) -> Iterator[tuple[Any, Node]]:
         if isinstance(value, Mapping):
             for k in value:
                 yield k, node.value
+    elif isinstance(node, StateOrShares) and isinstance(value, Mapping):
+        shares = NameMap(value=node.share, key_ref=Ref.STATE)
+        for k in value:
+            yield k, shares if node.per_sex(value) else node.share
     elif isinstance(node, Numbers) and isinstance(value, list):
         for i in range(len(value)):
             yield i, node.element
@@ -356,6 +374,10 @@ class Reference:
     pattern: tuple[Any, ...]
     ref: Ref
     as_key: bool
+    numbers_only: bool = False
+    """The keys are names only when every value of the table is a number (the shares of
+    ``initial_state``, whose per-sex form has sexes as keys); ``"*"`` in a pattern also matches every
+    value of a table."""
 
 
 def _references(node: Node, pattern: tuple) -> Iterator[Reference]:
@@ -363,6 +385,10 @@ def _references(node: Node, pattern: tuple) -> Iterator[Reference]:
         yield Reference(pattern, node.ref, as_key=False)
     if isinstance(node, (NameMap, TextOrMap)) and node.key_ref is not None:
         yield Reference(pattern, node.key_ref, as_key=True)
+    if isinstance(node, StateOrShares):
+        yield Reference(pattern, Ref.STATE, as_key=False)
+        yield Reference(pattern, Ref.STATE, as_key=True, numbers_only=True)
+        yield Reference((*pattern, "*"), Ref.STATE, as_key=True, numbers_only=True)
     if isinstance(node, (Table, HazardTable)):
         for k, child in node.keys.items():
             yield from _references(child, (*pattern, k))
