@@ -1,10 +1,21 @@
-"""Reading a life table from a CSV or .xlsx file, with messages that name the file, line and column."""
+"""Reading a life table from a CSV or .xlsx file, with messages that name the file, line and column.
+
+The file is opened once, without blocking, checked to be a regular file and read whole into memory up
+to :data:`MAX_LIFE_TABLE_BYTES` (a named pipe, a device such as ``/dev/zero``, a directory or a larger
+file is refused before any byte is parsed); an .xlsx workbook (a zip archive) is also refused when its
+parts would unpack to more than :data:`MAX_XLSX_UNPACKED_BYTES`. Messages quote at most a short, sanitised excerpt of a
+cell (:func:`_excerpt`), never whole lines of the file: a path given by mistake (or on purpose) to a
+file that is not a life table does not have its contents echoed.
+"""
 
 from __future__ import annotations
 
+import io
 import math
 import numbers
 import os
+import stat
+import zipfile
 from collections.abc import Mapping
 from pathlib import Path
 from typing import Any
@@ -15,7 +26,19 @@ import pandas as pd
 from .errors import LifeTableError
 from .table import FloatArray, LifeTable, Located, _check_kind, _validate
 
-__all__ = ["read_life_table"]
+__all__ = ["MAX_LIFE_TABLE_BYTES", "MAX_XLSX_UNPACKED_BYTES", "read_life_table"]
+
+MAX_LIFE_TABLE_BYTES = 1024 * 1024
+"""Largest life-table file read, in bytes (1 MiB). A life table has one row per age band, a few
+kilobytes; the limit also bounds the parsing time (about 2 s for a worst-case file of 1 MiB of empty
+lines). Larger files are refused before they are read."""
+
+MAX_XLSX_UNPACKED_BYTES = 4 * 1024 * 1024
+"""Largest total unpacked size of an .xlsx workbook's parts, in bytes (4 MiB, about 25,000 rows of
+three cells; parsing that takes about 2 s). Bounds a small workbook that would unpack to far more."""
+
+_EXCERPT_CHARS = 20  # longest excerpt of a cell quoted in a message
+_HEADER_NAMES = 8  # most header cells listed when a column is not found
 
 
 def read_life_table(path: str | os.PathLike[str], *, kind: str, age_column: str = "age",
@@ -51,15 +74,20 @@ def read_life_table(path: str | os.PathLike[str], *, kind: str, age_column: str 
         ``m >= 0``; no missing, NaN, infinite or non-numeric cells in the columns used; a ``q`` table
         needs at least two rows. The message names the file, the line (CSV; header line = 1) or
         spreadsheet row (xlsx), the column, the value and the rule.
+        Also a path that is not a regular file (a directory, a named pipe, a device) or a file larger
+        than :data:`MAX_LIFE_TABLE_BYTES`; such files are refused without being read.
     FileNotFoundError
         ``path`` does not exist.
+    PermissionError
+        ``path`` cannot be opened for reading.
 
     Notes
     -----
     The header is the first non-empty row; data rows follow it. Rows that are empty in every cell are
     skipped (line numbers in messages still count them). Columns not named are ignored (e.g. a
     ``note`` column). Header names are compared after stripping surrounding spaces. Line numbers
-    assume one record per line (no quoted line breaks).
+    assume one record per line (no quoted line breaks). Messages quote cells only as short excerpts
+    (at most 20 characters, non-printable characters replaced by ``?``).
     """
     kind = _check_kind("read_life_table", kind)
     columns = _value_columns(value_columns)
@@ -78,11 +106,11 @@ def read_life_table(path: str | os.PathLike[str], *, kind: str, age_column: str 
             raise LifeTableError(f"read_life_table: sheet applies to .xlsx files only, got sheet={sheet!r} "
                                  f"for {name}", key=("sheet",), value=sheet, file=name,
                                  rule="applies to .xlsx files only")
-        raw = _read_csv_cells(p, name)
+        raw = _read_csv_cells(_read_bytes(p, name), name)
         unit, where = "line", name
         sheet_at: dict[str, Any] = {}
     elif suffix == ".xlsx":
-        raw, sheet_name = _read_xlsx_cells(p, name, sheet)
+        raw, sheet_name = _read_xlsx_cells(_read_bytes(p, name), name, sheet)
         unit, where = "row", f"{name} sheet {sheet_name!r}"
         sheet_at = {"key": (sheet_name,)}
     else:
@@ -103,7 +131,7 @@ def read_life_table(path: str | os.PathLike[str], *, kind: str, age_column: str 
     for role, col in wanted.items():
         hits = [j for j, c in enumerate(header) if c == col]
         if not hits:
-            found = ", ".join(repr(c) for c in header if c) or "none"
+            found = _listing([c for c in header if c])
             rule = f"column {col!r} ({role}) not found; columns found: {found}"
             raise LifeTableError(f"{where} {unit} {h + 1} (header): {rule}", file=name, line=h + 1,
                                  key=(*sheet_at.get("key", ()), col), rule=rule)
@@ -160,28 +188,110 @@ def _value_columns(value_columns: Any) -> dict[str, str]:
     return out
 
 
-def _read_csv_cells(p: Path, name: str) -> list[list[Any]]:
+def _read_bytes(p: Path, name: str) -> bytes:
+    """The whole file at ``p`` if it is a regular file of at most :data:`MAX_LIFE_TABLE_BYTES`.
+
+    Opened without blocking (``O_NONBLOCK``: opening a named pipe returns at once) and checked with
+    ``fstat`` on the open descriptor, so what is checked is what is read. A directory, pipe, socket or
+    device, or a file larger than the limit (by its size, or by what a read returns), raises
+    :class:`LifeTableError` before any byte is parsed.
+    """
+    flags = os.O_RDONLY | getattr(os, "O_NONBLOCK", 0) | getattr(os, "O_BINARY", 0)
+    fd = os.open(p, flags)  # FileNotFoundError / PermissionError pass through (callers expect OSError)
     try:
-        df = pd.read_csv(p, header=None, dtype=str, keep_default_na=False, na_filter=False,
+        info = os.fstat(fd)
+        if not stat.S_ISREG(info.st_mode):
+            what = _file_kind(info.st_mode)
+            rule = f"must be a regular file (a .csv or .xlsx life table), not {what}"
+            raise LifeTableError(f"{name}: {rule}", key=("path",), file=name, rule=rule)
+        if info.st_size > MAX_LIFE_TABLE_BYTES:
+            _too_large(name, info.st_size)
+        if hasattr(os, "set_blocking"):
+            os.set_blocking(fd, True)  # a regular file: ordinary reads from here on
+        with os.fdopen(fd, "rb", closefd=True) as fh:
+            fd = -1
+            data = fh.read(MAX_LIFE_TABLE_BYTES + 1)  # a file growing while read is still bounded
+    finally:
+        if fd >= 0:
+            os.close(fd)
+    if len(data) > MAX_LIFE_TABLE_BYTES:
+        _too_large(name, len(data))
+    return data
+
+
+def _file_kind(mode: int) -> str:
+    """What a non-regular file is, in words."""
+    for test, what in ((stat.S_ISDIR, "a directory"), (stat.S_ISFIFO, "a named pipe"),
+                       (stat.S_ISCHR, "a character device"), (stat.S_ISBLK, "a block device"),
+                       (stat.S_ISSOCK, "a socket")):
+        if test(mode):
+            return what
+    return "a special file"
+
+
+def _too_large(name: str, size: int) -> None:
+    rule = (f"must be at most {MAX_LIFE_TABLE_BYTES} bytes ({MAX_LIFE_TABLE_BYTES // (1024 * 1024)} MiB; "
+            "a life table is far smaller)")
+    raise LifeTableError(f"{name}: the file has {size} bytes or more; it {rule}", key=("path",), file=name,
+                         value=size, rule=rule)
+
+
+def _excerpt(text: Any) -> str:
+    """A short, sanitised excerpt of a cell for a message: at most 20 characters, each character
+    that is not printable (control characters, line breaks, undecodable bytes) replaced by ``?``,
+    and ``...`` where it was cut."""
+    s = str(text)
+    cut = len(s) > _EXCERPT_CHARS
+    s = "".join(ch if ch.isprintable() else "?" for ch in s[:_EXCERPT_CHARS])
+    return s + "..." if cut else s
+
+
+def _listing(names: list[str]) -> str:
+    """Header cells found, as short excerpts (at most 8 of them), for a 'column not found' message."""
+    if not names:
+        return "none"
+    shown = ", ".join(repr(_excerpt(c)) for c in names[:_HEADER_NAMES])
+    more = len(names) - _HEADER_NAMES
+    return shown + (f" and {more} more" if more > 0 else "")
+
+
+def _reason(exc: BaseException) -> str:
+    """A parser's complaint, first line only and bounded (it may quote the file otherwise)."""
+    text = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
+    text = "".join(ch if ch.isprintable() else "?" for ch in text)
+    return text if len(text) <= 120 else text[:120] + "..."
+
+
+def _read_csv_cells(data: bytes, name: str) -> list[list[Any]]:
+    try:
+        df = pd.read_csv(io.BytesIO(data), header=None, dtype=str, keep_default_na=False, na_filter=False,
                          skip_blank_lines=False, encoding="utf-8-sig")
     except pd.errors.EmptyDataError:
         return []
     except (pd.errors.ParserError, UnicodeDecodeError) as exc:
-        raise LifeTableError(f"{name}: cannot be read as CSV ({exc})", file=name,
-                             rule=f"cannot be read as CSV ({exc})") from exc
+        rule = f"cannot be read as CSV ({_reason(exc)})"
+        raise LifeTableError(f"{name}: {rule}", file=name, rule=rule) from exc
     return df.to_numpy(dtype=object).tolist()
 
 
-def _read_xlsx_cells(p: Path, name: str, sheet: str | None) -> tuple[list[list[Any]], str]:
-    if not p.exists():
-        raise FileNotFoundError(f"{name}: no such file")
+def _read_xlsx_cells(data: bytes, name: str, sheet: str | None) -> tuple[list[list[Any]], str]:
     try:
-        with pd.ExcelFile(p, engine="openpyxl") as xf:
+        with zipfile.ZipFile(io.BytesIO(data)) as archive:
+            unpacked = sum(item.file_size for item in archive.infolist())
+    except (zipfile.BadZipFile, ValueError):  # not a zip archive: openpyxl's complaint below names it
+        unpacked = 0
+    if unpacked > MAX_XLSX_UNPACKED_BYTES:
+        rule = (f"must unpack to at most {MAX_XLSX_UNPACKED_BYTES} bytes "
+                f"({MAX_XLSX_UNPACKED_BYTES // (1024 * 1024)} MiB; a life table is far smaller)")
+        raise LifeTableError(f"{name}: the workbook unpacks to {unpacked} bytes; it {rule}", key=("path",),
+                             file=name, value=unpacked, rule=rule)
+    try:
+        with pd.ExcelFile(io.BytesIO(data), engine="openpyxl") as xf:
             names = list(xf.sheet_names)
             if sheet is None:
                 sheet = names[0]
             elif sheet not in names:
-                sheets = ", ".join(map(repr, names))
+                sheets = _listing([str(n) for n in names])
                 raise LifeTableError(f"read_life_table: {name} has no sheet {sheet!r}; sheets: {sheets}",
                                      key=("sheet",), value=sheet, file=name,
                                      rule=f"must be a sheet of the workbook: {sheets}")
@@ -189,8 +299,8 @@ def _read_xlsx_cells(p: Path, name: str, sheet: str | None) -> tuple[list[list[A
     except (LifeTableError, ImportError):  # ours, or openpyxl missing: pass through unchanged
         raise
     except Exception as exc:  # openpyxl raises several types for damaged or non-xlsx files
-        raise LifeTableError(f"{name}: cannot be read as an .xlsx workbook ({exc})", file=name,
-                             rule=f"cannot be read as an .xlsx workbook ({exc})") from exc
+        rule = f"cannot be read as an .xlsx workbook ({_reason(exc)})"
+        raise LifeTableError(f"{name}: {rule}", file=name, rule=rule) from exc
     return df.to_numpy(dtype=object).tolist(), sheet
 
 
@@ -214,5 +324,6 @@ def _parse_number(v: Any, text: str, located: Located) -> float:
     try:
         return float(text)
     except ValueError:
-        raise LifeTableError(f"{loc}: {text!r} is not a number", value=text, rule="must be a number",
+        shown = _excerpt(text)
+        raise LifeTableError(f"{loc}: {shown!r} is not a number", value=shown, rule="must be a number",
                              **at) from None
