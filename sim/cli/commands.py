@@ -36,10 +36,23 @@ CAUTION = ("HazardTrace is a modelling aid, not for clinical decisions about ind
            "depend on the inputs. Follow local HTA guidance and have models reviewed by qualified people.")
 
 
+def _flipping_corrections(decisions: pd.DataFrame) -> pd.Series:
+    """Per (method, cycle_length): the within-cycle corrections whose decision differs from the
+    reference's (for any strategy against the comparator), named in the study's order, or "none"."""
+    order = list(dict.fromkeys(decisions["correction"]))
+    flipped = decisions[decisions["changes_decision"].astype(bool)]
+    named = flipped.groupby(["method", "cycle_length"])["correction"].agg(
+        lambda c: ", ".join(k for k in order if k in set(c)))
+    keys = decisions[["method", "cycle_length"]].drop_duplicates()
+    index = pd.MultiIndex.from_frame(keys)
+    return named.reindex(index).fillna("none")
+
+
 def _study_summary(study) -> pd.DataFrame:
     """Per conversion and cycle length, with the half-cycle correction: relative errors of life years,
-    discounted QALYs and costs (first strategy; outcomes that are all zero are left out) and whether
-    any correction changes the decision."""
+    discounted QALYs and costs (first strategy; outcomes that are all zero are left out) and the
+    within-cycle corrections, if any, with which the decision differs from the reference's (so a
+    flip under another correction than the half-cycle rows shown is named, not hidden in a "yes")."""
     t = study.table
     first = t["strategy"].iloc[0]
     sel = t[(t["correction"] == "half-cycle") & (t["strategy"] == first)]
@@ -49,8 +62,7 @@ def _study_summary(study) -> pd.DataFrame:
                         "QALY error %": 100 * wide["qalys_discounted"],
                         "cost error %": 100 * wide["costs_discounted"]}).dropna(axis=1, how="all")
     if len(study.decisions):
-        flips = study.decisions.groupby(["method", "cycle_length"])["changes_decision"].any()
-        out["decision changes"] = flips.reindex(out.index).map({True: "yes", False: "no"})
+        out["decision changes with"] = _flipping_corrections(study.decisions).reindex(out.index)
     out = out.reset_index()
     out["cycle (years)"] = out["cycle_length"].map(lambda h: f"{h:.4g}")
     return out[["method", "cycle (years)"] + [c for c in out.columns
@@ -164,12 +176,17 @@ def _parser() -> argparse.ArgumentParser:
     chk = sub.add_parser("check", help="validate a scenario and describe the model in words")
     chk.add_argument("scenario", help="scenario file (.toml)")
     chk.set_defaults(func=_check)
+    # listed for --help only: 'hazardtrace gui' is dispatched by gui.launcher before this parser
+    sub.add_parser("gui", help="open the desktop window (hazardtrace gui [SCENARIO]; see hazardtrace gui --help)")
     return parser
 
 
 def main(argv: list[str] | None = None, out: TextIO | None = None) -> int:
     out = out or sys.stdout
     args = _parser().parse_args(argv)
+    if args.command == "gui":
+        sys.stderr.write("hazardtrace: error: the window is opened by the 'hazardtrace' command (gui.launcher)\n")
+        return 2
     try:
         if args.command == "demo":
             args.scenario = str(demo_path())
