@@ -27,11 +27,12 @@ from typing import Any, Iterator, Mapping
 
 from ...hazards import FAMILIES, FAMILY_DIMENSIONS, Dimension
 from ...model import BACKGROUND, Clock, EmpiricalAge, FixedAge, NormalAge, RunSettings, UniformAge, Valuation
+from ...model.settings import TUNNEL_ENTRIES
 from ...problems import KeyPath
 
 __all__ = ["FORMAT_VERSION", "TIME_UNITS", "Ref", "Node", "Number", "Text", "FreeText", "Flag", "Numbers",
            "Durations", "Table", "Items", "NameMap", "Variant", "TextOrMap", "StateOrShares", "HazardTable", "SCHEMA",
-           "LIST_PARAMETERS", "EXPONENTIAL_FORMS", "ENTRY_AGES", "hazard_keys", "Reference", "references", "declared_keys"]
+           "LIST_PARAMETERS", "EXPONENTIAL_FORMS", "ENTRY_AGES", "hazard_keys", "Reference", "references", "declared_keys", "file_keys"]
 
 FORMAT_VERSION = 1
 TIME_UNITS = ("days", "weeks", "months", "years")
@@ -76,6 +77,7 @@ class Text(Node):
 
     choices: tuple[str, ...] | None = None
     ref: Ref | None = None
+    is_file: bool = False  # a file path; a relative one is read from the scenario file's folder
 
 
 @dataclass(frozen=True)
@@ -233,7 +235,7 @@ SCHEMA = Table(keys={
         "to": Text(required=True, ref=Ref.STATE),
         "clock": Text(default="age", choices=_CLOCKS),
         "life_table": Table(keys={
-            "file": Text(required=True, doc="CSV or .xlsx file"),
+            "file": Text(required=True, is_file=True, doc="CSV or .xlsx file"),
             "kind": Text(required=True, choices=("q", "m")),
             "age_column": Text(default="age"),
             "columns": TextOrMap(required=True, key_ref=Ref.SEX),
@@ -288,6 +290,8 @@ SCHEMA = Table(keys={
         "chunk_size": Number(minimum=1, integer=True, parameter=False, default=_RUN.chunk_size),
         "cycle_lengths": Durations(default=_RUN.cycle_lengths),
         "tolerance": Number(minimum=0, strict_min=True, parameter=False, default=_RUN.tolerance),
+        "tunnel_entry": Text(default=_RUN.tunnel_entry, choices=TUNNEL_ENTRIES,
+                             doc="time in state credited to entries into tunnel states within a cycle"),
     }),
 })
 """The whole scenario format (format_version 1)."""
@@ -351,6 +355,12 @@ def walk(doc: Any, node: Node = SCHEMA, path: KeyPath = ()) -> Iterator[tuple[Ke
         yield sub, child, value
         if value is not None:
             yield from walk(value, child, sub)
+
+
+def file_keys(doc: Any) -> list[KeyPath]:
+    """The key paths of ``doc`` that hold a file path (text values only), e.g. the life table's
+    ``file``: what must be rewritten when a scenario is saved to another folder."""
+    return [p for p, node, value in walk(doc) if isinstance(node, Text) and node.is_file and isinstance(value, str)]
 
 
 def declared_keys(doc: Any) -> list[KeyPath]:
