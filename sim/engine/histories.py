@@ -189,6 +189,11 @@ def _run_strategy(model: Model, resolved: list[list[ResolvedExit]], bulk: _BulkW
         everyone = idx.size == n  # all patients active: whole arrays instead of gathers
         cur_round = cur if everyone else cur[idx]
         present = np.flatnonzero(np.bincount(cur_round, minlength=n_states)).tolist()
+        if everyone and len(present) > 1:
+            # moves below update ``cur``; this round's states must not follow them (a patient moved
+            # into a state handled later in the round would move twice). Reached when patients start
+            # in several states (an initial mix).
+            cur_round = cur.copy()
         for s in present:
             if len(present) == 1:
                 sel, whole = idx, everyone
