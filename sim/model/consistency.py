@@ -1,6 +1,6 @@
 """The rules that relate the parts of a model (each part has checked its own values already): names
-are unique, transitions join existing states, absorbing states have no exits and no utility, the
-initial state (or every state of an initial mix) is a living state, the
+are unique, transitions join existing states, absorbing states have no exits, no utility and no
+yearly cost, the initial state (or every state of an initial mix) is a living state, the
 background mortality covers every sex, the strategies and the valuation name existing transitions
 and states, the horizon lies beyond the youngest entry age.
 
@@ -117,12 +117,14 @@ def model_problems(model: "Model") -> list[Problem]:
                 if t not in tnames:
                     add((*where, key, t), f"must name a transition {known_transitions}", t)
         _unknown(add, (*where, "state_costs"), st.state_costs, names, "state")
+        _absorbing_costs(add, (*where, "state_costs"), st.state_costs, by_name)
         _unknown(add, (*where, "transition_costs"), st.transition_costs, exits, "transition")
 
     # valuation
     val = model.valuation
     _unknown(add, ("valuation", "utilities"), val.utilities, names, "state")
     _unknown(add, ("valuation", "state_costs"), val.state_costs, names, "state")
+    _absorbing_costs(add, ("valuation", "state_costs"), val.state_costs, by_name)
     _unknown(add, ("valuation", "transition_costs"), val.transition_costs, exits, "transition")
     for s in model.states:
         if s.absorbing and val.utilities.get(s.name, 0.0) != 0.0:
@@ -134,6 +136,19 @@ def _unknown(add: Any, path: tuple, table: Iterable[str], known: list[str], what
     for key in table:
         if key not in known:
             add((*path, key), f"must name a {what} {known}", key)
+
+
+ABSORBING_COST_RULE = ("must be 0 for an absorbing state: a yearly cost accrues only while the patient is in a "
+                       "living state; charge a one-off cost on the transition into it instead")
+
+
+def _absorbing_costs(add: Any, path: tuple, costs: Any, by_name: dict[str, State]) -> None:
+    """Yearly costs on absorbing states are refused (as utilities there are): the simulation ends a
+    history on absorption, so only a definition without them makes the simulated, exact and
+    cycle-based costs the same quantity."""
+    for key, value in costs.items():
+        if key in by_name and by_name[key].absorbing and value != 0.0:
+            add((*path, key), ABSORBING_COST_RULE, value)
 
 
 def _initial_state_problems(add: Any, population: Population, by_name: dict[str, State]) -> None:

@@ -51,8 +51,8 @@ def exact_outcomes_and_occupancy(model: Model, times: NDArray[np.float64], strat
 
 def with_exact(model: Model, summary: pd.DataFrame, increments: pd.DataFrame, comparator: str,
                willingness_to_pay: float, exact: pd.DataFrame | None = None) -> tuple[pd.DataFrame, pd.DataFrame, str]:
-    """Add an ``exact`` column (and ``z`` = (mean - exact) / mcse) to simulated summaries and
-    increments. For a semi-Markov model the columns are NaN and the returned note says why.
+    """Add an ``exact`` column (and ``z`` = (mean - exact) / mcse, NaN where mcse is 0 or missing) to
+    simulated summaries and increments. For a semi-Markov model the columns are NaN and the returned note says why.
     ``exact`` is the :func:`exact_outcomes` table if the caller already has it."""
     try:
         if exact is None:
@@ -61,7 +61,11 @@ def with_exact(model: Model, summary: pd.DataFrame, increments: pd.DataFrame, co
         summary = summary.assign(exact=np.nan, z=np.nan)
         return summary, increments.assign(exact=np.nan), str(err)
     summary = summary.merge(exact.rename(columns={"value": "exact"}), on=["strategy", "outcome"], how="left")
-    summary["z"] = (summary["mean"] - summary["exact"]) / summary["mcse"]
+    # z is undefined (NaN, shown blank) where the Monte Carlo standard error is 0: every simulated
+    # patient gave the same value, so a difference from the exact value is not a sampling error
+    mcse = summary["mcse"].to_numpy(dtype=float)
+    diff = (summary["mean"] - summary["exact"]).to_numpy(dtype=float)
+    summary["z"] = np.divide(diff, mcse, out=np.full(len(summary), np.nan), where=mcse > 0)
     if len(increments):
         ex_inc = increments_from_values(exact, comparator, willingness_to_pay).melt(
             id_vars=["strategy", "comparator"], var_name="quantity", value_name="exact")
