@@ -138,13 +138,20 @@ def _latent_times(ex: ResolvedExit, x: NDArray[np.float64], e: NDArray[np.float6
     first = ex.hazards[0]
     with np.errstate(**KERNEL_ERRSTATE):
         if all(h is first for h in ex.hazards):
-            return first._conditional_time(x, e)
-        out = np.empty_like(x)
-        for code, h in enumerate(ex.hazards):
-            m = sex == code
-            if m.any():
-                out[m] = h._conditional_time(x[m], e[m])
-        return out
+            out = first._conditional_time(x, e)
+        else:
+            out = np.empty_like(x)
+            for code, h in enumerate(ex.hazards):
+                m = sex == code
+                if m.any():
+                    out[m] = h._conditional_time(x[m], e[m])
+    if out.size and np.isnan(out.min()):  # min is NaN iff some lane is: one pass, no mask
+        # A NaN would compare as "no event" and censor the patient silently: an internal error instead.
+        bad = int(np.flatnonzero(np.isnan(out))[0])
+        raise SimulationError(
+            f"internal error: the hazard of transition {ex.name!r} gave no event time (NaN) for clock "
+            f"{float(x[bad])!r} and draw {float(e[bad])!r}; please report this with the scenario")
+    return out
 
 
 def _run_strategy(model: Model, resolved: list[list[ResolvedExit]], bulk: _BulkWords, start: int,
