@@ -116,6 +116,32 @@ def _exponential(ck: Checker, data: Mapping, values: dict, path: KeyPath, unit: 
 
 
 # ----------------------------------------------------------------------------- life tables
+def _life_table_key(path: KeyPath, lt: Mapping[str, Any], err: Exception) -> KeyPath:
+    """The key a life-table reading error is about: a column the file lacks is blamed on the key
+    naming it (``age_column``, ``columns.<sex>``), anything else (a bad cell, an unreadable file) on
+    ``file``. From the error's problems (:class:`sim.io.lifetable.LifeTableError`: the column as
+    key path, no value for a missing column), not its wording."""
+    problems = getattr(err, "problems", ())
+    missing = bool(problems) and bool(problems[0].path) and not problems[0].has_value
+    column = problems[0].path[0] if missing else None
+    if column is not None and column == lt.get("age_column"):
+        return (*path, "age_column")
+    columns = lt.get("columns")
+    if isinstance(columns, str) and column == columns:
+        return (*path, "columns")
+    if isinstance(columns, Mapping):
+        for sex, name in columns.items():
+            if name == column:
+                return (*path, "columns", sex)
+    return (*path, "file")
+
+
+def _get_key(table: Mapping[str, Any], rest: KeyPath) -> Any:
+    for key in rest:
+        table = table[key]
+    return table
+
+
 def read_life_table_hazards(ck: Checker, raw: Any, path: KeyPath, node: Table, base_dir: Path | None,
                             notes: list[str]) -> dict[str, Hazard]:
     """Background hazards per sex from ``[background.life_table]``: the table's bands, or a fitted
@@ -132,7 +158,8 @@ def read_life_table_hazards(ck: Checker, raw: Any, path: KeyPath, node: Table, b
         table = lifetable.read_life_table(target, kind=lt["kind"], age_column=lt["age_column"],
                                           value_columns=columns, sheet=lt.get("sheet"))
     except (OSError, ValueError) as err:
-        ck.fail((*path, "file"), f"cannot use the life table: {err}", lt["file"])
+        key = _life_table_key(path, lt, err)
+        ck.fail(key, f"cannot use the life table: {err}", lt["file"] if key[-1] == "file" else _get_key(lt, key[len(path):]))
     out: dict[str, Hazard] = {}
     fit = lt.get("fit")
     for sex in columns:
