@@ -6,7 +6,8 @@ set -euo pipefail
 cd "$(dirname "$0")/.."
 
 SYSTEM_PACKAGES=(libegl1 libgl1 libx11-6 libdbus-1-3 libfontconfig1 libfreetype6 libglib2.0-0
-                 libxkbcommon0 fonts-dejavu-core)
+                 libxkbcommon0 fonts-dejavu-core
+                 librsvg2-bin)  # rsvg-convert: tests draw exported SVG with a renderer that is not Qt
 
 missing=()
 if command -v dpkg-query >/dev/null 2>&1; then
