@@ -45,9 +45,10 @@ class Edge:
     background: bool = False
 
 
-def diagram_edges(doc: dict) -> tuple[list[tuple[str, bool]], list[Edge], str | None]:
-    """States ``(name, absorbing)``, arrows and the initial state read from a plain scenario document;
-    entries that do not name existing states are skipped (the loader reports them)."""
+def diagram_edges(doc: dict) -> tuple[list[tuple[str, bool]], list[Edge], tuple[str, ...]]:
+    """States ``(name, absorbing)``, arrows and the initial states (one name, or those with a share > 0
+    of an initial mix) read from a plain scenario document; entries that do not name existing states
+    are skipped (the loader reports them)."""
     def tables(key: str) -> list[dict]:
         value = doc.get(key)
         return [x for x in value if isinstance(x, dict)] if isinstance(value, list) else []
@@ -60,21 +61,30 @@ def diagram_edges(doc: dict) -> tuple[list[tuple[str, bool]], list[Edge], str | 
     if isinstance(bg, dict) and bg.get("to") in names:
         edges += [Edge(BACKGROUND, n, bg["to"], True) for n, absorbing in states if not absorbing and n != bg["to"]]
     pop = doc.get("population")
-    initial = pop.get("initial_state") if isinstance(pop, dict) else None
-    if initial not in names:
-        initial = next((n for n, a in states if not a), None)
+    raw = pop.get("initial_state") if isinstance(pop, dict) else None
+    tables = [raw] if isinstance(raw, dict) else []
+    if tables and all(isinstance(v, dict) for v in raw.values()):
+        tables = list(raw.values())  # per sex
+    shares = [(k, v) for t in tables for k, v in t.items()]
+    named = [raw] if isinstance(raw, str) else [k for k, v in shares if isinstance(v, (int, float)) and v > 0]
+    initial = tuple(dict.fromkeys(n for n in named if n in names))
+    if not initial:
+        first = next((n for n, a in states if not a), None)
+        initial = (first,) if first is not None else ()
     return states, edges, initial
 
 
-def layout_states(states: list[tuple[str, bool]], edges: list[Edge], initial: str | None) -> dict[str, tuple[int, int]]:
+def layout_states(states: list[tuple[str, bool]], edges: list[Edge],
+                  initial: str | tuple[str, ...] | None) -> dict[str, tuple[int, int]]:
     """Column and row of every state: breadth-first depth from ``initial`` along transitions
     (not background death); unreachable living states after the reachable ones; absorbing states in
     the last column. Rows follow the order of the states in the file."""
     depth: dict[str, int] = {}
     absorbing = {n for n, a in states if a}
-    if initial is not None:
-        depth[initial] = 0
-        queue = deque([initial])
+    starts = (initial,) if isinstance(initial, str) else tuple(initial or ())
+    if starts:
+        depth.update((s, 0) for s in starts)
+        queue = deque(starts)
         while queue:
             s = queue.popleft()
             for e in edges:
@@ -178,7 +188,7 @@ class ModelDiagram(QGraphicsView):
         self._draw(states, edges, initial)
 
     # ------------------------------------------------------------------ drawing
-    def _draw(self, states: list[tuple[str, bool]], edges: list[Edge], initial: str | None) -> None:
+    def _draw(self, states: list[tuple[str, bool]], edges: list[Edge], initial: tuple[str, ...]) -> None:
         scene = self.scene()
         scene.clear()
         self.arrows, self.labels = {}, {}
@@ -193,13 +203,14 @@ class ModelDiagram(QGraphicsView):
         for name, absorbing in states:
             c, r = self.positions[name]
             offset = (tallest - rows_per_col[c]) * ROW_SPACING / 2
-            node = _Node(name, absorbing, name == initial, self.font_)
+            node = _Node(name, absorbing, name in initial, self.font_)
             centres[name] = QPointF(c * COL_SPACING, r * ROW_SPACING + offset)
             node.setPos(centres[name])
             scene.addItem(node)
             nodes[name] = node
-        if initial in centres:
-            self._entry_arrow(centres[initial], nodes[initial].half)
+        for start in initial:  # an entry arrow into every initial state
+            if start in centres:
+                self._entry_arrow(centres[start], nodes[start].half)
         groups: dict[frozenset, list[Edge]] = {}
         for e in edges:
             groups.setdefault(frozenset((e.source, e.target)), []).append(e)
