@@ -160,6 +160,7 @@ class ModelDiagram(QGraphicsView):
         self.edges: list[Edge] = []
         self.arrows: dict[str, list[QGraphicsPathItem]] = {}
         self.labels: dict[str, list[QGraphicsSimpleTextItem]] = {}
+        self._legend_labels: list[str] = []
         document.changed.connect(self._on_document_changed)
         self._on_document_changed()
 
@@ -232,7 +233,7 @@ class ModelDiagram(QGraphicsView):
                 show_label = not e.background or not bg_labelled
                 self._arrow(e, a, nodes[e.source].half, b, nodes[e.target].half, control, show_label)
                 bg_labelled = bg_labelled or e.background
-        self._legend()
+        self._legend(any(e.background for e in edges))
         self.select_transition(self._selected)
         self._fit()
 
@@ -294,12 +295,19 @@ class ModelDiagram(QGraphicsView):
         head.setBrush(colour)
         head.setPen(QPen(colour))
 
-    def _legend(self) -> None:
+    def legend_labels(self) -> list[str]:
+        """The legend's texts (for tests and screen readers)."""
+        return list(self._legend_labels)
+
+    def _legend(self, background: bool) -> None:
+        """Key to the arrows and boxes; background death only when the model has it (issue 12)."""
         rect = self.scene().itemsBoundingRect()
         y = rect.bottom() + 24
         x = rect.left()
-        items = [(ARROW, Qt.PenStyle.SolidLine, "transition"),
-                 (BACKGROUND_COLOUR, Qt.PenStyle.DashLine, "background death (from every living state)")]
+        items = [(ARROW, Qt.PenStyle.SolidLine, "transition")]
+        if background:
+            items.append((BACKGROUND_COLOUR, Qt.PenStyle.DashLine, "background death (from every living state)"))
+        self._legend_labels = [label for _, _, label in items] + ["absorbing state"]
         for colour, style, label in items:
             self.scene().addLine(x, y, x + 34, y, QPen(colour, 1.6, style))
             text = self.scene().addSimpleText(label, self.small)

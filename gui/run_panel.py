@@ -9,6 +9,7 @@ The panel runs the scenario it was given with :meth:`RunPanel.set_scenario` thro
 from __future__ import annotations
 
 import os
+import time
 
 from PySide6.QtCore import QCoreApplication, QRegularExpression, Signal, Slot
 from PySide6.QtGui import QCloseEvent, QRegularExpressionValidator
@@ -19,7 +20,7 @@ from sim.io.scenario import RunSettings, Scenario
 
 from .worker import Job, RunWorker
 
-__all__ = ["RunPanel", "STAGE_TEXT", "settings_text"]
+__all__ = ["RunPanel", "STAGE_TEXT", "settings_text", "timing_text", "CANCELLING_TEXT"]
 
 #: What the user reads for each stage reported by ``sim.pipeline.run.run_scenario``.
 STAGE_TEXT = {
@@ -31,6 +32,8 @@ STAGE_TEXT = {
     "done": "Finishing",
 }
 MAX_PATIENTS = 2_000_000_000
+#: Shown while a cancel request waits for the run's next check (short: the run panel is narrow).
+CANCELLING_TEXT = "Cancelling… (at the next check)"
 
 
 def settings_text(settings: dict, seconds: dict | None = None) -> str:
@@ -40,6 +43,19 @@ def settings_text(settings: dict, seconds: dict | None = None) -> str:
     if seconds:
         text += f" · {sum(seconds.values()):.1f} s"
     return text
+
+
+def timing_text(wall: float, seconds: dict, shown: float | None = None) -> str:
+    """What the user waited, then where the time went: ``wall`` seconds from Run to the run's end,
+    ``shown`` from Run to the results on screen (curves drawn), and the pipeline's stages (``seconds``,
+    as ``RunResults.seconds``); what the stages do not account for is the window's own work."""
+    total = shown if shown is not None else wall
+    head = f"{total:.1f} s from Run to results shown" if shown is not None else f"{wall:.1f} s from Run to the run's end"
+    parts = [f"{name} {value:.1f} s" for name, value in seconds.items()]
+    rest = total - sum(seconds.values())
+    if rest >= 0.05:
+        parts.append(f"window (start, tables and curves) {rest:.1f} s")
+    return head + (" (" + ", ".join(parts) + ")" if parts else "")
 
 
 class RunPanel(QWidget):
@@ -55,6 +71,10 @@ class RunPanel(QWidget):
         self._scenario: Scenario | None = None
         self._applied: RunSettings | None = None
         self._job: Job | None = None
+        self._started = 0.0
+        self._finished_after: float | None = None
+        self._results_seconds: dict = {}
+        self._last_settings = ""
         self._build()
         app = QCoreApplication.instance()
         if app is not None:
@@ -95,6 +115,7 @@ class RunPanel(QWidget):
         self.progress.setValue(0)
         self.progress.setTextVisible(True)
         self.stage = QLabel("Idle")
+        self.stage.setWordWrap(True)  # long stage texts wrap in the narrow panel instead of being cut
         self.reason = QLabel()
         self.reason.setWordWrap(True)
         self.reason.setStyleSheet("color: #D55E00;")  # Okabe-Ito vermillion
@@ -145,6 +166,9 @@ class RunPanel(QWidget):
         job.failed.connect(self._on_failed)
         job.cancelled.connect(self._on_cancelled)
         self._job = job
+        self._started = time.monotonic()
+        self._finished_after: float | None = None
+        self._results_seconds: dict = {}
         self.progress.setRange(0, 0)
         self.stage.setText("Starting…")
         self._update_enabled()
@@ -156,7 +180,8 @@ class RunPanel(QWidget):
         if self._job is not None:
             self._job.cancel()
             self.cancel_button.setEnabled(False)
-            self.stage.setText("Cancelling… (stops at the next check between chunks or stages)")
+            self.stage.setText(CANCELLING_TEXT)
+            self.stage.setToolTip("The run stops at its next check, between chunks of patients or stages")
 
     @Slot()
     def shutdown(self) -> None:
@@ -212,8 +237,23 @@ class RunPanel(QWidget):
         self.progress.setValue(1)
         self.stage.setText("Done")
         self._update_enabled()
-        self.last_run.setText("Last run: " + settings_text(results.settings, results.seconds))
+        self._finished_after = time.monotonic() - self._started
+        self._results_seconds = dict(results.seconds)
+        self._last_settings = settings_text(results.settings)
+        self.last_run.setText(f"Last run: {self._last_settings} · "
+                              f"{timing_text(self._finished_after, self._results_seconds)}")
         self.results_ready.emit(results)
+
+    @Slot()
+    def mark_shown(self) -> None:
+        """The results are on screen (connect ``ResultsPanel.results_shown``): report the time from
+        Run to now, which is what the user waited."""
+        if self._finished_after is None:
+            return
+        shown = time.monotonic() - self._started
+        self.last_run.setText(f"Last run: {self._last_settings} · "
+                              f"{timing_text(self._finished_after, self._results_seconds, shown)}")
+        self._finished_after = None
 
     @Slot(str)
     def _on_failed(self, message: str) -> None:

@@ -47,6 +47,7 @@ def shoot(name: str, patients: int, out: Path) -> list[Path]:
     layout.addWidget(run_panel)
     layout.addWidget(results, 1)
     run_panel.results_ready.connect(results.show_results)
+    results.results_shown.connect(run_panel.mark_shown)
     run_panel.run_failed.connect(lambda message: print(f"{name}: run failed: {message}", file=sys.stderr))
     window.resize(1600, 1000)
     window.show()

@@ -52,7 +52,7 @@ class _Layer:
         self.upper = pg.PlotCurveItem(pen=edge)
         self.band = pg.FillBetweenItem(self.lower, self.upper, brush=palette.brush(0, 60))
         self.simulated = pg.PlotDataItem(pen=palette.pen(0, 2.2), antialias=True)
-        self.exact = pg.PlotDataItem(pen=palette.pen(1, 2.4), antialias=True)
+        self.exact = pg.PlotDataItem(pen=palette.pen(palette.EXACT, 2.4), antialias=True)
         for z, item in enumerate((self.band, self.lower, self.upper, self.simulated, self.exact)):
             item.setZValue(z if item is not self.exact else 20)  # exact on top of the cohort curves
             plot.addItem(item)
@@ -138,6 +138,7 @@ class CurvesView(QWidget):
                                          legend_columns=1)
         self._survival = _Layer(self.survival_panel)
         self._occupancy = _Layer(self.occupancy_panel)
+        self._show_waiting("Run the scenario to see its curves")
         split = QSplitter(Qt.Orientation.Horizontal)
         split.addWidget(self.survival_panel)
         split.addWidget(self.occupancy_panel)
@@ -207,7 +208,22 @@ class CurvesView(QWidget):
                 combo.setCurrentText(living[0] if living else items[0])
             combo.blockSignals(False)
         self._set_options([c.value for c in Conversion], list(results.settings["cycle_lengths"]))
+        self._show_waiting("Computing curves…")
         self._schedule()
+
+    def _show_waiting(self, title: str) -> None:
+        """Empty plots say why they are empty, on a probability axis [0, 1] (not pyqtgraph's empty
+        −0.4…0.4 axes, which look broken)."""
+        for layer in (self._survival, self._occupancy):
+            layer.show_simulated(None)
+            layer.show_exact(None)
+            for item in layer.cohort.values():
+                item.setVisible(False)
+            layer.panel.set_legend([])
+            layer.panel.set_title(title)
+            layer.panel.plot.setYRange(0.0, 1.0, padding=0.02)
+            if self._results is not None:
+                layer.panel.plot.setXRange(0.0, float(self._results.grid[-1]), padding=0.01)
 
     def checked_options(self) -> list[tuple[str, float]]:
         return [k for k in self._options if self._checks[k].isChecked()]
@@ -307,10 +323,12 @@ class CurvesView(QWidget):
                     item.setData([], [])
                     continue
                 seen[f"{key[0]}, {cycle_label(key[1])}"] = series
-                k = len(shown)
+                # colour: the method (as in the error study); marker: the cycle length, not the order shown
+                k = list(dict.fromkeys(h for _, h in self._options)).index(key[1])
                 symbol = SYMBOLS[k % len(SYMBOLS)] if len(series) <= MAX_SYMBOL_POINTS else None
-                item.setData(series.x, series.y, pen=palette.pen(2 + k, 2.0), symbol=symbol, symbolSize=6,
-                             symbolPen=pg.mkPen(palette.colour(2 + k)), symbolBrush=palette.colour(2 + k))
+                colour = palette.method_colour(key[0])
+                item.setData(series.x, series.y, pen=palette.method_pen(key[0], 2.0), symbol=symbol, symbolSize=6,
+                             symbolPen=pg.mkPen(colour), symbolBrush=colour)
             if visible:
                 shown.append((key, f"cycle-based: {key[0]}, {cycle_label(key[1])}"))
 

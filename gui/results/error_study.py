@@ -1,6 +1,8 @@
 """The cycle-length error study: absolute error against cycle length on log-log axes per conversion
-(colour) and within-cycle correction (line style), the table behind the plot, the largest safe cycle
-length for a tolerance the user sets, and the combinations that change the decision."""
+(colour) and within-cycle correction (line style and marker; both from :mod:`gui.palette`, as in the
+curves view), with boxes to pick which of them to show and the curve under the pointer highlighted;
+the table behind the plot, the largest safe cycle length for a tolerance the user sets, and the
+combinations that change the decision."""
 
 from __future__ import annotations
 
@@ -9,11 +11,11 @@ import math
 import numpy as np
 import pyqtgraph as pg
 from PySide6.QtCore import Qt, Signal, Slot
-from PySide6.QtWidgets import QComboBox, QDoubleSpinBox, QHBoxLayout, QLabel, QTabWidget, QVBoxLayout, QWidget
+from PySide6.QtWidgets import QCheckBox, QComboBox, QDoubleSpinBox, QHBoxLayout, QLabel, QTabWidget, QVBoxLayout, QWidget
 
 from sim.reference.cohort import Conversion, Correction
 from sim.pipeline.run import RunResults
-from sim.reference.study import StudyResult
+from sim.reference.study import StudyResult, orders_of
 
 from .. import palette
 from .labels import outcome_label, outcome_unit
@@ -24,7 +26,13 @@ from .study_data import (abs_error_curves, coinciding, decision_changes, errors_
                          reference_noise, safe_cycle_grid, tolerance_in_units)
 from .table_view import TableView
 
-__all__ = ["ErrorStudyView"]
+__all__ = ["ErrorStudyView", "study_order"]
+
+
+def study_order(orders, outcome: str, strategy: str, key: tuple[str, str]) -> float:
+    """The study's observed order p (error ~ h^p) of one (conversion, correction) curve, or NaN."""
+    found = orders_of(orders, outcome, strategy, key[1]).get(key[0])
+    return math.nan if found is None else found
 
 METHODS = [c.value for c in Conversion]
 CORRECTIONS = [c.value for c in Correction]
@@ -75,12 +83,33 @@ class ErrorStudyView(QWidget):
         plot = self.panel.plot
         plot.setLogMode(x=True, y=True)
         self._curves: dict[tuple[str, str], pg.PlotDataItem] = {}
-        for i, m in enumerate(METHODS):
-            for j, c in enumerate(CORRECTIONS):
-                item = pg.PlotDataItem(pen=palette.pen(i, 2.0, style_index=j), symbol="ostd"[j], symbolSize=6,
-                                       symbolPen=palette.pen(i, 1.0), symbolBrush=palette.colour(i), antialias=True)
+        for m in METHODS:
+            for c in CORRECTIONS:
+                item = pg.PlotDataItem(pen=palette.method_pen(m, 2.0, c), symbol=palette.CORRECTION_SYMBOLS[c],
+                                       symbolSize=6, symbolPen=palette.method_pen(m, 1.0),
+                                       symbolBrush=palette.method_colour(m), antialias=True)
                 plot.addItem(item)
                 self._curves[(m, c)] = item
+        self.hovered: tuple[str, str] | None = None
+        self.hover_label = QLabel()
+        self.hover_label.setStyleSheet("color: #555555;")
+        plot.scene().sigMouseMoved.connect(self._on_mouse_moved)
+        self.show_methods = {m: QCheckBox(m) for m in METHODS}
+        self.show_corrections = {c: QCheckBox(c) for c in CORRECTIONS}
+        pick = QHBoxLayout()
+        pick.addWidget(QLabel("Show conversions:"))
+        for box in self.show_methods.values():
+            pick.addWidget(box)
+        pick.addSpacing(16)
+        pick.addWidget(QLabel("corrections:"))
+        for box in self.show_corrections.values():
+            pick.addWidget(box)
+        pick.addStretch(1)
+        pick.addWidget(self.hover_label)
+        for box in (*self.show_methods.values(), *self.show_corrections.values()):
+            box.setChecked(True)
+            box.setToolTip("Show or hide these curves (point at a curve to highlight it)")
+            box.toggled.connect(self._on_selection_changed)
         self._tol_line = pg.InfiniteLine(angle=0, movable=False, pen=pg.mkPen("#000000", width=1.2,
                                                                               style=Qt.PenStyle.DashLine))
         plot.addItem(self._tol_line)
@@ -113,6 +142,7 @@ class ErrorStudyView(QWidget):
         layout = QVBoxLayout(self)
         layout.addLayout(top)
         layout.addWidget(self.reference)
+        layout.addLayout(pick)
         layout.addWidget(self.empty)
         layout.addWidget(split, 1)
         self._body = split
@@ -228,10 +258,14 @@ class ErrorStudyView(QWidget):
         entries = []
         for key, item in self._curves.items():
             h, e = curves.get(key, (np.empty(0), np.empty(0)))
+            if not (self.show_methods[key[0]].isChecked() and self.show_corrections[key[1]].isChecked()):
+                h, e = np.empty(0), np.empty(0)
             item.setData(h, e)
             item.setVisible(h.size > 0)
             if h.size:
-                entries.append((item, f"{key[0]}, {key[1]}"))
+                p = study_order(study.orders, outcome, strategy, key)  # error ~ h^p: how it converges
+                entries.append((item, f"{key[0]}, {key[1]}" + (f" (order {p:.2g})" if math.isfinite(p) else "")))
+        self.highlight(self.hovered if self.hovered in self.shown_curves() else None)
         unit = outcome_unit(outcome, self._currency)
         tol_abs = tolerance_in_units(study.table, outcome, strategy, self.tolerance.value(), self.relative())
         if math.isfinite(tol_abs) and tol_abs > 0:
@@ -257,3 +291,27 @@ class ErrorStudyView(QWidget):
         self.errors.set_frame(errors_table(study.table, outcome, strategy))
         self.errors.name = f"error_study_{outcome}_{strategy}".replace(" ", "_")
         self.panel.plot.enableAutoRange()
+
+    # ------------------------------------------------------------------ picking and hovering
+    def shown_curves(self) -> list[tuple[str, str]]:
+        """(conversion, correction) of the curves drawn now."""
+        return [k for k, item in self._curves.items() if item.isVisible()]
+
+    def highlight(self, key: tuple[str, str] | None) -> None:
+        """Draw curve ``key`` wider and name it (None: no highlight)."""
+        self.hovered = key
+        for k, item in self._curves.items():
+            item.setPen(palette.method_pen(k[0], 4.5 if k == key else 2.0, k[1]))
+            item.setZValue(5 if k == key else 0)
+        self.hover_label.setText(f"{key[0]}, {key[1]}" if key else "")
+
+    @Slot(object)
+    def _on_mouse_moved(self, scene_pos: object) -> None:
+        """Highlight the curve under the pointer (within a few pixels), if any."""
+        hit = None
+        for key, item in self._curves.items():
+            if item.isVisible() and item.curve.mouseShape().contains(item.curve.mapFromScene(scene_pos)):
+                hit = key
+                break
+        if hit != self.hovered:
+            self.highlight(hit)

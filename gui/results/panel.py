@@ -100,7 +100,7 @@ class ResultsPanel(QWidget):
         self.exporter.stem = _stem(results.scenario.path.stem if results.scenario.path else model.name)
         reference = "exact solution available" if results.exact_occupancy is not None else "no exact solution"
         self.title.setText(f"<b>{html.escape(model.name)}</b> ({html.escape(source)}) — "
-                           f"{settings_text(results.settings, results.seconds)} — {reference}")
+                           f"{settings_text(results.settings)} — {reference}")  # times: the run panel
         self.status.setText("")
         self._stack.setCurrentWidget(self.tabs)
         self.save_button.setEnabled(True)
