@@ -4,12 +4,18 @@ Runs each demo of ``sim.io.demo.DEMOS`` through the run panel (worker thread, as
 modest number of patients, then saves a PNG of the run panel and of every results view to
 ``docs/screenshots/`` (``<demo>_<view>.png``).
 
-    QT_QPA_PLATFORM=offscreen .venv/bin/python scripts/screenshots.py [--patients N] [--out DIR]
+    .venv/bin/python scripts/screenshots.py [--patients N] [--out DIR] [--offscreen]
+
+By default it runs under a real X server, as a user's window does (fonts, window manager hints,
+the xcb platform plugin): the one in ``DISPLAY``, or else it restarts itself under ``xvfb-run``
+(Debian package xvfb). ``--offscreen`` uses Qt's offscreen platform instead.
 """
 
 from __future__ import annotations
 
 import argparse
+import os
+import shutil
 import sys
 from pathlib import Path
 
@@ -87,11 +93,33 @@ def shoot(name: str, patients: int, out: Path) -> list[Path]:
     return written
 
 
+def _under_x_server(argv: list[str]) -> int | None:
+    """Re-run this script under ``xvfb-run`` when there is no X display; None when not needed."""
+    if os.environ.get("DISPLAY") or os.environ.get("HAZARDTRACE_UNDER_XVFB"):
+        return None
+    exe = shutil.which("xvfb-run")
+    if exe is None:
+        raise SystemExit("no X display and no xvfb-run: install the Debian package xvfb, or pass --offscreen")
+    env = dict(os.environ, HAZARDTRACE_UNDER_XVFB="1", QT_QPA_PLATFORM="xcb")
+    command = [exe, "--auto-servernum", "--server-args=-screen 0 1920x1200x24", sys.executable,
+               str(Path(__file__).resolve()), *argv]
+    import subprocess
+
+    return subprocess.run(command, env=env, check=False).returncode
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--patients", type=int, default=20_000, help="patients per strategy (default 20,000)")
     parser.add_argument("--out", type=Path, default=ROOT / "docs" / "screenshots", help="output folder")
+    parser.add_argument("--offscreen", action="store_true", help="use Qt's offscreen platform, no X server")
     args = parser.parse_args(argv)
+    if args.offscreen:
+        os.environ["QT_QPA_PLATFORM"] = "offscreen"
+    elif os.environ.get("QT_QPA_PLATFORM") != "offscreen":
+        code = _under_x_server(sys.argv[1:] if argv is None else list(argv))
+        if code is not None:
+            return code
     app = QApplication.instance() or QApplication(["hazardtrace-screenshots"])
     args.out.mkdir(parents=True, exist_ok=True)
     for name in DEMOS:

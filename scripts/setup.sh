@@ -7,7 +7,10 @@ cd "$(dirname "$0")/.."
 
 SYSTEM_PACKAGES=(libegl1 libgl1 libx11-6 libdbus-1-3 libfontconfig1 libfreetype6 libglib2.0-0
                  libxkbcommon0 fonts-dejavu-core
-                 librsvg2-bin)  # rsvg-convert: tests draw exported SVG with a renderer that is not Qt
+                 librsvg2-bin  # rsvg-convert: tests draw exported SVG with a renderer that is not Qt
+                 xvfb xauth libxcb-cursor0 libxcb-icccm4 libxcb-image0 libxcb-keysyms1 libxcb-randr0
+                 libxcb-render-util0 libxcb-shape0 libxcb-xinerama0 libxcb-xkb1 libxkbcommon-x11-0)
+                 # ^ a real X server (Xvfb) and Qt's xcb plugin for scripts/screenshots.py
 
 missing=()
 if command -v dpkg-query >/dev/null 2>&1; then
