@@ -15,6 +15,8 @@ import numpy as np
 import pandas as pd
 from PySide6.QtCore import QAbstractTableModel, QModelIndex, QPersistentModelIndex, Qt
 
+from sim.analysis.display import column_decimals, decimals_from_mcse, format_fixed
+
 __all__ = ["DataFrameModel", "format_number", "tsv", "RAW_ROLE"]
 
 _Index = QModelIndex | QPersistentModelIndex
@@ -42,11 +44,12 @@ def format_number(v: float) -> str:
 class _Column:
     """One column as numpy data: values, or codes into labels for categoricals."""
 
-    __slots__ = ("name", "values", "labels", "numeric")
+    __slots__ = ("name", "values", "labels", "numeric", "decimals")
 
-    def __init__(self, name: str, s: pd.Series) -> None:
+    def __init__(self, name: str, s: pd.Series, row_decimals: np.ndarray | None = None) -> None:
         self.name = name
         self.labels: np.ndarray | None = None
+        self.decimals: int | np.ndarray | None = None  # per column, or per row (from the MCSE)
         if isinstance(s.dtype, pd.CategoricalDtype):
             self.values = s.cat.codes.to_numpy()
             self.labels = np.asarray(s.cat.categories.astype(str))
@@ -57,6 +60,11 @@ class _Column:
         elif pd.api.types.is_numeric_dtype(s.dtype):
             self.values = s.to_numpy()
             self.numeric = True
+            self.decimals = column_decimals(self.values)
+            if row_decimals is not None and self.values.dtype.kind == "f":
+                # rows with a usable MCSE show its precision; the others keep the column's decimals
+                self.decimals = np.where(row_decimals >= 0, row_decimals,
+                                         np.broadcast_to(self.decimals, row_decimals.shape))
         else:
             self.values = s.to_numpy(dtype=object)
             self.numeric = False
@@ -72,7 +80,10 @@ class _Column:
     def text(self, i: int) -> str:
         v = self.raw(i)
         if self.numeric:
-            return format_number(v)
+            if self.decimals is None:
+                return format_number(v)
+            d = self.decimals if isinstance(self.decimals, int) else int(self.decimals[i])  # type: ignore[index]
+            return format_fixed(v, d)
         if isinstance(v, bool):
             return "yes" if v else "no"
         return "" if v is None or (isinstance(v, float) and math.isnan(v)) else str(v)
@@ -85,9 +96,16 @@ class _Column:
         return self.values == label
 
 
+#: columns shown to the precision of the row's Monte Carlo standard error (column ``mcse``)
+MCSE_GOVERNED = ("mean", "mcse", "mcse_unpaired", "exact", "value")
+
+
 class DataFrameModel(QAbstractTableModel):
     """Read-only table model over ``frame``; see the module docstring.
 
+    Numbers follow :mod:`sim.analysis.display`: a table with an ``mcse`` column shows ``mean``,
+    ``mcse``, ``exact`` (and ``value``) of each row to the precision of that row's MCSE; every other
+    numeric column has one number of decimals for all its rows, with thousands separators.
     ``UserRole`` gives the unformatted value of a cell (used when copying to a spreadsheet).
     """
 
@@ -105,7 +123,11 @@ class DataFrameModel(QAbstractTableModel):
         """Show ``frame`` (all rows, no filter)."""
         self.beginResetModel()
         self._frame = frame
-        self._cols = [_Column(str(c), frame[c]) for c in frame.columns]
+        by_mcse = None
+        if "mcse" in frame.columns and pd.api.types.is_numeric_dtype(frame["mcse"].dtype):
+            by_mcse = decimals_from_mcse(frame["mcse"].to_numpy(dtype=float))
+        self._cols = [_Column(str(c), frame[c], by_mcse if str(c) in MCSE_GOVERNED else None)
+                      for c in frame.columns]
         self._rows = None
         self._n = len(frame)
         self.endResetModel()
