@@ -17,6 +17,7 @@ from PySide6.QtWidgets import (QCheckBox, QComboBox, QGridLayout, QGroupBox, QHB
                                QVBoxLayout, QWidget)
 
 from sim.reference.cohort import Conversion
+from sim.pipeline import horizon_range
 from sim.pipeline.run import RunResults
 
 from .. import palette
@@ -55,6 +56,13 @@ class _Layer:
         self.exact = pg.PlotDataItem(pen=palette.pen(palette.EXACT, 2.4), antialias=True)
         for z, item in enumerate((self.band, self.lower, self.upper, self.simulated, self.exact)):
             item.setZValue(z if item is not self.exact else 20)  # exact on top of the cohort curves
+            plot.addItem(item)
+        # the earliest horizon, when the curves go on to a later one (attained-age horizon)
+        horizon_pen = pg.mkPen("#777777", width=1.2, style=Qt.PenStyle.DashLine)
+        self.horizon = pg.InfiniteLine(angle=90, movable=False, pen=horizon_pen)
+        self.horizon_sample = pg.PlotDataItem(pen=horizon_pen)  # empty: stands for the line in the legend
+        for item in (self.horizon, self.horizon_sample):
+            item.setVisible(False)
             plot.addItem(item)
         self.cohort: dict[tuple[str, float], pg.PlotDataItem] = {}
 
@@ -332,11 +340,23 @@ class CurvesView(QWidget):
             if visible:
                 shown.append((key, f"cycle-based: {key[0]}, {cycle_label(key[1])}"))
 
+        # past the earliest horizon every curve counts each patient at min(t, own horizon)
+        # (docs/methods.md, 'Curves to the last horizon'); before it that is Kaplan-Meier / Aalen-Johansen
+        first, last = horizon_range(results.scenario)
+        extended = last > first * (1 + 1e-12)
         for layer, estimator in ((self._survival, "Kaplan–Meier"), (self._occupancy, "Aalen–Johansen")):
+            if extended:
+                estimator = "each patient at min(t, own horizon)"
             entries = [(layer.simulated, f"simulated (n = {n:,}), {estimator}; band: 95% CI")]
             if curves.exact_survival is not None:
                 entries.append((layer.exact, "exact (Kolmogorov equations)"))
             entries += [(layer.cohort[key], label) for key, label in shown]
+            layer.horizon.setVisible(extended)
+            layer.horizon_sample.setVisible(extended)
+            if extended:
+                layer.horizon.setPos(first)
+                entries.append((layer.horizon_sample, f"earliest horizon ({first:.4g} years): past it, each "
+                                                      f"patient counts in their state at their own horizon"))
             layer.panel.set_legend(entries)
             layer.panel.plot.setXRange(0.0, t_end, padding=0.01)
         self.survival_panel.set_title(f"Survival — {strategy}")

@@ -8,11 +8,13 @@ from ._event_log import ABSORBED, CENSORED
 from .aalen_johansen import cumulative_incidence, state_occupancy
 from .crude import crude_rate, crude_risk
 from .kaplan_meier import kaplan_meier
+from .own_horizon import occupancy_to_own_horizon, survival_to_own_horizon
 from .time_in_state import per_patient_time_in_states, restricted_mean_survival, time_in_states
 from .outcomes import (OUTCOMES, OutcomeAccumulator, combine_outcomes, incremental, increments_from_values,
                        outcome_names, patient_outcomes, summarise)
 
 __all__ = ["label_codes", "patient_ids", "time_column", "ABSORBED", "CENSORED", "crude_rate", "crude_risk",
-           "cumulative_incidence", "kaplan_meier", "per_patient_time_in_states", "restricted_mean_survival",
+           "cumulative_incidence", "kaplan_meier", "occupancy_to_own_horizon", "survival_to_own_horizon",
+           "per_patient_time_in_states", "restricted_mean_survival",
            "state_occupancy", "time_in_states", "OUTCOMES", "OutcomeAccumulator", "combine_outcomes", "incremental",
            "increments_from_values", "outcome_names", "patient_outcomes", "summarise"]

@@ -25,7 +25,7 @@ from .. import __version__
 from ..io import Scenario, ScenarioError, demo_path, load_scenario
 from ..io.export import ExportError, RunWriter, metadata_for, write_tidy_csv
 from ..pipeline import RunPlan, StreamSink, run_plan
-from ..reference import discretization_study
+from ..reference import TUNNEL_ENTRY_WORDS, discretization_study, orders_of
 from .describe import describe
 from .progress import ProgressBar, StageProgress
 
@@ -69,6 +69,16 @@ def _study_summary(study) -> pd.DataFrame:
                                               if c not in ("method", "cycle (years)", "cycle_length")]]
 
 
+def _tunnel_line(study) -> str:
+    """For a semi-Markov model's study: the tunnel-entry rule and the observed order of each
+    conversion's life-year error with the half-cycle correction (first strategy)."""
+    first = study.table["strategy"].iloc[0]
+    found = orders_of(study.orders, "life_years", first, "half-cycle")
+    orders = ", ".join(f"{m} {o:.2g}" if o == o else f"{m} -" for m, o in found.items())
+    return (f"Tunnel states: {TUNNEL_ENTRY_WORDS[study.tunnel_entry]} (run.tunnel_entry = \"{study.tunnel_entry}\"). "
+            f"Observed order of the life-year error (error ~ h^p): {orders}.")
+
+
 def _print_table(df: pd.DataFrame, out: TextIO) -> None:
     with pd.option_context("display.float_format", "{:,.4f}".format, "display.width", 160,
                            "display.max_rows", 500, "display.max_columns", 20):
@@ -110,6 +120,8 @@ def _run(scenario: Scenario, args: argparse.Namespace, out: TextIO) -> int:
         out.write(f"\nCycle-based approximations vs the {study.reference_kind} reference (half-cycle correction; "
                   f"full table in {folder}/error_study.csv):\n")
         _print_table(_study_summary(study), out)
+        if study.tunnel_entry is not None:
+            out.write(_tunnel_line(study) + "\n")
     out.write(f"\n{CAUTION}\n")
     return 0
 
@@ -119,7 +131,7 @@ def _compare(scenario: Scenario, args: argparse.Namespace, out: TextIO) -> int:
     study = discretization_study(scenario.model, cycle_lengths=settings.cycle_lengths,
                                  tolerance=args.tolerance or settings.tolerance, relative=not args.absolute,
                                  n_patients=args.patients or min(settings.patients, 200_000), seed=settings.seed,
-                                 progress=ProgressBar("error study"))
+                                 tunnel_entry=settings.tunnel_entry, progress=ProgressBar("error study"))
     csv = Path(args.csv) if args.csv else Path(f"{scenario.path.stem if scenario.path else 'scenario'}_error_study.csv")
     write_tidy_csv(study.table, csv, force=args.force)
     out.write(f"{scenario.model.name}: reference {study.reference_kind}; {len(study.table):,} rows written to {csv}\n\n")

@@ -8,12 +8,14 @@ from collections.abc import Iterable, Mapping
 from dataclasses import dataclass
 from typing import Any
 
-from .checks import Problems, number
+from .checks import Problems, number, string
 from .errors import ModelError
 
-__all__ = ["RunSettings", "MAX_WORKERS"]
+__all__ = ["RunSettings", "MAX_WORKERS", "TUNNEL_ENTRIES"]
 
 MAX_WORKERS = 64
+TUNNEL_ENTRIES = ("half-cycle", "boundary")
+"""The tunnel-entry rules of the cycle-based traces (``sim.reference.cohort.TunnelEntry``), default first."""
 
 
 def _cycle_lengths(found: Problems, values: Any) -> tuple[float, ...] | None:
@@ -43,6 +45,8 @@ class RunSettings:
     cycle_lengths : cycle lengths in years compared by the discretization study; non-empty, each
         finite and > 0 (kept as a tuple of floats).
     tolerance : acceptable discretization error of the study, > 0.
+    tunnel_entry : how the study's traces time entries into tunnel states (semi-Markov models), one
+        of :data:`TUNNEL_ENTRIES`: ``"half-cycle"`` (default) or ``"boundary"``.
 
     Raises
     ------
@@ -56,6 +60,7 @@ class RunSettings:
     chunk_size: int = 100_000
     cycle_lengths: tuple[float, ...] = (1 / 52, 1 / 12, 1 / 4, 1 / 2, 1.0, 2.0)
     tolerance: float = 0.01
+    tunnel_entry: str = TUNNEL_ENTRIES[0]
 
     def __post_init__(self) -> None:
         found = Problems()
@@ -71,6 +76,8 @@ class RunSettings:
             "cycle_lengths": _cycle_lengths(found, self.cycle_lengths),
             "tolerance": found.check(number, ("run", "tolerance"), self.tolerance, minimum=0.0, strict_min=True,
                                      error=ModelError),
+            "tunnel_entry": found.check(string, ("run", "tunnel_entry"), self.tunnel_entry, choices=TUNNEL_ENTRIES,
+                                        error=ModelError),
         }
         found.raise_if_any(ModelError)
         for key, value in checked.items():

@@ -12,12 +12,12 @@ from .assembly import StrategyMajorJoin
 from .chunks import ChunkJob, ChunkTables, chunk_jobs, simulate_chunk
 from .executors import Executor, SerialExecutor, ThreadExecutor, executor_for
 from .plan import RunPlan
-from .results import RunResults, time_grid
+from .results import RunResults, horizon_range, time_grid
 from .run import run_plan, run_scenario
 from .sinks import ChunkSink, MemorySink, StreamSink
 from .stages import STAGES, Progress, RunState, Stage, run_stages
 
 __all__ = ["StrategyMajorJoin", "ChunkJob", "ChunkTables", "chunk_jobs", "simulate_chunk", "Executor",
-           "SerialExecutor", "ThreadExecutor", "executor_for", "RunPlan", "RunResults", "time_grid", "run_plan",
+           "SerialExecutor", "ThreadExecutor", "executor_for", "RunPlan", "RunResults", "horizon_range", "time_grid", "run_plan",
            "run_scenario", "ChunkSink", "MemorySink", "StreamSink", "STAGES", "Progress", "RunState", "Stage",
            "run_stages"]

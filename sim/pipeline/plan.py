@@ -24,7 +24,7 @@ class RunPlan:
     workers : chunks computed at the same time.
     chunk_size : patients per chunk (:func:`sim.engine.chunk_size_for` of the scenario's
         ``run.chunk_size``: about 20 chunks for progress, never more than the scenario's size).
-    cycle_lengths, tolerance : for the discretization-error study.
+    cycle_lengths, tolerance, tunnel_entry : for the discretization-error study.
     """
 
     model: Model
@@ -34,6 +34,7 @@ class RunPlan:
     chunk_size: int
     cycle_lengths: tuple[float, ...]
     tolerance: float
+    tunnel_entry: str = "half-cycle"
 
     def __post_init__(self) -> None:
         for key, low in (("patients", 1), ("workers", 1), ("chunk_size", 1), ("seed", 0)):
@@ -51,7 +52,8 @@ class RunPlan:
         n = int(patients or run.patients)
         return cls(model=scenario.model, patients=n, seed=int(run.seed if seed is None else seed),
                    workers=int(workers or run.workers), chunk_size=chunk_size_for(n, int(run.chunk_size)),
-                   cycle_lengths=tuple(run.cycle_lengths), tolerance=float(run.tolerance))
+                   cycle_lengths=tuple(run.cycle_lengths), tolerance=float(run.tolerance),
+                   tunnel_entry=str(run.tunnel_entry))
 
     @property
     def strategies(self) -> tuple[str, ...]:
@@ -60,4 +62,4 @@ class RunPlan:
     def settings(self) -> dict:
         """The settings as recorded in :attr:`sim.pipeline.RunResults.settings`."""
         return {"patients": self.patients, "seed": self.seed, "workers": self.workers, "chunk_size": self.chunk_size,
-                "cycle_lengths": self.cycle_lengths, "tolerance": self.tolerance}
+                "cycle_lengths": self.cycle_lengths, "tolerance": self.tolerance, "tunnel_entry": self.tunnel_entry}

@@ -11,7 +11,7 @@ from ..engine import SimulationResult
 from ..io import Scenario
 from ..reference import StudyResult
 
-__all__ = ["RunResults", "time_grid"]
+__all__ = ["RunResults", "time_grid", "horizon_range"]
 
 
 @dataclass(frozen=True)
@@ -24,11 +24,13 @@ class RunResults:
     outcomes : strategy, outcome, mean, mcse, n (simulated), plus ``exact`` and ``z`` (NaN where
         there is no exact solution).
     increments : strategy, comparator, quantity, value, mcse (paired), mcse_unpaired, exact.
-    survival : strategy, time, survival, std_error (Kaplan-Meier of time to absorption), or None
-        when the log was not kept (see ``skipped``).
-    occupancy : strategy, time, state, probability, std_error (Aalen-Johansen on ``grid``), or None
-        when the log was not kept.
-    grid : times since entry of the curves (:func:`time_grid`).
+    survival : strategy, time, events, survival, std_error: the probability of not being absorbed
+        by min(t, own horizon) (:func:`sim.analysis.survival_to_own_horizon`; Kaplan-Meier up to the
+        earliest horizon), or None when the log was not kept (see ``skipped``).
+    occupancy : strategy, time, state, probability, std_error: the share in each state at min(t, own
+        horizon) on ``grid`` (:func:`sim.analysis.occupancy_to_own_horizon`; Aalen-Johansen up to
+        the earliest horizon), or None when the log was not kept.
+    grid : times since entry of the curves (:func:`time_grid`), to the last horizon.
     exact_occupancy : strategy, time, state, probability (Kolmogorov), or None.
     exact_note : why there is no exact solution, or "".
     study : the discretization-error study, or None if not asked for.
@@ -56,11 +58,26 @@ class RunResults:
     skipped: dict = field(default_factory=dict)
 
 
-def time_grid(scenario: Scenario, points: int = 121) -> np.ndarray:
-    """Times since entry for curves: 0 to the earliest horizon (all patients still followed), so that
-    estimates and exact curves are comparable without horizon censoring."""
+def horizon_range(scenario: Scenario) -> tuple[float, float]:
+    """Earliest and last horizon in time since entry (equal for a horizon in time since entry; for
+    one in attained age, those of the oldest and the youngest entry age)."""
     model = scenario.model
-    t_max = float(model.horizon.time_limit(np.array([model.population.entry_age.high]))[0])
-    if t_max <= 0:
-        t_max = float(model.horizon.time_limit(np.array([model.population.entry_age.mean]))[0])
-    return np.linspace(0.0, t_max, points)
+    ages = model.population.entry_age
+    first = float(model.horizon.time_limit(np.array([ages.high]))[0])
+    if first <= 0:
+        first = float(model.horizon.time_limit(np.array([ages.mean]))[0])
+    last = max(first, float(model.horizon.time_limit(np.array([ages.low]))[0]))
+    return first, last
+
+
+def time_grid(scenario: Scenario, points: int = 121) -> np.ndarray:
+    """Times since entry for curves: ``points`` even times from 0 to the earliest horizon (every
+    patient still followed), then on at the same spacing to the last horizon, where the curves count
+    each patient past their own horizon in the state they were in at it (docs/methods.md, 'Curves to
+    the last horizon')."""
+    first, last = horizon_range(scenario)
+    grid = np.linspace(0.0, first, points)
+    if last > first * (1.0 + 1e-12) and points > 1:
+        steps = max(1, int(np.ceil((last - first) / (grid[1] - grid[0]) - 1e-9)))
+        grid = np.concatenate((grid, np.linspace(first, last, steps + 1)[1:]))
+    return grid

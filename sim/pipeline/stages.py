@@ -11,7 +11,9 @@ one; the simulate stage also checks between chunks and the study between its coh
   (exact per-patient table) or else from a streaming sink's accumulator.
 - ``exact``: for Markov models one solve of the Kolmogorov forward equations gives the exact outcomes
   and occupancy curves; otherwise the reason there is none.
-- ``estimates``: Kaplan-Meier survival and Aalen-Johansen occupancy on the time grid (needs the log).
+- ``estimates``: survival and state occupancy on the time grid to the last horizon, each patient
+  counted at min(t, own horizon) (equal to Kaplan-Meier and Aalen-Johansen up to the earliest
+  horizon; needs the log).
 - ``study``: the discretization-error study; for a semi-Markov model the run's own simulation is its
   reference (no second simulation of the same histories).
 """
@@ -26,7 +28,8 @@ from typing import Callable
 import numpy as np
 import pandas as pd
 
-from ..analysis import OutcomeAccumulator, incremental, kaplan_meier, patient_outcomes, state_occupancy, summarise
+from ..analysis import (OutcomeAccumulator, incremental, occupancy_to_own_horizon, patient_outcomes, summarise,
+                        survival_to_own_horizon)
 from ..engine import CancelToken, SimulationCancelled, SimulationResult, cancel_requested
 from ..io import Scenario
 from ..reference import StudyResult, discretization_study, exact_outcomes_and_occupancy, with_exact
@@ -135,8 +138,8 @@ def _estimates(state: RunState) -> None:
     surv, occ = [], []
     for name in sim.metadata["strategies"]:
         ev, pt = sim.strategy(name)
-        surv.append(kaplan_meier(pt).assign(strategy=name))
-        occ.append(state_occupancy(ev, pt, model.state_names, state.grid).assign(strategy=name))
+        surv.append(survival_to_own_horizon(pt).assign(strategy=name))
+        occ.append(occupancy_to_own_horizon(ev, pt, model.state_names, state.grid).assign(strategy=name))
     state.survival = pd.concat(surv, ignore_index=True)
     state.occupancy = pd.concat(occ, ignore_index=True)
 
@@ -147,7 +150,7 @@ def _study(state: RunState) -> None:
     reference = None if plan.model.is_markov else state.outcomes
     state.study = discretization_study(plan.model, cycle_lengths=plan.cycle_lengths, tolerance=plan.tolerance,
                                        n_patients=plan.patients, seed=plan.seed, cancel=state.cancel,
-                                       simulated_reference=reference,
+                                       simulated_reference=reference, tunnel_entry=plan.tunnel_entry,
                                        progress=lambda d, n: state.report("error study", d, n))
 
 

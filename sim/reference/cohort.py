@@ -23,7 +23,13 @@ stops at its own horizon: its last cycle may be shorter than h.
 
 Time-in-state clocks with non-constant hazards are expanded into tunnel states ``s [k]`` (k whole
 cycles since entry into s, the last one absorbing the rest) up to ``tunnel_cycles``; without that
-number such a model is refused with a message naming the transitions.
+number such a model is refused with a message naming the transitions. ``tunnel_entry`` says how long
+the patients who entered s during a cycle have been in s at the next boundary (docs/methods.md,
+'Tunnel states and entry within a cycle'): ``"boundary"`` takes them to have entered at that boundary
+(time in state k h in copy k: an O(h) bias of the clock), ``"half-cycle"`` credits them half a cycle
+(k h + h/2, as if entries were spread evenly over the cycle: common practice, no source; O(h^2) for a
+smooth hazard). Patients who start in s at time 0 keep time in state k h exactly (their own chain
+of copies ``s [k, start]`` when the two differ).
 
 The trace's outcomes with a within-cycle correction are computed by :func:`trace_outcomes`.
 """
@@ -31,6 +37,7 @@ The trace's outcomes with a within-cycle correction are computed by :func:`trace
 from __future__ import annotations
 
 import math
+from collections.abc import Mapping
 from dataclasses import dataclass
 from enum import Enum
 
@@ -44,7 +51,7 @@ from .matrix_exp import expm_batched, expm_rows
 from ..model.multistate import Clock, Model, ResolvedExit
 from ..analysis.outcomes import combine_outcomes
 
-__all__ = ["Conversion", "RateRule", "Correction", "EntryAges", "CohortError", "CohortTrace",
+__all__ = ["Conversion", "RateRule", "Correction", "EntryAges", "TunnelEntry", "CohortError", "CohortTrace",
            "cohort_trace", "trace_outcomes", "quadrature_weights"]
 
 
@@ -77,6 +84,14 @@ class Correction(str, Enum):
 class EntryAges(str, Enum):
     MEAN = "mean-age"
     STRATA = "strata"
+
+
+class TunnelEntry(str, Enum):
+    """Time in state credited, at the next cycle boundary, to patients who entered a tunnelled state
+    during a cycle: none (``boundary``, entry taken at the boundary) or half a cycle (``half-cycle``)."""
+
+    BOUNDARY = "boundary"
+    HALF_CYCLE = "half-cycle"
 
 
 def _enum(cls, value, field_name: str):
@@ -116,6 +131,7 @@ class CohortTrace:
     jump_over: NDArray[np.float64]
     negative_stay: int
     tunnel_cycles: int | None
+    tunnel_entry: TunnelEntry = TunnelEntry.HALF_CYCLE
 
     def table(self) -> pd.DataFrame:
         """Population-weighted trace as a tidy table: cycle, time, state, probability (strata whose
@@ -142,11 +158,29 @@ class _Space:
     labels: tuple[str, ...]
     model_state: NDArray[np.int64]  # model state of each expanded state
     copy: NDArray[np.int64]  # whole cycles since entry (0 for untunnelled states)
-    first: NDArray[np.int64]  # expanded index of each model state's entry copy
+    first: NDArray[np.int64]  # expanded index of each model state's first copy (the initial mass's)
     next_copy: NDArray[np.int64]  # where "stay" mass goes after one cycle
+    entry: NDArray[np.int64]  # expanded index where moves into each model state land
+    offset: NDArray[np.float64]  # cycles in state credited at copy 0 (0, or 0.5 under half-cycle entry)
+    blocks: tuple[tuple[int, int], ...]  # (first, last) expanded index of each chain of tunnel copies
 
 
-def _space(model: Model, tunnel_cycles: int | None) -> _Space:
+def _initial_names(model: Model) -> set[str]:
+    """States some patients start in: a state name, or the states with a positive share in a table
+    ``state = share`` or ``sex = {state = share}``."""
+    init = model.population.initial_state
+    if isinstance(init, str):
+        return {init}
+    names: set[str] = set()
+    for key, value in init.items():
+        if isinstance(value, Mapping):
+            names |= {name for name, share in value.items() if share > 0}
+        elif value > 0:
+            names.add(key)
+    return names
+
+
+def _space(model: Model, tunnel_cycles: int | None, tunnel_entry: TunnelEntry = TunnelEntry.BOUNDARY) -> _Space:
     semi = model.semi_markov_transitions()
     tunnelled = {t.source for t in model.transitions if t.name in semi}
     if semi and tunnel_cycles is None:
@@ -156,16 +190,32 @@ def _space(model: Model, tunnel_cycles: int | None) -> _Space:
             f"entry to track; the last tunnel state keeps the hazard at that duration)")
     if tunnel_cycles is not None and (not isinstance(tunnel_cycles, (int, np.integer)) or tunnel_cycles < 1):
         raise CohortError(f"tunnel_cycles must be a positive integer, got {tunnel_cycles!r}")
-    labels, mstate, copy, first, next_copy = [], [], [], [], []
+    half = tunnel_entry is TunnelEntry.HALF_CYCLE
+    initial = _initial_names(model)
+    labels, mstate, copy, first, next_copy, entry, offset, blocks = [], [], [], [], [], [], [], []
     for j, s in enumerate(model.states):
         first.append(len(labels))
         copies = tunnel_cycles if s.name in tunnelled else 1
-        for c in range(copies):
-            labels.append(f"{s.name} [{c}]" if copies > 1 else s.name)
-            mstate.append(j)
-            copy.append(c)
-            next_copy.append(len(labels) if c < copies - 1 else len(labels) - 1)
-    return _Space(tuple(labels), np.array(mstate), np.array(copy), np.array(first), np.array(next_copy))
+        # chains of copies by the time in state credited at copy 0: entrants get half a cycle under
+        # the half-cycle rule; patients there from time 0 keep their own chain with none
+        chains = [0.0]
+        if half and s.name in tunnelled:
+            chains = [0.0, 0.5] if s.name in initial else [0.5]
+        for credit in chains:
+            if credit == chains[-1]:
+                entry.append(len(labels))
+            start = len(labels)
+            for c in range(copies):
+                tag = f"{c}" if credit == chains[-1] else f"{c}, start"
+                labels.append(f"{s.name} [{tag}]" if copies > 1 or len(chains) > 1 else s.name)
+                mstate.append(j)
+                copy.append(c)
+                offset.append(credit)
+                next_copy.append(len(labels) if c < copies - 1 else len(labels) - 1)
+            if copies > 1:
+                blocks.append((start, len(labels) - 1))
+    return _Space(tuple(labels), np.array(mstate), np.array(copy), np.array(first), np.array(next_copy),
+                  np.array(entry), np.array(offset, dtype=float), tuple(blocks))
 
 
 def _rates(ex: ResolvedExit, sex: NDArray[np.int64], start: NDArray[np.float64], t: NDArray[np.float64],
@@ -225,7 +275,8 @@ def _jump_over(q: NDArray[np.float64], dt: NDArray[np.float64]) -> NDArray[np.fl
 # ----------------------------------------------------------------------------- the trace
 def cohort_trace(model: Model, strategy: str, cycle_length: float, conversion: str | Conversion = "matrix-exponential",
                  rate_rule: str | RateRule = "cumulative", entry_ages: str | EntryAges = "strata",
-                 n_nodes: int = 48, tunnel_cycles: int | None = None, block_cells: int = 2_000_000) -> CohortTrace:
+                 n_nodes: int = 48, tunnel_cycles: int | None = None, block_cells: int = 2_000_000,
+                 tunnel_entry: str | TunnelEntry = "half-cycle") -> CohortTrace:
     """Build the cycle-based cohort trace of ``strategy`` with the given cycle length (years).
 
     Parameters
@@ -235,15 +286,18 @@ def cohort_trace(model: Model, strategy: str, cycle_length: float, conversion: s
     entry_ages : "strata" (Gauss-Legendre strata of the entry-age distribution) or "mean-age".
     tunnel_cycles : number of tunnel states for time-in-state clocks (required if any).
     block_cells : bound on matrix cells built at once (memory).
+    tunnel_entry : "half-cycle" (default: entrants of a cycle are credited half a cycle in the state
+        at the next boundary) or "boundary" (none, the rule before issue 11); see the module docstring.
     """
     conversion = _enum(Conversion, conversion, "conversion")
+    tunnel_entry = _enum(TunnelEntry, tunnel_entry, "tunnel_entry")
     rate_rule = _enum(RateRule, rate_rule, "rate_rule")
     entry_ages = _enum(EntryAges, entry_ages, "entry_ages")
     h = float(cycle_length)
     if not (math.isfinite(h) and h > 0):
         raise CohortError(f"cycle_length must be a positive number of years, got {cycle_length!r}")
     model.strategy(strategy)
-    space = _space(model, tunnel_cycles)
+    space = _space(model, tunnel_cycles, tunnel_entry)
     if entry_ages is EntryAges.STRATA:
         age, sex, w = population_pairs(model, n_nodes)
     else:
@@ -278,16 +332,16 @@ def cohort_trace(model: Model, strategy: str, cycle_length: float, conversion: s
     to_model[np.arange(n_exp), space.model_state] = 1.0
     tunnel = np.array([space.next_copy[i] != i or space.copy[i] > 0 for i in range(n_exp)])
     # contiguous tunnel blocks (first copy, last copy): mass that made no move advances one copy
-    tunnel_blocks = [(int(space.first[j]), int(space.first[j]) + int((space.model_state == j).sum()) - 1)
-                     for j in range(n_states) if (space.model_state == j).sum() > 1]
+    tunnel_blocks = space.blocks
     # Matrix exponential: one model-space generator per "variant": variant 0 uses every state's entry
-    # copy; a tunnel copy c >= 1 of state s uses copy c's rates for s (re-entry within the same cycle
-    # would restart at copy 0: a second-order effect, neglected). Source i reads row s_i of its variant.
+    # copy; any other copy (c >= 1, or a chain of patients there from the start) of state s uses its
+    # own rates for s (re-entry within the same cycle would restart at the entry copy: a second-order
+    # effect, neglected). Source i reads row s_i of its variant.
     variant = np.zeros(n_exp, dtype=int)
-    variant_rows: list[NDArray[np.int64]] = [space.first.copy()]
+    variant_rows: list[NDArray[np.int64]] = [space.entry.copy()]
     for i in range(n_exp):
-        if space.copy[i] > 0:
-            rows = space.first.copy()
+        if i != space.entry[space.model_state[i]]:
+            rows = space.entry.copy()
             rows[space.model_state[i]] = i
             variant[i] = len(variant_rows)
             variant_rows.append(rows)
@@ -311,8 +365,8 @@ def cohort_trace(model: Model, strategy: str, cycle_length: float, conversion: s
         for j in range(n_states):
             src = np.flatnonzero(space.model_state == j)  # expanded copies of state j
             for ex in resolved[j]:
-                if ex.clock is Clock.STATE:  # copy c has spent c whole cycles in the state at the cycle start
-                    c = (space.copy[src] * h)[None, None, :]
+                if ex.clock is Clock.STATE:  # copy c: c whole cycles in the state (+ the entry credit)
+                    c = ((space.copy[src] + space.offset[src]) * h)[None, None, :]
                     r = _rates(ex, sex, c, np.zeros((m, 1, 1)), dtm[:, :, None], rate_rule)  # (m, B, L)
                     R[:, :, src, ex.index] += np.moveaxis(r, 0, 1)
                 else:
@@ -352,14 +406,14 @@ def cohort_trace(model: Model, strategy: str, cycle_length: float, conversion: s
             rows[:, :, np.arange(n_exp), space.model_state] += own
         xs = np.empty((nb + 1, m, n_exp))
         xs[0] = x
-        if not tunnel_blocks:  # expanded space == model space: x_{k+1} = x_k P_k directly
+        if n_exp == n_states:  # expanded space == model space: x_{k+1} = x_k P_k directly
             xv = xs[:, :, None, :]  # (nb + 1, m, 1, N): row vectors, one view for the whole loop
             for b_ in range(nb):
                 np.matmul(xv[b_], rows[b_], out=xv[b_ + 1])
-        for b_ in range(nb if tunnel_blocks else 0):  # the only sequential step: x_{k+1} = x_k P_k
+        for b_ in range(nb if n_exp != n_states else 0):  # the only sequential step: x_{k+1} = x_k P_k
             y = np.matmul(xs[b_][:, None, :], rows[b_])[:, 0, :]  # into model states (entry copies)
             nxt = np.zeros((m, n_exp))
-            nxt[:, space.first] = y
+            nxt[:, space.entry] = y
             moved = xs[b_] * stay_through[b_]
             for f, last in tunnel_blocks:  # copies f..last of one state: c -> c + 1, last stays
                 nxt[:, f + 1:last + 1] += moved[:, f:last]
@@ -378,7 +432,7 @@ def cohort_trace(model: Model, strategy: str, cycle_length: float, conversion: s
     return CohortTrace(model=model, strategy=strategy, cycle_length=h, conversion=conversion,
                        rate_rule=rate_rule, entry_ages=entry_ages, weights=w, entry_age=age, sex=sex,
                        times=times, occupancy=occupancy, moves=moves, jump_over=jump,
-                       negative_stay=negative, tunnel_cycles=tunnel_cycles)
+                       negative_stay=negative, tunnel_cycles=tunnel_cycles, tunnel_entry=tunnel_entry)
 
 
 # ----------------------------------------------------------------------------- outcomes

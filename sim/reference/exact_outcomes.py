@@ -25,7 +25,13 @@ def exact_outcomes_and_occupancy(model: Model, times: NDArray[np.float64], strat
                                  n_nodes: int = 48) -> tuple[pd.DataFrame, pd.DataFrame]:
     """:func:`exact_outcomes` and the population-averaged state occupancy at ``times`` (columns
     strategy, time, state, probability, as ``sim.exact.solve_exact(...).occupancy``) from one solve
-    of the forward equations for all strategies."""
+    of the forward equations for all strategies.
+
+    Each (entry age, sex) pair contributes its occupancy at ``min(t, its horizon)``: past its
+    horizon it counts in the state it occupied when follow-up ended, the quantity the simulation
+    estimates to the last horizon (:func:`sim.analysis.occupancy_to_own_horizon`; docs/methods.md,
+    'Curves to the last horizon'). Where ``t`` is within every horizon this is
+    ``solve_exact(...).occupancy``."""
     val = model.valuation
     rates = (0.0, val.discount_effects, val.discount_costs)
     age, sex, w = population_pairs(model, n_nodes)
@@ -33,7 +39,10 @@ def exact_outcomes_and_occupancy(model: Model, times: NDArray[np.float64], strat
     times = np.atleast_1d(np.asarray(times, dtype=float))
     rows, occupancy = [], []
     names = tuple(strategies or model.strategy_names)
-    sol = solve_stacked(model, names, age, sex, times, horizon, rates)  # one solve for all strategies
+    own_end = np.minimum(times[None, :], horizon[:, None])  # (pairs, times): min(t, own horizon)
+    at = np.unique(own_end)
+    where = np.searchsorted(at, own_end)
+    sol = solve_stacked(model, names, age, sex, at, horizon, rates)  # one solve for all strategies
     m0 = age.size
     states = model.state_names
     for j, strategy in enumerate(names):
@@ -44,7 +53,8 @@ def exact_outcomes_and_occupancy(model: Model, times: NDArray[np.float64], strat
         values = combine_outcomes(model, strategy, integrals[0], integrals[1], integrals[2],
                           (flows[0] @ c_exit, flows[2] @ c_exit))
         rows += [(strategy, k, float(v)) for k, v in values.items()]
-        occupancy.append(occupancy_frame(strategy, times, states, np.einsum("m,mtn->tn", w, sol.occupancy[block])))
+        own = np.take_along_axis(sol.occupancy[block], where[:, :, None], axis=1)  # (pairs, times, states)
+        occupancy.append(occupancy_frame(strategy, times, states, np.einsum("m,mtn->tn", w, own)))
     return (pd.DataFrame(rows, columns=["strategy", "outcome", "value"]),
             pd.concat(occupancy, ignore_index=True))
 

@@ -91,12 +91,18 @@ def test_largest_safe_cycle_reproduces_the_runs_study(results):
 def test_curves_show_simulated_exact_and_cycle_based(panel, results):
     curves = panel.curves
     survival_legend, occupancy_legend = curves.legend_labels()
-    assert survival_legend == [f"simulated (n = {N:,}), Kaplan–Meier; band: 95% CI", "exact (Kolmogorov equations)",
-                               "cycle-based: per-transition, 1 year", "cycle-based: matrix-exponential, 1 year"]
-    assert occupancy_legend[0] == f"simulated (n = {N:,}), Aalen–Johansen; band: 95% CI"
+    # the demo's horizon is attained age 100 with entry ages 40-75: curves to the last horizon (60
+    # years), each patient counted at min(t, own horizon) past the earliest one (25 years)
+    horizon = "earliest horizon (25 years): past it, each patient counts in their state at their own horizon"
+    assert survival_legend == [f"simulated (n = {N:,}), each patient at min(t, own horizon); band: 95% CI",
+                               "exact (Kolmogorov equations)", "cycle-based: per-transition, 1 year",
+                               "cycle-based: matrix-exponential, 1 year", horizon]
+    assert occupancy_legend[0] == f"simulated (n = {N:,}), each patient at min(t, own horizon); band: 95% CI"
+    assert occupancy_legend[-1] == horizon and curves._survival.horizon.value() == 25.0
     points = curves.curve_points()
     assert points["simulated"] > 100 and points["exact"] == len(results.grid)
-    # 1-year cycles up to the earliest horizon (25 years): boundaries 0..25
+    # 1-year cycles up to the last horizon (60 years): boundaries 0..60
+    assert results.grid[-1] == 60.0
     assert points["matrix-exponential, 1 year"] == int(results.grid[-1]) + 1
     assert not curves.note.isVisibleTo(panel)
     # the band is drawn around the simulated curve
