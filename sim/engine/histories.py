@@ -237,6 +237,9 @@ def _run_strategy(model: Model, resolved: list[list[ResolvedExit]], bulk: _BulkW
                 best = np.where(better, dt_j, best)
                 win = np.where(better, j, 0 if win is None else win)
             t_new = ts + best
+            if rounds > 1:  # a stay shorter than the clock resolves at ts lasts one step of the clock, so
+                # that a patient's move times stay strictly increasing (no two moves at the same time)
+                t_new = np.maximum(t_new, np.nextafter(ts, np.inf))
             lim = limit if whole else limit[sel]
             moved = t_new < lim
             m_idx = sel[moved]

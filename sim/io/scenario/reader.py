@@ -23,6 +23,7 @@ from ...problems import Problem, ValidationError
 from .checking import Checker, Invalid
 from .errors import ScenarioError
 from .hazard_reading import read_hazard, read_life_table_hazards
+from .limits import MAX_FILE_BYTES, document_problems, run_problems, size_problems
 from .positions import KeyLines
 from .schema import ENTRY_AGES, FORMAT_VERSION, SCHEMA, Items, Ref, Table, Text, Variant
 
@@ -314,6 +315,9 @@ def parse_scenario(text: str, file: str | Path | None = None, base_dir: Path | N
         file, line, key path, value and rule.
     """
     fname = str(file) if file is not None else None
+    too_big = size_problems(len(text.encode("utf-8", "surrogatepass")) if len(text) > MAX_FILE_BYTES // 4 else 0)
+    if too_big:  # limits: see .limits and docs/scenario-format.md
+        raise ScenarioError.of(p.located(file=fname) for p in too_big)
     try:
         doc = tomlkit.parse(text).unwrap()
     except ParseError as err:
@@ -321,7 +325,13 @@ def parse_scenario(text: str, file: str | Path | None = None, base_dir: Path | N
     if base_dir is None and file is not None:
         base_dir = Path(file).resolve().parent
     try:
+        oversized = document_problems(doc)
+        if oversized:
+            raise ScenarioError.of(oversized)
         model, run, notes = _build(doc, fname, base_dir)
+        impossible = run_problems(model, run)
+        if impossible:
+            raise ScenarioError.of(_document_paths(tuple(impossible), doc))
     except ScenarioError as err:
         lines = KeyLines(text)  # one pass over the text, however many problems
         raise ScenarioError.of(p.located(file=fname, line=lines.line_of(p.path)) for p in err.problems) from None
@@ -333,7 +343,12 @@ def load_scenario(path: str | Path) -> Scenario:
     """Read and validate a scenario file (UTF-8 TOML)."""
     path = Path(path)
     try:
-        text = path.read_text(encoding="utf-8")
+        with path.open("rb") as f:  # never more than the limit (a huge file or a device is not read whole)
+            data = f.read(MAX_FILE_BYTES + 1)
+        too_big = size_problems(len(data), more=True)
+        if too_big:
+            raise ScenarioError.of(p.located(file=str(path)) for p in too_big)
+        text = data.decode("utf-8").replace("\r\n", "\n").replace("\r", "\n")  # as text mode reads it
     except OSError as err:
         raise ScenarioError(f"cannot read the file: {err.strerror}", file=str(path)) from None
     except UnicodeDecodeError as err:
