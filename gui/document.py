@@ -12,7 +12,9 @@ Key paths are tuples of table keys and array indices, e.g. ``("transitions", 0, 
 from __future__ import annotations
 
 import hashlib
-from dataclasses import dataclass
+import os
+import re
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable, Iterable
 
@@ -25,14 +27,47 @@ from tomlkit.items import AoT, Array, Comment, InlineTable, Item, Table, Whitesp
 from tomlkit.toml_document import TOMLDocument
 
 from sim.io.demo import DEMOS, demo_path
+from gui.problem_words import describe_problem
 from sim.io.scenario import Scenario, ScenarioError, parse_scenario, problem_text, rename, save_scenario
-from sim.problems import Problem, format_key
+from sim.io.scenario.schema import SCHEMA, file_keys
+from sim.problems import NO_VALUE, Problem, format_key
 
-__all__ = ["ScenarioDocument", "FieldError", "DocumentError", "KeyPath", "format_key", "display_value"]
+__all__ = ["ScenarioDocument", "FieldError", "DocumentError", "KeyPath", "format_key", "display_value",
+           "BLANK_TEXT", "default_recovery_dir"]
 
 KeyPath = tuple[Any, ...]
 RECENT_KEY = "recent_files"
 MAX_RECENT = 8
+
+#: File -> New: two states (alive, dead) and the sections the format requires (a population and a
+#: horizon); the transitions are the user's to add.
+BLANK_TEXT = """format_version = 1
+name = "New model"
+
+[[states]]
+name = "alive"
+
+[[states]]
+name = "dead"
+absorbing = true
+
+[population]
+initial_state = "alive"
+entry_age = { distribution = "fixed", age = 50.0 }
+
+[horizon]
+value = 50               # years since entry
+"""
+
+
+def default_recovery_dir() -> Path:
+    """``<user data folder>/HazardTrace/recovery`` (``~/.local/share/HazardTrace/recovery`` on Linux).
+
+    Qt's application data location already ends in ``<organisation>/<application>``, which for
+    this program doubles the name; the generic data location plus the name once does not."""
+    base = QStandardPaths.writableLocation(QStandardPaths.StandardLocation.GenericDataLocation)
+    return (Path(base) / "HazardTrace" if base else Path.home() / ".hazardtrace") / "recovery"
+
 
 # Tables the scenario format writes inline (`name = { a = 1 }`) when they are created from scratch.
 INLINE_KEYS = frozenset({"hazard_ratios", "state_costs", "transition_costs", "utilities", "sex_mix", "entry_age",
@@ -215,14 +250,20 @@ class FieldError:
     from the wording of its message.
 
     ``key`` is the key path it concerns in document positions (``()`` for the whole file),
-    ``line`` the line in the text, ``message`` the loader's message for it and ``rule`` the rule
-    alone.
+    ``line`` the line in the text, ``message`` the loader's message for it (file, line and key
+    path: for the scenario-text view and the command line), ``rule`` the rule alone, ``value``
+    what was given, ``text`` the problem in the modeller's words ("Transition 'onset': rate must
+    be positive (got −0.5)"), and ``incomplete`` marks a model not finished yet (a state without
+    its exits so far, no transitions yet) rather than a wrong value.
     """
 
     key: KeyPath
     line: int | None
     message: str
     rule: str
+    value: Any = field(default=NO_VALUE, compare=False)
+    text: str = ""
+    incomplete: bool = False
 
     @property
     def key_text(self) -> str:
@@ -233,8 +274,14 @@ class FieldError:
         return self.key[:len(path)] == tuple(path)
 
     @classmethod
-    def from_problem(cls, problem: Problem) -> "FieldError":
-        return cls(key=tuple(problem.path), line=problem.line, message=problem_text(problem), rule=problem.rule)
+    def from_problem(cls, problem: Problem, name_of: Callable[[KeyPath], Any] = lambda _p: None,
+                     incomplete: bool = False) -> "FieldError":
+        """The problem with its text in the user's words (``name_of`` reads item names)."""
+        text = describe_problem(problem.path, problem.rule, problem.value, name_of)
+        if incomplete:
+            text = "Not finished yet: " + text[0].lower() + text[1:]
+        return cls(key=tuple(problem.path), line=problem.line, message=problem_text(problem), rule=problem.rule,
+                   value=problem.value, text=text, incomplete=incomplete)
 
 
 class DocumentError(Exception):
@@ -283,6 +330,9 @@ class ScenarioDocument(QObject):
         The file path (``Path`` or ``None``) changed.
     recent_changed()
         The recent-files list changed.
+    loaded()
+        Another scenario was loaded (new, open, new from demo): results of a run belong to the
+        previous one.
 
     Parameters
     ----------
@@ -297,6 +347,7 @@ class ScenarioDocument(QObject):
     dirty_changed = Signal(bool)
     path_changed = Signal(object)
     recent_changed = Signal()
+    loaded = Signal()
 
     def __init__(self, parent: QObject | None = None, *, recovery_dir: str | Path | None = None,
                  settings: QSettings | None = None, autosave_ms: int = 5000) -> None:
@@ -309,10 +360,10 @@ class ScenarioDocument(QObject):
         self._errors: list[FieldError] = []
         self._autosaved = ""
         self._settings = settings if settings is not None else QSettings("HazardTrace", "HazardTrace")
-        if recovery_dir is None:
-            base = QStandardPaths.writableLocation(QStandardPaths.StandardLocation.AppDataLocation)
-            recovery_dir = Path(base or Path.home() / ".hazardtrace") / "recovery"
-        self.recovery_dir = Path(recovery_dir)
+        self.relocated: list[tuple[KeyPath, str, str]] = []
+        self._loading = False
+        self._last_folder: Path | None = None
+        self.recovery_dir = Path(recovery_dir) if recovery_dir is not None else default_recovery_dir()
         self.undo_stack = QUndoStack(self)
         self.undo_stack.cleanChanged.connect(self._on_clean_changed)
         self._timer = QTimer(self)
@@ -321,6 +372,8 @@ class ScenarioDocument(QObject):
             self._timer.start(autosave_ms)
 
     def _on_clean_changed(self, clean: bool) -> None:
+        if clean and not self._loading:  # back to what is saved (undo, save): nothing to recover
+            self.discard_recovery()
         self.dirty_changed.emit(not clean)
 
     # ------------------------------------------------------------------ state
@@ -464,8 +517,36 @@ class ScenarioDocument(QObject):
             self._errors = []
         except ScenarioError as err:
             self._scenario = None
-            self._errors = [FieldError.from_problem(p) for p in err.problems]
+            self._errors = [self._field_error(p) for p in err.problems]
         self.validated.emit(self._scenario, self.errors)
+
+    def _field_error(self, problem: Problem) -> FieldError:
+        missing = [k for k, node in SCHEMA.keys.items() if node.required and not self.has((k,))]
+        if not problem.path and self._data is not None and missing == ["transitions"]:
+            # the file-level "missing transitions" (the only required key missing): shown where
+            # the user adds them
+            return FieldError(key=("transitions",), line=problem.line, message=problem_text(problem),
+                              rule=problem.rule, value=problem.value, incomplete=True,
+                              text="Not finished yet: add a transition (Transitions section): the model has none")
+        return FieldError.from_problem(problem, self.get, self._is_incomplete(problem))
+
+    def _is_incomplete(self, problem: Problem) -> bool:
+        """A model being built rather than a wrong value, read from the document's structure: a
+        state no transition touches yet (just added), a living state that no transition leaves
+        yet, or no transitions at all."""
+        path = tuple(problem.path)
+        if self._data is None:
+            return False
+        if not self.has(("transitions",)) and (path in ((), ("transitions",)) or path[:1] == ("states",)):
+            return True
+        if len(path) in (2, 3) and path[0] == "states" and isinstance(path[1], int) and path[2:] in ((), ("name",)):
+            state = self.get(path[:2])
+            if isinstance(state, dict) and isinstance(state.get("name"), str) and state["name"]:
+                transitions = self.tables("transitions")
+                leaving = {t.get("from") for t in transitions}
+                touched = leaving | {t.get("to") for t in transitions}
+                return state["name"] not in touched or (not state.get("absorbing") and state["name"] not in leaving)
+        return False
 
     # ------------------------------------------------------------------ files
     def load_text(self, text: str, path: Path | None = None, origin: str = "") -> None:
@@ -474,12 +555,17 @@ class ScenarioDocument(QObject):
         self._path = Path(path).resolve() if path is not None else None
         self._origin = origin
         self._autosaved = text
-        self.undo_stack.clear()
-        self._apply(text)
-        self.undo_stack.setClean()
+        self._loading = True  # the new file's recovery file stays until the user has been asked
+        try:
+            self.undo_stack.clear()
+            self._apply(text)
+            self.undo_stack.setClean()
+        finally:
+            self._loading = False
         self.dirty_changed.emit(False)
         if self._path != old_path or path is None:
             self.path_changed.emit(self._path)
+        self.loaded.emit()
 
     def open(self, path: str | Path) -> None:
         """Read a scenario file (kept even if invalid: problems are reported, not rejected)."""
@@ -499,8 +585,19 @@ class ScenarioDocument(QObject):
             raise DocumentError(str(err)) from None
         self.load_text(text, None, origin=f"demo {name}")
 
+    def new_blank(self) -> None:
+        """An untitled blank model (:data:`BLANK_TEXT`)."""
+        self.load_text(BLANK_TEXT, None, origin="new model")
+
+    @property
+    def origin(self) -> str:
+        """What an untitled document was made from (``"demo lanthic"``, ``"new model"``), else ``""``."""
+        return self._origin
+
     def save(self) -> Path:
-        """Write the text to the current file (atomic) and forget the recovery file."""
+        """Write the text to the current file (atomic: written, flushed and synced to disk, then
+        renamed over the file by :func:`sim.io.atomic.write_text_atomic`) and forget the recovery
+        file."""
         if self._path is None:
             raise DocumentError("This scenario has no file yet; use Save as.")
         try:
@@ -514,20 +611,50 @@ class ScenarioDocument(QObject):
         return self._path
 
     def save_as(self, path: str | Path) -> Path:
-        """Write to ``path`` and make it the document's file."""
+        """Write to ``path`` and make it the document's file.
+
+        Relative file paths (the keys the scenario schema marks as files, e.g. the life table's
+        ``file``) are read from the scenario's folder: saved into another folder they are
+        rewritten relative to it, as one undoable edit (listed in :attr:`relocated`)."""
         old_recovery = self.recovery_path()
         previous = self._path
         self._path = Path(path).resolve()
+        old_dir = previous.parent if previous is not None else Path.cwd()
+        self.relocated = self._relocate_files(old_dir, self._path.parent)
         try:
             self.save()
         except DocumentError:
             self._path = previous
+            if self.relocated:
+                self.undo_stack.undo()
+            self.relocated = []
             raise
         if old_recovery.exists() and old_recovery != self.recovery_path():
             old_recovery.unlink(missing_ok=True)
         self._origin = ""
         self.path_changed.emit(self._path)
         return self._path
+
+    def _relocate_files(self, old_dir: Path, new_dir: Path) -> list[tuple[KeyPath, str, str]]:
+        """Rewrite relative file paths written for ``old_dir`` so that they name the same files
+        from ``new_dir``; returns (key, old text, new text) for each one changed."""
+        if self._data is None or old_dir.resolve() == new_dir.resolve():
+            return []
+        changes = []
+        for key in file_keys(self._data.unwrap()):
+            text = self.get(key)
+            if not text or Path(text).is_absolute():
+                continue
+            target = os.path.normpath(old_dir / text)
+            try:
+                new_text = Path(os.path.relpath(target, new_dir)).as_posix()
+            except ValueError:  # another drive (Windows): an absolute path
+                new_text = Path(target).as_posix()
+            if new_text != text:
+                changes.append((key, text, new_text))
+        if changes:
+            self.set_values([(k, new) for k, _, new in changes], "Rewrite file paths for the new folder")
+        return changes
 
     # ------------------------------------------------------------------ recent files
     def recent_files(self) -> list[Path]:
@@ -542,24 +669,43 @@ class ScenarioDocument(QObject):
         self._settings.sync()
         self.recent_changed.emit()
 
+    def dialog_folder(self) -> str:
+        """Where a file dialog starts: the folder the user last chose a file in (this session),
+        else the scenario's folder, else the working folder."""
+        if self._last_folder is not None and self._last_folder.is_dir():
+            return str(self._last_folder)
+        return str(self._path.parent if self._path is not None else Path.cwd())
+
+    def remember_folder(self, folder: str | Path) -> None:
+        """The folder a file dialog was last used in."""
+        self._last_folder = Path(folder)
+
     def clear_recent(self) -> None:
         self._settings.remove(RECENT_KEY)
         self.recent_changed.emit()
 
     # ------------------------------------------------------------------ autosave and recovery
     def recovery_path(self, path: Any = ...) -> Path:
-        """Recovery file of ``path`` (default: the current file; ``None``: an untitled scenario)."""
+        """Recovery file of ``path`` (default: the current file; ``None``: an untitled scenario,
+        which has one of its own per origin: ``untitled-demo-lanthic.toml``, so that a session on
+        one demo is never offered another demo's edits)."""
         if path is ...:
             path = self._path
         if path is None:
-            return self.recovery_dir / "untitled.toml"
+            slug = re.sub(r"[^A-Za-z0-9]+", "-", self._origin).strip("-").lower()
+            return self.recovery_dir / (f"untitled-{slug}.toml" if slug else "untitled.toml")
         full = str(Path(path).resolve())
         digest = hashlib.sha1(full.encode("utf-8")).hexdigest()[:12]
         return self.recovery_dir / f"{Path(path).stem}-{digest}.toml"
 
     def autosave_now(self) -> Path | None:
-        """Write unsaved text to the recovery file (what the timer calls); returns its path if written."""
-        if not self.dirty or self._text == self._autosaved:
+        """Write unsaved text to the recovery file (what the timer calls); returns its path if written.
+        With nothing unsaved, a recovery file left from earlier edits is removed."""
+        if not self.dirty:
+            if self.recovery_path().exists():
+                self.discard_recovery()
+            return None
+        if self._text == self._autosaved:
             return None
         target = self.recovery_path()
         try:

@@ -5,7 +5,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from PySide6.QtCore import QSize, Qt, Signal
+from PySide6.QtCore import QEvent, QObject, QSize, Qt, QTimer, Signal
 from PySide6.QtGui import QCloseEvent, QColor, QDragEnterEvent, QDropEvent, QKeySequence
 from PySide6.QtWidgets import (QFileDialog, QHBoxLayout, QLabel, QListWidget, QMainWindow, QMessageBox,
                                QPushButton, QScrollArea, QSplitter, QStackedWidget, QTabWidget, QVBoxLayout,
@@ -14,16 +14,18 @@ from PySide6.QtWidgets import (QFileDialog, QHBoxLayout, QLabel, QListWidget, QM
 from gui.about import AboutDialog
 from gui.diagram import ModelDiagram
 from gui.document import DocumentError, FieldError, ScenarioDocument
-from gui.editors import PANELS, EditorPanel, SourceEditor, TransitionsEditor
+from gui.editors import PANELS, BackgroundEditor, EditorPanel, SourceEditor, TransitionsEditor
 from gui.palette import OKABE_ITO
 from gui.preview import HazardPreview
 from gui.results import ResultsPanel
 from gui.run_panel import RunPanel
+from gui.shortcuts import FieldShortcuts
 from sim.io.demo import DEMOS
 
 __all__ = ["MainWindow"]
 
 APP = "HazardTrace"
+HINT_COLOUR = OKABE_ITO["blue"]
 
 
 class MainWindow(QMainWindow):
@@ -41,6 +43,11 @@ class MainWindow(QMainWindow):
     def __init__(self, document: ScenarioDocument | None = None, parent: QWidget | None = None) -> None:
         super().__init__(parent)
         self.document = document if document is not None else ScenarioDocument(self)
+        self._pending_recovery = False
+        self._run_generation = -1  # which loaded scenario the results shown belong to
+        self._generation = 0
+        self._run_text = ""
+        self._last_run_text = ""
         self.setAcceptDrops(True)
         self.resize(QSize(1600, 1000))
         self._build_panels()
@@ -65,6 +72,7 @@ class MainWindow(QMainWindow):
             self.stack.addWidget(scroll)
         self.sections.currentRowChanged.connect(self._on_section_changed)
         self.sections.itemClicked.connect(self._on_section_clicked)
+        self.sections.viewport().installEventFilter(self)
         self.sections.setCurrentRow(0)
         self.sections.setMaximumHeight(8 + self.sections.sizeHintForRow(0) * (len(self.editors) + 1))
         self.run_panel = RunPanel()
@@ -111,9 +119,20 @@ class MainWindow(QMainWindow):
         self.model_page.setStretchFactor(0, 2)
         self.model_page.setStretchFactor(1, 3)
         self.results_panel = ResultsPanel()
+        self.results_banner = QLabel()
+        self.results_banner.setObjectName("results_banner")
+        self.results_banner.setWordWrap(True)
+        self.results_banner.setStyleSheet(f"QLabel {{ border: 1px solid {OKABE_ITO['orange']}; padding: 4px; "
+                                          f"background: #FFF4E0; }}")
+        self.results_banner.hide()
+        self.results_page = QWidget()
+        rv = QVBoxLayout(self.results_page)
+        rv.setContentsMargins(0, 0, 0, 0)
+        rv.addWidget(self.results_banner)
+        rv.addWidget(self.results_panel, 1)
         self.tabs = QTabWidget()
         self.tabs.addTab(self.model_page, "Model")
-        self.tabs.addTab(self.results_panel, "Results")
+        self.tabs.addTab(self.results_page, "Results")
 
         split = QSplitter(Qt.Orientation.Horizontal)
         split.addWidget(left)
@@ -133,6 +152,8 @@ class MainWindow(QMainWindow):
     def _build_menus(self) -> None:
         doc = self.document
         file_menu = self.menuBar().addMenu("&File")
+        self.new_action = file_menu.addAction("&New", QKeySequence.StandardKey.New, self.new_blank)
+        self.new_action.setToolTip("A blank model: two states, alive and dead")
         demos = file_menu.addMenu("New from demo")
         for name, filename in DEMOS.items():
             act = demos.addAction(f"{name} ({filename})")
@@ -148,13 +169,16 @@ class MainWindow(QMainWindow):
         self.quit_action = file_menu.addAction("&Quit", QKeySequence.StandardKey.Quit, self.close)
         edit_menu = self.menuBar().addMenu("&Edit")
         self.undo_action = doc.undo_stack.createUndoAction(self, "&Undo")
-        self.undo_action.setShortcut(QKeySequence.StandardKey.Undo)
+        self.undo_action.setShortcuts(QKeySequence.StandardKey.Undo)  # every binding of the platform
         self.redo_action = doc.undo_stack.createRedoAction(self, "&Redo")
-        self.redo_action.setShortcut(QKeySequence.StandardKey.Redo)
+        self.redo_action.setShortcuts(QKeySequence.StandardKey.Redo)  # Ctrl+Y and Ctrl+Shift+Z
         edit_menu.addAction(self.undo_action)
         edit_menu.addAction(self.redo_action)
         help_menu = self.menuBar().addMenu("&Help")
         self.about_action = help_menu.addAction("&About HazardTrace", self.show_about)
+        self.field_shortcuts = FieldShortcuts(self, [self.undo_action, self.redo_action, self.new_action,
+                                                     self.open_action, self.save_action, self.save_as_action,
+                                                     self.quit_action])
 
     def _fill_recent(self) -> None:
         self.recent_menu.clear()
@@ -173,40 +197,65 @@ class MainWindow(QMainWindow):
         doc.validated.connect(self._on_validated)
         doc.dirty_changed.connect(self._on_dirty_changed)
         doc.path_changed.connect(self._on_path_changed)
+        doc.loaded.connect(self._on_loaded)
+        doc.changed.connect(self._update_results_state)
         transitions = self.editor(TransitionsEditor)
         transitions.selected.connect(self._on_transition_selected)
         self.diagram.transition_clicked.connect(self._on_diagram_clicked)
+        self.run_panel.run_started.connect(self._on_run_started)
         self.run_panel.results_ready.connect(self._on_results_ready)
         self.results_panel.results_shown.connect(self.results_shown)
+        self.results_panel.results_shown.connect(self.run_panel.mark_shown)  # time from Run to results shown
 
     # ------------------------------------------------------------------ slots
     def _on_validated(self, scenario: object, errors: list[FieldError]) -> None:
-        reason = errors[0].message if errors else ""
+        reason = errors[0].text if errors else ""
         if len(errors) > 1:
             reason += f" (and {len(errors) - 1} more problem{'s' if len(errors) > 2 else ''})"
         self._problem_keys, self._problem_index = [], -1
         self.go_button.setText("Show" if len(errors) < 2 else "Show next")
         self.run_panel.set_scenario(scenario, reason)
-        self.problem.setText(f"Problem: {reason}" if errors else "")
+        hint = bool(errors) and all(e.incomplete for e in errors)
+        self.problem.setText(reason if hint else f"Problem: {reason}" if errors else "")
+        self.problem.setStyleSheet(f"color: {HINT_COLOUR if hint else OKABE_ITO['vermillion']};")
         self._update_problem_bar()
         for i, ed in enumerate(self.editors):
             item = self.sections.item(i)
             # the text view lists every problem; mark it only for those no form can show (broken TOML)
             bad = any(not e.key for e in errors) if isinstance(ed, SourceEditor) else bool(ed.errors)
-            item.setData(Qt.ItemDataRole.ForegroundRole, QColor(OKABE_ITO["vermillion"]) if bad else None)
-            item.setText(ed.title + (" (problem)" if bad else ""))
+            unfinished = bad and all(e.incomplete for e in (errors if isinstance(ed, SourceEditor) else ed.errors))
+            colour = HINT_COLOUR if unfinished else OKABE_ITO["vermillion"]
+            item.setData(Qt.ItemDataRole.ForegroundRole, QColor(colour) if bad else None)
+            item.setText(ed.title + ((" (to finish)" if unfinished else " (problem)") if bad else ""))
         n = len(errors)
         self.statusBar().showMessage("Scenario valid" if scenario is not None else
+                                     "Model not finished yet" if hint else
                                      "Scenario has a problem" if n <= 1 else f"Scenario has {n} problems")
 
     def _on_section_changed(self, row: int) -> None:
         self.stack.setCurrentIndex(row)
+        if not hasattr(self, "preview"):
+            return
+        if isinstance(self.editors[row], BackgroundEditor):  # the preview shows what is edited
+            self.preview.show_background()
+        elif isinstance(self.editors[row], TransitionsEditor):
+            self._on_transition_selected(self.editors[row].current_index)
         if hasattr(self, "tabs"):
             self.tabs.setCurrentWidget(self.model_page)
         self._update_problem_bar()
 
     def _on_section_clicked(self, _item: object) -> None:
         self.tabs.setCurrentWidget(self.model_page)
+
+    def eventFilter(self, obj: QObject, event: QEvent) -> bool:  # noqa: N802 - Qt API
+        """The section under a released left button is shown even when its press went to
+        committing a field's edit (the first click after typing was lost otherwise)."""
+        if (obj is self.sections.viewport() and event.type() == QEvent.Type.MouseButtonRelease
+                and event.button() == Qt.MouseButton.LeftButton):
+            row = self.sections.indexAt(event.position().toPoint()).row()
+            if row >= 0 and row != self.sections.currentRow():
+                self.sections.setCurrentRow(row)
+        return super().eventFilter(obj, event)
 
     def _update_problem_bar(self) -> None:
         """The window-wide problem line shows unless the open section already lists the problem."""
@@ -239,9 +288,49 @@ class MainWindow(QMainWindow):
             self.show_editor(transitions)
             transitions.select(names.index(name))
 
+    def _on_run_started(self) -> None:
+        self._run_generation, self._run_text = self._generation, self.document.text
+
     def _on_results_ready(self, results: object) -> None:
+        scenario = getattr(results, "scenario", None)
+        if self._run_generation != self._generation:  # results that did not come through Run
+            self._run_generation = self._generation
+            self._run_text = getattr(scenario, "text", self.document.text)
+        self._last_run_text = self.run_panel.last_run.text()
         self.results_panel.show_results(results)
-        self.tabs.setCurrentWidget(self.results_panel)
+        self.tabs.setCurrentWidget(self.results_page)
+        self._update_results_state()
+
+    def _on_loaded(self) -> None:
+        self._generation += 1
+        self._update_results_state()
+
+    def results_state(self) -> str:
+        """``"none"`` (no run yet), ``"current"``, ``"edited"`` (the model changed since the run) or
+        ``"previous"`` (the run belongs to the scenario open before)."""
+        if self.results_panel.results is None or self._run_generation < 0:
+            return "none"
+        if self._run_generation != self._generation:
+            return "previous"
+        return "current" if self.document.text == self._run_text else "edited"
+
+    def _update_results_state(self) -> None:
+        """Label results that no longer match what is being edited: the tab, a banner above them
+        and the run panel's "Last run" line."""
+        state = self.results_state()
+        banner = {
+            "previous": "These results belong to the previous scenario, not to "
+                        f"{self.document.display_name}. Run to see this scenario's results.",
+            "edited": "These results are from an earlier version of the model: it has been edited since "
+                      "the run. Run again to update them.",
+        }.get(state, "")
+        self.results_banner.setText(banner)
+        self.results_banner.setVisible(bool(banner))
+        suffix = {"previous": " (previous scenario)", "edited": " (out of date)"}.get(state, "")
+        self.tabs.setTabText(self.tabs.indexOf(self.results_page), "Results" + suffix)
+        if self._last_run_text:
+            prefix = {"previous": "Previous scenario's run. ", "edited": "Before the last edits. "}.get(state, "")
+            self.run_panel.last_run.setText(prefix + self._last_run_text)
 
     def go_to_problem(self) -> None:
         """Show the section and field of a problem: the first, then the next one on each call while
@@ -255,6 +344,7 @@ class MainWindow(QMainWindow):
         else:
             self._problem_index = (self._problem_index + 1) % len(errors)
         err = errors[self._problem_index]
+        self.statusBar().showMessage(err.text, 8000)
         target = next((ed for ed in self.editors if err.key and err.key[0] in ed.sections), None)
         if target is None:
             source = self.editor(SourceEditor)
@@ -266,12 +356,25 @@ class MainWindow(QMainWindow):
         target.focus_key(err.key)
 
     # ------------------------------------------------------------------ files
-    def start(self, path: str | Path | None = None) -> None:
-        """Open ``path``, or an untitled copy of the first demo (offering unsaved recovered work)."""
+    def start(self, path: str | Path | None = None) -> bool:
+        """Open ``path``, or an untitled copy of the first demo (offering unsaved recovered work once
+        the window is shown). A file that cannot be read is reported and a blank model starts
+        instead (never an empty, disabled window); returns False then."""
         if path is not None:
-            self.open_path(path, ask_save=False)
-            return
+            if self.open_path(path, ask_save=False):
+                return True
+            self.document.new_blank()
+            self.statusBar().showMessage(f"Could not open {path}; started a new model instead.")
+            return False
         self.document.new_from_demo(next(iter(DEMOS)))
+        self._offer_recovery()
+        return True
+
+    def new_blank(self) -> None:
+        """File -> New: a blank model with two states (alive, dead)."""
+        if not self.maybe_save():
+            return
+        self.document.new_blank()
         self._offer_recovery()
 
     def new_from_demo(self, name: str) -> None:
@@ -287,9 +390,10 @@ class MainWindow(QMainWindow):
     def open_dialog(self) -> None:
         if not self.maybe_save():
             return
-        start = str(self.document.path.parent) if self.document.path else ""
-        path, _ = QFileDialog.getOpenFileName(self, "Open scenario", start, "Scenario files (*.toml);;All files (*)")
+        path, _ = QFileDialog.getOpenFileName(self, "Open scenario", self.document.dialog_folder(),
+                                              "Scenario files (*.toml);;All files (*)")
         if path:
+            self.document.remember_folder(Path(path).parent)
             self.open_path(path, ask_save=False)
 
     def open_path(self, path: str | Path, ask_save: bool = True) -> bool:
@@ -305,6 +409,12 @@ class MainWindow(QMainWindow):
         return True
 
     def _offer_recovery(self) -> None:
+        """Offer edits kept from an earlier session; asked once the window is on screen (at
+        start-up the question waits for the window instead of showing over an empty screen)."""
+        if not self.isVisible():
+            self._pending_recovery = True
+            return
+        self._pending_recovery = False
         recovery = self.document.find_recovery()
         if recovery is None:
             return
@@ -330,7 +440,7 @@ class MainWindow(QMainWindow):
         return True
 
     def save_as(self) -> bool:
-        start = str(self.document.path) if self.document.path else self.document.suggested_name
+        start = str(Path(self.document.dialog_folder()) / self.document.suggested_name)
         path, _ = QFileDialog.getSaveFileName(self, "Save scenario as", start, "Scenario files (*.toml)")
         if not path:
             return False
@@ -340,7 +450,10 @@ class MainWindow(QMainWindow):
         except DocumentError as err:
             QMessageBox.warning(self, APP, str(err))
             return False
-        self.statusBar().showMessage(f"Saved {target}", 4000)
+        self.document.remember_folder(target.parent)
+        moved = "; ".join(f"{old} \u2192 {new}" for _key, old, new in self.document.relocated)
+        self.statusBar().showMessage(f"Saved {target}" + (f" (file paths rewritten for the new folder: {moved})"
+                                                          if moved else ""), 8000)
         return True
 
     def maybe_save(self) -> bool:
@@ -370,9 +483,17 @@ class MainWindow(QMainWindow):
             self._sized = True
             width = self.model_page.width()
             self.model_page.setSizes([int(width * 0.4), width - int(width * 0.4)])
+        if self._pending_recovery:
+            QTimer.singleShot(0, self._offer_pending_recovery)
+
+    def _offer_pending_recovery(self) -> None:
+        if self._pending_recovery and self.isVisible():
+            self._offer_recovery()
 
     def closeEvent(self, event: QCloseEvent) -> None:  # noqa: N802 - Qt API
         if self.maybe_save():
+            if not self.document.dirty:  # a clean quit leaves nothing to recover
+                self.document.discard_recovery()
             self.run_panel.shutdown()
             self.results_panel.shutdown()
             event.accept()

@@ -141,6 +141,7 @@ class HazardPreview(QWidget):
         self.point: CyclePoint | None = None
         self._build()
         document.validated.connect(self._on_validated)
+        document.loaded.connect(self._on_loaded)
         self._on_validated(document.scenario, document.errors)
 
     def _build(self) -> None:
@@ -261,6 +262,22 @@ class HazardPreview(QWidget):
         if self._current_range() != old_clock_range:
             self._reset_reference()
         self._update()
+
+    def _on_loaded(self) -> None:
+        """Another scenario: nothing of the previous one stays on screen (until this one is valid)."""
+        if self.document.scenario is not None:
+            return  # already shown by _on_validated
+        self._model, self.curves, self.point = None, None, None
+        for combo in (self.exit_combo, self.strategy_combo, self.sex_combo):
+            self._set_items(combo, [], "")
+        for curve in (self.hazard_curve, self.survival_curve, self.p_curve, self.p_small_curve):
+            curve.setData([], [])
+        self.never_line.setVisible(False)
+        self.info.setText("The preview appears once the scenario is valid.")
+
+    def show_background(self) -> None:
+        """Preview background death (what the background-mortality section edits), by sex."""
+        self.select_exit(BACKGROUND)
 
     def _on_selection_changed(self, _text: str = "") -> None:
         if self.sender() is self.exit_combo and self.exit_combo.currentText():

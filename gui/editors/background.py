@@ -309,11 +309,11 @@ class BackgroundEditor(EditorPanel):
                                 "Background life table: " + (f"fit {value}" if value else "no fit"))
 
     def _on_browse(self) -> None:
-        start = str(self.document.path.parent) if self.document.path else str(Path.cwd())
-        path, _ = QFileDialog.getOpenFileName(self, "Choose a life table", start,
+        path, _ = QFileDialog.getOpenFileName(self, "Choose a life table", self.document.dialog_folder(),
                                               "Life tables (*.csv *.xlsx);;All files (*)")
         if not path:
             return
+        self.document.remember_folder(Path(path).parent)
         chosen = Path(path)
         if self.document.path is not None:
             try:

@@ -8,7 +8,7 @@ from PySide6.QtCore import Qt
 from PySide6.QtWidgets import QLabel, QVBoxLayout, QWidget
 
 from gui.document import FieldError, KeyPath, ScenarioDocument
-from gui.editors.fields import INVALID_COLOUR, FieldSet
+from gui.editors.fields import HINT_COLOUR, INVALID_COLOUR, FieldSet
 
 __all__ = ["EditorPanel"]
 
@@ -72,8 +72,11 @@ class EditorPanel(QWidget):
 
     def _on_validated(self, scenario: object, errors: list) -> None:
         self._errors = [e for e in errors if e.key and e.key[0] in self.sections]
-        self.banner.setText("\n".join(e.message for e in self._errors))
+        self.banner.setText("\n".join(e.text for e in self._errors))
         self.banner.setVisible(bool(self._errors))
+        hint = bool(self._errors) and all(e.incomplete for e in self._errors)
+        self.banner.setStyleSheet(f"QLabel {{ border: 1px solid {HINT_COLOUR if hint else INVALID_COLOUR}; "
+                                  f"padding: 4px; }}")
         for fs in self.field_sets():
             fs.apply_errors(self._errors)
         self._show_validation(scenario, self._errors)

@@ -1,8 +1,9 @@
 """Edit widgets bound to key paths of the scenario document, and how invalid input is marked.
 
 A :class:`FieldSet` creates the widgets, fills them from the document (:meth:`FieldSet.refresh`),
-writes the user's input back as undoable edits, and marks the widgets the loader complained about
-with a red border and the loader's exact message as tooltip.
+writes the user's input back as undoable edits (a line edit after a short pause in typing, or when
+it loses focus), and marks the widgets the loader complained about with a red border (blue for a
+model not finished yet) and every problem of the field, in the user's words, as tooltip.
 """
 
 from __future__ import annotations
@@ -11,15 +12,18 @@ import re
 from dataclasses import dataclass, field
 from typing import Any, Callable, Iterable, Sequence
 
-from PySide6.QtCore import Qt
+from PySide6.QtCore import Qt, QTimer
 from PySide6.QtWidgets import QCheckBox, QComboBox, QLineEdit, QWidget
 
 from gui.document import FieldError, KeyPath, ScenarioDocument, format_key
 from gui.palette import OKABE_ITO
 
-__all__ = ["FieldSet", "Binding", "mark_invalid", "parse_typed", "INVALID_COLOUR"]
+__all__ = ["FieldSet", "Binding", "mark_invalid", "parse_typed", "INVALID_COLOUR", "HINT_COLOUR", "TYPING_PAUSE_MS"]
 
 INVALID_COLOUR = OKABE_ITO["vermillion"]
+HINT_COLOUR = OKABE_ITO["blue"]
+#: A line edit's text is applied (and validated) this long after the last key typed.
+TYPING_PAUSE_MS = 400
 _INT = re.compile(r"^[+-]?\d+$")
 
 
@@ -45,13 +49,14 @@ def parse_list(text: str) -> list[Any] | None:
     return [parse_typed(p) for p in parts] or None
 
 
-def mark_invalid(widget: QWidget, messages: Sequence[str]) -> None:
-    """Red border and the messages as tooltip; no messages restores the widget's help text."""
+def mark_invalid(widget: QWidget, messages: Sequence[str], hint: bool = False) -> None:
+    """Red border (blue for a ``hint``: not finished yet) and the messages as tooltip; no messages
+    restores the widget's help text."""
     if messages:
         widget.setProperty("invalid", True)
         widget.setAttribute(Qt.WidgetAttribute.WA_StyledBackground, True)
         selector = widget.metaObject().className()  # the widget's own class: children keep their look
-        widget.setStyleSheet(f"{selector} {{ border: 2px solid {INVALID_COLOUR}; }}")
+        widget.setStyleSheet(f"{selector} {{ border: 2px solid {HINT_COLOUR if hint else INVALID_COLOUR}; }}")
         widget.setToolTip("\n".join(messages))
     elif widget.property("invalid"):
         widget.setProperty("invalid", False)
@@ -95,6 +100,13 @@ class FieldSet:
         b = Binding(tuple(key), w, kind, commit)
         self.bindings.append(b)
         w.editingFinished.connect(lambda b=b: self._line_finished(b))
+        if commit is None:  # not for renames: a half-typed name must not rename the references
+            timer = QTimer(w)
+            timer.setSingleShot(True)
+            timer.setInterval(TYPING_PAUSE_MS)
+            timer.timeout.connect(lambda b=b: self._line_finished(b))
+            w.textEdited.connect(timer.start)
+            w.editingFinished.connect(timer.stop)
         self._fill(b)
         return w
 
@@ -149,7 +161,9 @@ class FieldSet:
         try:
             if isinstance(w, QLineEdit):
                 text = self.document.display(b.key)
-                if w.text() != text:
+                if w.hasFocus() and w.text() != text and self._typed_value(b, w.text()) == self.document.get(b.key):
+                    pass  # being typed and applied already ("1." stays "1." rather than becoming "1.0")
+                elif w.text() != text:
                     w.setText(text)
                     w.setCursorPosition(0)
             elif isinstance(w, QComboBox):
@@ -166,16 +180,21 @@ class FieldSet:
             w.blockSignals(False)
 
     # ------------------------------------------------------------------ widgets -> model
+    @staticmethod
+    def _typed_value(b: Binding, text: str) -> Any:
+        if b.kind == "text":
+            return text if text.strip() else None
+        if b.kind == "list":
+            return parse_list(text)
+        return parse_typed(text)
+
     def _line_finished(self, b: Binding) -> None:
         text = b.widget.text()
         if not b.alive or text == self.document.display(b.key):
             return
-        if b.kind == "text":
-            value: Any = text if text.strip() else None
-        elif b.kind == "list":
-            value = parse_list(text)
-        else:
-            value = parse_typed(text)
+        value = self._typed_value(b, text)
+        if b.commit is None and value == self.document.get(b.key) and type(value) is type(self.document.get(b.key)):
+            return  # the same value spelled otherwise ("1." for 1.0): nothing to change
         self._write(b, value)
 
     def _combo_activated(self, b: Binding) -> None:
@@ -194,13 +213,16 @@ class FieldSet:
     # ------------------------------------------------------------------ problems
     def apply_errors(self, errors: Sequence[FieldError]) -> list[QWidget]:
         """Mark widgets whose key has a problem; returns the marked widgets."""
-        found: dict[int, tuple[QWidget, list[str]]] = {}
+        found: dict[int, tuple[QWidget, list[str], list[bool]]] = {}
         for key, w in [(b.key, b.widget) for b in self.bindings] + self.groups:
-            entry = found.setdefault(id(w), (w, []))
-            entry[1].extend(e.message for e in errors if e.key == key and e.message not in entry[1])
-        for w, msgs in found.values():
-            mark_invalid(w, msgs)
-        return [w for w, msgs in found.values() if msgs]
+            entry = found.setdefault(id(w), (w, [], []))
+            for e in errors:
+                if e.key == key and e.text not in entry[1]:
+                    entry[1].append(e.text)
+                    entry[2].append(e.incomplete)
+        for w, msgs, hints in found.values():
+            mark_invalid(w, msgs, hint=bool(hints) and all(hints))
+        return [w for w, msgs, _ in found.values() if msgs]
 
     def widget_at(self, key: KeyPath) -> QWidget | None:
         """The widget bound (or grouped) exactly at ``key``."""

@@ -120,7 +120,7 @@ class ListDetailPanel(EditorPanel):
     def _show_validation(self, scenario: object, errors: list[FieldError]) -> None:
         for i in range(self.list.count()):
             item = self.list.item(i)
-            msgs = [e.message for e in errors if e.concerns((self.array, i))]
+            msgs = [e.text for e in errors if e.concerns((self.array, i))]
             item.setData(Qt.ItemDataRole.ForegroundRole, QBrush(QColor(INVALID_COLOUR)) if msgs else None)
             item.setToolTip("\n".join(msgs))
 

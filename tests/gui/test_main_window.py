@@ -77,15 +77,15 @@ def test_invalid_input_disables_run_with_the_loaders_message(window: MainWindow,
     rate.setText("-0.5")
     rate.editingFinished.emit()
     (err,) = window.document.errors
-    assert calls[-1] == (None, err.message)
+    assert calls[-1] == (None, err.text)
     assert not window.run_panel.run_button.isEnabled()
-    assert window.run_panel.reason.text() == err.message
-    assert rate.toolTip() == err.message and err.message in window.problem.text()
+    assert window.run_panel.reason.text() == err.text == "Transition 'recovery': rate must not be negative (got \u22120.5)"
+    assert rate.toolTip() == err.text and err.text in window.problem.text()
     window.go_to_problem()
     assert window.stack.currentWidget().widget() is editor
     window.document.set_value(("horizon", "value"), 500)  # a second problem, elsewhere
     assert len(window.document.errors) == 2
-    assert window.run_panel.reason.text() == f"{err.message} (and 1 more problem)"
+    assert window.run_panel.reason.text() == f"{err.text} (and 1 more problem)"
     assert window.go_button.text() == "Show next"
     assert window.statusBar().currentMessage() == "Scenario has 2 problems"
     window.go_to_problem()  # the first problem, then the next, then the first again
@@ -182,6 +182,7 @@ def test_recovery_is_offered_when_opening(window: MainWindow, tmp_path: Path, mo
     recovered = DEMO_TEXT.replace("value = 100", "value = 77")
     recovery.write_text(recovered, encoding="utf-8")
     asked = answer(monkeypatch, Button.Yes)
+    window.show()
     window.open_path(path)
     assert asked and asked[0][0] == "Recover unsaved changes"
     assert window.document.text == recovered and window.document.dirty
@@ -221,7 +222,7 @@ def test_results_flow_to_the_results_panel(qtbot, window: MainWindow) -> None:
     results = run_scenario(window.document.scenario, patients=2000, workers=1, study=False)
     with qtbot.waitSignal(window.results_shown, timeout=20000):
         window.run_panel.results_ready.emit(results)
-    assert window.tabs.currentWidget() is window.results_panel
+    assert window.tabs.currentWidget() is window.results_page
 
 
 def test_screenshot_of_the_main_window(qtbot, window: MainWindow) -> None:
