@@ -330,6 +330,9 @@ class ScenarioDocument(QObject):
         The file path (``Path`` or ``None``) changed.
     recent_changed()
         The recent-files list changed.
+    notice(str)
+        A sentence for the user about an edit just made (e.g. how a new hazard family's
+        parameters were chosen); the window shows it in its status bar.
     loaded()
         Another scenario was loaded (new, open, new from demo): results of a run belong to the
         previous one.
@@ -348,6 +351,7 @@ class ScenarioDocument(QObject):
     path_changed = Signal(object)
     recent_changed = Signal()
     loaded = Signal()
+    notice = Signal(str)
 
     def __init__(self, parent: QObject | None = None, *, recovery_dir: str | Path | None = None,
                  settings: QSettings | None = None, autosave_ms: int = 5000) -> None:

@@ -198,6 +198,7 @@ class MainWindow(QMainWindow):
         doc.dirty_changed.connect(self._on_dirty_changed)
         doc.path_changed.connect(self._on_path_changed)
         doc.loaded.connect(self._on_loaded)
+        doc.notice.connect(lambda text: self.statusBar().showMessage(text, 15000))
         doc.changed.connect(self._update_results_state)
         transitions = self.editor(TransitionsEditor)
         transitions.selected.connect(self._on_transition_selected)

@@ -12,6 +12,7 @@ from typing import Any, Mapping
 from PySide6.QtWidgets import QComboBox, QFormLayout, QLabel, QWidget
 
 from gui.document import KeyPath, ScenarioDocument, format_key, remove_value, set_value
+from gui.editors.family_start import matched_start
 from gui.editors.fields import FieldSet
 from sim.hazards import (FAMILIES, FAMILY_DIMENSIONS, Dimension, Hazard, UnitError, rate_from_risk, rate_per_year,
                          risk_from_rate)
@@ -30,7 +31,8 @@ FAMILY_LABELS = {
     "gamma": "gamma",
     "piecewise": "piecewise constant",
 }
-# Starting values when the family is changed (the user edits them next).
+# Starting values when the family is changed (the user edits them next); the level parameter is
+# then matched to the previous hazard (gui.editors.family_start).
 DEFAULTS: dict[str, dict[str, Any]] = {
     "exponential": {"rate": 0.1},
     "weibull": {"shape": 1.2, "scale": 10.0},
@@ -166,16 +168,47 @@ class HazardForm(QWidget):
 
     # ------------------------------------------------------------------ edits
     def _set_family(self, family: Any) -> None:
+        """Switch to ``family``, starting at the level of the hazard it replaces (and say so)."""
         if not isinstance(family, str) or family not in FAMILIES:
             return
+        t, where = self._reference_clock()
+        unit = str(self.document.get((*self.base, "unit"), "years"))
+        start = matched_start(family, DEFAULTS[family], self._current_hazard(), t,
+                              unit if unit in TIME_UNITS else "years", where)
 
         def change(doc: Any) -> None:
             for key in ALL_HAZARD_KEYS - {"unit"}:
                 remove_value(doc, (*self.base, key))
             set_value(doc, (*self.base, "family"), family)
-            for k, v in DEFAULTS[family].items():
+            for k, v in start.params.items():
                 set_value(doc, (*self.base, k), v)
-        self.document.edit(f"Set {self.base_label()} family to {family}", change)
+        if self.document.edit(f"Set {self.base_label()} family to {family}", change):
+            self.document.notice.emit(f"{self.base_label()}: {start.note}")
+
+    def _current_hazard(self) -> Hazard | None:
+        """The hazard of this form in the validated model (years), or None."""
+        scenario = self.document.scenario
+        if scenario is None:
+            return None
+        model, base = scenario.model, self.base
+        if len(base) == 2 and base[0] == "transitions" and isinstance(base[1], int) and base[1] < len(model.transitions):
+            return model.transitions[base[1]].hazard
+        if len(base) == 2 and base[0] == "background" and model.background is not None:
+            return model.background.hazards.get(base[1])
+        return None
+
+    def _reference_clock(self) -> tuple[float, str]:
+        """Where the old and new hazards are made equal: the mean entry age on the age clock, else
+        5 years on the clock."""
+        if self.base[0] == "background":
+            clock = self.document.get(("background", "clock"), "age")
+        else:
+            clock = self.document.get((*self.base, "clock"), "entry")
+        scenario = self.document.scenario
+        if clock == "age":
+            age = float(scenario.model.population.entry_age.mean) if scenario is not None else 50.0
+            return age, f"age {age:g}"
+        return 5.0, "5 years " + ("in the state" if clock == "state" else "after entry")
 
     def _on_mode_chosen(self, index: int) -> None:
         mode = self.mode_combo.itemData(index) if self.mode_combo is not None else "rate"
