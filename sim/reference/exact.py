@@ -34,7 +34,7 @@ from ..hazards import KERNEL_ERRSTATE
 from ..model.multistate import Clock, Model, ResolvedExit
 
 __all__ = ["NoExactSolution", "ExactSolution", "StackedSolution", "solve_exact", "solve_stacked",
-           "occupancy_for_entry", "occupancy_frame", "population_pairs"]
+           "occupancy_for_entry", "occupancy_frame", "population_pairs", "at_own_horizon"]
 
 RTOL = 1e-10
 ATOL = 1e-12
@@ -253,9 +253,24 @@ def occupancy_for_entry(model: Model, strategy: str, entry_age: float, sex: int,
     return sol.occupancy[0], sol.integrals[0, 0], sol.integrals[1, 0]
 
 
+def at_own_horizon(times: NDArray[np.float64], horizon: NDArray[np.float64]
+                   ) -> tuple[NDArray[np.float64], NDArray[np.intp]]:
+    """Where to read each (entry age, sex) pair's occupancy so that it counts at ``min(t, its
+    horizon)`` (docs/methods.md, 'Curves to the last horizon'): the sorted unique values ``at`` of
+    min(t, h_m) to solve at, and ``where`` (pairs, times), the index of min(t, h_m) in ``at``. Read
+    with ``np.take_along_axis(occupancy, where[:, :, None], axis=1)``."""
+    own_end = np.minimum(np.asarray(times, dtype=float)[None, :], np.asarray(horizon, dtype=float)[:, None])
+    at = np.unique(own_end)
+    return at, np.searchsorted(at, own_end)
+
+
 def solve_exact(model: Model, times: ArrayLike, strategies: tuple[str, ...] | None = None,
                 discount_rate: float = 0.0, n_nodes: int = 48) -> ExactSolution:
     """Exact occupancy, time in state and life expectancy per strategy, averaged over the population.
+
+    The occupancy counts each (entry age, sex) pair at ``min(t, its horizon)``: past its horizon, in
+    the state it occupied when follow-up ended (:func:`at_own_horizon`), as the run's simulated
+    curves do.
 
     Parameters
     ----------
@@ -279,9 +294,11 @@ def solve_exact(model: Model, times: ArrayLike, strategies: tuple[str, ...] | No
     occ_parts, tis_rows, le_rows = [], [], []
     pair_age, pair_sex, pair_w = population_pairs(model, n_nodes)
     horizon = model.horizon.time_limit(pair_age)
+    at, where = at_own_horizon(times, horizon)
     for name in names:
-        sol = solve_stacked(model, name, pair_age, pair_sex, times, horizon, (0.0, discount_rate))
-        occ_parts.append(occupancy_frame(name, times, states, np.einsum("m,mtn->tn", pair_w, sol.occupancy)))
+        sol = solve_stacked(model, name, pair_age, pair_sex, at, horizon, (0.0, discount_rate))
+        own = np.take_along_axis(sol.occupancy, where[:, :, None], axis=1)  # (pairs, times, states)
+        occ_parts.append(occupancy_frame(name, times, states, np.einsum("m,mtn->tn", pair_w, own)))
         yrs = pair_w @ sol.integrals[0]
         dyrs = pair_w @ sol.integrals[1]
         for j, s in enumerate(states):

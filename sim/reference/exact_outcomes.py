@@ -10,7 +10,7 @@ from numpy.typing import NDArray
 
 from ..analysis.outcomes import combine_outcomes, increments_from_values
 from ..model.multistate import Model
-from .exact import NoExactSolution, occupancy_frame, population_pairs, solve_stacked
+from .exact import NoExactSolution, at_own_horizon, occupancy_frame, population_pairs, solve_stacked
 
 __all__ = ["exact_outcomes", "exact_outcomes_and_occupancy", "with_exact"]
 
@@ -39,9 +39,7 @@ def exact_outcomes_and_occupancy(model: Model, times: NDArray[np.float64], strat
     times = np.atleast_1d(np.asarray(times, dtype=float))
     rows, occupancy = [], []
     names = tuple(strategies or model.strategy_names)
-    own_end = np.minimum(times[None, :], horizon[:, None])  # (pairs, times): min(t, own horizon)
-    at = np.unique(own_end)
-    where = np.searchsorted(at, own_end)
+    at, where = at_own_horizon(times, horizon)  # read each pair at min(t, own horizon)
     sol = solve_stacked(model, names, age, sex, at, horizon, rates)  # one solve for all strategies
     m0 = age.size
     states = model.state_names
