@@ -48,6 +48,7 @@ class MainWindow(QMainWindow):
         self._generation = 0
         self._run_text = ""
         self._last_run_text = ""
+        self._run_pending = False
         self.setAcceptDrops(True)
         self.resize(QSize(1600, 1000))
         self._build_panels()
@@ -291,12 +292,14 @@ class MainWindow(QMainWindow):
 
     def _on_run_started(self) -> None:
         self._run_generation, self._run_text = self._generation, self.document.text
+        self._run_pending = True
 
     def _on_results_ready(self, results: object) -> None:
         scenario = getattr(results, "scenario", None)
-        if self._run_generation != self._generation:  # results that did not come through Run
+        if not self._run_pending:  # results that did not come through Run
             self._run_generation = self._generation
             self._run_text = getattr(scenario, "text", self.document.text)
+        self._run_pending = False
         self._last_run_text = self.run_panel.last_run.text()
         self.results_panel.show_results(results)
         self.tabs.setCurrentWidget(self.results_page)

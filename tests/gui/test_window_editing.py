@@ -391,3 +391,13 @@ def test_preview_shows_what_is_edited_and_nothing_of_the_previous_model(qtbot, w
     window.new_blank()  # invalid until a transition is added: no curve of the demo stays
     assert preview.curves is None and preview.exit_combo.count() == 0
     assert preview.hazard_curve.getData()[0] is None or len(preview.hazard_curve.getData()[0]) == 0
+
+
+def test_a_run_finishing_after_another_scenario_was_opened_is_labelled_previous(qtbot, window: MainWindow,
+                                                                                monkeypatch) -> None:
+    results = run_scenario(window.document.scenario, patients=300, workers=1, study=False)
+    window.run_panel.run_started.emit()  # Run pressed on the demo...
+    window.new_blank()  # ...and another model opened while it runs
+    with qtbot.waitSignal(window.results_shown, timeout=20000):
+        window.run_panel.results_ready.emit(results)
+    assert window.results_state() == "previous" and window.results_banner.isVisibleTo(window)
