@@ -14,7 +14,10 @@ continuous discounting at delta = ln(1 + d): integral of exp(-delta t) p(t) dt.
 
 Results are averaged over the entry-age distribution (Gauss-Legendre nodes on its quantile scale, or
 the points of an empirical distribution) and over the sex mix. The solver is
-``scipy.integrate.solve_ivp`` (DOP853) at rtol 1e-10, atol 1e-12.
+``scipy.integrate.solve_ivp`` at rtol 1e-10, atol 1e-12, restarted at every jump of a hazard (life-table
+band edges) on the axis (time since entry or attained age) with fewer jumps; DOP853, or BDF where the
+system is stiff, with bounded work (:mod:`sim.reference.forward`). When the work limit is reached,
+:class:`NoExactSolution` says so.
 
 A model with a non-constant hazard on the time-in-state clock (semi-Markov) has no such reference:
 :class:`NoExactSolution` says which transitions make it so.
@@ -24,25 +27,19 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import Callable
 
 import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike, NDArray
-from scipy.integrate import solve_ivp
 
+from ..engine import CancelToken
 from ..hazards import KERNEL_ERRSTATE
 from ..model.multistate import Clock, Model, ResolvedExit
+from .forward import ATOL, RTOL, ExitRates, NoExactSolution, integrate_segments
 
 __all__ = ["NoExactSolution", "ExactSolution", "StackedSolution", "solve_exact", "solve_stacked",
            "occupancy_for_entry", "occupancy_frame", "population_pairs", "at_own_horizon"]
-
-RTOL = 1e-10
-ATOL = 1e-12
-
-
-class NoExactSolution(ValueError):
-    """The model has no exact Kolmogorov reference (it is semi-Markov)."""
-
 
 @dataclass(frozen=True)
 class ExactSolution:
@@ -95,12 +92,16 @@ class StackedSolution:
 
 def solve_stacked(model: Model, strategy: str | tuple[str, ...], entry_age: NDArray[np.float64],
                   sex: NDArray[np.int64], times: NDArray[np.float64], horizon: NDArray[np.float64],
-                  discount_rates: tuple[float, ...] = (0.0,)) -> StackedSolution:
+                  discount_rates: tuple[float, ...] = (0.0,),
+                  cancel: CancelToken | Callable[[], bool] | None = None) -> StackedSolution:
     """Forward equations for m (entry age, sex) pairs at once, stacked into one ODE system, with the
     time-in-state integrals and exit flows for each annual discount rate accumulated alongside.
 
     ``strategy`` may be a tuple of names: the system then holds every pair under every strategy
-    (rows strategy-major, m = len(strategies) x pairs), one solver call for all of them."""
+    (rows strategy-major, m = len(strategies) x pairs), one solver call for all of them. ``cancel``
+    (an object with ``is_set()`` or a callable) is checked during the integration and raises
+    :class:`sim.engine.SimulationCancelled`; :class:`NoExactSolution` is raised for a semi-Markov model
+    and when the solver's bounded work does not reach the solution (:mod:`sim.reference.forward`)."""
     _check_markov(model)
     names = (strategy,) if isinstance(strategy, str) else tuple(strategy)
     m0 = entry_age.size
@@ -129,42 +130,14 @@ def solve_stacked(model: Model, strategy: str | tuple[str, ...], entry_age: NDAr
     dst = np.array([e.target for e in exits], dtype=int)
     size_p, size_i, size_f = m * n, r_n * m * n, r_n * m * k_ex
 
-    fixed = np.zeros((k_ex, m))  # constant hazards (time-in-state clock) evaluated once
-    for k, (_, _, groups, offset, moving) in enumerate(plan):
-        if not moving:
-            for h, rows in groups:
-                fixed[k, rows] = h.hazard(offset[rows])
-    # exits sharing a hazard and clock (background death from every living state) share one call
-    shared: dict[tuple, int] = {}
-    first_of = []
-    for k, (_, _, groups, offset, moving) in enumerate(plan):
-        key = (tuple(id(h) for h, _ in groups), moving, offset is entry_age)
-        first_of.append(shared.setdefault(key, k))
-
-    def rates(t: float) -> NDArray[np.float64]:
-        # the hazards' unchecked ``_hazard`` (clock values here are >= 0 by construction) under the
-        # errstate of the public ``Hazard.hazard``: the right-hand side runs thousands of times
-        out = fixed.copy()
+    def rates_at_entry() -> NDArray[np.float64]:
+        # every exit's hazard at the clock reading at entry, to see whether one is infinite there
+        out = np.zeros((k_ex, m))
         with np.errstate(**KERNEL_ERRSTATE):
-            for k, (_, _, groups, offset, moving) in enumerate(plan):
-                if not moving:
-                    continue
-                if first_of[k] != k:
-                    out[k] = out[first_of[k]]
-                    continue
-                x = offset + t
+            for k, (_, _, groups, offset, _) in enumerate(plan):
                 for h, rows in groups:
-                    out[k, rows] = h._hazard(x[rows])
+                    out[k, rows] = h._hazard(offset[rows])
         return out
-
-    def rhs(t: float, y: NDArray[np.float64]) -> NDArray[np.float64]:
-        p = y[:size_p].reshape(m, n)
-        flow = p[:, src] * rates(t).T  # (m, k_ex)
-        dp = np.zeros((m, n))
-        np.add.at(dp.T, src, -flow.T)
-        np.add.at(dp.T, dst, flow.T)
-        disc = np.exp(-deltas * t)[:, None, None]
-        return np.concatenate([dp.ravel(), (disc * p).ravel(), (disc * flow).ravel()])
 
     y0 = np.zeros(size_p + size_i + size_f)
     p0 = y0[:size_p].reshape(m, n)
@@ -173,7 +146,7 @@ def solve_stacked(model: Model, strategy: str | tuple[str, ...], entry_age: NDAr
     init = set(np.flatnonzero(p0.any(axis=0)).tolist())  # states some pair starts in
     t_end = max(float(horizon.max(initial=0.0)), float(times.max(initial=0.0)))
     t0 = 0.0
-    if not np.all(np.isfinite(rates(0.0))):
+    if not np.all(np.isfinite(rates_at_entry())):
         # A hazard infinite at clock 0 (e.g. Weibull shape < 1): step over [0, t0] with the
         # competing-exit formula on the cumulative hazards, from each initial state with its initial
         # mass a; the neglected second moves are O(H^2).
@@ -201,18 +174,9 @@ def solve_stacked(model: Model, strategy: str | tuple[str, ...], entry_age: NDAr
         occ[:] = p0[:, None, :]
         return StackedSolution(occ, np.zeros((r_n, m, n)), y0[size_p + size_i:].reshape(r_n, m, k_ex),
                                np.array([e.index for e in exits]))
-    sol = solve_ivp(rhs, (t0, t_end), y0, method="DOP853", rtol=RTOL, atol=ATOL, dense_output=True)
-    if not sol.success:
-        raise RuntimeError(f"Kolmogorov forward equations: solver failed ({sol.message})")
-    at = sol.sol(np.maximum(times, t0))  # (size, len(times))
-    occ[:] = np.moveaxis(at[:size_p].reshape(m, n, times.size), 2, 1)
-    integrals = np.empty((r_n, m, n))
-    flows = np.empty((r_n, m, k_ex))
-    for h in np.unique(horizon):
-        rows = horizon == h
-        yh = sol.sol(max(float(h), t0)) if h > t0 else y0
-        integrals[:, rows] = yh[size_p:size_p + size_i].reshape(r_n, m, n)[:, rows]
-        flows[:, rows] = yh[size_p + size_i:].reshape(r_n, m, k_ex)[:, rows]
+    exit_rates = [ExitRates(s_k, d_k, tuple(groups), offset, moving) for s_k, d_k, groups, offset, moving in plan]
+    occ, integrals, flows = integrate_segments(
+        exit_rates, n, entry_age, p0, y0[size_p + size_i:].reshape(r_n, m, k_ex), t0, times, horizon, deltas, cancel)
     return StackedSolution(occ, integrals, flows, np.array([e.index for e in exits]))
 
 
@@ -265,7 +229,8 @@ def at_own_horizon(times: NDArray[np.float64], horizon: NDArray[np.float64]
 
 
 def solve_exact(model: Model, times: ArrayLike, strategies: tuple[str, ...] | None = None,
-                discount_rate: float = 0.0, n_nodes: int = 48) -> ExactSolution:
+                discount_rate: float = 0.0, n_nodes: int = 48,
+                cancel: CancelToken | Callable[[], bool] | None = None) -> ExactSolution:
     """Exact occupancy, time in state and life expectancy per strategy, averaged over the population.
 
     The occupancy counts each (entry age, sex) pair at ``min(t, its horizon)``: past its horizon, in
@@ -280,7 +245,8 @@ def solve_exact(model: Model, times: ArrayLike, strategies: tuple[str, ...] | No
 
     Raises
     ------
-    NoExactSolution : the model is semi-Markov.
+    NoExactSolution : the model is semi-Markov, or the solver's bounded work does not reach the solution.
+    sim.engine.SimulationCancelled : ``cancel`` (an object with ``is_set()`` or a callable) asked to stop.
     """
     _check_markov(model)
     if not (math.isfinite(discount_rate) and 0 <= discount_rate < 1):
@@ -296,7 +262,7 @@ def solve_exact(model: Model, times: ArrayLike, strategies: tuple[str, ...] | No
     horizon = model.horizon.time_limit(pair_age)
     at, where = at_own_horizon(times, horizon)
     for name in names:
-        sol = solve_stacked(model, name, pair_age, pair_sex, at, horizon, (0.0, discount_rate))
+        sol = solve_stacked(model, name, pair_age, pair_sex, at, horizon, (0.0, discount_rate), cancel)
         own = np.take_along_axis(sol.occupancy, where[:, :, None], axis=1)  # (pairs, times, states)
         occ_parts.append(occupancy_frame(name, times, states, np.einsum("m,mtn->tn", pair_w, own)))
         yrs = pair_w @ sol.integrals[0]

@@ -4,28 +4,36 @@ merge of exact values into simulated summaries."""
 
 from __future__ import annotations
 
+from typing import Callable
+
 import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
 from ..analysis.outcomes import combine_outcomes, increments_from_values
+from ..engine import CancelToken
 from ..model.multistate import Model
 from .exact import NoExactSolution, at_own_horizon, occupancy_frame, population_pairs, solve_stacked
 
 __all__ = ["exact_outcomes", "exact_outcomes_and_occupancy", "with_exact"]
 
 
-def exact_outcomes(model: Model, strategies: tuple[str, ...] | None = None, n_nodes: int = 48) -> pd.DataFrame:
+def exact_outcomes(model: Model, strategies: tuple[str, ...] | None = None, n_nodes: int = 48,
+                   cancel: CancelToken | Callable[[], bool] | None = None) -> pd.DataFrame:
     """Outcomes from the Kolmogorov forward solution (Markov models only): columns strategy, outcome,
-    value. Time in state and transition flows are integrated in the same ODE (see :mod:`sim.exact`)."""
-    return exact_outcomes_and_occupancy(model, np.zeros(1), strategies, n_nodes)[0]
+    value. Time in state and transition flows are integrated in the same ODE (see
+    :mod:`sim.reference.exact`). Raises :class:`NoExactSolution` (semi-Markov model, or the solver's
+    bounded work does not reach the solution) and, on a ``cancel`` request,
+    :class:`sim.engine.SimulationCancelled`."""
+    return exact_outcomes_and_occupancy(model, np.zeros(1), strategies, n_nodes, cancel)[0]
 
 
 def exact_outcomes_and_occupancy(model: Model, times: NDArray[np.float64], strategies: tuple[str, ...] | None = None,
-                                 n_nodes: int = 48) -> tuple[pd.DataFrame, pd.DataFrame]:
+                                 n_nodes: int = 48, cancel: CancelToken | Callable[[], bool] | None = None
+                                 ) -> tuple[pd.DataFrame, pd.DataFrame]:
     """:func:`exact_outcomes` and the population-averaged state occupancy at ``times`` (columns
-    strategy, time, state, probability, as ``sim.exact.solve_exact(...).occupancy``) from one solve
-    of the forward equations for all strategies.
+    strategy, time, state, probability, as ``sim.reference.exact.solve_exact(...).occupancy``) from one
+    solve of the forward equations for all strategies; ``cancel`` as for :func:`exact_outcomes`.
 
     Each (entry age, sex) pair contributes its occupancy at ``min(t, its horizon)``: past its
     horizon it counts in the state it occupied when follow-up ended, the quantity the simulation
@@ -40,7 +48,7 @@ def exact_outcomes_and_occupancy(model: Model, times: NDArray[np.float64], strat
     rows, occupancy = [], []
     names = tuple(strategies or model.strategy_names)
     at, where = at_own_horizon(times, horizon)  # read each pair at min(t, own horizon)
-    sol = solve_stacked(model, names, age, sex, at, horizon, rates)  # one solve for all strategies
+    sol = solve_stacked(model, names, age, sex, at, horizon, rates, cancel)  # one solve for all strategies
     m0 = age.size
     states = model.state_names
     for j, strategy in enumerate(names):
@@ -58,11 +66,15 @@ def exact_outcomes_and_occupancy(model: Model, times: NDArray[np.float64], strat
 
 
 def with_exact(model: Model, summary: pd.DataFrame, increments: pd.DataFrame, comparator: str,
-               willingness_to_pay: float, exact: pd.DataFrame | None = None) -> tuple[pd.DataFrame, pd.DataFrame, str]:
+               willingness_to_pay: float, exact: pd.DataFrame | NoExactSolution | None = None
+               ) -> tuple[pd.DataFrame, pd.DataFrame, str]:
     """Add an ``exact`` column (and ``z`` = (mean - exact) / mcse, NaN where mcse is 0 or missing) to
     simulated summaries and increments. For a semi-Markov model the columns are NaN and the returned note says why.
-    ``exact`` is the :func:`exact_outcomes` table if the caller already has it."""
+    ``exact`` is the :func:`exact_outcomes` table if the caller already has it, or the
+    :class:`NoExactSolution` the caller met (the columns are then NaN and the note is its message)."""
     try:
+        if isinstance(exact, NoExactSolution):
+            raise exact
         if exact is None:
             exact = exact_outcomes(model)
     except NoExactSolution as err:

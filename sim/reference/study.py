@@ -137,7 +137,7 @@ def _checked_reference(model: Model, simulated: pd.DataFrame) -> pd.DataFrame:
 def _reference(model: Model, n_patients: int, seed: int, n_nodes: int, cancel,
                simulated: pd.DataFrame | None = None) -> pd.DataFrame:
     if model.is_markov:
-        ref = exact_outcomes(model, n_nodes=n_nodes)
+        ref = exact_outcomes(model, n_nodes=n_nodes, cancel=cancel)
         ref["mcse"] = 0.0
         return ref
     if simulated is not None:  # already checked by _checked_reference

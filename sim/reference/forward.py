@@ -1,0 +1,433 @@
+"""Integration of the stacked Kolmogorov forward equations in segments, with a bounded amount of work.
+
+The forward equations of m rows (entry age, sex, strategy) are one ODE system. Its rows run on a
+shared axis u, row r starting at s_r: either time since entry (s_r = 0) or attained age (s_r = the
+row's entry age), whichever has fewer break points. A break point is where some hazard jumps (a band
+edge of a piecewise-constant hazard such as a life table, mapped to the axis row by row) or where a
+row starts. The ODE solver is restarted at every break point, so that no adaptive step straddles a
+jump (such a step is rejected again and again, and what is accepted loses accuracy). Within a segment
+a piecewise-constant hazard is constant: it is evaluated once, at the segment's middle, and only the
+smooth hazards are evaluated in the right-hand side. On the age axis the bands of a life table on the
+age clock are shared by every row: about (number of bands crossed + number of entry ages) segments,
+instead of one jump per band per entry age on the time axis.
+
+Method per segment: explicit DOP853 unless the segment is stiff, then the implicit BDF method (orders 1
+to 5, Shampine & Reichelt 1997, SIAM J Sci Comput 18(1):1-22, as in ``scipy.integrate.BDF``) with the
+exact sparse Jacobian of the linear system, at the tighter tolerances :data:`STIFF_RTOL` and
+:data:`STIFF_ATOL` (its error estimate is less sharp than DOP853's; scipy's Radau would be more
+accurate but spends most of its time in a slow mixed real/complex product on systems this size). Stiff
+means that the largest total exit rate of a state, integrated over the segment, exceeds
+:data:`STIFF_RATE_INTEGRAL`: an explicit method would need about that many steps divided by its
+stability bound (about 6 for DOP853) just to stay stable. An explicit attempt that still takes more
+than :data:`EXPLICIT_EVALUATIONS` right-hand-side evaluations is abandoned and the segment redone with
+BDF. All attempts together may use at most :data:`MAX_EVALUATIONS` evaluations; beyond that, or when
+the solver fails or a rate is not finite, :class:`NoExactSolution` says why, so that a run keeps its
+simulation and reports "no exact solution".
+
+A cancel request (an object with ``is_set()`` or a callable) is checked at every segment start and
+every :data:`CANCEL_EVERY` right-hand-side or Jacobian evaluations, raising
+:class:`sim.engine.SimulationCancelled`.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass
+from typing import NamedTuple
+
+import numpy as np
+from numpy.typing import NDArray
+from scipy import sparse
+from scipy.integrate import BDF, DOP853, OdeSolver
+
+from ..engine import CancelToken, SimulationCancelled, cancel_requested
+from ..hazards import KERNEL_ERRSTATE, Hazard, PiecewiseConstant, ProportionalHazards
+
+__all__ = ["NoExactSolution", "ExitRates", "integrate_segments", "RTOL", "ATOL", "STIFF_RATE_INTEGRAL",
+           "EXPLICIT_EVALUATIONS", "MAX_EVALUATIONS", "CANCEL_EVERY", "START_PHASE", "STIFF_RTOL", "STIFF_ATOL"]
+
+RTOL = 1e-10
+ATOL = 1e-12
+STIFF_RATE_INTEGRAL = 2000.0
+EXPLICIT_EVALUATIONS = 30_000
+MAX_EVALUATIONS = 150_000
+CANCEL_EVERY = 8
+START_PHASE = 0.5
+STIFF_RTOL = 1e-11
+STIFF_ATOL = 1e-13
+
+
+class NoExactSolution(ValueError):
+    """The model has no exact Kolmogorov reference (it is semi-Markov), or the solver cannot reach it
+    within its bounded work (the message says which)."""
+
+
+class ExitRates(NamedTuple):
+    """One exit of the stacked system: source and target state, the hazards with the rows that use each,
+    the clock reading at entry per row and whether the clock advances with time (a clock that does not
+    advance carries a constant hazard)."""
+
+    source: int
+    target: int
+    groups: tuple[tuple[Hazard, NDArray[np.int64]], ...]
+    offset: NDArray[np.float64]
+    moving: bool
+
+
+class _Overrun(Exception):
+    """An explicit attempt used its evaluations (internal: the segment is redone with the stiff method)."""
+
+
+def band_edges(h: Hazard) -> NDArray[np.float64] | None:
+    """Clock values where a piecewise-constant hazard jumps (empty if constant), or None for any other
+    hazard (continuous for clock > 0)."""
+    if isinstance(h, ProportionalHazards):
+        return np.empty(0) if h.hr == 0.0 else band_edges(h.base)
+    if isinstance(h, PiecewiseConstant):
+        return np.asarray(h.breaks[1:], dtype=float)
+    return None
+
+
+@dataclass
+class _Work:
+    """Counts right-hand-side evaluations, checks for cancel at a bounded rate, enforces the budget."""
+
+    cancel: CancelToken | Callable[[], bool] | None
+    used: int = 0
+    attempt_limit: int = MAX_EVALUATIONS
+    first_step: float | None = None  # the largest step of the last segment solved
+
+    def check_cancel(self) -> None:
+        if cancel_requested(self.cancel):
+            raise SimulationCancelled("exact solution cancelled")
+
+    def tick(self) -> None:
+        self.used += 1
+        if self.used % CANCEL_EVERY == 0:
+            self.check_cancel()
+        if self.used > self.attempt_limit:
+            raise _Overrun
+
+
+class _Segment:
+    """The forward equations of the rows active on [lo, hi]: right-hand side, Jacobian and stiffness."""
+
+    def __init__(self, lo: float, hi: float, active: NDArray[np.int64], system: "_Stacked") -> None:
+        self.lo, self.hi, self.active = lo, hi, active
+        self.n, self.deltas, self.src, self.dst = system.n, system.deltas, system.src, system.dst
+        a, k_ex = active.size, system.src.size
+        local = np.full(system.m, -1)
+        local[active] = np.arange(a)
+        self.start = system.start[active]
+        mid = 0.5 * (lo + hi)
+        self.fixed = system.fixed[:, active].copy()
+        self.smooth: list[tuple[int, Hazard, NDArray[np.int64], NDArray[np.float64]]] = []
+        self.copies: list[tuple[int, int]] = []
+        with np.errstate(**KERNEL_ERRSTATE):
+            for k, ex in enumerate(system.exits):
+                if not ex.moving:
+                    continue
+                if system.first_of[k] != k:
+                    self.copies.append((k, system.first_of[k]))
+                    continue
+                for h, rows in ex.groups:
+                    pos = local[rows]
+                    keep = pos >= 0
+                    if not keep.any():
+                        continue
+                    rows, pos = rows[keep], pos[keep]
+                    c = ex.offset[rows] - system.start[rows]  # clock = c + u
+                    if band_edges(h) is not None:  # constant within the segment
+                        self.fixed[k, pos] = h._hazard(np.maximum(c + mid, 0.0))
+                    else:
+                        self.smooth.append((k, h, pos, c))
+        for k, first in self.copies:
+            self.fixed[k] = self.fixed[first]
+        self.size_p = a * self.n
+        self.size_i = self.deltas.size * a * self.n
+
+    def rates(self, u: float) -> NDArray[np.float64]:
+        """(exits, active rows) hazards at axis value u."""
+        if not self.smooth:
+            return self.fixed
+        out = self.fixed.copy()
+        with np.errstate(**KERNEL_ERRSTATE):
+            for k, h, pos, c in self.smooth:
+                out[k, pos] = h._hazard(np.maximum(c + u, 0.0))
+        for k, first in self.copies:
+            out[k] = out[first]
+        return out
+
+    def discount(self, u: float) -> NDArray[np.float64]:
+        """(rates, active rows) discount factors exp(-delta (u - s_r))."""
+        return np.exp(-self.deltas[:, None] * (u - self.start)[None, :])
+
+    def rhs(self, u: float, y: NDArray[np.float64]) -> NDArray[np.float64]:
+        a, n = self.active.size, self.n
+        p = y[:self.size_p].reshape(a, n)
+        flow = p[:, self.src] * self.rates(u).T  # (a, exits)
+        dp = np.zeros((n, a))  # transposed: one contiguous row per state
+        flow_t = flow.T
+        for k, j in enumerate(self.src):  # out of each exit's source, then into its target, in exit
+            dp[j] -= flow_t[k]            # order (the sums of np.add.at, to the bit, but faster)
+        for k, j in enumerate(self.dst):
+            dp[j] += flow_t[k]
+        dp = dp.T
+        disc = self.discount(u)[:, :, None]
+        return np.concatenate([dp.ravel(), (disc * p).ravel(), (disc * flow).ravel()])
+
+    def jacobian(self, u: float) -> sparse.csc_matrix:
+        """The exact Jacobian of the (linear) right-hand side: the generator blocks for p, the discount
+        factors for the time-in-state integrals, discounted rates for the flows."""
+        a, n, k_ex, r_n = self.active.size, self.n, self.src.size, self.deltas.size
+        rates = self.rates(u)  # (k, a)
+        disc = self.discount(u)  # (R, a)
+        rows_a = np.arange(a)
+        col_src = (rows_a[None, :] * n + self.src[:, None])  # (k, a)
+        eq_dst = rows_a[None, :] * n + self.dst[:, None]
+        q_idx = np.arange(r_n)[:, None, None]
+        eq_i = self.size_p + ((q_idx * a + rows_a[None, :, None]) * n + np.arange(n)[None, None, :])
+        col_i = np.broadcast_to(rows_a[None, :, None] * n + np.arange(n)[None, None, :], eq_i.shape)
+        eq_f = (self.size_p + self.size_i + (q_idx * a + rows_a[None, :, None]) * k_ex
+                + np.arange(k_ex)[None, None, :])
+        col_f = np.broadcast_to(col_src.T[None], eq_f.shape)
+        val_f = disc[:, :, None] * rates.T[None]
+        rows = np.concatenate([col_src.ravel(), eq_dst.ravel(), eq_i.ravel(), eq_f.ravel()])
+        cols = np.concatenate([col_src.ravel(), col_src.ravel(), col_i.ravel(), col_f.ravel()])
+        vals = np.concatenate([-rates.ravel(), rates.ravel(), np.broadcast_to(disc[:, :, None], eq_i.shape).ravel(),
+                               val_f.ravel()])
+        size = self.size_i + self.size_p + r_n * a * k_ex
+        return sparse.csc_matrix((vals, (rows, cols)), shape=(size, size))
+
+    def rate_integral(self, samples: int = 4) -> float:
+        """Largest total exit rate of a state, integrated over the segment (midpoint rule)."""
+        width = (self.hi - self.lo) / samples
+        total = 0.0
+        for j in range(samples):
+            rates = self.rates(self.lo + (j + 0.5) * width)
+            out = np.zeros((self.n, rates.shape[1]))
+            np.add.at(out, self.src, rates)
+            if not np.all(np.isfinite(out)):
+                return np.inf
+            total += float(out.max(initial=0.0)) * width
+        return total
+
+
+@dataclass
+class _Stacked:
+    n: int
+    m: int
+    exits: Sequence[ExitRates]
+    src: NDArray[np.int64]
+    dst: NDArray[np.int64]
+    deltas: NDArray[np.float64]
+    start: NDArray[np.float64]
+    fixed: NDArray[np.float64]
+    first_of: list[int]
+
+
+def _axis_breaks(exits: Sequence[ExitRates], start: NDArray[np.float64], t0: float,
+                 u_end: float) -> NDArray[np.float64]:
+    """Sorted break points in (min start, u_end): row starts and hazard jumps mapped to the axis."""
+    pts = [start + t0]
+    for ex in exits:
+        if not ex.moving:
+            continue
+        for h, rows in ex.groups:
+            edges = band_edges(h)
+            if edges is not None and edges.size:
+                pts.append((edges[None, :] + (start[rows] - ex.offset[rows])[:, None]).ravel())
+    u = np.unique(np.concatenate(pts))
+    lo = float(start.min()) + t0
+    u = u[(u > lo) & (u < u_end)]
+    if u.size:  # merge points closer than rounding (the same band edge seen from different rows)
+        tol = 1e-12 * max(1.0, abs(u_end))
+        u = u[np.concatenate(([True], np.diff(u) > tol))]
+    return np.concatenate(([lo], u, [u_end]))
+
+
+class _Solved(NamedTuple):
+    end: NDArray[np.float64]  # the state at the segment's end
+    at: NDArray[np.float64]  # (size, len(points)) the state at the requested points
+    largest_step: float
+
+
+def _run(method: type[OdeSolver], fun: Callable, seg: _Segment, y: NDArray[np.float64],
+         points: NDArray[np.float64], **options) -> _Solved:
+    """Step ``method`` over the segment; the dense output is built only for steps that hold a point."""
+    rtol, atol = (RTOL, ATOL) if method is DOP853 else (STIFF_RTOL, STIFF_ATOL)
+    solver = method(fun, seg.lo, y, seg.hi, rtol=rtol, atol=atol, **options)
+    at = np.empty((y.size, points.size))
+    done, largest = 0, 0.0
+    while solver.status == "running":
+        message = solver.step()
+        if solver.status == "failed":
+            raise NoExactSolution(f"no exact solution: the ODE solver failed between axis values {seg.lo:g} and "
+                                  f"{seg.hi:g} ({message})")
+        largest = max(largest, solver.t - solver.t_old)
+        upto = int(np.searchsorted(points, solver.t, side="right"))
+        if upto > done:
+            at[:, done:upto] = solver.dense_output()(points[done:upto])
+            done = upto
+    at[:, done:] = solver.y[:, None]  # points at the end, beyond it by rounding
+    if not np.all(np.isfinite(solver.y)):
+        raise NoExactSolution(f"no exact solution: the ODE solver's values stopped being finite between axis "
+                              f"values {seg.lo:g} and {seg.hi:g}")
+    return _Solved(solver.y, at, largest)
+
+
+def _solve_segment(seg: _Segment, y: NDArray[np.float64], points: NDArray[np.float64], work: _Work,
+                   first_step: float | None) -> _Solved:
+    """One segment: explicit unless stiff; an explicit overrun is redone with the stiff method; bounded work."""
+    stiffness = seg.rate_integral()
+    if not np.isfinite(stiffness):
+        raise NoExactSolution(f"no exact solution: a transition rate is not finite between axis values "
+                              f"{seg.lo:g} and {seg.hi:g} (hazards overflow)")
+
+    def fun(u: float, z: NDArray[np.float64]) -> NDArray[np.float64]:
+        work.tick()
+        return seg.rhs(u, z)
+
+    if stiffness <= STIFF_RATE_INTEGRAL:
+        work.attempt_limit = min(work.used + EXPLICIT_EVALUATIONS, MAX_EVALUATIONS)
+        options = {} if first_step is None else {"first_step": min(first_step, seg.hi - seg.lo)}
+        try:
+            return _run(DOP853, fun, seg, y, points, **options)
+        except _Overrun:
+            if work.used >= MAX_EVALUATIONS:
+                raise _too_much(seg, stiffness) from None
+    work.attempt_limit = MAX_EVALUATIONS
+
+    def jac(u: float, z: NDArray[np.float64]) -> sparse.csc_matrix:
+        work.tick()
+        return seg.jacobian(u)
+
+    try:
+        return _run(BDF, fun, seg, y, points, jac=jac)
+    except _Overrun:
+        raise _too_much(seg, stiffness) from None
+
+
+def _too_much(seg: _Segment, stiffness: float) -> NoExactSolution:
+    return NoExactSolution(
+        f"no exact solution: the forward equations need more than {MAX_EVALUATIONS:,} evaluations (the "
+        f"solver's work limit) between axis values {seg.lo:g} and {seg.hi:g}, where the largest exit rate "
+        f"integrates to {stiffness:.3g} (a stiff system: rates far apart, e.g. an extreme hazard ratio or "
+        f"a very steep background hazard); the simulation's results stand without an exact reference")
+
+
+def integrate_segments(exits: Sequence[ExitRates], n_states: int, entry_age: NDArray[np.float64],
+                       p0: NDArray[np.float64], f0: NDArray[np.float64], t0: float, times: NDArray[np.float64],
+                       horizon: NDArray[np.float64], deltas: NDArray[np.float64],
+                       cancel: CancelToken | Callable[[], bool] | None = None
+                       ) -> tuple[NDArray[np.float64], NDArray[np.float64], NDArray[np.float64]]:
+    """Integrate the stacked forward equations from time since entry t0 (state p0 (m, n), flows f0
+    (R, m, exits)) in segments between break points.
+
+    On the time-since-entry axis every row starts at once. When attained age has fewer break points,
+    the first :data:`START_PHASE` years are still integrated on time since entry (a hazard singular at
+    entry, such as a Weibull hazard of shape 1.3 whose derivative is infinite there, needs small steps
+    near the start: taken once for all rows rather than at each row's start), and the rest on age.
+
+    Returns
+    -------
+    occupancy : (m, len(times), n), p at max(times, t0).
+    integrals : (R, m, n), integral of exp(-delta_r t) p(t) over [t0, horizon_m] (0 if horizon_m <= t0).
+    flows : (R, m, exits), f0 plus the discounted flows over [t0, horizon_m].
+
+    Raises
+    ------
+    NoExactSolution : the work limit is reached, the solver fails or a rate is not finite.
+    sim.engine.SimulationCancelled : on a cancel request.
+    """
+    m, k_ex, r_n = entry_age.size, len(exits), deltas.size
+    src = np.array([e.source for e in exits], dtype=int)
+    dst = np.array([e.target for e in exits], dtype=int)
+    fixed = np.zeros((k_ex, m))  # constant hazards (time-in-state clock) evaluated once
+    for k, ex in enumerate(exits):
+        if not ex.moving:
+            for h, rows in ex.groups:
+                fixed[k, rows] = h.hazard(ex.offset[rows])
+    # exits sharing a hazard and clock (background death from every living state) share one evaluation
+    shared: dict[tuple, int] = {}
+    first_of = [shared.setdefault((tuple(id(h) for h, _ in ex.groups), ex.moving, ex.offset.tobytes()), k)
+                for k, ex in enumerate(exits)]
+    system = _Stacked(n_states, m, exits, src, dst, deltas, np.zeros(m), fixed, first_of)
+    queries = _Queries(times, t0, horizon)
+    state = (p0.copy(), np.zeros((r_n, m, n_states)), f0.copy())
+    out = (np.empty((m, times.size, n_states)), np.zeros((r_n, m, n_states)), f0.copy())
+    work = _Work(cancel)
+    span = np.maximum(horizon, float(times.max(initial=0.0)))
+    zero, age = np.zeros(m), np.asarray(entry_age, dtype=float)
+    on_time = _axis_breaks(exits, zero, t0, float(span.max()))
+    on_age = _axis_breaks(exits, age, t0, float((age + span).max()))
+    t1 = t0 + START_PHASE
+    if on_age.size >= on_time.size or t1 >= float(span.max()):
+        _sweep(system, zero, t0, on_time, queries, state, out, work)
+    else:
+        _sweep(system, zero, t0, _axis_breaks(exits, zero, t0, t1), queries, state, out, work)
+        _sweep(system, age, t1, _axis_breaks(exits, age, t1, float((age + span).max())), queries, state, out, work)
+    return out
+
+
+class _Queries:
+    """What to read from the solution: occupancy of each row at max(times, t0) and its integrals and
+    flows at its horizon (if after t0); each answered once, by the sweep that reaches it."""
+
+    def __init__(self, times: NDArray[np.float64], t0: float, horizon: NDArray[np.float64]) -> None:
+        m = horizon.size
+        self.n_times = times.size
+        self.occ_row = np.repeat(np.arange(m), times.size)
+        self.occ_t = np.tile(np.maximum(times, t0), m)
+        self.occ_done = np.zeros(self.occ_row.size, dtype=bool)
+        self.hz_row = np.flatnonzero(horizon > t0)
+        self.hz_t = horizon[self.hz_row]
+        self.hz_done = np.zeros(self.hz_row.size, dtype=bool)
+
+
+def _sweep(system: _Stacked, start: NDArray[np.float64], t_begin: float, breaks: NDArray[np.float64],
+           queries: _Queries, state: tuple, out: tuple, work: _Work) -> None:
+    """Integrate every row r from axis value start_r + t_begin to breaks[-1], restarting the solver at
+    each break point; update ``state`` (p, integrals, flows) and answer the queries reached (``out``)."""
+    m, n, r_n, k_ex = system.m, system.n, system.deltas.size, system.src.size
+    system.start = start
+    p, acc_i, acc_f = state
+    occ, integrals, flows = out
+    last = breaks.size - 2
+    first_seg = np.clip(np.searchsorted(breaks, start + t_begin, side="right") - 1, 0, last)
+
+    def assign(rows: NDArray[np.int64], t: NDArray[np.float64], done: NDArray[np.bool_]):
+        u = start[rows] + t
+        take = ~done & (u <= breaks[-1])
+        done |= take
+        seg = np.clip(np.searchsorted(breaks, u, side="right") - 1, first_seg[rows], last)
+        return np.where(take, seg, -1), u
+
+    occ_seg, occ_u = assign(queries.occ_row, queries.occ_t, queries.occ_done)
+    hz_seg, hz_u = assign(queries.hz_row, queries.hz_t, queries.hz_done)
+    for i in range(breaks.size - 1):
+        work.check_cancel()
+        active = np.flatnonzero(first_seg <= i)
+        seg = _Segment(float(breaks[i]), float(breaks[i + 1]), active, system)
+        y = np.concatenate([p[active].ravel(), acc_i[:, active].ravel(), acc_f[:, active].ravel()])
+        q_occ, q_hz = np.flatnonzero(occ_seg == i), np.flatnonzero(hz_seg == i)
+        points = np.unique(np.concatenate([occ_u[q_occ], hz_u[q_hz]]))
+        solved = _solve_segment(seg, y, points, work, work.first_step)
+        work.first_step = solved.largest_step  # the next segment starts there (the last step is cut short)
+        a = active.size
+        local = np.full(m, -1)
+        local[active] = np.arange(a)
+        p[active] = solved.end[:a * n].reshape(a, n)
+        acc_i[:, active] = solved.end[a * n:a * n * (1 + r_n)].reshape(r_n, a, n)
+        acc_f[:, active] = solved.end[a * n * (1 + r_n):].reshape(r_n, a, k_ex)
+        if q_occ.size:
+            col = np.searchsorted(points, occ_u[q_occ])
+            occ.reshape(-1, n)[q_occ] = solved.at[:a * n].reshape(a, n, points.size)[local[queries.occ_row[q_occ]], :, col]
+        if q_hz.size:
+            rows = queries.hz_row[q_hz]
+            col = np.searchsorted(points, hz_u[q_hz])
+            lr = local[rows]
+            integrals[:, rows] = np.moveaxis(
+                solved.at[a * n:a * n * (1 + r_n)].reshape(r_n, a, n, points.size)[:, lr, :, col], 0, 1)
+            flows[:, rows] = np.moveaxis(
+                solved.at[a * n * (1 + r_n):].reshape(r_n, a, k_ex, points.size)[:, lr, :, col], 0, 1)
