@@ -35,7 +35,8 @@ MAX_SYMBOL_POINTS = 80
 def _compute(results: RunResults, with_simulated: bool, requests: list[TraceKey]
              ) -> tuple[dict[str, StrategyCurves] | None, dict[TraceKey, TraceCurves]]:
     sim = simulated_curves(results) if with_simulated else None
-    traces = compute_traces(results.scenario.model, requests, float(results.grid[-1]))
+    traces = compute_traces(results.scenario.model, requests, float(results.grid[-1]),
+                            results.scenario.run.tunnel_entry)
     return sim, traces
 
 

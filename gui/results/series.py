@@ -158,11 +158,13 @@ def simulated_curves(results: RunResults, max_points: int = MAX_STEP_POINTS) -> 
     return out
 
 
-def trace_curves(model: Model, strategy: str, method: str, cycle_length: float, t_end: float) -> TraceCurves:
+def trace_curves(model: Model, strategy: str, method: str, cycle_length: float, t_end: float,
+                 tunnel_entry: str = "half-cycle") -> TraceCurves:
     """Cycle-based cohort trace (``sim.reference.cohort.cohort_trace(...).table()``) clipped to ``t_end``.
 
     Models with time-in-state clocks get enough tunnel states to track the plotted range
-    (``ceil(t_end / h)``); beyond ``sim.reference.study.MAX_TUNNEL_STATES`` the trace is skipped with a note.
+    (``ceil(t_end / h)``), entered by the scenario's ``run.tunnel_entry`` rule; beyond
+    ``sim.reference.study.MAX_TUNNEL_STATES`` the trace is skipped with a note.
     """
     tunnels = None
     if not model.is_markov:
@@ -171,7 +173,8 @@ def trace_curves(model: Model, strategy: str, method: str, cycle_length: float, 
             return TraceCurves(strategy, method, cycle_length, None,
                                note=f"{method}, {cycle_label(cycle_length)}: skipped, it needs {tunnels} tunnel "
                                     f"states (more than {MAX_TUNNEL_STATES})")
-    table = cohort_trace(model, strategy, cycle_length, method, tunnel_cycles=tunnels).table()
+    table = cohort_trace(model, strategy, cycle_length, method, tunnel_cycles=tunnels,
+                         tunnel_entry=tunnel_entry).table()
     table = table[table["time"] <= t_end * (1 + 1e-9)]
     surv = survival_from_occupancy(table, model)
     occ = {}
@@ -196,14 +199,14 @@ def same_curves(named: dict[str, Series]) -> list[list[str]]:
     return [g for g in groups if len(g) > 1]
 
 
-def compute_traces(model: Model, requests: list[tuple[str, str, float]],
-                   t_end: float) -> dict[tuple[str, str, float], TraceCurves]:
+def compute_traces(model: Model, requests: list[tuple[str, str, float]], t_end: float,
+                   tunnel_entry: str = "half-cycle") -> dict[tuple[str, str, float], TraceCurves]:
     """:func:`trace_curves` for each (strategy, method, cycle length); a trace that sim refuses to
     build (``CohortError``, a ``ValueError``) comes back as a note, not an exception."""
     out = {}
     for strategy, method, h in requests:
         try:
-            out[(strategy, method, h)] = trace_curves(model, strategy, method, h, t_end)
+            out[(strategy, method, h)] = trace_curves(model, strategy, method, h, t_end, tunnel_entry)
         except ValueError as err:
             out[(strategy, method, h)] = TraceCurves(strategy, method, h, None,
                                                      note=f"{method}, {cycle_label(h)}: {err}")
