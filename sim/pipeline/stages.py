@@ -32,7 +32,8 @@ from ..analysis import (OutcomeAccumulator, incremental, occupancy_to_own_horizo
                         survival_to_own_horizon)
 from ..engine import CancelToken, SimulationCancelled, SimulationResult, cancel_requested
 from ..io import Scenario
-from ..reference import StudyResult, discretization_study, exact_outcomes_and_occupancy, with_exact
+from ..reference import (NoExactSolution, StudyResult, discretization_study, exact_outcomes_and_occupancy,
+                         with_exact)
 from .chunks import chunk_jobs, simulate_chunk
 from .executors import Executor
 from .plan import RunPlan
@@ -126,7 +127,10 @@ def _exact(state: RunState) -> None:
     state.grid = time_grid(state.scenario)
     exact_values = None
     if model.is_markov:  # one solve gives the exact outcomes and the occupancy curves
-        exact_values, state.exact_occupancy = exact_outcomes_and_occupancy(model, state.grid)
+        try:
+            exact_values, state.exact_occupancy = exact_outcomes_and_occupancy(model, state.grid, cancel=state.cancel)
+        except NoExactSolution as err:  # beyond the solver's bounded work: the simulation's results stand
+            exact_values = err
     state.outcomes, state.increments, state.exact_note = with_exact(
         model, state.outcomes, state.increments, model.strategy_names[0], model.valuation.willingness_to_pay,
         exact=exact_values)
