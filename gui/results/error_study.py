@@ -11,6 +11,7 @@ import math
 import numpy as np
 import pyqtgraph as pg
 from PySide6.QtCore import Qt, Signal, Slot
+from PySide6.QtGui import QValidator
 from PySide6.QtWidgets import QCheckBox, QComboBox, QDoubleSpinBox, QHBoxLayout, QLabel, QTabWidget, QVBoxLayout, QWidget
 
 from sim.reference.cohort import Conversion, Correction
@@ -26,13 +27,65 @@ from .study_data import (abs_error_curves, coinciding, decision_changes, errors_
                          reference_noise, safe_cycle_grid, tolerance_in_units)
 from .table_view import TableView
 
-__all__ = ["ErrorStudyView", "study_order"]
+__all__ = ["ErrorStudyView", "PositiveSpinBox", "study_order"]
 
 
 def study_order(orders, outcome: str, strategy: str, key: tuple[str, str]) -> float:
     """The study's observed order p (error ~ h^p) of one (conversion, correction) curve, or NaN."""
     found = orders_of(orders, outcome, strategy, key[1]).get(key[0])
     return math.nan if found is None else found
+
+class PositiveSpinBox(QDoubleSpinBox):
+    """A spin box for a positive number that says when typed text is not used.
+
+    A plain spin box drops the characters it cannot take as they are typed ("-1" becomes 1) or
+    quietly puts back the previous value. Here any text may be typed; when editing finishes (Enter,
+    focus leaving, an arrow) with text that is not a number in the box's range, the previous value
+    is kept and ``rejected`` carries the text and why; ``accepted`` follows a value that was used.
+    """
+
+    rejected = Signal(str, str)  # the text typed, why it was not used
+    accepted = Signal()
+
+    def __init__(self, parent: QWidget | None = None) -> None:
+        super().__init__(parent)
+        self._refused = False
+        self.editingFinished.connect(self._on_editing_finished)
+
+    def validate(self, text: str, pos: int) -> object:  # noqa: D102 - Qt API
+        state, text, pos = super().validate(text, pos)
+        if state == QValidator.State.Invalid:  # keep what the user typed; judged when editing ends
+            state = QValidator.State.Intermediate
+        return state, text, pos
+
+    def fixup(self, text: str) -> str:  # noqa: D102 - Qt API: called with text that cannot be used
+        self._refused = True
+        self.rejected.emit(text.strip(), self.why_not(text))
+        return text  # unchanged: the spin box then keeps its previous value
+
+    def why_not(self, text: str) -> str:
+        """Why ``text`` cannot be this box's value, in the user's words."""
+        number, ok = self.locale().toDouble(text.strip())
+        if not ok:
+            try:
+                number = float(text.strip())
+            except ValueError:
+                return "not a number"
+        if not math.isfinite(number):
+            return "not a finite number"
+        if number <= 0:
+            return "must be positive"
+        if number < self.minimum():
+            return f"must be at least {self.minimum():g}"
+        if number > self.maximum():
+            return f"must be at most {self.maximum():g}"
+        return f"at most {self.decimals()} decimals"
+
+    def _on_editing_finished(self) -> None:
+        refused, self._refused = self._refused, False
+        if not refused:
+            self.accepted.emit()
+
 
 METHODS = [c.value for c in Conversion]
 CORRECTIONS = [c.value for c in Correction]
@@ -57,18 +110,26 @@ class ErrorStudyView(QWidget):
         self.strategy = QComboBox()
         for combo in (self.outcome, self.strategy):
             combo.setSizeAdjustPolicy(QComboBox.SizeAdjustPolicy.AdjustToContents)
-        self.tolerance = QDoubleSpinBox()
+        self.tolerance = PositiveSpinBox()
+        self.tolerance.setObjectName("tolerance")
         self.tolerance.setDecimals(6)
         self.tolerance.setRange(1e-6, 1e12)
         self.tolerance.setStepType(QDoubleSpinBox.StepType.AdaptiveDecimalStepType)
         self.tolerance.setKeyboardTracking(False)  # recompute when the user is done typing
         self.tolerance.setToolTip("Accuracy asked of each outcome; a cycle length is safe when it and every "
                                   "shorter one stay within it")
+        self.tolerance_message = QLabel()
+        self.tolerance_message.setObjectName("tolerance_message")
+        self.tolerance_message.setStyleSheet(f"color: {palette.OKABE_ITO['vermillion']};")
+        self.tolerance_message.setWordWrap(True)
+        self.tolerance_message.hide()
+        self.tolerance.rejected.connect(self._on_tolerance_rejected)
+        self.tolerance.accepted.connect(self._clear_tolerance_message)
         self.kind = QComboBox()
         self.kind.addItems([RELATIVE, ABSOLUTE])
         top = QHBoxLayout()
         for label, w in (("Outcome", self.outcome), ("Strategy", self.strategy), ("Tolerance", self.tolerance),
-                         ("", self.kind)):
+                         ("", self.kind), ("", self.tolerance_message)):
             if label:
                 top.addWidget(QLabel(label))
             top.addWidget(w)
@@ -177,6 +238,7 @@ class ErrorStudyView(QWidget):
             if current in names:
                 combo.setCurrentIndex(names.index(current))
             combo.blockSignals(False)
+        self._clear_tolerance_message()
         for w in (self.tolerance, self.kind):
             w.blockSignals(True)
         tol_kind = study.largest_cycle["tolerance_kind"].iloc[0] if len(study.largest_cycle) else "relative"
@@ -210,8 +272,21 @@ class ErrorStudyView(QWidget):
             self._show_safe_grid()
             self._draw()
 
+    @Slot(str, str)
+    def _on_tolerance_rejected(self, text: str, why: str) -> None:
+        """Typed text that is not a tolerance: say so beside the box (the previous value stays)."""
+        self.tolerance_message.setText(f"Tolerance “{text}” not used: {why}; "
+                                       f"kept {self.tolerance.value():g}.")
+        self.tolerance_message.show()
+
+    @Slot()
+    def _clear_tolerance_message(self) -> None:
+        self.tolerance_message.hide()
+        self.tolerance_message.setText("")
+
     @Slot()
     def _on_tolerance_changed(self, *_: object) -> None:
+        self._clear_tolerance_message()
         if self._study is not None:
             self._recompute_safe()
             self._draw()
