@@ -22,6 +22,14 @@ def gui_parser() -> argparse.ArgumentParser:
 
 
 def main(argv: list[str] | None = None) -> int:
+    try:
+        return _main(argv)
+    except KeyboardInterrupt:  # Ctrl-C at any moment, also while numpy, pandas or Qt are imported
+        sys.stderr.write("\nhazardtrace: interrupted\n")
+        return 130
+
+
+def _main(argv: list[str] | None) -> int:
     args = list(sys.argv[1:] if argv is None else argv)
     if args and args[0] == "gui":
         try:

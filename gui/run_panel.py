@@ -235,7 +235,8 @@ class RunPanel(QWidget):
         self._job = None
         self.progress.setRange(0, 1)
         self.progress.setValue(1)
-        self.stage.setText("Done")
+        # a later stage that failed is reported; the simulation's results are shown all the same
+        self.stage.setText("; ".join(["Done", *results.failure_lines()]))
         self._update_enabled()
         self._finished_after = time.monotonic() - self._started
         self._results_seconds = dict(results.seconds)

@@ -7,13 +7,16 @@ Verbs::
     hazardtrace check SCENARIO    validate and describe the model in words
     hazardtrace demo              'run' on the bundled invented demo scenario
 
-Exit codes: 0 ok, 2 bad input (with the message), 1 internal error, 130 interrupted (Ctrl-C; no
-half-written output is left).
+Exit codes: 0 ok, 2 bad input or output that cannot be written (one line naming the file, key or
+folder), 1 internal error (one line and a hint to report it; the traceback with
+``HAZARDTRACE_DEBUG=1``) or a stage after the simulation that failed (``<stage> failed: ...``; the
+simulation's output is still written), 130 interrupted (Ctrl-C; no half-written output is left).
 """
 
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 import traceback
 from pathlib import Path
@@ -24,7 +27,8 @@ import pandas as pd
 from .. import __version__
 from ..io import Scenario, ScenarioError, demo_path, load_scenario
 from ..io.export import ExportError, RunWriter, metadata_for, write_tidy_csv
-from ..pipeline import RunPlan, StreamSink, run_plan
+from ..engine import SimulationError
+from ..pipeline import RunPlan, StreamSink, failure_text, run_plan
 from ..reference import TUNNEL_ENTRY_WORDS, discretization_study, orders_of
 from .describe import describe
 from .progress import ProgressBar, StageProgress
@@ -32,6 +36,7 @@ from .progress import ProgressBar, StageProgress
 __all__ = ["main", "describe"]
 
 SHOWN = ("life_years", "qalys_discounted", "costs_discounted")
+DEBUG_VARIABLE = "HAZARDTRACE_DEBUG"
 CAUTION = ("HazardTrace is a modelling aid, not for clinical decisions about individual patients; results "
            "depend on the inputs. Follow local HTA guidance and have models reviewed by qualified people.")
 
@@ -97,10 +102,13 @@ def _run(scenario: Scenario, args: argparse.Namespace, out: TextIO) -> int:
         "scenario_file": str(scenario.path) if scenario.path else None, "threads": workers,
         "chunk_size": plan.chunk_size, "format": args.format, "conversions": list(scenario.conversions),
         "command": "run"})
-    writer = RunWriter(folder, fmt=args.format, force=args.force, metadata=meta,
-                       long_format_model=model if args.long_format else None)
-    results = run_plan(scenario, plan, sinks=(StreamSink(writer),), study=not args.no_study,
-                       progress=StageProgress())
+    try:
+        writer = RunWriter(folder, fmt=args.format, force=args.force, metadata=meta,
+                           long_format_model=model if args.long_format else None)
+        results = run_plan(scenario, plan, sinks=(StreamSink(writer),), study=not args.no_study,
+                           progress=StageProgress())
+    except OSError as err:  # read-only folder, full disk, ...: the writer removed its temporary folder
+        raise _output_error(folder, err) from None
     summary, increments, exact_note, study = results.outcomes, results.increments, results.exact_note, results.study
     events, seconds = results.n_events, results.seconds["simulation"]
     out.write(f"{model.name}: {n:,} simulated patients per strategy (seed {seed}, {workers} threads), "
@@ -123,6 +131,12 @@ def _run(scenario: Scenario, args: argparse.Namespace, out: TextIO) -> int:
         if study.tunnel_entry is not None:
             out.write(_tunnel_line(study) + "\n")
     out.write(f"\n{CAUTION}\n")
+    for line in results.failure_lines():  # the output folder holds everything computed before
+        sys.stderr.write(f"hazardtrace: {line}\n")
+    if not results.complete:
+        sys.stderr.write(f"hazardtrace: the simulation and the other results are in {folder}/; this is a bug, "
+                         f"please report it with the scenario file\n")
+        return 1
     return 0
 
 
@@ -193,6 +207,26 @@ def _parser() -> argparse.ArgumentParser:
     return parser
 
 
+def _output_error(folder: Path, err: OSError) -> ExportError:
+    """One line for output that cannot be written: the folder asked for, the system's reason and the
+    file it concerned."""
+    reason = err.strerror or str(err)
+    detail = f" ({err.filename})" if err.filename and str(err.filename) != str(folder) else ""
+    return ExportError(f"{folder}: cannot write the output: {reason}{detail}; no partial output was left behind",
+                       file=folder, rule=f"cannot write the output: {reason}")
+
+
+def _internal_error(err: BaseException) -> int:
+    """Exit 1 with one line and a hint to report it; the traceback with ``HAZARDTRACE_DEBUG=1``."""
+    sys.stderr.write(f"hazardtrace: internal error: {failure_text(err)}\n")
+    if os.environ.get(DEBUG_VARIABLE, "") not in ("", "0"):
+        sys.stderr.write(traceback.format_exc())
+    else:
+        sys.stderr.write(f"This is a bug; please report it with the scenario file (run again with "
+                         f"{DEBUG_VARIABLE}=1 for the details).\n")
+    return 1
+
+
 def main(argv: list[str] | None = None, out: TextIO | None = None) -> int:
     out = out or sys.stdout
     args = _parser().parse_args(argv)
@@ -208,14 +242,21 @@ def main(argv: list[str] | None = None, out: TextIO | None = None) -> int:
     except (ScenarioError, ExportError, ValueError) as err:
         sys.stderr.write(f"hazardtrace: error: {err}\n")
         return 2
+    except SimulationError as err:  # the engine's stop for a runaway loop: input the user can change
+        sys.stderr.write(f"hazardtrace: error: {err}\n")
+        return 2
     except KeyboardInterrupt:
         sys.stderr.write("\nhazardtrace: interrupted; no partial output was left behind\n")
         return 130
     except BrokenPipeError:  # e.g. piped into 'head'
         return 0
-    except Exception:  # pragma: no cover - a bug: show it
-        sys.stderr.write("hazardtrace: internal error, please report:\n" + traceback.format_exc())
-        return 1
+    except OSError as err:  # output that cannot be written (read-only folder, full disk): nothing was left
+        where = err.filename or getattr(args, "output", None) or "the output"
+        sys.stderr.write(f"hazardtrace: error: cannot write {where}: {err.strerror or err}; "
+                         f"no partial output was left behind\n")
+        return 2
+    except Exception as err:  # a bug: one line and a hint, the traceback on request
+        return _internal_error(err)
 
 
 if __name__ == "__main__":  # pragma: no cover

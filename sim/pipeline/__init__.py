@@ -15,9 +15,9 @@ from .plan import RunPlan
 from .results import RunResults, horizon_range, time_grid
 from .run import run_plan, run_scenario
 from .sinks import ChunkSink, MemorySink, StreamSink
-from .stages import STAGES, Progress, RunState, Stage, run_stages
+from .stages import STAGES, Progress, RunState, Stage, failure_text, run_stages
 
 __all__ = ["StrategyMajorJoin", "ChunkJob", "ChunkTables", "chunk_jobs", "simulate_chunk", "Executor",
            "SerialExecutor", "ThreadExecutor", "executor_for", "RunPlan", "RunResults", "horizon_range", "time_grid", "run_plan",
            "run_scenario", "ChunkSink", "MemorySink", "StreamSink", "STAGES", "Progress", "RunState", "Stage",
-           "run_stages"]
+           "run_stages", "failure_text"]

@@ -39,6 +39,9 @@ class RunResults:
         study); their sum is the run's time.
     n_events : transitions simulated over all strategies.
     skipped : stage name -> why it did not run.
+    failed : stage name -> what went wrong, for a stage after the simulation that failed (exact,
+        estimates, study); the simulation and what was computed before are kept. Empty when every
+        stage that ran finished (:attr:`complete`).
     """
 
     scenario: Scenario
@@ -56,6 +59,16 @@ class RunResults:
     seconds: dict = field(default_factory=dict)
     n_events: int = 0
     skipped: dict = field(default_factory=dict)
+    failed: dict = field(default_factory=dict)
+
+    @property
+    def complete(self) -> bool:
+        """Every stage that ran finished (no entry in :attr:`failed`)."""
+        return not self.failed
+
+    def failure_lines(self) -> list[str]:
+        """One line per failed stage: ``"<stage> failed: <what went wrong>"``."""
+        return [f"{stage} failed: {why}" for stage, why in self.failed.items()]
 
 
 def horizon_range(scenario: Scenario) -> tuple[float, float]:

@@ -81,4 +81,5 @@ def _results(state: RunState) -> RunResults:
                       outcomes=state.outcomes, increments=state.increments, survival=state.survival,
                       occupancy=state.occupancy, grid=state.grid, exact_occupancy=state.exact_occupancy,
                       exact_note=state.exact_note, study=state.study, settings=state.plan.settings(),
-                      seconds=dict(state.seconds), n_events=state.n_events, skipped=dict(state.skipped))
+                      seconds=dict(state.seconds), n_events=state.n_events, skipped=dict(state.skipped),
+                      failed=dict(state.failed))

@@ -32,6 +32,7 @@ from ..analysis import (OutcomeAccumulator, incremental, occupancy_to_own_horizo
                         survival_to_own_horizon)
 from ..engine import CancelToken, SimulationCancelled, SimulationResult, cancel_requested
 from ..io import Scenario
+from ..problems import ValidationError
 from ..reference import (NoExactSolution, StudyResult, discretization_study, exact_outcomes_and_occupancy,
                          with_exact)
 from .chunks import chunk_jobs, simulate_chunk
@@ -40,7 +41,7 @@ from .plan import RunPlan
 from .results import time_grid
 from .sinks import ChunkSink
 
-__all__ = ["Progress", "RunState", "Stage", "STAGES", "run_stages"]
+__all__ = ["Progress", "RunState", "Stage", "STAGES", "run_stages", "failure_text"]
 
 Progress = Callable[[str, int, int], None]
 INCREMENT_COLUMNS = ["strategy", "comparator", "quantity", "value", "mcse", "mcse_unpaired"]
@@ -72,6 +73,7 @@ class RunState:
     study: StudyResult | None = None
     seconds: dict[str, float] = field(default_factory=dict)
     skipped: dict[str, str] = field(default_factory=dict)
+    failed: dict[str, str] = field(default_factory=dict)  # stage name -> what went wrong (see run_stages)
 
     def check_cancel(self, what: str = "run") -> None:
         if cancel_requested(self.cancel):
@@ -87,6 +89,8 @@ class Stage:
     run: Callable[[RunState], None]
     skip: Callable[[RunState], str] = lambda state: ""
     total: Callable[[RunState], int] = lambda state: 1
+    # a stage after the simulation whose failure is recorded and the run goes on (with this clean-up)
+    on_failure: Callable[[RunState, str], None] | None = None
 
 
 def _simulate(state: RunState) -> None:
@@ -164,19 +168,37 @@ def _no_log(state: RunState) -> str:
             "every history (run with a MemorySink as well to get them)")
 
 
+def _without_exact(state: RunState, why: str) -> None:
+    """After a failed exact stage: the simulated outcomes with empty exact columns, and the reason."""
+    assert state.outcomes is not None and state.increments is not None
+    if state.grid is None:
+        state.grid = time_grid(state.scenario)
+    if "exact" not in state.outcomes:
+        state.outcomes = state.outcomes.assign(exact=np.nan, z=np.nan)
+    if "exact" not in state.increments:
+        state.increments = state.increments.assign(exact=np.nan)
+    state.exact_occupancy = None
+    state.exact_note = f"no exact solution: the exact stage failed ({why})"
+
+
 STAGES: tuple[Stage, ...] = (
     Stage("simulation", "simulating", _simulate, total=lambda state: state.plan.patients),
     Stage("outcomes", "outcomes", _outcomes),
-    Stage("exact", "exact solution", _exact),
-    Stage("estimates", "estimates", _estimates, skip=_no_log),
-    Stage("study", "error study", _study, skip=lambda state: "" if state.want_study else "not asked for"),
+    Stage("exact", "exact solution", _exact, on_failure=_without_exact),
+    Stage("estimates", "estimates", _estimates, skip=_no_log, on_failure=lambda state, why: None),
+    Stage("study", "error study", _study, skip=lambda state: "" if state.want_study else "not asked for",
+          on_failure=lambda state, why: None),
 )
 
 
 def run_stages(state: RunState, stages: tuple[Stage, ...] = STAGES) -> RunState:
     """Run ``stages`` in order on ``state``: check for a cancel request, skip a stage that does not
     apply (recording why in ``state.skipped``), report ``(label, 0, total)``, run it and record its
-    seconds in ``state.seconds``."""
+    seconds in ``state.seconds``.
+
+    A finished simulation is never lost: when a stage with an ``on_failure`` clean-up (exact solution,
+    estimates, error study) raises anything but a cancel request, :func:`failure_text` of the error
+    goes to ``state.failed`` and the run goes on with what it has."""
     for stage in stages:
         state.check_cancel()
         reason = stage.skip(state)
@@ -185,6 +207,24 @@ def run_stages(state: RunState, stages: tuple[Stage, ...] = STAGES) -> RunState:
             continue
         state.report(stage.label, 0, stage.total(state))
         t0 = time.perf_counter()
-        stage.run(state)
+        try:
+            stage.run(state)
+        except SimulationCancelled:
+            raise
+        except Exception as err:  # noqa: BLE001 - recorded, reported with the results (exit 1 on the CLI)
+            if stage.on_failure is None:
+                raise
+            state.failed[stage.name] = failure_text(err)
+            stage.on_failure(state, state.failed[stage.name])
         state.seconds[stage.name] = time.perf_counter() - t0
     return state
+
+
+def failure_text(err: BaseException) -> str:
+    """A one-line account of a failed stage: the message of an input problem
+    (:class:`sim.problems.ValidationError`), else the error's type and message (a bug to report)."""
+    if isinstance(err, ValidationError):
+        return str(err)
+    text = str(err).strip().splitlines()[0] if str(err).strip() else ""
+    return f"{type(err).__name__}: {text}" if text else type(err).__name__
+
