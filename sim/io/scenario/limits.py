@@ -3,9 +3,10 @@
 Two kinds of rule, both documented in ``docs/scenario-format.md`` ("Limits"):
 
 - **Size** (:func:`size_problems`, :func:`document_problems`): the file, the number of states,
-  transitions and strategies, the length of texts and lists. Real models stay far below them; they
-  keep reading and checking a file to a second or two, whatever it holds. They are checked on the
-  raw document, before any part of it is built.
+  transitions and strategies, the length of texts and lists, the size of costs and utilities. Real
+  models stay far below them; they keep reading and checking a file to a second or two, whatever it
+  holds, and sums over patients from overflowing. They are checked on the raw document, before any
+  part of it is built.
 - **What a run can do** (:func:`run_problems`): each cycle length of the error study must give a
   trace of at most :data:`MAX_CYCLES` cycles over the longest follow-up, and each hazard (with its
   strategy's hazard ratio or replacement) must have a cumulative hazard over the follow-up of at
@@ -24,11 +25,13 @@ from typing import Any, Mapping
 
 import numpy as np
 
+from ...hazards import Dimension
 from ...model import Clock, Model, RunSettings
 from ...problems import KeyPath, Problem
+from .schema import Number, walk
 
 __all__ = ["MAX_FILE_BYTES", "MAX_STATES", "MAX_TRANSITIONS", "MAX_STRATEGIES", "MAX_TEXT", "MAX_FREE_TEXT",
-           "MAX_LIST", "MAX_CYCLE_LENGTHS", "MAX_CYCLES", "MAX_CUMULATIVE_HAZARD", "summary", "size_problems",
+           "MAX_LIST", "MAX_CYCLE_LENGTHS", "MAX_CYCLES", "MAX_CUMULATIVE_HAZARD", "MAX_MONEY", "MIN_UTILITY", "summary", "size_problems",
            "document_problems", "run_problems"]
 
 MAX_FILE_BYTES = 524_288
@@ -48,6 +51,12 @@ MAX_CYCLES = 20_000
 """A cycle length gives at most 20,000 cycles over the longest follow-up (daily cycles for 54 years)."""
 MAX_CUMULATIVE_HAZARD = 1e15
 """Cumulative hazard of one transition over the follow-up: at most 1e15 expected events."""
+MAX_MONEY = 1e12
+"""Costs (per year, per move) and the willingness to pay: at most 1e12 in size, so that sums and
+squares over patients and years (means, standard errors, net benefit) stay far from overflow."""
+MIN_UTILITY = -100.0
+"""Utilities (at most 1 already): at least -100 (states worse than death are valued above -1.1 in
+published tariffs, from memory), for the same reason."""
 
 _COUNTED = {"states": MAX_STATES, "transitions": MAX_TRANSITIONS, "strategies": MAX_STRATEGIES}
 _FREE_TEXT_KEYS = frozenset({"description"})
@@ -91,6 +100,23 @@ def document_problems(doc: Any) -> list[Problem]:
     if out:  # counts first: a walk of an oversized document is not worth it
         return out
     _walk(doc, (), out)
+    if not out:
+        out += _magnitude_problems(doc)
+    return out
+
+
+def _magnitude_problems(doc: Mapping) -> list[Problem]:
+    """Money within :data:`MAX_MONEY` and utilities from :data:`MIN_UTILITY`: the schema's
+    dimensions say which numbers are which (values of other types are the reader's to report)."""
+    out: list[Problem] = []
+    for path, node, value in walk(doc):
+        if (not isinstance(node, Number) or isinstance(value, bool) or not isinstance(value, (int, float))
+                or not math.isfinite(value)):  # NaN and infinities: the reader's number rule
+            continue
+        if node.dimension is Dimension.MONEY and abs(value) > MAX_MONEY:
+            out.append(Problem(path, f"must be between {-MAX_MONEY:g} and {MAX_MONEY:g}", value))
+        elif path[:2] == ("valuation", "utilities") and value < MIN_UTILITY:
+            out.append(Problem(path, f"must be >= {MIN_UTILITY:g}", value))
     return out
 
 
