@@ -14,6 +14,7 @@ import pytest
 from sim.io.demo import SCENARIO_DIR
 from sim.io.scenario import ScenarioError, load_scenario, parse_scenario
 from sim.io.scenario.limits import (MAX_CUMULATIVE_HAZARD, MAX_CYCLES, MAX_FILE_BYTES, MAX_FREE_TEXT, MAX_LIST,
+                                    MAX_MONEY, MIN_UTILITY,
                                     MAX_STATES, MAX_TEXT)
 from sim.pipeline import run_scenario
 
@@ -204,3 +205,24 @@ def test_a_stay_shorter_than_the_clock_resolves_is_one_step_of_the_clock() -> No
     assert (gaps > 0).all()
     tiny = gaps[gaps <= np.spacing(ev["time"].max()) * 2]
     assert len(tiny) > 0  # the case arises at this size (about 3% of stays are below 1e-15 years)
+
+
+@pytest.mark.parametrize("old, new, path, rule", [
+    ("utilities = { alive = 1.0 }", "utilities = { alive = -1e300 }", ("valuation", "utilities", "alive"),
+     f"must be >= {MIN_UTILITY:g}"),
+    ("utilities = { alive = 1.0 }", "utilities = { alive = 1.0 }\nstate_costs = { alive = 1e300 }",
+     ("valuation", "state_costs", "alive"), f"must be between {-MAX_MONEY:g} and {MAX_MONEY:g}"),
+    ("utilities = { alive = 1.0 }", "utilities = { alive = 1.0 }\nwillingness_to_pay = 1e13",
+     ("valuation", "willingness_to_pay"), f"must be between {-MAX_MONEY:g} and {MAX_MONEY:g}"),
+])
+def test_costs_and_utilities_that_would_overflow_the_outcomes(old: str, new: str, path: tuple, rule: str) -> None:
+    err = _error(BASE.replace(old, new))
+    assert [(p.path, p.rule) for p in err.problems] == [(path, rule)]
+
+
+def test_costs_and_utilities_at_the_limits_run() -> None:
+    text = BASE.replace("utilities = { alive = 1.0 }",
+                        f"utilities = {{ alive = {MIN_UTILITY} }}\nstate_costs = {{ alive = {MAX_MONEY} }}")
+    r = run_scenario(parse_scenario(text), patients=50, study=False)
+    out = r.outcomes.set_index("outcome")
+    assert np.isfinite(out["mcse"]).all() and out.loc["costs", "mean"] > 0
