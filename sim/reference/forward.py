@@ -248,16 +248,43 @@ def _axis_breaks(exits: Sequence[ExitRates], start: NDArray[np.float64], t0: flo
 
 class _Solved(NamedTuple):
     end: NDArray[np.float64]  # the state at the segment's end
-    at: NDArray[np.float64]  # (size, len(points)) the state at the requested points
+    at: NDArray[np.float64]  # (queries, block) each query's row block at the query's axis value
     largest_step: float
 
 
+def _row_blocks(a: int, n: int, r_n: int, k_ex: int, rows: NDArray[np.int64]) -> NDArray[np.int64]:
+    """Indices into the stacked state of each row's block: its occupancy (n), then its integrals
+    (r_n x n) and flows (r_n x k_ex), in the layout [p (a, n) | integrals (r_n, a, n) | flows (r_n, a, k)]."""
+    r = np.arange(r_n)[:, None]
+    occ = np.arange(n)
+    integ = (a * n + (r * a) * n + np.arange(n)).ravel()  # row 0's integral indices, per rate
+    flow = (a * n * (1 + r_n) + (r * a) * k_ex + np.arange(k_ex)).ravel()
+    step = np.concatenate([np.full(n, n), np.full(r_n * n, n), np.full(r_n * k_ex, k_ex)])
+    return np.concatenate([occ, integ, flow])[None, :] + rows[:, None] * step[None, :]
+
+
+def _dense_at(dense, u: NDArray[np.float64], index: NDArray[np.int64]) -> NDArray[np.float64]:
+    """The dense output at axis values ``u`` (queries), only the components ``index`` (queries, c) of
+    each: an explicit Runge-Kutta interpolant is evaluated on those components alone (the cost is
+    queries x c, not queries x the whole system); other interpolants are evaluated whole, then read."""
+    f, y_old, h = getattr(dense, "F", None), getattr(dense, "y_old", None), getattr(dense, "h", None)
+    if f is None or y_old is None or h is None:  # e.g. BDF's interpolant
+        return np.take_along_axis(np.asarray(dense(u)).T, index, axis=1)
+    x = ((u - dense.t_old) / h)[:, None]
+    out = np.zeros(index.shape)
+    for i, coef in enumerate(reversed(f)):  # DOP853's interpolant (scipy.integrate._ivp.rk), by component
+        out += coef[index]
+        out *= x if i % 2 == 0 else 1 - x
+    return out + y_old[index]
+
+
 def _run(method: type[OdeSolver], fun: Callable, seg: _Segment, y: NDArray[np.float64],
-         points: NDArray[np.float64], **options) -> _Solved:
-    """Step ``method`` over the segment; the dense output is built only for steps that hold a point."""
+         u: NDArray[np.float64], index: NDArray[np.int64], **options) -> _Solved:
+    """Step ``method`` over the segment; at each query axis value ``u`` (sorted) read the components
+    ``index`` (queries, c) of the solution from the step's dense output."""
     rtol, atol = (RTOL, ATOL) if method is DOP853 else (STIFF_RTOL, STIFF_ATOL)
     solver = method(fun, seg.lo, y, seg.hi, rtol=rtol, atol=atol, **options)
-    at = np.empty((y.size, points.size))
+    at = np.empty(index.shape)
     done, largest = 0, 0.0
     while solver.status == "running":
         message = solver.step()
@@ -265,19 +292,19 @@ def _run(method: type[OdeSolver], fun: Callable, seg: _Segment, y: NDArray[np.fl
             raise NoExactSolution(f"no exact solution: the ODE solver failed between axis values {seg.lo:g} and "
                                   f"{seg.hi:g} ({message})")
         largest = max(largest, solver.t - solver.t_old)
-        upto = int(np.searchsorted(points, solver.t, side="right"))
+        upto = int(np.searchsorted(u, solver.t, side="right"))
         if upto > done:
-            at[:, done:upto] = solver.dense_output()(points[done:upto])
+            at[done:upto] = _dense_at(solver.dense_output(), u[done:upto], index[done:upto])
             done = upto
-    at[:, done:] = solver.y[:, None]  # points at the end, beyond it by rounding
+    at[done:] = solver.y[index[done:]]  # queries at the end, beyond it by rounding
     if not np.all(np.isfinite(solver.y)):
         raise NoExactSolution(f"no exact solution: the ODE solver's values stopped being finite between axis "
                               f"values {seg.lo:g} and {seg.hi:g}")
     return _Solved(solver.y, at, largest)
 
 
-def _solve_segment(seg: _Segment, y: NDArray[np.float64], points: NDArray[np.float64], work: _Work,
-                   first_step: float | None) -> _Solved:
+def _solve_segment(seg: _Segment, y: NDArray[np.float64], u: NDArray[np.float64], index: NDArray[np.int64],
+                   work: _Work, first_step: float | None) -> _Solved:
     """One segment: explicit unless stiff; an explicit overrun is redone with the stiff method; bounded work."""
     stiffness = seg.rate_integral()
     if not np.isfinite(stiffness):
@@ -292,7 +319,7 @@ def _solve_segment(seg: _Segment, y: NDArray[np.float64], points: NDArray[np.flo
         work.attempt_limit = min(work.used + EXPLICIT_EVALUATIONS, MAX_EVALUATIONS)
         options = {} if first_step is None else {"first_step": min(first_step, seg.hi - seg.lo)}
         try:
-            return _run(DOP853, fun, seg, y, points, **options)
+            return _run(DOP853, fun, seg, y, u, index, **options)
         except _Overrun:
             if work.used >= MAX_EVALUATIONS:
                 raise _too_much(seg, stiffness) from None
@@ -303,7 +330,7 @@ def _solve_segment(seg: _Segment, y: NDArray[np.float64], points: NDArray[np.flo
         return seg.jacobian(u)
 
     try:
-        return _run(BDF, fun, seg, y, points, jac=jac)
+        return _run(BDF, fun, seg, y, u, index, jac=jac)
     except _Overrun:
         raise _too_much(seg, stiffness) from None
 
@@ -411,23 +438,24 @@ def _sweep(system: _Stacked, start: NDArray[np.float64], t_begin: float, breaks:
         seg = _Segment(float(breaks[i]), float(breaks[i + 1]), active, system)
         y = np.concatenate([p[active].ravel(), acc_i[:, active].ravel(), acc_f[:, active].ravel()])
         q_occ, q_hz = np.flatnonzero(occ_seg == i), np.flatnonzero(hz_seg == i)
-        points = np.unique(np.concatenate([occ_u[q_occ], hz_u[q_hz]]))
-        solved = _solve_segment(seg, y, points, work, work.first_step)
-        work.first_step = solved.largest_step  # the next segment starts there (the last step is cut short)
         a = active.size
         local = np.full(m, -1)
         local[active] = np.arange(a)
+        # this segment's queries, (axis value, row) pairs: each reads its own row's block only
+        q_u = np.concatenate([occ_u[q_occ], hz_u[q_hz]])
+        order = np.argsort(q_u, kind="stable")
+        q_rows = local[np.concatenate([queries.occ_row[q_occ], queries.hz_row[q_hz]])][order]
+        solved = _solve_segment(seg, y, q_u[order], _row_blocks(a, n, r_n, k_ex, q_rows), work, work.first_step)
+        work.first_step = solved.largest_step  # the next segment starts there (the last step is cut short)
+        block = np.empty_like(solved.at)
+        block[order] = solved.at
         p[active] = solved.end[:a * n].reshape(a, n)
         acc_i[:, active] = solved.end[a * n:a * n * (1 + r_n)].reshape(r_n, a, n)
         acc_f[:, active] = solved.end[a * n * (1 + r_n):].reshape(r_n, a, k_ex)
         if q_occ.size:
-            col = np.searchsorted(points, occ_u[q_occ])
-            occ.reshape(-1, n)[q_occ] = solved.at[:a * n].reshape(a, n, points.size)[local[queries.occ_row[q_occ]], :, col]
+            occ.reshape(-1, n)[q_occ] = block[:q_occ.size, :n]
         if q_hz.size:
+            hz = block[q_occ.size:]
             rows = queries.hz_row[q_hz]
-            col = np.searchsorted(points, hz_u[q_hz])
-            lr = local[rows]
-            integrals[:, rows] = np.moveaxis(
-                solved.at[a * n:a * n * (1 + r_n)].reshape(r_n, a, n, points.size)[:, lr, :, col], 0, 1)
-            flows[:, rows] = np.moveaxis(
-                solved.at[a * n * (1 + r_n):].reshape(r_n, a, k_ex, points.size)[:, lr, :, col], 0, 1)
+            integrals[:, rows] = np.moveaxis(hz[:, n:n * (1 + r_n)].reshape(-1, r_n, n), 0, 1)
+            flows[:, rows] = np.moveaxis(hz[:, n * (1 + r_n):].reshape(-1, r_n, k_ex), 0, 1)
