@@ -261,10 +261,14 @@ def _jump_over(q: NDArray[np.float64], dt: NDArray[np.float64]) -> NDArray[np.fl
     same = np.abs(diff) < 1e-12
     # (e^{di} - e^{dj}) / (di - dj) = e^{dj} expm1(di - dj) / (di - dj), stable for small differences,
     # and e^{dj} (to 1e-12 relative) where di = dj
-    ratio = np.expm1(diff)
-    np.divide(ratio, diff, out=ratio, where=~same)
-    ratio[same] = 1.0
-    ratio *= stay[..., None, :]
+    with np.errstate(over="ignore", invalid="ignore"):  # overflow only where big (replaced below)
+        ratio = np.expm1(diff)
+        np.divide(ratio, diff, out=ratio, where=~same)
+        ratio[same] = 1.0
+        ratio *= stay[..., None, :]
+    big = diff > 700.0  # expm1 would overflow: the same ratio as e^{di} (1 - e^{-(di - dj)}) / (di - dj)
+    if big.any():
+        ratio[big] = np.broadcast_to(stay[..., :, None], ratio.shape)[big] * -np.expm1(-diff[big]) / diff[big]
     off = q * dt[..., None, None]
     idx = np.arange(q.shape[-1])
     off[..., idx, idx] = 0.0

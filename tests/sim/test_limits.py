@@ -226,3 +226,20 @@ def test_costs_and_utilities_at_the_limits_run() -> None:
     r = run_scenario(parse_scenario(text), patients=50, study=False)
     out = r.outcomes.set_index("outcome")
     assert np.isfinite(out["mcse"]).all() and out.loc["costs", "mean"] > 0
+
+
+def test_a_large_legal_rate_with_a_yearly_cycle_gives_a_finite_error_study() -> None:
+    """Found by the pipeline fuzz test: a rate of 709.79 a year with a one-year cycle overflowed
+    expm1 in the probability of two moves in a cycle. With one exit to an absorbing state there is
+    never a second move, so every cycle-based trace must still give life years of about the exact
+    value (1 - e^{-r}) / r (constant hazard; Beck & Pauker 1983, Med Decis Making, for the Markov
+    setting) and no warning."""
+    s = parse_scenario(BASE.replace("events = 40", "events = 70979").replace(CYCLES, "cycle_lengths = [1]"))
+    r = run_scenario(s, patients=50, study=True)
+    assert r.complete, r.failure_lines()
+    table = r.study.table
+    ly = table[(table["outcome"] == "life_years")]
+    assert np.isfinite(ly["value"]).all()
+    rate = 709.79
+    assert math.isclose(r.outcomes.set_index("outcome").loc["life_years", "exact"], -math.expm1(-rate) / rate,
+                        rel_tol=1e-6)
