@@ -137,6 +137,9 @@ def _nonnegative(method: str, name: str, a: ArrayLike, *, finite: bool = False) 
 # Base class
 # --------------------------------------------------------------------------------------------
 
+_EPS = float(np.finfo(np.float64).eps)
+_TINY = 2.0 ** -1074  # the smallest positive double
+
 KERNEL_ERRSTATE = {"divide": "ignore", "over": "ignore", "under": "ignore"}
 """``np.errstate`` settings under which the public methods run the private kernels."""
 
@@ -280,6 +283,11 @@ class Hazard(abc.ABC):
         t = self._inv_cumhazard(hx + e) - x
         t = np.where(e > 0.0, np.maximum(t, 0.0), 0.0)
         refine = (e > 0.0) & (t <= x) & ((t < 1e-3 * x) | (e < 1e-3 * hx))
+        lost = (hx == np.inf) & (e > 0.0) & (e < np.inf) & (x < np.inf)  # H(x) overflowed at a finite x
+        if np.any(lost):  # the hazard there is huge: start from the first-order time, never +inf
+            with np.errstate(invalid="ignore"):
+                t = np.where(lost, np.nan_to_num(e / self._hazard(x), nan=0.0), t)
+            refine = refine | lost
         if np.any(refine):
             t = np.array(t, dtype=np.float64)
             t[refine] = self._polish(x[refine], e[refine], t[refine])
@@ -291,7 +299,10 @@ class Hazard(abc.ABC):
         return t * (self._hazard(s) @ _GL_WEIGHTS)
 
     def _polish(self, x: FloatArray, e: FloatArray, t0: FloatArray) -> FloatArray:
-        """Newton on ``increment(x, T) = e`` from ``t0`` (1-D arrays); keeps ``t0`` if it fails."""
+        """Newton on ``increment(x, T) = e`` from ``t0`` (1-D arrays); keeps ``t0`` where it fails
+        (a non-finite or negative iterate, no convergence within 30 steps, or a result whose
+        ``H(x + T) - H(x)`` misses ``e`` by more than the rounding of ``H``: a hazard so steep over
+        ``[x, x + T]``, e.g. a log-normal with a tiny sigma, that the quadrature cannot follow)."""
         first = e / self._hazard(x)  # first-order solution
         t = np.where((t0 > 0.5 * first) & (t0 < 2.0 * first), t0, first)
         for _ in range(30):
@@ -302,5 +313,11 @@ class Hazard(abc.ABC):
             t = np.where(np.isfinite(new), new, t)
             if np.all(done):
                 break
-        good = np.isfinite(t) & (t >= 0.0)
+        good = np.isfinite(t) & (t >= 0.0) & done
+        if np.any(good):  # the cumulative hazard must agree too, within its own rounding
+            with np.errstate(invalid="ignore"):  # inf - inf where H overflowed: not agreed
+                end = x + t
+                h_end = self._cumhazard(end)
+                slack = 16.0 * _EPS * (h_end + self._hazard(end) * end) + _TINY * self._hazard(end)
+                good &= (np.abs((h_end - self._cumhazard(x)) - e) <= slack) & (slack < np.inf)
         return np.where(good, t, t0)

@@ -41,6 +41,10 @@ def _gompertz_cumhazard(b: float, g: float, t: FloatArray) -> FloatArray:
     return np.where(np.isinf(t), limit, h)
 
 
+_TINY_NORMAL = float(np.finfo(np.float64).tiny)  # smallest normal double, 2.2e-308
+_BIG = float(np.finfo(np.float64).max)
+
+
 def _gompertz_time(log_b: FloatArray | float, g: float, e: FloatArray) -> FloatArray:
     """Solve (B/g)(exp(g T) - 1) = e for T with B = exp(log_b): T = log1p(g e / B) / g.
 
@@ -49,22 +53,36 @@ def _gompertz_time(log_b: FloatArray | float, g: float, e: FloatArray) -> FloatA
     Exact in the limit g -> 0 (gives e / B) and free of overflow for huge ``e / B``.
     """
     if g == 0.0:
-        return e * np.exp(-np.asarray(log_b, dtype=np.float64))
+        with np.errstate(invalid="ignore"):  # 0 * inf where 1/B overflowed: replaced below
+            t = e * np.exp(-np.asarray(log_b, dtype=np.float64))
+        edge = ~np.isfinite(t) & (e < np.inf)  # 1/B overflowed (B subnormal): e/B in log space
+        if np.any(edge):
+            with np.errstate(invalid="ignore"):  # e = 0 lanes (0 * inf) are replaced here
+                t = np.where(edge, np.where(e > 0.0, np.exp(np.log(e) - log_b), 0.0), t)
+        return t
     if g > 0.0:
         # Short form T = log1p(v) / g with v = e g / B formed directly (one exp, one log1p instead
         # of about six transcendental passes): as accurate as the forms below (relative error a few
-        # ulp, log1p being accurate for small v) wherever v is a normal, finite number.
+        # ulp, log1p being accurate for small v) wherever v and g / B are normal, finite numbers
+        # (a subnormal g / B, e.g. g = 5e-324, has lost digits even when v itself is normal).
         with np.errstate(over="ignore", under="ignore", invalid="ignore"):
-            v = e * np.exp(math.log(g) - np.asarray(log_b, dtype=np.float64))
-        if v.size and np.all((v >= 1e-300) & (v < 1e300)):
+            g_over_b = np.exp(math.log(g) - np.asarray(log_b, dtype=np.float64))
+            v = e * g_over_b
+        if v.size and np.all((v >= 1e-300) & (v < 1e300) & (g_over_b >= _TINY_NORMAL)):
             return np.log1p(v) / g
     log_e = np.log(e)
-    lv = math.log(abs(g)) + log_e - log_b  # log |v|
-    with np.errstate(invalid="ignore"):  # e = inf lanes (inf - inf) are masked by the where
+    # Lanes where log B is infinite (g x overflowed: B = inf for g > 0, B = 0 for g < 0) together
+    # with e = 0 or e = inf make inf - inf here; the wheres below give them T = 0 (e = 0) and
+    # T = inf (e = inf).
+    with np.errstate(invalid="ignore"):
+        lv = math.log(abs(g)) + log_e - log_b  # log |v|
         ratio = np.exp(log_e - log_b)  # e / B
         if g > 0.0:
             small = ratio * _log1prel(np.exp(np.minimum(lv, 0.0)))
-            return np.where(lv > 0.0, _softplus(lv) / g, small)
+            t = np.where(lv > 0.0, _softplus(lv) / g, small)
+            edge = ~(t >= 0.0) | (e == np.inf)  # NaN (inf - inf) or an infinite draw
+            return np.where(edge, np.where(e > 0.0, np.where(e < np.inf, 0.0, np.inf), 0.0), t) \
+                if np.any(edge) else t
         # g < 0: v in [-1, 0]; log1p(-1) = -inf gives +inf (never) exactly when |v| >= 1.
         t = ratio * _log1prel(-np.exp(np.minimum(lv, 0.0)))
     return np.where(e > 0.0, np.where(lv >= 0.0, np.inf, t), 0.0)
@@ -194,12 +212,28 @@ class GompertzMakeham(Hazard):
         if c == 0.0:
             return _gompertz_time(log_b, g, e)
         if g == 0.0:
-            return e / (b + c)
-        t = e / (c + np.exp(log_b))  # linear solution; exact when |g| t is negligible
+            t = e / (b + c)
+            if b + c == math.inf:  # both near the largest double: halve everything
+                t = (0.5 * e) / (0.5 * b + 0.5 * c)
+            return t
+        with np.errstate(invalid="ignore"):  # inf / inf (an infinite draw where B overflowed)
+            t = e / (c + np.exp(log_b))  # linear solution; exact when |g| t is negligible
+        t = np.where(e == np.inf, np.inf, t) if np.any(e == np.inf) else t
         hard = (abs(g) * t > 1e-17) & (e < np.inf)
         if np.any(hard):
             t = np.array(t, dtype=np.float64)
             t[hard] = self._newton(log_b[hard], e[hard])
+        return t
+
+    def _far_gompertz(self, log_b: FloatArray, e: FloatArray) -> FloatArray:
+        """Root of F(T) = e for g > 0 where g T > 700 (``exp(g T)`` would overflow): there the
+        Gompertz term dwarfs the Makeham one (its hazard exceeds ``e^700 B``), so the fixed point
+        ``T = T_G(e - c T)`` (``T_G`` the pure Gompertz time, in log space) contracts by a factor
+        ``c / (B e^{g T}) < 1/20`` per step; ten steps reach rounding level."""
+        c = self.constant
+        t = _gompertz_time(log_b, self.shape, e)
+        for _ in range(10):
+            t = _gompertz_time(log_b, self.shape, np.maximum(e - c * t, 0.0))
         return t
 
     def _newton(self, log_b: FloatArray, e: FloatArray) -> FloatArray:
@@ -213,8 +247,18 @@ class GompertzMakeham(Hazard):
         bracket is replaced by bisection. Converged once a step is below 1e-8 of ``T`` (cubic
         convergence: the step then taken leaves a relative error at rounding level).
         """
-        g, c = self.shape, self.constant
+        g = self.shape
         big_b = np.exp(log_b)
+        big_b0, e0 = big_b, e
+        c = self.constant
+        top_size = np.maximum(np.maximum(big_b, c), e)
+        deep = top_size < 2.0 ** -800  # c, B and e all tiny: subnormal arithmetic would lose digits
+        if np.any(deep):  # F(T) = e is unchanged when c, B and e are scaled by one power of two
+            power = np.minimum(-np.floor(np.log2(np.where(deep, top_size, 1.0))), 1000.0)  # 2**1000 finite
+            scale = np.where(deep, np.exp2(power), 1.0)
+            big_b, c, e = big_b * scale, c * scale, e * scale
+        else:
+            c = np.full(e.shape, c)
         t_c = e / c
         t_g = _gompertz_time(log_b, g, e)
         t_lin = e / (c + big_b)
@@ -222,7 +266,7 @@ class GompertzMakeham(Hazard):
             lo, hi = 0.5 * np.minimum(t_c, t_g), np.minimum(t_lin, t_g)
         else:
             lo, hi = t_lin, np.minimum(t_c, t_g)
-        hi = np.minimum(hi, np.finfo(np.float64).max)  # e/c may overflow for a subnormal c
+        hi = np.minimum(hi, _BIG)  # e/c may overflow for a subnormal c (+inf restored at the end)
         t = np.clip(1.0 / (1.0 / t_c + 1.0 / t_g), lo, hi)  # harmonic guess, exact for small e
         out = np.empty_like(e)
         idx = np.arange(e.size)
@@ -244,7 +288,18 @@ class GompertzMakeham(Hazard):
             keep = ~done
             if not np.any(keep):
                 break
-            idx, t, lo, hi, big_b, e = idx[keep], new[keep], lo[keep], hi[keep], big_b[keep], e[keep]
+            idx, t, lo, hi, big_b, e, c = idx[keep], new[keep], lo[keep], hi[keep], big_b[keep], e[keep], c[keep]
         else:  # pragma: no cover - bisection guarantees convergence well within 200 steps
             out[idx] = t
+        if g > 0.0:
+            # exp(g T) overflows near the root, where F cannot be evaluated, and the Gompertz
+            # hazard there exceeds 20 c (so that the fixed point below contracts)
+            far = (g * out > 700.0) & (log_b + g * out > math.log(self.constant) + 3.0)
+            if np.any(far):
+                out[far] = self._far_gompertz(log_b[far], e0[far])
+        top = out >= _BIG  # the bracket was capped at the largest double: is the root beyond it?
+        if np.any(top):
+            with np.errstate(invalid="ignore"):  # inf - inf: the root is not beyond (F(top) = inf)
+                f_top = self.constant * _BIG + big_b0[top] * np.expm1(g * _BIG) / g - e0[top]
+            out[top] = np.where(f_top < 0.0, np.inf, out[top])
         return out

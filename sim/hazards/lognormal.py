@@ -82,6 +82,21 @@ class LogNormal(Hazard):
             # arithmetic); one Newton step on log Phi(-w) = -y with the accurate log_ndtr restores them.
             wf = w[far]
             log_sf = sc.log_ndtr(-wf)
+            mills = np.exp(0.5 * wf * wf + 0.5 * math.log(2.0 * math.pi) + log_sf)  # Phi(-w) / phi(w)
+            step = (log_sf + y[far]) * mills if np.all(np.isfinite(log_sf) & (mills > 0.0) & (mills < np.inf)) \
+                else self._edge_step(wf, log_sf, y[far])
             w = np.array(w, dtype=np.float64)
-            w[far] = wf + (log_sf + y[far]) * np.exp(0.5 * wf * wf + 0.5 * math.log(2.0 * math.pi) + log_sf)
+            w[far] = wf + step
         return np.exp(self.mu + self.sigma * w)
+
+    @staticmethod
+    def _edge_step(w: FloatArray, log_sf: FloatArray, y: FloatArray) -> FloatArray:
+        """The Newton step of ``_inv_cumhazard`` where its usual form fails: ``y`` beyond ~1e16,
+        where ``w^2 / 2`` and ``log Phi(-w)`` cancel to nothing (the Mills ratio
+        ``Phi(-w) / phi(w)`` is taken as ``sqrt(pi/2) erfcx(w / sqrt 2)`` instead), and ``y`` near
+        the largest double, where ``log Phi(-w)`` overflows to ``-inf`` (no step: ``ndtri_exp``'s
+        ``w`` is kept). The step is then at the rounding level of ``w``; it only must not be NaN."""
+        mills = math.sqrt(0.5 * math.pi) * sc.erfcx(w / math.sqrt(2.0))
+        with np.errstate(invalid="ignore"):  # -inf * 0 lanes, replaced below
+            step = (log_sf + y) * mills
+        return np.where(np.isfinite(step), step, 0.0)

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 from typing import Any, ClassVar
 
@@ -11,6 +12,8 @@ from ._numerics import FloatArray
 from .base import Hazard, _invalid, _param
 
 __all__ = ["ProportionalHazards"]
+
+_TINY_NORMAL = float(np.finfo(np.float64).tiny)  # smallest normal double
 
 
 @dataclass(frozen=True)
@@ -69,4 +72,42 @@ class ProportionalHazards(Hazard):
     def _conditional_time(self, x: FloatArray, e: FloatArray) -> FloatArray:
         if self.hr == 0.0:
             return np.full(e.shape, np.inf)
-        return self.base._conditional_time(x, e / self.hr)
+        y = e / self.hr
+        t = self.base._conditional_time(x, y)
+        # e / hr overflowed (a tiny hr: the event time may be finite) or underflowed to a subnormal
+        # or 0 (a large hr: the event time may be far above the smallest double)
+        lost = ((y == np.inf) & (e < np.inf)) | ((y < _TINY_NORMAL) & (e > 0.0))
+        if np.any(lost):
+            same = self._same_family()
+            if same is not None:
+                t = np.array(t, dtype=np.float64)
+                t[lost] = same._conditional_time(x[lost], e[lost])
+        return t
+
+    def _same_family(self) -> Hazard | None:
+        """``hr * base`` written as a member of the base's own family where one exists
+        (exponential, Weibull, Gompertz(-Makeham), piecewise-constant: the rate parameters times
+        ``hr``, the Weibull scale times ``hr ** (-1 / shape)``), so that its conditional time takes
+        the draw ``e`` itself instead of ``e / hr``; ``None`` for the other families, or where the
+        scaled parameters leave their domain (underflow to 0, overflow)."""
+        from .exponential import Exponential
+        from .gompertz import Gompertz, GompertzMakeham
+        from .piecewise import PiecewiseConstant
+        from .shape_scale import Weibull
+
+        b, hr = self.base, self.hr
+        try:
+            with np.errstate(over="ignore", under="ignore"):
+                if isinstance(b, Exponential):
+                    return Exponential(b.rate * hr)
+                if isinstance(b, Weibull):
+                    return Weibull(b.shape, math.exp(math.log(b.scale) - math.log(hr) / b.shape))
+                if isinstance(b, GompertzMakeham):
+                    return GompertzMakeham(b.rate * hr, b.shape, b.constant * hr)
+                if isinstance(b, Gompertz):
+                    return Gompertz(b.rate * hr, b.shape)
+                if isinstance(b, PiecewiseConstant):
+                    return PiecewiseConstant(b.breaks, tuple(r * hr for r in b.rates))
+        except (ValueError, OverflowError):  # a scaled parameter left its domain
+            return None
+        return None

@@ -23,6 +23,18 @@ from .dimensions import Dimension
 __all__ = ["Weibull", "LogLogistic"]
 
 
+def _overflowed_end(t: FloatArray, log_end: FloatArray, z: FloatArray, e: FloatArray) -> FloatArray:
+    """``T = (x + T)(1 - e^{-z})`` where ``x + T`` overflowed (a clock near the largest double):
+    as ``exp(log(x + T) + log(1 - e^{-z}))``, finite when ``T`` is, instead of ``inf * 0 = NaN`` or
+    ``+inf``. Other lanes are returned unchanged."""
+    edge = ~(t < np.inf) & (e < np.inf)
+    if not np.any(edge):
+        return t
+    with np.errstate(invalid="ignore", divide="ignore"):  # log(0) = -inf gives T = 0
+        redo = np.exp(log_end + np.log(-np.expm1(-z)))
+    return np.where(edge, np.where(np.isnan(redo), 0.0, redo), t)
+
+
 @dataclass(frozen=True)
 class _ShapeScale(Hazard):
     """Shared parameters of the proper two-parameter families with a shape and a time scale
@@ -93,6 +105,7 @@ class Weibull(_ShapeScale):
             z = _softplus(log_e - log_hx) / k  # log((x + T) / x)
             log_end = log_lam + np.logaddexp(log_hx, log_e) / k  # log(x + T)
             t = np.exp(log_end) * -np.expm1(-z)
+        t = _overflowed_end(t, log_end, z, e)
         return np.where(e > 0.0, t, 0.0)
 
 
@@ -148,4 +161,5 @@ class LogLogistic(_ShapeScale):
             z = _softplus(lem1 + _softplus(-la)) / k  # log((x + T) / x)
             log_end = log_lam + np.logaddexp(la + e, lem1) / k  # log(x + T)
             t = np.exp(log_end) * -np.expm1(-z)
+        t = _overflowed_end(t, log_end, z, e)
         return np.where(e > 0.0, np.where(e < np.inf, t, np.inf), 0.0)
