@@ -275,3 +275,9 @@ def _check_time(value: float, name: str) -> float:
     if not np.isfinite(x) or x < 0:
         raise ValueError(f"{name}: {x!r} is invalid; must be finite and >= 0")
     return x
+
+
+def _sorted_by_state(values: NDArray[np.float64], codes: NDArray[np.intp], n_states: int
+                     ) -> list[NDArray[np.float64]]:
+    """For each code 0..n_states-1, the sorted ``values`` of the rows with that code."""
+    return [np.sort(values[codes == j]) for j in range(n_states)]

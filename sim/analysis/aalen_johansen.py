@@ -28,7 +28,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 
-from ._event_log import _check_times, _Cohort, _Log, _prepare_log
+from ._event_log import _check_times, _Cohort, _Log, _prepare_log, _sorted_by_state
 from .kaplan_meier import _censoring_survival_before
 
 __all__ = ["BLOCK", "state_occupancy", "cumulative_incidence"]
@@ -36,11 +36,6 @@ __all__ = ["BLOCK", "state_occupancy", "cumulative_incidence"]
 BLOCK = 4096
 """Event times per block in the Aalen-Johansen product integral (bounds memory to
 ``BLOCK * d**2`` floats, d = number of states plus counted transitions)."""
-
-
-def _sorted_by_state(values: NDArray[np.float64], codes: NDArray[np.intp], n_states: int
-                     ) -> list[NDArray[np.float64]]:
-    return [np.sort(values[codes == j]) for j in range(n_states)]
 
 
 def _ordered_product(mats: NDArray[np.float64]) -> NDArray[np.float64]:

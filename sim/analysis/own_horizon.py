@@ -27,13 +27,9 @@ import numpy as np
 import pandas as pd
 from numpy.typing import ArrayLike
 
-from ._event_log import _check_times, _prepare_cohort, _prepare_log
+from ._event_log import _check_times, _prepare_cohort, _prepare_log, _sorted_by_state
 
 __all__ = ["occupancy_to_own_horizon", "survival_to_own_horizon"]
-
-
-def _sorted_states(values: np.ndarray, codes: np.ndarray, n_states: int) -> list[np.ndarray]:
-    return [np.sort(values[codes == j]) for j in range(n_states)]
 
 
 def occupancy_to_own_horizon(events: pd.DataFrame, patients: pd.DataFrame, states: Sequence[str],
@@ -66,8 +62,8 @@ def occupancy_to_own_horizon(events: pd.DataFrame, patients: pd.DataFrame, state
     log = _prepare_log(events, patients, states, strategy)
     t = _check_times(times)
     S, n = len(log.states), log.n
-    entries = _sorted_states(log.ev_time, log.ev_to, S)
-    exits = _sorted_states(log.ev_time, log.ev_from, S)
+    entries = _sorted_by_state(log.ev_time, log.ev_to, S)
+    exits = _sorted_by_state(log.ev_time, log.ev_from, S)
     n0 = np.bincount(log.initial, minlength=S)
     p = np.empty((t.size, S))
     for j in range(S):
