@@ -12,7 +12,7 @@ from typing import Any, Mapping
 from PySide6.QtWidgets import QComboBox, QFormLayout, QLabel, QWidget
 
 from gui.document import KeyPath, ScenarioDocument, format_key, remove_value, set_value
-from gui.editors.family_start import matched_start
+from sim.hazards import matched_start
 from gui.editors.fields import FieldSet
 from sim.hazards import (FAMILIES, FAMILY_DIMENSIONS, Dimension, Hazard, UnitError, rate_from_risk, rate_per_year,
                          risk_from_rate)
@@ -32,7 +32,7 @@ FAMILY_LABELS = {
     "piecewise": "piecewise constant",
 }
 # Starting values when the family is changed (the user edits them next); the level parameter is
-# then matched to the previous hazard (gui.editors.family_start).
+# then matched to the previous hazard (sim.hazards.level_match).
 DEFAULTS: dict[str, dict[str, Any]] = {
     "exponential": {"rate": 0.1},
     "weibull": {"shape": 1.2, "scale": 10.0},

@@ -12,7 +12,7 @@ from scipy import stats
 
 from gui.document import ScenarioDocument
 from gui.editors import TransitionsEditor
-from gui.editors.family_start import matched_start
+from sim.hazards import matched_start
 from gui.editors.hazard_form import DEFAULTS
 from sim.hazards import FAMILIES, make_hazard
 

@@ -3,7 +3,7 @@ the old hazard's level.
 
 Changing a transition from, say, an exponential rate of 0.15 per year to Gompertz must not jump to
 a mortality-style default (rate 0.0001, a hazard 500 times lower). The new family keeps its default
-shape parameters (:data:`gui.editors.hazard_form.DEFAULTS`) and its level parameter is chosen so that
+shape parameters (given by the caller, e.g. the window's defaults) and its level parameter is chosen so that
 the new hazard equals the old one at a reference clock value ``t``:
 
 - exponential ``rate = h(t)``; Gompertz ``rate = h(t) exp(-shape t)``; Gompertz-Makeham half of
@@ -13,7 +13,7 @@ the new hazard equals the old one at a reference clock value ``t``:
   ``exp(mu)``): ``h(t; scale) = g(t / scale) / scale``, solved for the scale on a log grid and
   refined with Brent's method (scipy.optimize.brentq).
 
-The hazards themselves come from :func:`sim.hazards.make_hazard`; all values are per year and are
+The hazards themselves come from :func:`.registry.make_hazard`; all values are per year and are
 converted to the table's time unit with :func:`sim.hazards.from_year_units`.
 """
 
@@ -26,7 +26,10 @@ from typing import Any, Mapping
 import numpy as np
 from scipy.optimize import brentq
 
-from sim.hazards import FAMILY_DIMENSIONS, Hazard, from_year_units, make_hazard, to_years
+from .base import Hazard
+from .dimensions import from_year_units
+from .registry import FAMILY_DIMENSIONS, make_hazard
+from .units import to_years
 
 __all__ = ["FamilyStart", "matched_start"]
 
