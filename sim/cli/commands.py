@@ -35,6 +35,12 @@ from .progress import ProgressBar, StageProgress
 
 __all__ = ["main", "describe"]
 
+# Verbs that live in modules of their own. Each module has ``register(sub)`` which adds its parser
+# with ``set_defaults(func=...)``; with ``needs_scenario=False`` the function is called as
+# ``func(args, out)`` (else ``func(scenario, args, out)`` with the scenario loaded and validated).
+# Add one line per verb module; errors follow ``main``'s exit codes.
+VERB_MODULES: tuple = ()
+
 SHOWN = ("life_years", "qalys_discounted", "costs_discounted")
 DEBUG_VARIABLE = "HAZARDTRACE_DEBUG"
 CAUTION = ("HazardTrace is a modelling aid, not for clinical decisions about individual patients; results "
@@ -202,6 +208,8 @@ def _parser() -> argparse.ArgumentParser:
     chk = sub.add_parser("check", help="validate a scenario and describe the model in words")
     chk.add_argument("scenario", help="scenario file (.toml)")
     chk.set_defaults(func=_check)
+    for register in VERB_MODULES:  # verbs in modules of their own (sim/cli/<verb>.py)
+        register(sub)
     # listed for --help only: 'hazardtrace gui' is dispatched by gui.launcher before this parser
     sub.add_parser("gui", help="open the desktop window (hazardtrace gui [SCENARIO]; see hazardtrace gui --help)")
     return parser
@@ -237,6 +245,8 @@ def main(argv: list[str] | None = None, out: TextIO | None = None) -> int:
         if args.command == "demo":
             args.scenario = str(demo_path())
             args.output = args.output or str(Path("out") / "demo")
+        if not getattr(args, "needs_scenario", True):  # e.g. 'fit DATA', 'rerun METADATA'
+            return args.func(args, out)
         scenario = load_scenario(args.scenario)
         return args.func(scenario, args, out)
     except (ScenarioError, ExportError, ValueError) as err:
