@@ -130,14 +130,18 @@ def _clock_value(ex: ResolvedExit, t: NDArray[np.float64], age: NDArray[np.float
 
 
 def _latent_times(ex: ResolvedExit, x: NDArray[np.float64], e: NDArray[np.float64],
-                  sex: NDArray[np.int8]) -> NDArray[np.float64]:
+                  sex: NDArray[np.int8], draw: NDArray[np.int64] | None = None) -> NDArray[np.float64]:
+    # An exit whose hazard differs between parameter draws (sim.engine.draws.DrawExit) evaluates
+    # each lane with its draw's hazard.
     # The engine's clocks are finite and >= 0 and its draws are >= 0 by construction, so the
     # arguments need not be re-validated on every call: evaluate the family's conditional time
     # directly under the floating-point error state of Hazard.conditional_time (the values are the
     # same; only a -0.0 could differ, and t + (-0.0) == t + 0.0 for the engine's t >= +0.0).
     first = ex.hazards[0]
     with np.errstate(**KERNEL_ERRSTATE):
-        if all(h is first for h in ex.hazards):
+        if draw is not None and hasattr(ex, "latent"):
+            out = ex.latent(x, e, sex, draw)
+        elif all(h is first for h in ex.hazards):
             out = first._conditional_time(x, e)
         else:
             out = np.empty_like(x)
@@ -157,9 +161,10 @@ def _latent_times(ex: ResolvedExit, x: NDArray[np.float64], e: NDArray[np.float6
 def _run_strategy(model: Model, resolved: list[list[ResolvedExit]], bulk: _BulkWords, start: int,
                   entry_age: NDArray[np.float64], sex: NDArray[np.int8], initial: NDArray,
                   limit: NDArray[np.float64], max_transitions: int, t: NDArray[np.float64], cur: NDArray,
-                  reason: NDArray[np.int8]) -> dict[str, NDArray]:
+                  reason: NDArray[np.int8], draw_of: NDArray[np.int64] | None = None) -> dict[str, NDArray]:
     """Histories of one chunk under one strategy. ``t``, ``cur`` and ``reason`` are the chunk's rows
-    of the patient table (exit time, final state, exit reason), used as the working state."""
+    of the patient table (exit time, final state, exit reason), used as the working state.
+    ``draw_of`` gives each patient's parameter draw when the exits are per-draw (``DrawExit``)."""
     n = entry_age.size
     n_states = len(model.states)
     state_code = _code_dtype(n_states)
@@ -174,7 +179,8 @@ def _run_strategy(model: Model, resolved: list[list[ResolvedExit]], bulk: _BulkW
     exit_index = [np.array([e.index for e in ex], dtype=exit_code) for ex in resolved]
     targets = [np.array([e.target for e in ex], dtype=state_code) for ex in resolved]
     uses_age = [any(e.clock is Clock.AGE for e in ex) for ex in resolved]
-    by_sex = [any(any(h is not e.hazards[0] for h in e.hazards) for e in ex) for ex in resolved]
+    by_sex = [any(getattr(e, "sex_specific", None) or any(h is not e.hazards[0] for h in e.hazards) for e in ex)
+              for ex in resolved]
     # one record per (round, state): chunk-local patient index, time, from, to, exit, round
     rec_idx: list[NDArray[np.int64]] = []
     rec_time: list[NDArray[np.float64]] = []
@@ -228,11 +234,12 @@ def _run_strategy(model: Model, resolved: list[list[ResolvedExit]], bulk: _BulkW
             ts = t if whole else t[sel]
             age = (entry_age + ts if whole else entry_age[sel] + ts) if uses_age[s] else None
             sx = (sex if whole else sex[sel]) if by_sex[s] else None
+            dr = None if draw_of is None else (draw_of if whole else draw_of[sel])
             # earliest latent time (the first exit wins ties, as with numpy.argmin)
-            best = _latent_times(exits[0], _clock_value(exits[0], ts, age), e[:, 0], sx)
+            best = _latent_times(exits[0], _clock_value(exits[0], ts, age), e[:, 0], sx, dr)
             win = None
             for j in range(1, k):
-                dt_j = _latent_times(exits[j], _clock_value(exits[j], ts, age), e[:, j], sx)
+                dt_j = _latent_times(exits[j], _clock_value(exits[j], ts, age), e[:, j], sx, dr)
                 better = dt_j < best
                 best = np.where(better, dt_j, best)
                 win = np.where(better, j, 0 if win is None else win)
@@ -304,29 +311,35 @@ def _run_strategy(model: Model, resolved: list[list[ResolvedExit]], bulk: _BulkW
 
 
 def _simulate_chunk(model: Model, plans: list[list[list[ResolvedExit]]], key: tuple[int, int],
-                    start: int, stop: int, max_transitions: int, table: _PatientTable) -> _ChunkOut:
+                    start: int, stop: int, max_transitions: int, table: _PatientTable,
+                    draws=None) -> _ChunkOut:
+    """One chunk. ``draws`` (a ``sim.engine.draws.DrawSet``) gives patients of different parameter
+    draws their own population and horizon (``draws.segments``) and each patient's draw index."""
     bulk = _BulkWords(key)
-    pop = model.population
-    single = pop.single_initial_state
+    segments = [(start, stop, model)] if draws is None else draws.segments(start, stop)
+    single = all(m.population.single_initial_state for _, _, m in segments)
     # attribute words: entry age, sex and (for a mix of initial states only, so that a single initial
     # state draws exactly what it always did) the initial state
     u = _sorted_draws(bulk, np.arange(start, stop, dtype=np.int64), ATTRIBUTE_STREAM, 0, 2 if single else 3,
                       exponential=False)
     rows = table.rows(0, start, stop)
-    entry_age = table.entry_age[rows]
-    entry_age[...] = model.population.entry_age.ppf(u[:, 0])
-    sex = table.sex[rows]
-    # with a single sex every patient has code 0 (what sex_codes returns for any u in (0, 1])
-    sex[...] = 0 if len(model.population.sexes) == 1 else model.population.sex_codes(u[:, 1])
-    initial = table.initial[rows]
-    initial[...] = model.state_index(single) if single else pop.initial_codes(u[:, 2], sex, model.state_names)
+    entry_age, sex, initial = table.entry_age[rows], table.sex[rows], table.initial[rows]
+    limit = np.empty(stop - start)
+    for a, b, m in segments:  # one segment unless the draws' populations or horizons differ
+        pop, part = m.population, slice(a - start, b - start)
+        entry_age[part] = pop.entry_age.ppf(u[part, 0])
+        # with a single sex every patient has code 0 (what sex_codes returns for any u in (0, 1])
+        sex[part] = 0 if len(pop.sexes) == 1 else pop.sex_codes(u[part, 1])
+        one = pop.single_initial_state
+        initial[part] = m.state_index(one) if one else pop.initial_codes(u[part, 2], sex[part], m.state_names)
+        limit[part] = m.horizon.time_limit(entry_age[part])
     del u
-    limit = model.horizon.time_limit(entry_age)
+    draw_of = None if draws is None else draws.draw_of(start, stop)
     per = []
     for k, plan in enumerate(plans):
         rows = table.rows(k, start, stop)
         per.append(_run_strategy(model, plan, bulk, start, entry_age, sex, initial, limit, max_transitions,
-                                 table.exit_time[rows], table.final_state[rows], table.exit_reason[rows]))
+                                 table.exit_time[rows], table.final_state[rows], table.exit_reason[rows], draw_of))
     return _ChunkOut(start, stop, per)
 
 

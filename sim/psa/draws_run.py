@@ -1,0 +1,91 @@
+"""Simulated outcomes per parameter draw: the inner loop of the probabilistic analysis.
+
+Draw ``d`` simulates patients ``d * n .. (d + 1) * n - 1`` (``n`` patients per draw) with the run's
+seed, under every strategy: strategies share their random numbers within a draw (common random
+numbers, keyed on seed, patient, stream and occurrence), and different draws have different
+patients, so the inner samples of different draws are independent (as the variance decomposition
+of O'Hagan, Stevenson & Madan 2007, Health Econ 16(10):1009-1023, assumes). Draw ``d``'s outcomes
+therefore depend on nothing but the seed, ``n``, ``d`` and its model: not on the block it was run in,
+the number of workers or the scheduler.
+
+Two paths give the same bits:
+
+- :func:`simulated_per_draw`: one engine call (:func:`sim.engine.simulate_range`) per draw;
+- :func:`simulated_vectorised`: one call of :func:`sim.engine.simulate_draws` for a block of
+  consecutive draws, the patients of each draw carrying their draw's hazards (per-patient parameter
+  arrays inside the engine).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Mapping, Sequence
+
+import numpy as np
+import pandas as pd
+
+from ..engine import simulate_draws, simulate_range
+from ..model import Model
+from .patient_values import Valuations, block_outcomes, draw_means
+from .tables import SIMULATED, draw_frame, sort_draw_table
+
+__all__ = ["ApplyDraw", "models_for_draws", "simulated_per_draw", "simulated_vectorised", "consecutive_runs"]
+
+ApplyDraw = Callable[[Model, Mapping[str, float]], Model]
+"""``apply(model, values) -> Model``: the model with one draw's parameter values (by parameter name)."""
+
+
+def models_for_draws(model: Model, values: pd.DataFrame, apply: ApplyDraw | None) -> list[Model]:
+    """One model per row of ``values`` (index: draw; one column per parameter); the point-value
+    model for every draw when there are no columns or no ``apply``."""
+    if apply is None or values.shape[1] == 0:
+        return [model] * len(values)
+    names = [str(c) for c in values.columns]
+    return [apply(model, dict(zip(names, map(float, row)))) for row in values.to_numpy(dtype=float)]
+
+
+def _rows(models: Sequence[Model], draws: np.ndarray, events: pd.DataFrame, patients: pd.DataFrame, first: int,
+          n: int, strategies: tuple[str, ...]) -> list[pd.DataFrame]:
+    out = []
+    for s in strategies:
+        values = block_outcomes(models[0], s, events, patients, first, n, Valuations.of(list(models), s))
+        out.append(draw_frame(draws, s, SIMULATED, draw_means(values, n), n))
+    return out
+
+
+def simulated_per_draw(models: Sequence[Model], draws: Sequence[int], patients: int, seed: int,
+                       strategies: tuple[str, ...] | None = None) -> pd.DataFrame:
+    """Simulated outcomes per draw and strategy (rows of the per-draw table, method ``"simulated"``),
+    one engine call per draw."""
+    names = tuple(strategies or models[0].strategy_names)
+    n = int(patients)
+    parts = []
+    for model, d in zip(models, draws):
+        first = int(d) * n
+        events, pts = simulate_range(model, seed, first, first + n, strategies=names)
+        parts += _rows([model], np.array([d]), events, pts, first, n, names)
+    return sort_draw_table(parts, names)
+
+
+def consecutive_runs(draws: Sequence[int]) -> list[tuple[int, int]]:
+    """``(start, stop)`` positions of the runs of consecutive draw numbers in ``draws``."""
+    d = np.asarray(draws, dtype=np.int64)
+    if d.size == 0:
+        return []
+    cut = np.flatnonzero(np.diff(d) != 1) + 1
+    bounds = np.concatenate(([0], cut, [d.size]))
+    return [(int(a), int(b)) for a, b in zip(bounds[:-1], bounds[1:])]
+
+
+def simulated_vectorised(models: Sequence[Model], draws: Sequence[int], patients: int, seed: int,
+                         strategies: tuple[str, ...] | None = None) -> pd.DataFrame:
+    """As :func:`simulated_per_draw` with one engine call per run of consecutive draws."""
+    names = tuple(strategies or models[0].strategy_names)
+    n = int(patients)
+    d_all = np.asarray(draws, dtype=np.int64)
+    parts = []
+    for a, b in consecutive_runs(d_all):
+        block = list(models[a:b])
+        first = int(d_all[a]) * n
+        events, pts = simulate_draws(block, seed, n, first_draw=int(d_all[a]), strategies=names)
+        parts += _rows(block, d_all[a:b], events, pts, first, n, names)
+    return sort_draw_table(parts, names)
