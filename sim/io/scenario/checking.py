@@ -13,8 +13,8 @@ from typing import Any, Callable, Iterable, Mapping, NoReturn, TypeVar
 from ...model.checks import flag, number, string
 from ...problems import NO_VALUE, KeyPath, Problem, ValidationError
 from .durations import parse_duration
-from .schema import (Durations, Flag, FreeText, HazardTable, Items, NameMap, Node, Number, Numbers, StateOrShares,
-                     Table, Text, TextOrMap, Variant)
+from .schema import (Durations, Flag, FreeText, HazardTable, Items, Matrix, NameMap, Node, Number, Numbers,
+                     StateOrShares, Table, Text, Texts, TextOrMap, Variant)
 
 __all__ = ["Invalid", "Checker"]
 
@@ -84,6 +84,10 @@ class Checker:
             return self.name_map(NameMap(value=node.value), raw, path)
         if isinstance(node, StateOrShares):
             return self.state_or_shares(node, raw, path)
+        if isinstance(node, Texts):
+            return self.texts(node, raw, path)
+        if isinstance(node, Matrix):
+            return self.matrix(raw, path)
         raise TypeError(f"{type(node).__name__} is not a leaf of the schema")  # pragma: no cover
 
     def state_or_shares(self, node: StateOrShares, raw: Any, path: KeyPath) -> Any:
@@ -121,6 +125,38 @@ class Checker:
                 out.append(self.value(node.element, x, (*path, i)))
             except Invalid:
                 bad = True
+        if bad:
+            raise Invalid
+        return tuple(out)
+
+    def texts(self, node: Texts, raw: Any, path: KeyPath) -> tuple[str, ...]:
+        if not isinstance(raw, list) or not raw:
+            self.fail(path, "must be a non-empty list of strings", raw)
+        out, bad = [], False
+        for i, x in enumerate(raw):
+            try:
+                out.append(self.guarded(lambda: string((*path, i), x, choices=node.choices)))
+            except Invalid:
+                bad = True
+        if bad:
+            raise Invalid
+        return tuple(out)
+
+    def matrix(self, raw: Any, path: KeyPath) -> tuple[tuple[float, ...], ...]:
+        """A square table of finite numbers (a list of equally long lists)."""
+        if not isinstance(raw, list) or not raw or not all(isinstance(r, list) for r in raw):
+            self.fail(path, "must be a list of rows, each a list of numbers ([[1.0, 0.2], [0.2, 2.0]])", raw)
+        if any(len(r) != len(raw) for r in raw):
+            self.fail(path, f"must be square: {len(raw)} rows of {len(raw)} numbers", raw)
+        out, bad = [], False
+        for i, row in enumerate(raw):
+            vals = []
+            for j, x in enumerate(row):
+                try:
+                    vals.append(self.guarded(lambda: number((*path, i, j), x)))
+                except Invalid:
+                    bad = True
+            out.append(tuple(vals))
         if bad:
             raise Invalid
         return tuple(out)

@@ -15,7 +15,8 @@ of one kind named by a reference), :class:`Items` (an array of tables with uniqu
 :class:`NameMap` (a table ``name = value`` whose names may refer to states or transitions),
 :class:`Variant` (a table whose keys depend on a tag such as ``distribution``), :class:`TextOrMap`
 (a name, or a table of them), :class:`StateOrShares` (a state, or shares of states, optionally per
-sex) and :class:`HazardTable` (``family``, ``unit`` and the family's parameters).
+sex), :class:`HazardTable` (``family``, ``unit`` and the family's parameters), :class:`Texts` (a list
+of names) and :class:`Matrix` (a square table of numbers).
 """
 
 from __future__ import annotations
@@ -29,10 +30,12 @@ from ...hazards import FAMILIES, FAMILY_DIMENSIONS, Dimension
 from ...model import BACKGROUND, Clock, EmpiricalAge, FixedAge, NormalAge, RunSettings, UniformAge, Valuation
 from ...model.settings import TUNNEL_ENTRIES
 from ...problems import KeyPath
+from ...uncertainty import TRANSFORMS
 
 __all__ = ["FORMAT_VERSION", "TIME_UNITS", "Ref", "Node", "Number", "Text", "FreeText", "Flag", "Numbers",
            "Durations", "Table", "Items", "NameMap", "Variant", "TextOrMap", "StateOrShares", "HazardTable", "SCHEMA",
-           "LIST_PARAMETERS", "EXPONENTIAL_FORMS", "ENTRY_AGES", "hazard_keys", "Reference", "references", "declared_keys", "file_keys"]
+           "LIST_PARAMETERS", "EXPONENTIAL_FORMS", "ENTRY_AGES", "hazard_keys", "Reference", "references", "declared_keys", "file_keys",
+           "Texts", "Matrix", "UNCERTAINTY_FORMS", "node_at"]
 
 FORMAT_VERSION = 1
 TIME_UNITS = ("days", "weeks", "months", "years")
@@ -162,6 +165,18 @@ class StateOrShares(Node):
 
 
 @dataclass(frozen=True)
+class Texts(Node):
+    """A non-empty list of non-empty strings (each one of ``choices`` when given)."""
+
+    choices: tuple[str, ...] | None = None
+
+
+@dataclass(frozen=True)
+class Matrix(Node):
+    """A square table of numbers: a list of rows, each a list of numbers (a covariance matrix)."""
+
+
+@dataclass(frozen=True)
 class HazardTable(Node):
     """A hazard: ``family``, ``unit`` and the family's parameters (:func:`hazard_keys`), plus the
     table's own ``keys`` (a transition's name, ends and clock)."""
@@ -214,6 +229,52 @@ _DISCOUNT = {"minimum": 0, "maximum": 0.999999, "default": _VALUATION.discount_c
 def _money(ref: Ref) -> NameMap:
     return NameMap(value=Number(dimension=Dimension.MONEY), key_ref=ref)
 
+
+# ----------------------------------------------------------------------------- uncertain inputs
+_ANY = Number(parameter=False)
+_POSITIVE = Number(minimum=0, strict_min=True, parameter=False)
+_ONE: dict[str, Node] = {
+    "parameter": Text(required=True, doc='the parameter, as `hazardtrace check` names it, e.g. "valuation.utilities.well"'),
+    "description": FreeText(doc="free text, e.g. the source of the estimate"),
+}
+_GROUP: dict[str, Node] = {
+    "parameters": Texts(required=True, doc="the parameters drawn together, in the order of the values"),
+    "description": FreeText(doc="free text, e.g. the source of the estimate"),
+}
+_MEAN_SE = {"mean": _ANY, "se": _POSITIVE}
+UNCERTAINTY_FORMS: Mapping[str, tuple[tuple[str, ...], ...]] = MappingProxyType({
+    "beta": (("alpha", "beta"), ("mean", "se")),
+    "gamma": (("shape", "scale"), ("mean", "se")),
+    "lognormal": (("mu", "sigma"), ("mean", "se")),
+    "normal": (("mean", "sd"), ("mean", "se")),
+    "uniform": (("low", "high"),),
+    "triangular": (("low", "mode", "high"),),
+    "dirichlet": (("alpha",), ("mean", "sample_size")),
+    "multivariate_normal": (("mean", "covariance"),),
+})
+"""For each ``[[uncertainty]]`` distribution, the ways of giving it (exactly one is given): its own
+parameters, or ``mean`` and ``se`` fitted by the method of moments (see :mod:`sim.uncertainty`)."""
+_UNCERTAINTY = Items(doc="uncertain inputs: a distribution on a parameter or a group of them", item=Variant(
+    tag="distribution", inline=False, variants={
+        "beta": {**_ONE, "alpha": _POSITIVE, "beta": _POSITIVE, **_MEAN_SE},
+        "gamma": {**_ONE, "shape": _POSITIVE, "scale": _POSITIVE, **_MEAN_SE},
+        "lognormal": {**_ONE, "mu": _ANY, "sigma": _POSITIVE, **_MEAN_SE},
+        "normal": {**_ONE, "mean": Number(required=True, parameter=False), "sd": _POSITIVE, "se": _POSITIVE,
+                   "low": _ANY, "high": _ANY},
+        "uniform": {**_ONE, "low": Number(required=True, parameter=False),
+                    "high": Number(required=True, parameter=False)},
+        "triangular": {**_ONE, "low": Number(required=True, parameter=False),
+                       "mode": Number(required=True, parameter=False),
+                       "high": Number(required=True, parameter=False)},
+        "dirichlet": {**_GROUP, "alpha": Numbers(element=_POSITIVE), "mean": Numbers(element=_POSITIVE),
+                      "sample_size": _POSITIVE},
+        "multivariate_normal": {**_GROUP, "mean": Numbers(required=True, element=_ANY),
+                                "covariance": Matrix(required=True, doc="on the estimation scale"),
+                                "transform": Texts(choices=TRANSFORMS,
+                                                   doc="estimation scale of each parameter (default identity)")},
+    }))
+for _dist, _forms in UNCERTAINTY_FORMS.items():
+    assert all(k in _UNCERTAINTY.item.variants[_dist] for form in _forms for k in form), _dist
 
 SCHEMA = Table(keys={
     "format_version": Number(required=True, integer=True, parameter=False, doc=f"{FORMAT_VERSION}"),
@@ -293,6 +354,7 @@ SCHEMA = Table(keys={
         "tunnel_entry": Text(default=_RUN.tunnel_entry, choices=TUNNEL_ENTRIES,
                              doc="time in state credited to entries into tunnel states within a cycle"),
     }),
+    "uncertainty": _UNCERTAINTY,
 })
 """The whole scenario format (format_version 1)."""
 
@@ -345,6 +407,9 @@ def _children(node: Node, value: Any) -> Iterator[tuple[Any, Node]]:
     elif isinstance(node, Numbers) and isinstance(value, list):
         for i in range(len(value)):
             yield i, node.element
+    elif isinstance(node, Texts) and isinstance(value, list):
+        for i in range(len(value)):
+            yield i, Text(choices=node.choices)
 
 
 def walk(doc: Any, node: Node = SCHEMA, path: KeyPath = ()) -> Iterator[tuple[KeyPath, Node, Any]]:
@@ -367,6 +432,31 @@ def declared_keys(doc: Any) -> list[KeyPath]:
     """Every key path the schema declares for ``doc``: the keys present and the optional keys that
     could be added (for the property test that mutates every key)."""
     return [p for p, _, _ in walk(doc)]
+
+
+def node_at(doc: Any, path: KeyPath) -> Node | None:
+    """The schema's node for the key ``path`` of ``doc`` (present, or a key that could be added: a
+    name of a ``name = value`` table need not be there yet, an item of an array must), or ``None``
+    when the format has no such key. Whether a name refers to an existing state or transition is
+    the caller's to check."""
+    node: Node = SCHEMA
+    value = doc
+    for key in path:
+        child: Node | None = None
+        if isinstance(node, NameMap):
+            child = node.value if isinstance(key, str) else None
+        elif isinstance(node, StateOrShares):
+            if isinstance(value, Mapping) and isinstance(key, str):
+                child = NameMap(value=node.share, key_ref=Ref.STATE) if node.per_sex(value) else node.share
+        else:
+            for k, c in _children(node, value):
+                if k == key and type(k) is type(key):
+                    child = c
+                    break
+        if child is None:
+            return None
+        node, value = child, _get(value, key)
+    return node
 
 
 def _get(value: Any, key: Any) -> Any:

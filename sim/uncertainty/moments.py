@@ -1,0 +1,98 @@
+"""Method-of-moments fits: the parameters of a distribution with a stated mean and standard error
+(Briggs, Claxton & Sculpher 2006, Decision Modelling for Health Economic Evaluation, ch. 4).
+
+=============  =====================================================================================
+family         parameters from mean ``m`` and standard error ``s``
+=============  =====================================================================================
+beta           ``alpha = m (m (1 - m) / s^2 - 1)``, ``beta = (1 - m)(m (1 - m) / s^2 - 1)``;
+               needs ``0 < m < 1`` and ``s^2 < m (1 - m)``
+gamma          ``shape = m^2 / s^2``, ``scale = s^2 / m``; needs ``m > 0``
+log-normal     ``sigma^2 = ln(1 + s^2 / m^2)``, ``mu = ln m - sigma^2 / 2``; needs ``m > 0``
+normal         ``mean = m``, ``sd = s``
+Dirichlet      ``alpha_k = m_k n`` from mean shares ``m_k`` (summing to 1) and a sample size ``n``
+=============  =====================================================================================
+
+Each fit returns the distribution (whose :meth:`~.distributions.Distribution.parameters` report
+the result); its mean and standard deviation are ``m`` and ``s`` exactly, up to rounding. A mean or
+standard error the family cannot have raises :class:`~.distributions.DistributionError` naming
+``mean`` or ``se``, the value and the rule. See docs/methods.md, 'Parameter uncertainty'.
+
+References
+----------
+.. [1] Briggs A, Claxton K, Sculpher M. Decision Modelling for Health Economic Evaluation. Oxford
+   University Press; 2006. Chapter 4.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Any, Sequence
+
+import numpy as np
+
+from .distributions import Beta, Gamma, LogNormal, Normal, _fail, _real
+from .groups import Dirichlet
+
+__all__ = ["beta_from_mean_se", "gamma_from_mean_se", "lognormal_from_mean_se", "normal_from_mean_se",
+           "dirichlet_from_shares", "MOMENT_FITS"]
+
+
+def beta_from_mean_se(mean: float, se: float) -> Beta:
+    """Beta with mean ``mean`` and standard deviation ``se``.
+
+    ``alpha + beta = m (1 - m) / s^2 - 1`` (the variance of a beta is ``m (1 - m) / (alpha + beta +
+    1)``), so ``s`` must be below ``sqrt(m (1 - m))``.
+    """
+    m = _real("mean", mean)
+    s = _real("se", se, positive=True)
+    if not 0.0 < m < 1.0:
+        raise _fail("mean", "must lie strictly between 0 and 1 for a beta distribution", mean)
+    limit = math.sqrt(m * (1.0 - m))
+    if not s < limit:
+        raise _fail("se", f"must be < sqrt(mean (1 - mean)) = {limit:.4g} for a beta distribution with mean "
+                          f"{m:g} (the largest spread a beta with this mean can have)", se)
+    total = m * (1.0 - m) / (s * s) - 1.0
+    return Beta(m * total, (1.0 - m) * total)
+
+
+def gamma_from_mean_se(mean: float, se: float) -> Gamma:
+    """Gamma with mean ``mean`` and standard deviation ``se``: shape ``m^2/s^2``, scale ``s^2/m``."""
+    m = _real("mean", mean)
+    s = _real("se", se, positive=True)
+    if not m > 0:
+        raise _fail("mean", "must be > 0 for a gamma distribution", mean)
+    return Gamma(m * m / (s * s), s * s / m)
+
+
+def lognormal_from_mean_se(mean: float, se: float) -> LogNormal:
+    """Log-normal with mean ``mean`` and standard deviation ``se`` (of the value, not of its log):
+    ``sigma^2 = ln(1 + s^2/m^2)``, ``mu = ln m - sigma^2/2``."""
+    m = _real("mean", mean)
+    s = _real("se", se, positive=True)
+    if not m > 0:
+        raise _fail("mean", "must be > 0 for a log-normal distribution", mean)
+    var_log = math.log1p((s / m) ** 2)
+    return LogNormal(math.log(m) - var_log / 2.0, math.sqrt(var_log))
+
+
+def normal_from_mean_se(mean: float, se: float) -> Normal:
+    """Normal with mean ``mean`` and standard deviation ``se`` (no truncation)."""
+    return Normal(_real("mean", mean), _real("se", se, positive=True))
+
+
+def dirichlet_from_shares(mean: Sequence[float], sample_size: float) -> Dirichlet:
+    """Dirichlet with mean shares ``mean`` (summing to 1 within 1e-9) and concentration
+    ``sample_size`` (``alpha_k = m_k n``: the shares as counts out of ``n`` observations)."""
+    if isinstance(mean, (str, bytes)) or np.ndim(mean) != 1 or len(mean) < 2:
+        raise _fail("mean", "must be a list of at least 2 shares", mean)
+    shares = [_real(("mean", i), v, positive=True) for i, v in enumerate(mean)]
+    total = math.fsum(shares)
+    if abs(total - 1.0) > 1e-9:
+        raise _fail("mean", f"shares must sum to 1 (they sum to {total:.12g})", list(mean))
+    n = _real("sample_size", sample_size, positive=True)
+    return Dirichlet(tuple(m * n for m in shares))
+
+
+MOMENT_FITS: dict[str, Any] = {"beta": beta_from_mean_se, "gamma": gamma_from_mean_se,
+                               "lognormal": lognormal_from_mean_se, "normal": normal_from_mean_se}
+"""The families that take ``mean`` and ``se``, with their fit."""
