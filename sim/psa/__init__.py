@@ -2,4 +2,9 @@
 exact and cycle-based) and their tables, executed inline or on a Dask cluster (only
 ``sim.psa`` 's runner module imports Dask)."""
 
-__all__: list[str] = []
+from .apply import model_for_draw, point_values, uncertain_parameters
+
+__all__: list[str] = [
+    # parameter draws applied to the model
+    "uncertain_parameters", "model_for_draw", "point_values",
+]

@@ -20,12 +20,14 @@ from tomlkit.exceptions import ParseError
 from ...model import (BACKGROUND, BackgroundMortality, Horizon, Model, Population, RunSettings, State, Strategy,
                       Transition, Valuation)
 from ...problems import Problem, ValidationError
+from ...uncertainty import UncertainInput
 from .checking import Checker, Invalid
 from .errors import ScenarioError
 from .hazard_reading import read_hazard, read_life_table_hazards
 from .limits import MAX_FILE_BYTES, document_problems, run_problems, size_problems
 from .positions import KeyLines
 from .schema import ENTRY_AGES, FORMAT_VERSION, SCHEMA, Items, Ref, Table, Text, Variant
+from .uncertain import read_uncertainty, with_values
 
 __all__ = ["Scenario", "parse_scenario", "load_scenario"]
 
@@ -41,6 +43,8 @@ class Scenario:
     path: Path | None = None
     text: str = ""
     conversions: tuple[str, ...] = field(default_factory=tuple)
+    uncertainty: tuple[UncertainInput, ...] = field(default_factory=tuple)
+    """The ``[[uncertainty]]`` entries: distributions on parameters (empty without the section)."""
 
     @property
     def sha256(self) -> str:
@@ -204,7 +208,8 @@ class _Reading:
         return self.ck.guarded(RunSettings, **v)
 
 
-def _build(doc: Mapping, file: str | None, base_dir: Path | None) -> tuple[Model, RunSettings, list[str]]:
+def _build(doc: Mapping, file: str | None, base_dir: Path | None
+           ) -> tuple[Model, RunSettings, list[str], list[UncertainInput]]:
     """Validate the whole document (see the module docstring). Problems are raised without lines;
     :func:`parse_scenario` locates them."""
     if not isinstance(doc, Mapping):
@@ -223,6 +228,9 @@ def _build(doc: Mapping, file: str | None, base_dir: Path | None) -> tuple[Model
             ck.add(("format_version",), f"this HazardTrace reads format_version {FORMAT_VERSION}", version)
         if version != FORMAT_VERSION:  # a different format: nothing else can be read reliably
             raise ScenarioError.of([ck.problems[-1]])
+    specs, fills = read_uncertainty(ck, doc)  # parameters given only by a distribution take its mean
+    if fills:
+        doc = r.doc = with_values(doc, fills)
 
     for i, s in enumerate(r.items("states")):
         got = ck.attempt(r.state, i, s)
@@ -268,7 +276,7 @@ def _build(doc: Mapping, file: str | None, base_dir: Path | None) -> tuple[Model
     except ValidationError as err:  # a rule between parts (ModelError and its kin)
         raise ScenarioError.of(_document_paths(err.problems, doc)) from None
     _check_reachable(model)
-    return model, run, r.notes
+    return model, run, r.notes, specs
 
 
 def _document_paths(problems: tuple[Problem, ...], doc: Mapping) -> list[Problem]:
@@ -328,7 +336,7 @@ def parse_scenario(text: str, file: str | Path | None = None, base_dir: Path | N
         oversized = document_problems(doc)
         if oversized:
             raise ScenarioError.of(oversized)
-        model, run, notes = _build(doc, fname, base_dir)
+        model, run, notes, specs = _build(doc, fname, base_dir)
         impossible = run_problems(model, run)
         if impossible:
             raise ScenarioError.of(_document_paths(tuple(impossible), doc))
@@ -336,7 +344,7 @@ def parse_scenario(text: str, file: str | Path | None = None, base_dir: Path | N
         lines = KeyLines(text)  # one pass over the text, however many problems
         raise ScenarioError.of(p.located(file=fname, line=lines.line_of(p.path)) for p in err.problems) from None
     return Scenario(model=model, run=run, path=Path(file) if file else None, text=text,
-                    conversions=tuple(notes))
+                    conversions=tuple(notes), uncertainty=tuple(specs))
 
 
 def load_scenario(path: str | Path) -> Scenario:
