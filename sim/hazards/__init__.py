@@ -1,11 +1,12 @@
 """Hazard families and unit conversions: the hazard h(t), cumulative hazard H(t), survival S = exp(-H)
 and a stable conditional inverse of H for each family (exponential, Weibull, Gompertz,
-Gompertz-Makeham, log-logistic, log-normal, gamma, piecewise-constant, proportional hazards), and the
+Gompertz-Makeham, log-logistic, log-normal, gamma, piecewise-constant, proportional hazards, a waning hazard ratio, the larger of a fit and a floor), and the
 conversions between rates, risks over a period and time units. See docs/methods.md."""
 
 from .base import KERNEL_ERRSTATE, Hazard, HazardParameterError
 from .dimensions import Dimension, from_year_units, to_year_units
 from .exponential import Exponential
+from .floor import AtLeastHazard, Crossing, ShiftedClock
 from .gamma import Gamma
 from .gompertz import Gompertz, GompertzMakeham
 from .level_match import FamilyStart, matched_start
@@ -14,6 +15,7 @@ from .piecewise import PiecewiseConstant
 from .proportional import ProportionalHazards
 from .registry import FAMILIES, FAMILY_DIMENSIONS, make_hazard
 from .shape_scale import LogLogistic, Weibull
+from .waning import WANING_SCALES, WaningHazardRatio, rough_points, waning
 from .units import (DAYS_PER_YEAR, MONTHS_PER_YEAR, UNIT_IN_YEARS, RateConversion, UnitError, from_years,
                     rate_from_risk, rate_per_year, rescale_risk, risk_from_rate, to_years)
 
@@ -21,4 +23,5 @@ __all__ = ["FAMILY_DIMENSIONS", "Dimension", "from_year_units", "to_year_units",
            "FamilyStart", "matched_start", "Exponential", "Gamma", "Gompertz", "GompertzMakeham", "Hazard", "HazardParameterError", "LogLogistic", "LogNormal", "PiecewiseConstant", "ProportionalHazards",
            "Weibull", "make_hazard", "DAYS_PER_YEAR", "MONTHS_PER_YEAR", "UNIT_IN_YEARS", "RateConversion",
            "UnitError", "from_years", "rate_from_risk", "rate_per_year", "rescale_risk", "risk_from_rate",
-           "to_years"]
+           "to_years", "AtLeastHazard", "Crossing", "ShiftedClock", "WANING_SCALES", "WaningHazardRatio",
+           "rough_points", "waning"]
