@@ -93,7 +93,8 @@ class StackedSolution:
 def solve_stacked(model: Model, strategy: str | tuple[str, ...], entry_age: NDArray[np.float64],
                   sex: NDArray[np.int64], times: NDArray[np.float64], horizon: NDArray[np.float64],
                   discount_rates: tuple[float, ...] = (0.0,),
-                  cancel: CancelToken | Callable[[], bool] | None = None) -> StackedSolution:
+                  cancel: CancelToken | Callable[[], bool] | None = None,
+                  to_horizon: bool = False) -> StackedSolution:
     """Forward equations for m (entry age, sex) pairs at once, stacked into one ODE system, with the
     time-in-state integrals and exit flows for each annual discount rate accumulated alongside.
 
@@ -101,7 +102,9 @@ def solve_stacked(model: Model, strategy: str | tuple[str, ...], entry_age: NDAr
     (rows strategy-major, m = len(strategies) x pairs), one solver call for all of them. ``cancel``
     (an object with ``is_set()`` or a callable) is checked during the integration and raises
     :class:`sim.engine.SimulationCancelled`; :class:`NoExactSolution` is raised for a semi-Markov model
-    and when the solver's bounded work does not reach the solution (:mod:`sim.reference.forward`)."""
+    and when the solver's bounded work does not reach the solution (:mod:`sim.reference.forward`).
+    ``to_horizon``: occupancy is wanted only at times up to each pair's horizon (later entries are NaN;
+    what :func:`at_own_horizon` reads), and each pair is integrated only that far."""
     _check_markov(model)
     names = (strategy,) if isinstance(strategy, str) else tuple(strategy)
     m0 = entry_age.size
@@ -176,7 +179,8 @@ def solve_stacked(model: Model, strategy: str | tuple[str, ...], entry_age: NDAr
                                np.array([e.index for e in exits]))
     exit_rates = [ExitRates(s_k, d_k, tuple(groups), offset, moving) for s_k, d_k, groups, offset, moving in plan]
     occ, integrals, flows = integrate_segments(
-        exit_rates, n, entry_age, p0, y0[size_p + size_i:].reshape(r_n, m, k_ex), t0, times, horizon, deltas, cancel)
+        exit_rates, n, entry_age, p0, y0[size_p + size_i:].reshape(r_n, m, k_ex), t0, times, horizon, deltas, cancel,
+        to_horizon)
     return StackedSolution(occ, integrals, flows, np.array([e.index for e in exits]))
 
 
@@ -262,7 +266,7 @@ def solve_exact(model: Model, times: ArrayLike, strategies: tuple[str, ...] | No
     horizon = model.horizon.time_limit(pair_age)
     at, where = at_own_horizon(times, horizon)
     for name in names:
-        sol = solve_stacked(model, name, pair_age, pair_sex, at, horizon, (0.0, discount_rate), cancel)
+        sol = solve_stacked(model, name, pair_age, pair_sex, at, horizon, (0.0, discount_rate), cancel, to_horizon=True)
         own = np.take_along_axis(sol.occupancy, where[:, :, None], axis=1)  # (pairs, times, states)
         occ_parts.append(occupancy_frame(name, times, states, np.einsum("m,mtn->tn", pair_w, own)))
         yrs = pair_w @ sol.integrals[0]

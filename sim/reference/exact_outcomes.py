@@ -48,7 +48,8 @@ def exact_outcomes_and_occupancy(model: Model, times: NDArray[np.float64], strat
     rows, occupancy = [], []
     names = tuple(strategies or model.strategy_names)
     at, where = at_own_horizon(times, horizon)  # read each pair at min(t, own horizon)
-    sol = solve_stacked(model, names, age, sex, at, horizon, rates, cancel)  # one solve for all strategies
+    # one solve for all strategies, each pair only to its own horizon (all that is read)
+    sol = solve_stacked(model, names, age, sex, at, horizon, rates, cancel, to_horizon=True)
     m0 = age.size
     states = model.state_names
     for j, strategy in enumerate(names):

@@ -119,7 +119,10 @@ class _Segment:
         local = np.full(system.m, -1)
         local[active] = np.arange(a)
         self.start = system.start[active]
-        mid = 0.5 * (lo + hi)
+        # each row's piecewise-constant hazards at the middle of its part of the segment, [lo, min(hi,
+        # its end)]: a row whose end (a jump of its own) falls inside the segment keeps its last band's
+        # value beyond it, where its values are not read
+        mid = 0.5 * (lo + np.clip(system.end, lo, hi))
         self.fixed = system.fixed[:, active].copy()
         self.smooth: list[tuple[int, Hazard, NDArray[np.int64], NDArray[np.float64]]] = []
         self.copies: list[tuple[int, int]] = []
@@ -138,7 +141,7 @@ class _Segment:
                     rows, pos = rows[keep], pos[keep]
                     c = ex.offset[rows] - system.start[rows]  # clock = c + u
                     if band_edges(h) is not None:  # constant within the segment
-                        self.fixed[k, pos] = h._hazard(np.maximum(c + mid, 0.0))
+                        self.fixed[k, pos] = h._hazard(np.maximum(c + mid[rows], 0.0))
                     else:
                         self.smooth.append((k, h, pos, c))
         for k, first in self.copies:
@@ -221,29 +224,58 @@ class _Stacked:
     src: NDArray[np.int64]
     dst: NDArray[np.int64]
     deltas: NDArray[np.float64]
-    start: NDArray[np.float64]
+    start: NDArray[np.float64]  # per row, the axis value at time since entry 0
     fixed: NDArray[np.float64]
     first_of: list[int]
+    end: NDArray[np.float64]  # per row, the axis value where the current sweep stops reading it
 
 
-def _axis_breaks(exits: Sequence[ExitRates], start: NDArray[np.float64], t0: float,
-                 u_end: float) -> NDArray[np.float64]:
-    """Sorted break points in (min start, u_end): row starts and hazard jumps mapped to the axis."""
-    pts = [start + t0]
+def _own_edges(exits: Sequence[ExitRates], origin: NDArray[np.float64]
+               ) -> list[tuple[NDArray[np.int64], NDArray[np.float64]]]:
+    """Each row's hazard jumps on the axis: (rows, (rows, edges) axis values) per piecewise-constant
+    hazard on a moving clock."""
+    out = []
     for ex in exits:
         if not ex.moving:
             continue
         for h, rows in ex.groups:
             edges = band_edges(h)
             if edges is not None and edges.size:
-                pts.append((edges[None, :] + (start[rows] - ex.offset[rows])[:, None]).ravel())
+                out.append((rows, edges[None, :] + (origin[rows] - ex.offset[rows])[:, None]))
+    return out
+
+
+def _axis_breaks(exits: Sequence[ExitRates], origin: NDArray[np.float64], begin: NDArray[np.float64],
+                 end: NDArray[np.float64]) -> NDArray[np.float64]:
+    """Sorted break points from min(begin) to max(end) over the rows that take part (finite begin): row
+    starts and each row's own hazard jumps in (begin_r, end_r). A row's end is not a break point: in the
+    segment holding it the row keeps its last band's rates beyond it (see :class:`_Segment`)."""
+    live = np.isfinite(begin)
+    lo, hi = float(begin[live].min()), float(end[live].max())
+    pts = [begin[live]]
+    for rows, at in _own_edges(exits, origin):
+        inside = live[rows, None] & (at > begin[rows, None]) & (at < end[rows, None])
+        pts.append(at[inside])
     u = np.unique(np.concatenate(pts))
-    lo = float(start.min()) + t0
-    u = u[(u > lo) & (u < u_end)]
+    u = u[(u > lo) & (u < hi)]
     if u.size:  # merge points closer than rounding (the same band edge seen from different rows)
-        tol = 1e-12 * max(1.0, abs(u_end))
+        tol = 1e-12 * max(1.0, abs(hi))
         u = u[np.concatenate(([True], np.diff(u) > tol))]
-    return np.concatenate(([lo], u, [u_end]))
+    return np.concatenate(([lo], u, [hi]))
+
+
+def _joins(exits: Sequence[ExitRates], age: NDArray[np.float64], t1: float,
+           span: NDArray[np.float64]) -> NDArray[np.float64]:
+    """Where each row moves from the time-since-entry axis to the age axis (an attained age): its first
+    own hazard jump at or after age + t1 and before age + span (a band edge the age axis breaks at
+    anyway), else age + t1; age + span for a row whose span ends before t1 (it stays on time since
+    entry)."""
+    first = np.full(age.size, np.inf)
+    for rows, at in _own_edges(exits, age):
+        later = np.where((at >= (age + t1)[rows, None]) & (at < (age + span)[rows, None]), at, np.inf)
+        first[rows] = np.minimum(first[rows], later.min(axis=1, initial=np.inf))
+    join = np.where(np.isfinite(first), first, age + t1)
+    return np.where(span <= t1, age + span, join)
 
 
 class _Solved(NamedTuple):
@@ -346,7 +378,7 @@ def _too_much(seg: _Segment, stiffness: float) -> NoExactSolution:
 def integrate_segments(exits: Sequence[ExitRates], n_states: int, entry_age: NDArray[np.float64],
                        p0: NDArray[np.float64], f0: NDArray[np.float64], t0: float, times: NDArray[np.float64],
                        horizon: NDArray[np.float64], deltas: NDArray[np.float64],
-                       cancel: CancelToken | Callable[[], bool] | None = None
+                       cancel: CancelToken | Callable[[], bool] | None = None, to_horizon: bool = False
                        ) -> tuple[NDArray[np.float64], NDArray[np.float64], NDArray[np.float64]]:
     """Integrate the stacked forward equations from time since entry t0 (state p0 (m, n), flows f0
     (R, m, exits)) in segments between break points.
@@ -354,7 +386,13 @@ def integrate_segments(exits: Sequence[ExitRates], n_states: int, entry_age: NDA
     On the time-since-entry axis every row starts at once. When attained age has fewer break points,
     the first :data:`START_PHASE` years are still integrated on time since entry (a hazard singular at
     entry, such as a Weibull hazard of shape 1.3 whose derivative is infinite there, needs small steps
-    near the start: taken once for all rows rather than at each row's start), and the rest on age.
+    near the start: taken once for all rows rather than at each row's start), and the rest on age. Each
+    row moves to the age axis at its first band edge after START_PHASE (:func:`_joins`), so that row
+    starts add no break points to the age axis: on time since entry it is read there from the step's
+    dense output, its rates held over the rest of that segment.
+
+    ``to_horizon``: occupancy is wanted only at times up to each row's horizon (entries past it are
+    NaN), and each row is integrated only to its horizon.
 
     Returns
     -------
@@ -379,72 +417,99 @@ def integrate_segments(exits: Sequence[ExitRates], n_states: int, entry_age: NDA
     shared: dict[tuple, int] = {}
     first_of = [shared.setdefault((tuple(id(h) for h, _ in ex.groups), ex.moving, ex.offset.tobytes()), k)
                 for k, ex in enumerate(exits)]
-    system = _Stacked(n_states, m, exits, src, dst, deltas, np.zeros(m), fixed, first_of)
-    queries = _Queries(times, t0, horizon)
+    system = _Stacked(n_states, m, exits, src, dst, deltas, np.zeros(m), fixed, first_of, np.full(m, np.inf))
+    span = np.maximum(horizon, t0) if to_horizon else np.maximum(horizon, float(times.max(initial=t0)))
+    span = np.maximum(span, t0)
+    queries = _Queries(times, t0, horizon, span)
     state = (p0.copy(), np.zeros((r_n, m, n_states)), f0.copy())
-    out = (np.empty((m, times.size, n_states)), np.zeros((r_n, m, n_states)), f0.copy())
+    out = (np.full((m, times.size, n_states), np.nan), np.zeros((r_n, m, n_states)), f0.copy())
     work = _Work(cancel)
-    span = np.maximum(horizon, float(times.max(initial=0.0)))
     zero, age = np.zeros(m), np.asarray(entry_age, dtype=float)
-    on_time = _axis_breaks(exits, zero, t0, float(span.max()))
-    on_age = _axis_breaks(exits, age, t0, float((age + span).max()))
+    begin = np.full(m, t0)
+    if not np.any(span > t0):
+        _answer_at_start(queries, state, out)
+        return out
+    on_time = _axis_breaks(exits, zero, begin, span)
+    on_age = _axis_breaks(exits, age, age + begin, age + span)
     t1 = t0 + START_PHASE
     if on_age.size >= on_time.size or t1 >= float(span.max()):
-        _sweep(system, zero, t0, on_time, queries, state, out, work)
-    else:
-        _sweep(system, zero, t0, _axis_breaks(exits, zero, t0, t1), queries, state, out, work)
-        _sweep(system, age, t1, _axis_breaks(exits, age, t1, float((age + span).max())), queries, state, out, work)
+        _sweep(system, zero, begin, span, on_time, queries, state, out, work)
+        return out
+    join = _joins(exits, age, t1, span)
+    to_age = join < age + span
+    _sweep(system, zero, begin, join - age, _axis_breaks(exits, zero, begin, join - age), queries, state, out, work)
+    if np.any(to_age):
+        begin_age = np.where(to_age, join, np.inf)
+        _sweep(system, age, begin_age, age + span, _axis_breaks(exits, age, begin_age, age + span),
+               queries, state, out, work)
     return out
 
 
 class _Queries:
-    """What to read from the solution: occupancy of each row at max(times, t0) and its integrals and
-    flows at its horizon (if after t0); each answered once, by the sweep that reaches it."""
+    """What to read from the solution: occupancy of each row at max(times, t0) (up to the row's span)
+    and its integrals and flows at its horizon (if after t0); each answered once, by the sweep that
+    reaches it."""
 
-    def __init__(self, times: NDArray[np.float64], t0: float, horizon: NDArray[np.float64]) -> None:
+    def __init__(self, times: NDArray[np.float64], t0: float, horizon: NDArray[np.float64],
+                 span: NDArray[np.float64]) -> None:
         m = horizon.size
         self.n_times = times.size
         self.occ_row = np.repeat(np.arange(m), times.size)
         self.occ_t = np.tile(np.maximum(times, t0), m)
-        self.occ_done = np.zeros(self.occ_row.size, dtype=bool)
+        self.occ_done = self.occ_t > span[self.occ_row]  # not wanted: left NaN
         self.hz_row = np.flatnonzero(horizon > t0)
         self.hz_t = horizon[self.hz_row]
         self.hz_done = np.zeros(self.hz_row.size, dtype=bool)
 
 
-def _sweep(system: _Stacked, start: NDArray[np.float64], t_begin: float, breaks: NDArray[np.float64],
-           queries: _Queries, state: tuple, out: tuple, work: _Work) -> None:
-    """Integrate every row r from axis value start_r + t_begin to breaks[-1], restarting the solver at
-    each break point; update ``state`` (p, integrals, flows) and answer the queries reached (``out``)."""
+def _answer_at_start(queries: _Queries, state: tuple, out: tuple) -> None:
+    """Every row ends at t0: the occupancy queries read the state there."""
+    take = ~queries.occ_done
+    out[0].reshape(-1, out[0].shape[2])[take] = state[0][queries.occ_row[take]]
+
+
+def _sweep(system: _Stacked, origin: NDArray[np.float64], begin: NDArray[np.float64], end: NDArray[np.float64],
+           breaks: NDArray[np.float64], queries: _Queries, state: tuple, out: tuple, work: _Work) -> None:
+    """Integrate every row r whose ``begin`` is finite from axis value begin_r (origin_r is the axis value
+    at time since entry 0) to end_r, restarting the solver at each break point. The row is active in the
+    segments from the one starting at begin_r to the one holding end_r; the queries it reaches by end_r
+    are answered (``out``) and ``state`` (p, integrals, flows) is set to its value at end_r."""
     m, n, r_n, k_ex = system.m, system.n, system.deltas.size, system.src.size
-    system.start = start
+    system.start, system.end = origin, end
     p, acc_i, acc_f = state
     occ, integrals, flows = out
-    last = breaks.size - 2
-    first_seg = np.clip(np.searchsorted(breaks, start + t_begin, side="right") - 1, 0, last)
+    n_seg = breaks.size - 1
+    live = np.isfinite(begin)
+    first_seg = np.where(live, np.clip(np.searchsorted(breaks, np.where(live, begin, 0.0), side="right") - 1,
+                                       0, n_seg - 1), n_seg)
+    last_seg = np.clip(np.searchsorted(breaks, end, side="left") - 1, 0, n_seg - 1)
 
     def assign(rows: NDArray[np.int64], t: NDArray[np.float64], done: NDArray[np.bool_]):
-        u = start[rows] + t
-        take = ~done & (u <= breaks[-1])
+        u = origin[rows] + t
+        take = ~done & live[rows] & (u <= end[rows])
         done |= take
-        seg = np.clip(np.searchsorted(breaks, u, side="right") - 1, first_seg[rows], last)
+        seg = np.clip(np.searchsorted(breaks, u, side="right") - 1, first_seg[rows], last_seg[rows])
         return np.where(take, seg, -1), u
 
     occ_seg, occ_u = assign(queries.occ_row, queries.occ_t, queries.occ_done)
     hz_seg, hz_u = assign(queries.hz_row, queries.hz_t, queries.hz_done)
-    for i in range(breaks.size - 1):
+    join_row = np.flatnonzero(live)  # each row's state at its end, for the next sweep
+    join_seg, join_u = last_seg[join_row], end[join_row]
+    for i in range(n_seg):
         work.check_cancel()
-        active = np.flatnonzero(first_seg <= i)
+        active = np.flatnonzero((first_seg <= i) & (last_seg >= i))
+        if not active.size:
+            continue
         seg = _Segment(float(breaks[i]), float(breaks[i + 1]), active, system)
         y = np.concatenate([p[active].ravel(), acc_i[:, active].ravel(), acc_f[:, active].ravel()])
-        q_occ, q_hz = np.flatnonzero(occ_seg == i), np.flatnonzero(hz_seg == i)
+        q_occ, q_hz, q_join = np.flatnonzero(occ_seg == i), np.flatnonzero(hz_seg == i), np.flatnonzero(join_seg == i)
         a = active.size
         local = np.full(m, -1)
         local[active] = np.arange(a)
         # this segment's queries, (axis value, row) pairs: each reads its own row's block only
-        q_u = np.concatenate([occ_u[q_occ], hz_u[q_hz]])
+        q_u = np.concatenate([occ_u[q_occ], hz_u[q_hz], join_u[q_join]])
         order = np.argsort(q_u, kind="stable")
-        q_rows = local[np.concatenate([queries.occ_row[q_occ], queries.hz_row[q_hz]])][order]
+        q_rows = local[np.concatenate([queries.occ_row[q_occ], queries.hz_row[q_hz], join_row[q_join]])][order]
         solved = _solve_segment(seg, y, q_u[order], _row_blocks(a, n, r_n, k_ex, q_rows), work, work.first_step)
         work.first_step = solved.largest_step  # the next segment starts there (the last step is cut short)
         block = np.empty_like(solved.at)
@@ -455,7 +520,13 @@ def _sweep(system: _Stacked, start: NDArray[np.float64], t_begin: float, breaks:
         if q_occ.size:
             occ.reshape(-1, n)[q_occ] = block[:q_occ.size, :n]
         if q_hz.size:
-            hz = block[q_occ.size:]
+            hz = block[q_occ.size:q_occ.size + q_hz.size]
             rows = queries.hz_row[q_hz]
             integrals[:, rows] = np.moveaxis(hz[:, n:n * (1 + r_n)].reshape(-1, r_n, n), 0, 1)
             flows[:, rows] = np.moveaxis(hz[:, n * (1 + r_n):].reshape(-1, r_n, k_ex), 0, 1)
+        if q_join.size:  # rows whose end falls inside the segment: their state there, not at its end
+            jb = block[q_occ.size + q_hz.size:]
+            rows = join_row[q_join]
+            p[rows] = jb[:, :n]
+            acc_i[:, rows] = np.moveaxis(jb[:, n:n * (1 + r_n)].reshape(-1, r_n, n), 0, 1)
+            acc_f[:, rows] = np.moveaxis(jb[:, n * (1 + r_n):].reshape(-1, r_n, k_ex), 0, 1)

@@ -176,9 +176,11 @@ def test_weibull_onset_with_life_table_matches_tight_reference():
 
 def test_life_table_solve_restarts_at_shared_band_edges(monkeypatch):
     # A life table on attained age with 48 entry ages (Gauss-Legendre nodes of a normal distribution
-    # on 40-75): on attained age the band edges are shared, so the segments number about the bands
-    # crossed (40 to 100) plus the entry ages, not bands x entry ages as on time since entry (a count
-    # of the solver's restarts, not a timing: speed belongs in benchmarks/).
+    # on 40-75): on attained age the band edges are shared, and each entry age joins the age axis at a
+    # band edge, so the age axis restarts at the band edges crossed (41 to 99) and nowhere else (not
+    # at the entry ages, nor past the horizon at age 100); on time since entry only the first
+    # START_PHASE years of each entry age add restarts (a count of the solver's restarts, not a
+    # timing: speed belongs in benchmarks/).
     model = _scenario('family = "weibull"\nshape = 1.3\nscale = 30.0', NORMAL).model
     segments = []
     real = forward._solve_segment
@@ -189,13 +191,12 @@ def test_life_table_solve_restarts_at_shared_band_edges(monkeypatch):
 
     monkeypatch.setattr(forward, "_solve_segment", counting)
     solve_exact(model, [1.0], strategies=("base",))
-    in_phase = [s for s in segments if s[1] <= forward.START_PHASE]  # time since entry, all ages at once
+    on_time = [s for s in segments if s[0] < forward.START_PHASE]  # time since entry, all ages at once
     on_age = [s for s in segments if s[0] >= 40.0]
-    assert len(in_phase) + len(on_age) == len(segments)
-    assert len(on_age) <= (100 - 40) + 48
-    assert len(in_phase) <= 48 * int(np.ceil(forward.START_PHASE)) + 1
-    lows = np.array([lo for lo, _ in on_age])
-    assert set(range(41, 100)) <= set(np.round(lows[np.isclose(lows, np.round(lows))]).astype(int))
+    assert len(on_time) + len(on_age) == len(segments)
+    assert on_time[-1][1] <= forward.START_PHASE + 1.0  # to each age's first band edge after START_PHASE
+    assert len(on_time) <= 48 * int(np.ceil(forward.START_PHASE)) + 1
+    assert on_age == [(float(a), float(a + 1)) for a in range(41, 100)]
 
 
 class CancelAfter:
@@ -240,3 +241,22 @@ def test_cancel_during_the_exact_stage_of_a_run():
     with pytest.raises(SimulationCancelled, match="exact solution cancelled"):
         run_scenario(scenario, patients=200, seed=1, workers=1, study=False, progress=progress, cancel=cancel)
     assert stage["checks"] == 5
+
+
+def test_solve_to_horizon_only_matches_the_full_solve():
+    # exact_outcomes_and_occupancy and solve_exact integrate each (entry age, sex) pair only to its own
+    # horizon (to_horizon=True): the values they read (up to the horizon) are those of the full solve,
+    # to rounding (the segments differ); past the horizon the occupancy is NaN, never a stale value.
+    from sim.reference import solve_stacked
+
+    model = _scenario('family = "weibull"\nshape = 1.3\nscale = 30.0').model
+    age, sex = np.array([47.3, 62.75, 71.5]), np.array([0, 1, 0])
+    horizon = 100.0 - age
+    times = np.array([0.0, 0.3, 5.0, 28.5, 37.5, 52.7, 60.0])
+    full = solve_stacked(model, "base", age, sex, times, horizon, (0.0, DISCOUNT))
+    own = solve_stacked(model, "base", age, sex, times, horizon, (0.0, DISCOUNT), to_horizon=True)
+    within = times[None, :] <= horizon[:, None]
+    np.testing.assert_allclose(own.occupancy[within], full.occupancy[within], rtol=0, atol=1e-12)
+    assert np.isnan(own.occupancy[~within]).all()
+    np.testing.assert_allclose(own.integrals, full.integrals, rtol=1e-12)
+    np.testing.assert_allclose(own.flows, full.flows, rtol=1e-12)
