@@ -12,7 +12,7 @@ Modules: :mod:`.long_format` (the multi-state long format of Putter, Fiocco & Ge
 
 from .errors import ExportError
 from .long_format import LONG_FORMAT_COLUMNS, long_format
-from .metadata import metadata_for
+from .metadata import TableHash, file_sha256, input_files, metadata_for
 from .run_writer import RunWriter, write_run
 from .tables import FORMATS, write_table, write_tidy_csv
 
@@ -26,4 +26,7 @@ __all__ = [
     "RunWriter",
     "write_run",
     "metadata_for",
+    "input_files",
+    "file_sha256",
+    "TableHash",
 ]

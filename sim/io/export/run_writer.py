@@ -11,6 +11,7 @@ from __future__ import annotations
 import io
 import os
 import shutil
+import time
 import uuid
 from collections.abc import Callable, Iterable, Mapping
 from pathlib import Path
@@ -27,12 +28,12 @@ from ..atomic import fsync_folder
 from .errors import ExportError
 from .leftovers import remove_leftovers, remove_owner, temporary_folder_for, write_owner
 from .long_format import long_format
-from .metadata import _metadata_json, _utc_now
+from .metadata import TableHash, _metadata_json, _utc_now
 from .tables import FORMATS, _arrow_table, _TextView, _tidy, _write_csv
 
 __all__ = ["RunProgress", "RunWriter", "write_run"]
 
-_RESERVED_METADATA = ("files", "chunks")
+_RESERVED_METADATA = ("files", "chunks", "event_log_sha256", "patients_sha256", "run_seconds")
 
 RunProgress = Callable[[int, "int | None"], None]
 
@@ -146,8 +147,11 @@ class RunWriter:
         What the caller records about the run (tool version, scenario hash and text, seed, patients,
         ...; see :func:`metadata_for`). Stored in ``metadata.json`` with ``date_utc`` added if
         missing, ``format`` (a caller's ``format`` must equal ``fmt``), and the reserved keys
-        ``chunks`` and ``files`` (name, table and row count of each written table), which the writer
-        fills in.
+        ``chunks``, ``files`` (name, table and row count of each written table),
+        ``event_log_sha256`` and ``patients_sha256`` (:class:`TableHash` of the event log and the
+        patient table: their content, whatever the format and chunking) and ``run_seconds``
+        (wall-clock seconds from :meth:`open` to :meth:`close`: the whole run when the pipeline
+        streams into the writer), which the writer fills in.
     long_format_model : Model or None
         When given, also write ``long_format.<ext>``: :func:`long_format` of each chunk (chunks must
         hold whole patients, as :func:`sim.engine.simulate_chunks` yields them).
@@ -205,6 +209,8 @@ class RunWriter:
         self._made_parents: list[Path] = []
         self._sinks: dict[str, _Sink] = {}
         self._extra: dict[str, tuple[Path, int]] = {}
+        self._hashes = {"events": TableHash(), "patients": TableHash()}
+        self._opened_at = 0.0
         self._state = "new"
 
     # ------------------------------------------------------------------ life cycle
@@ -245,6 +251,8 @@ class RunWriter:
         ext = FORMATS[self.fmt]
         tables = ("events", "patients") + (("long_format",) if self.model is not None else ())
         self._sinks = {name: _Sink(self._tmp / f"{name}{ext}", self.fmt, name) for name in tables}
+        self._hashes = {"events": TableHash(), "patients": TableHash()}
+        self._opened_at = time.perf_counter()
         self._state = "open"
 
     def write_chunk(self, events: pd.DataFrame, patients: pd.DataFrame) -> None:
@@ -259,6 +267,8 @@ class RunWriter:
                 lf = long_format(events, patients, self.model)
             self._sinks["events"].write(events)
             self._sinks["patients"].write(patients)
+            self._hashes["events"].update(events)
+            self._hashes["patients"].update(patients)
             if self.model is not None:
                 self._sinks["long_format"].write(lf)
                 del lf
@@ -333,6 +343,9 @@ class RunWriter:
             meta.setdefault("date_utc", _utc_now())
             meta["format"] = self.fmt
             meta["chunks"] = n_chunks
+            meta["event_log_sha256"] = self._hashes["events"].hexdigest()
+            meta["patients_sha256"] = self._hashes["patients"].hexdigest()
+            meta["run_seconds"] = round(time.perf_counter() - self._opened_at, 3)
             meta["files"] = ([{"name": s.path.name, "table": name, "rows": s.rows} for name, s in self._sinks.items()]
                              + [{"name": p.name, "table": name, "rows": rows} for name, (p, rows) in self._extra.items()])
             remove_owner(self._tmp)
