@@ -96,8 +96,9 @@ class SplineBasis:
         not the basis, sets the smoothness, and 20 columns cost nothing), 10 for additive terms (the
         default of ``s()`` in Wood's mgcv, from memory); for a tensor product as many as
         the draws support, between 4 and 8 per variable with at most ``min(N/4, 300)`` columns in all
-        (mgcv's ``te()`` uses 5, too few for a curved surface over a wide range). A tensor basis is
-        shrunk (to no fewer than 4 per variable) until it has at most N/2 columns.
+        (mgcv's ``te()`` uses 5, too few for a curved surface over a wide range). The basis is shrunk
+        (to no fewer than 4 per variable) until it has at most N/2 columns; fewer draws than twice
+        the columns are refused (the fit would follow the noise and inflate the EVPPI).
 
     Notes
     -----
@@ -134,9 +135,10 @@ class SplineBasis:
             size = 10
         else:  # as many as the draws support: <= N/4 and <= 300 columns in all, 4 to 8 per variable
             size = int(max(4, min(8, np.floor(min(n / 4, 300) ** (1 / m) + 1e-9))))
+        columns = (lambda k: k ** m) if structure == "tensor" else (lambda k: 1 + m * (k - 1))  # noqa: E731
+        while size > 4 and columns(size) > n / 2:
+            size -= 1
         if structure == "tensor":
-            while size > 4 and size ** m > n / 2:
-                size -= 1
             margins = [_marginal(x[:, j], size) for j in range(m)]
             design = margins[0][0]
             for b, _ in margins[1:]:
@@ -168,9 +170,9 @@ class SplineBasis:
                 start += width
                 if s.any():
                     penalties.append(full)
-        if design.shape[1] > n:
-            raise ValidationError(("draws",), f"must number at least {design.shape[1]} for this basis "
-                                  f"({m} parameter(s), {structure})", n)
+        if 2 * design.shape[1] > n:
+            raise ValidationError(("draws",), f"must number at least {2 * design.shape[1]}: twice the "
+                                  f"{design.shape[1]} columns of the basis ({m} parameter(s), {structure})", n)
         self.design = design
         q, self._r = np.linalg.qr(design)
         self._q = q

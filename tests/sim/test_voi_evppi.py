@@ -153,3 +153,7 @@ def test_evppi_refuses_unknown_parameters_and_missing_draws():
     with pytest.raises(ValidationError) as err:
         evppi(table, params, "x", [1.0])
     assert err.value.problem.path == ("group",)
+    # a two-parameter tensor basis has at least 4 x 4 columns: fewer than 32 draws are refused
+    with pytest.raises(ValidationError) as err:
+        evppi(table[table.draw < 20], params.assign(y=np.sin(np.arange(n))), ["x", "y"], [1.0])
+    assert err.value.problem.path == ("draws",)
