@@ -40,6 +40,7 @@ __all__ = ["main", "describe"]
 # ``func(args, out)`` (else ``func(scenario, args, out)`` with the scenario loaded and validated).
 # Add one line per verb module; errors follow ``main``'s exit codes.
 VERB_MODULES: tuple = ()
+from .fit import register as _register_fit; VERB_MODULES += (_register_fit,)  # noqa: E402,E702  hazardtrace fit
 
 SHOWN = ("life_years", "qalys_discounted", "costs_discounted")
 DEBUG_VARIABLE = "HAZARDTRACE_DEBUG"

@@ -1,0 +1,120 @@
+"""``hazardtrace fit``: parametric survival fits to patient-level data or to published Kaplan-Meier
+curves (reconstructed by the algorithm of Guyot et al. 2012), printed as an AIC/BIC table and written
+as a scenario fragment (docs/methods.md, 'Survival fits from trial evidence').
+
+Examples::
+
+    hazardtrace fit trial.csv --time months --event death --group arm --unit months --output fits.toml
+    hazardtrace fit --curves km.csv --at-risk risk.csv --unit months --total-events control=120
+"""
+
+from __future__ import annotations
+
+import argparse
+from typing import TextIO
+
+import pandas as pd
+
+from ..hazards import UNIT_IN_YEARS
+from ..problems import ValidationError
+from ..evidence import (FAMILY_NAMES, choose_fit, fit_families, fit_table, read_at_risk, read_curves,
+                        read_survival_data, reconstruct, write_fragment)
+
+__all__ = ["register"]
+
+DEFAULT_FAMILIES = ("exponential", "weibull", "gompertz", "loglogistic", "lognormal", "gamma", "gengamma")
+
+
+def _total_events(items: list[str]) -> dict[str, int]:
+    """``ARM=N`` pairs (or a single ``N`` for one arm) as a mapping."""
+    out: dict[str, int] = {}
+    for item in items:
+        arm, _, value = item.rpartition("=")
+        try:
+            n = int(value)
+        except ValueError:
+            n = -1
+        if n < 0:
+            raise ValidationError(("--total-events",), "must be ARM=N (or N for one arm) with N a whole number >= 0",
+                                  item)
+        out[arm or "all"] = n
+    return out
+
+
+def _fit(args: argparse.Namespace, out: TextIO) -> int:
+    families = list(args.families)
+    if args.knots:
+        for k in args.knots:
+            if k not in (1, 2, 3):
+                raise ValidationError(("--knots",), "must be 1, 2 or 3 interior knots", k)
+        if "spline" not in families:
+            families.append("spline")
+    if args.breaks and "piecewise" not in families:
+        families.append("piecewise")
+    if args.curves or args.at_risk:
+        if not (args.curves and args.at_risk):
+            raise ValidationError(("--at-risk" if args.curves else "--curves",),
+                                  "--curves and --at-risk go together (digitised points and numbers at risk)")
+        if args.data:
+            raise ValidationError(("DATA",), "give either patient-level DATA or --curves/--at-risk, not both",
+                                  args.data)
+        rec = reconstruct(read_curves(args.curves), read_at_risk(args.at_risk),
+                          total_events=_total_events(args.total_events or []), unit=args.unit, source=args.curves)
+        for arm, notes in rec.notes.items():
+            for note in notes:
+                out.write(f"{args.curves} [{arm}]: {note}\n")
+        data, source = rec.data, args.curves
+        out.write(f"Reconstructed {data.n} patients, {data.n_events} events (Guyot et al. 2012).\n")
+    elif args.data:
+        data = read_survival_data(args.data, time=args.time, event=args.event, entry=args.entry, group=args.group,
+                                  unit=args.unit)
+        source = args.data
+    else:
+        raise ValidationError(("DATA",), "give a patient-level data file or --curves and --at-risk")
+    arms = (f", arm {data.groups[1]!r} against the reference arm {data.groups[0]!r}" if len(data.groups) == 2
+            else "")
+    out.write(f"{source}: {data.n} patients, {data.n_events} events, time in {data.unit}"
+              f"{', delayed entry' if data.delayed else ''}{arms}\n\n")
+    fits = fit_families(data, families, breaks=args.breaks, knots=args.knots or ())
+    table = fit_table(fits)
+    with pd.option_context("display.width", 200, "display.max_columns", 20, "display.max_colwidth", 80,
+                           "display.float_format", "{:,.3f}".format):
+        out.write(table.to_string(index=False) + "\n")
+    failed = [f.family for f in fits if not f.converged]
+    if failed:
+        out.write(f"Not converged (not written): {', '.join(failed)}\n")
+    chosen = choose_fit(fits, args.criterion)
+    if chosen is not None:
+        out.write(f"\nLowest {args.criterion.upper()} among scenario families: {chosen.family} "
+                  f"({', '.join(f'{k} = {v}' for k, v in chosen.parameters.items())}; unit {chosen.unit})\n")
+    if args.output:
+        if chosen is None:
+            raise ValidationError(("--families",), f"no fit of a scenario hazard family converged; nothing was "
+                                  f"written to {args.output}", families)
+        write_fragment(args.output, fits, source=source, criterion=args.criterion, force=args.force)
+        out.write(f"Scenario fragment written to {args.output}\n")
+    return 0
+
+
+def register(sub: argparse._SubParsersAction) -> None:
+    """Add the ``fit`` verb to the ``hazardtrace`` parser."""
+    p = sub.add_parser("fit", help="fit survival curves to patient data or published curves; AIC/BIC table and a "
+                                   "scenario fragment")
+    p.add_argument("data", nargs="?", metavar="DATA", help="patient-level data (.csv, .parquet, .xlsx), one row per "
+                                                             "patient")
+    p.add_argument("--time", default="time", help="exit time column (default 'time')")
+    p.add_argument("--event", default="event", help="event indicator column, 1 event / 0 censored (default 'event')")
+    p.add_argument("--entry", help="delayed-entry time column (left truncation)")
+    p.add_argument("--group", help="arm column (two arms: a hazard ratio or acceleration factor)")
+    p.add_argument("--unit", default="years", choices=tuple(UNIT_IN_YEARS), help="time unit of the data")
+    p.add_argument("--families", nargs="+", default=list(DEFAULT_FAMILIES), choices=FAMILY_NAMES, metavar="FAMILY",
+                   help=f"families to fit (default: {' '.join(DEFAULT_FAMILIES)}; also piecewise, spline)")
+    p.add_argument("--breaks", nargs="+", type=float, metavar="T", help="piecewise band starts (data unit)")
+    p.add_argument("--knots", nargs="+", type=int, metavar="M", help="Royston-Parmar splines with M interior knots")
+    p.add_argument("--curves", metavar="KM.csv", help="digitised Kaplan-Meier points: time, survival[, arm]")
+    p.add_argument("--at-risk", metavar="RISK.csv", help="numbers at risk: time, at_risk[, arm]")
+    p.add_argument("--total-events", nargs="+", metavar="ARM=N", help="reported total events per arm")
+    p.add_argument("--criterion", choices=("aic", "bic"), default="aic", help="how [chosen] is chosen")
+    p.add_argument("--output", metavar="FRAGMENT.toml", help="write the fits as a scenario fragment")
+    p.add_argument("--force", action="store_true", help="replace an existing fragment file")
+    p.set_defaults(func=_fit, needs_scenario=False)
