@@ -64,7 +64,8 @@ def draw_arrays(per_draw: pd.DataFrame, outcomes: Sequence[str], *, table: str =
         row = per_draw[per_draw.duplicated(["draw", "strategy"])].iloc[0]
         raise ValidationError((table, "draw"), "must have one row per draw and strategy",
                               (row["draw"], row["strategy"]))
-    strategies = tuple(str(s) for s in pd.unique(per_draw["strategy"]))
+    raw = list(pd.unique(per_draw["strategy"]))
+    strategies = tuple(str(s) for s in raw)
     draws = np.sort(pd.unique(per_draw["draw"]))
     if len(draws) < min_draws:
         raise ValidationError((table, "draw"), f"must hold at least {min_draws} draws", len(draws))
@@ -74,7 +75,7 @@ def draw_arrays(per_draw: pd.DataFrame, outcomes: Sequence[str], *, table: str =
     values = {}
     for outcome in outcomes:
         wide = per_draw.pivot(index="draw", columns="strategy", values=outcome)
-        arr = wide.loc[draws, list(strategies)].to_numpy(dtype=float)
+        arr = wide.loc[draws, raw].to_numpy(dtype=float)
         if not np.isfinite(arr).all():
             raise ValidationError((table, outcome), "must be finite in every draw", "NaN or infinite")
         values[outcome] = arr
@@ -83,7 +84,10 @@ def draw_arrays(per_draw: pd.DataFrame, outcomes: Sequence[str], *, table: str =
 
 def wtp_grid(wtp: float | Sequence[float] | np.ndarray, *, name: str = "wtp") -> np.ndarray:
     """Willingness-to-pay values as a 1-d float array; each finite and >= 0."""
-    grid = np.atleast_1d(np.asarray(wtp, dtype=float))
+    try:
+        grid = np.atleast_1d(np.asarray(wtp, dtype=float))
+    except (TypeError, ValueError):
+        raise ValidationError((name,), "must be a number or a list of numbers", wtp) from None
     if grid.ndim != 1 or grid.size == 0:
         raise ValidationError((name,), "must be a number or a non-empty list of numbers", wtp)
     bad = ~np.isfinite(grid) | (grid < 0)

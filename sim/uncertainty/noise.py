@@ -126,6 +126,9 @@ def noise_share(per_draw: pd.DataFrame, outcomes: str | Sequence[str], *, patien
     missing = [c for c in needed if c not in per_draw.columns]
     if missing:
         raise ValidationError.of(Problem(("per_draw", c), "is a required column") for c in missing)
+    if "method" in per_draw.columns and per_draw["method"].nunique(dropna=False) > 1:
+        raise ValidationError(("per_draw", "method"), "must hold one method (apply the statistic per method)",
+                              sorted(map(str, per_draw["method"].unique())))
     s = float(target_share)
     if not 0 < s < 1:
         raise ValidationError(("target_share",), "must be > 0 and < 1", target_share)

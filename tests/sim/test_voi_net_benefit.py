@@ -108,3 +108,14 @@ def test_inb_convergence_runs_over_draws_in_draw_order():
     assert out["mean"].iloc[-1] == pytest.approx(inb.mean(), rel=1e-12)
     assert out["mean"].iloc[9] == pytest.approx(inb[:10].mean(), rel=1e-12)
     assert out["mcse"].iloc[-1] == pytest.approx(inb.std(ddof=1) / np.sqrt(n), rel=1e-10)
+
+
+def test_strategy_labels_need_not_be_text_and_grids_must_be_numbers():
+    table = pd.DataFrame({"draw": [0, 0, 1, 1], "strategy": [1, 2, 1, 2],
+                          "costs_discounted": [0.0, 100.0, 0.0, 300.0], "qalys_discounted": [0.0, 0.1, 0.0, 0.1]})
+    nb = net_benefit(table, [5000.0])
+    assert list(nb["strategy"]) == ["1", "2", "1", "2"]
+    assert list(nb["net_benefit"]) == [0.0, 400.0, 0.0, 200.0]  # λ E - C by hand
+    with pytest.raises(ValidationError) as err:
+        net_benefit(table, "a lot")
+    assert err.value.problem.path == ("wtp",)

@@ -77,3 +77,10 @@ def test_noise_share_names_a_missing_column():
     with pytest.raises(ValidationError) as err:
         noise_share(simulated_draws().drop(columns="patients"), "qalys_discounted")
     assert err.value.problem.path == ("per_draw", "patients")
+
+
+def test_noise_share_refuses_a_table_of_several_methods():
+    table = pd.concat([simulated_draws().assign(method="simulated"), simulated_draws().assign(method="exact")])
+    with pytest.raises(ValidationError) as err:
+        noise_share(table, "qalys_discounted")
+    assert err.value.problem.path == ("per_draw", "method")
