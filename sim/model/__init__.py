@@ -11,15 +11,16 @@ whose key paths use the scenario file's names, with items of a list named by the
 
 from . import checks
 from .checks import Problems
+from .effects import transition_effect_words
 from .errors import ModelError, PopulationError, ValuationError
 from .frozen import FrozenMap
 from .multistate import Model, ResolvedExit, is_constant_hazard
-from .parts import BACKGROUND, BackgroundMortality, Clock, Horizon, State, Strategy, Transition, item_key
+from .parts import BACKGROUND, BackgroundMortality, Clock, Horizon, State, Strategy, Transition, Waning, item_key
 from .settings import RunSettings
 from .population import EmpiricalAge, EntryAge, FixedAge, InitialState, NormalAge, Population, UniformAge
 from .valuation import Valuation
 
 __all__ = ["checks", "Problems", "FrozenMap", "BACKGROUND", "BackgroundMortality", "Clock", "Horizon", "Model",
-           "ModelError", "ResolvedExit", "State", "Strategy", "Transition", "is_constant_hazard", "item_key",
+           "ModelError", "ResolvedExit", "State", "Strategy", "Transition", "Waning", "is_constant_hazard", "item_key",
            "EmpiricalAge", "EntryAge", "FixedAge", "InitialState", "NormalAge", "Population", "PopulationError", "UniformAge",
-           "Valuation", "ValuationError", "RunSettings"]
+           "Valuation", "ValuationError", "RunSettings", "transition_effect_words"]

@@ -15,6 +15,7 @@ from collections import Counter
 from typing import TYPE_CHECKING, Any, Iterable
 
 from ..problems import NO_VALUE, Problem
+from .effects import effect_problems
 from .parts import BACKGROUND, BackgroundMortality, Horizon, State, Strategy, Transition
 from .population import Population
 from .valuation import Valuation
@@ -112,13 +113,16 @@ def model_problems(model: "Model") -> list[Problem]:
     exits = list(dict.fromkeys(model.exit_names))
     for st in model.strategies:
         where = ("strategies", st.name)
-        for key in ("hazard_ratios", "replacements"):
+        for key in ("hazard_ratios", "replacements", "waning"):
             for t in getattr(st, key):
                 if t not in tnames:
                     add((*where, key, t), f"must name a transition {known_transitions}", t)
         _unknown(add, (*where, "state_costs"), st.state_costs, names, "state")
         _absorbing_costs(add, (*where, "state_costs"), st.state_costs, by_name)
         _unknown(add, (*where, "transition_costs"), st.transition_costs, exits, "transition")
+
+    # treatment effects that wane, hazards at least the background (sim.model.effects)
+    effect_problems(model, add)
 
     # valuation
     val = model.valuation

@@ -11,6 +11,7 @@ import numpy as np
 
 from ..hazards import Exponential, Hazard, PiecewiseConstant, ProportionalHazards
 from .consistency import model_problems, part_type_problems
+from .effects import at_least_background, with_ratio
 from .errors import ModelError
 from .parts import BACKGROUND, BackgroundMortality, Clock, Horizon, State, Strategy, Transition
 from .population import Population
@@ -154,14 +155,21 @@ class Model:
         per_state: list[list[ResolvedExit]] = [[] for _ in self.states]
         for k, t in enumerate(self.transitions):
             h = t.hazard
+            if t.hazard_ratio is not None:  # the transition's own effect, in every strategy
+                h = with_ratio(h, float(t.hazard_ratio), t.waning)
             if t.name in st.replacements:
                 h = st.replacements[t.name]
             elif t.name in st.hazard_ratios:
-                h = h.scaled(float(st.hazard_ratios[t.name]))
+                h = with_ratio(h, float(st.hazard_ratios[t.name]), st.waning.get(t.name))
+            hazards = (h,) * len(sexes)
+            if t.at_least_background and self.background is not None:
+                bg = self.background
+                hazards = tuple(at_least_background(h, t.clock, self, bg.hazards.get(sex, bg.hazards.get("all")))
+                                for sex in sexes)
             src = self.state_index(t.source)
             per_state[src].append(ResolvedExit(
                 index=k, slot=len(per_state[src]), name=t.name, source=src,
-                target=self.state_index(t.target), clock=t.clock, hazards=(h,) * len(sexes),
+                target=self.state_index(t.target), clock=t.clock, hazards=hazards,
                 is_background=False))
         if self.background is not None:
             bg = self.background

@@ -12,13 +12,13 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from ..hazards import Hazard
-from ..problems import KeyPath
+from ..hazards import WANING_SCALES, Hazard
+from ..problems import KeyPath, ValidationError
 from .checks import Problems, flag, number, number_map, string
 from .errors import ModelError
 from .frozen import FrozenMap
 
-__all__ = ["BACKGROUND", "Clock", "State", "Transition", "BackgroundMortality", "Horizon", "Strategy", "item_key"]
+__all__ = ["BACKGROUND", "Clock", "State", "Waning", "MAX_WANING_YEARS", "Transition", "BackgroundMortality", "Horizon", "Strategy", "item_key"]
 
 BACKGROUND = "background death"
 
@@ -70,16 +70,71 @@ class State:
         _set(self, absorbing=absorbing)
 
 
+MAX_WANING_YEARS = 1000.0
+"""Waning times are at most 1,000 years (far beyond any follow-up; keeps the window's quadrature
+panels on a range where the hazards are finite)."""
+
+
+@dataclass(frozen=True)
+class Waning:
+    """A hazard ratio that holds until ``start``, moves to 1 by ``end`` and is 1 afterwards, on the
+    transition's clock (years since entry, or since entering the state).
+
+    ``scale``: ``"log"`` (the log hazard ratio moves linearly; the default) or ``"hr"`` (the ratio
+    itself moves linearly). Problems are at ``("start",)``, ``("end",)``, ``("scale",)``; use
+    :meth:`at` to place them under the waning's key path.
+    """
+
+    start: float
+    end: float
+    scale: str = "log"
+
+    def __post_init__(self) -> None:
+        found = Problems()
+        start = found.check(number, ("start",), self.start, minimum=0.0, error=ModelError)
+        end = found.check(number, ("end",), self.end, minimum=0.0, maximum=MAX_WANING_YEARS, error=ModelError)
+        scale = found.check(string, ("scale",), self.scale, choices=WANING_SCALES, error=ModelError)
+        if start is not None and end is not None and not end > start:
+            found.add(("end",), f"must be > waning.start ({start:g} years): the ratio wanes from start to end",
+                      self.end)
+        found.raise_if_any(ModelError)
+        _set(self, start=start, end=end, scale=scale)
+
+    @classmethod
+    def at(cls, path: KeyPath, start: Any, end: Any, scale: Any = "log") -> "Waning":
+        """A :class:`Waning`, or a :class:`ModelError` whose problems are under ``path``."""
+        try:
+            return cls(start, end, scale)
+        except ValidationError as err:
+            raise ModelError.of([p.located(path=(*path, *p.path)) for p in err.problems]) from None
+
+    def words(self) -> str:
+        """``'wanes to 1 on the log scale from 2 to 5 years'``, for descriptions."""
+        scale = "log scale" if self.scale == "log" else "hazard-ratio scale"
+        return f"wanes to 1 on the {scale} from {self.start:g} to {self.end:g} years"
+
+
 @dataclass(frozen=True)
 class Transition:
     """A possible move ``source -> target`` (the scenario keys ``from`` and ``to``) with its
-    cause-specific hazard on a clock."""
+    cause-specific hazard on a clock.
+
+    Optional effects (docs/methods.md, 'Treatment-effect waning' and 'The larger of a fit and the
+    background hazard'): ``hazard_ratio`` multiplies ``hazard`` in every strategy, waning to 1 as
+    ``waning`` says; with ``at_least_background`` the hazard (after every ratio or replacement of the
+    strategy) is at least the background hazard. ``hazard`` itself stays the hazard as given (the
+    fit); :meth:`sim.model.Model.resolve` applies the effects. The rules that relate them to the
+    clock, the background and the strategies are the model's (:mod:`sim.model.effects`).
+    """
 
     name: str
     source: str
     target: str
     hazard: Hazard
     clock: Clock = Clock.ENTRY
+    hazard_ratio: float | None = None
+    waning: Waning | None = None
+    at_least_background: bool = False
 
     def __post_init__(self) -> None:
         found = Problems()
@@ -90,8 +145,14 @@ class Transition:
         clock = found.check(Clock.parse, self.clock, (*where, "clock"))
         if not isinstance(self.hazard, Hazard):
             found.add((*where, "hazard"), "must be a Hazard", self.hazard)
+        hr = self.hazard_ratio
+        if hr is not None:
+            hr = found.check(number, (*where, "hazard_ratio"), hr, minimum=0.0, error=ModelError)
+        if self.waning is not None and not isinstance(self.waning, Waning):
+            found.add((*where, "waning"), "must be a Waning (start, end, scale) or None", self.waning)
+        floor = found.check(flag, (*where, "at_least_background"), self.at_least_background, error=ModelError)
         found.raise_if_any(ModelError)
-        _set(self, clock=clock)
+        _set(self, clock=clock, hazard_ratio=hr, at_least_background=floor)
 
 
 def _hazard_map(found: Problems, path: KeyPath, hazards: Any) -> FrozenMap:
@@ -164,8 +225,9 @@ class Horizon:
 class Strategy:
     """A named variant of the model: hazard ratios on, or replacement hazards for, named transitions,
     and costs it adds (e.g. a treatment's yearly cost while in a state, or a one-off cost at a move).
+    ``waning`` says, per transition with a hazard ratio here, how that ratio wanes to 1.
 
-    The four tables are kept as read-only :class:`~sim.model.FrozenMap`; problems are at
+    The five tables are kept as read-only :class:`~sim.model.FrozenMap`; problems are at
     ``("strategies", name, key, item)``.
     """
 
@@ -174,6 +236,7 @@ class Strategy:
     replacements: Mapping[str, Hazard] = field(default_factory=FrozenMap)
     state_costs: Mapping[str, float] = field(default_factory=FrozenMap)
     transition_costs: Mapping[str, float] = field(default_factory=FrozenMap)
+    waning: Mapping[str, Waning] = field(default_factory=FrozenMap)
 
     def __post_init__(self) -> None:
         found = Problems()
@@ -183,9 +246,16 @@ class Strategy:
         replacements = _hazard_map(found, (*where, "replacements"), self.replacements)
         costs = {key: found.check(number_map, (*where, key), getattr(self, key), error=ModelError)
                  for key in ("state_costs", "transition_costs")}
+        waning = self.waning
+        if not isinstance(waning, Mapping):
+            found.add((*where, "waning"), "must be a table of transition = waning", waning)
+            waning = {}
+        for key, w in waning.items():
+            if not isinstance(w, Waning):
+                found.add((*where, "waning", item_key(key)), "must be a Waning (start, end, scale)", w)
         for t in sorted(set(hrs or ()) & set(replacements)):
             found.add((*where, "hazard_ratios", t), "give either a hazard ratio or a replacement hazard for a "
                                                     "transition, not both", hrs[t])
         found.raise_if_any(ModelError)
-        _set(self, hazard_ratios=FrozenMap(hrs), replacements=replacements,
+        _set(self, hazard_ratios=FrozenMap(hrs), replacements=replacements, waning=FrozenMap(waning),
              **{key: FrozenMap(table) for key, table in costs.items()})

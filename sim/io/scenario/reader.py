@@ -17,8 +17,9 @@ from typing import Any, Mapping
 import tomlkit
 from tomlkit.exceptions import ParseError
 
+from ...hazards import to_years
 from ...model import (BACKGROUND, BackgroundMortality, Horizon, Model, Population, RunSettings, State, Strategy,
-                      Transition, Valuation)
+                      Transition, Valuation, Waning)
 from ...problems import Problem, ValidationError
 from ...uncertainty import UncertainInput
 from .checking import Checker, Invalid
@@ -103,6 +104,8 @@ class _Reading:
         ends = {k: replace(own[k], choices=tuple(names) or None) for k in ("from", "to")}
         t = {}
         for k, node in {**own, **ends}.items():
+            if isinstance(node, Table):  # the waning table, read below
+                continue
             if k in raw:
                 t[k] = ck.attempt(ck.value, node, raw[k], (*p, k))
             elif node.required:
@@ -117,9 +120,11 @@ class _Reading:
             elif t["from"] == t["to"]:
                 ck.add((*p, "to"), "must differ from 'from'", t["to"])
         hazard = ck.attempt(read_hazard, ck, raw, p, self.notes, own)
+        wanes = ck.attempt(_read_waning, ck, raw["waning"], (*p, "waning"), _years_per(raw)) if "waning" in raw else None
         if len(ck.problems) > before:
             raise Invalid
-        return Transition(t["name"], t["from"], t["to"], hazard, t["clock"])
+        return Transition(t["name"], t["from"], t["to"], hazard, t["clock"], t.get("hazard_ratio"), wanes,
+                          t.get("at_least_background", False))
 
     def strategy(self, i: int, raw: Any, tnames: list[str]) -> Strategy:
         p = ("strategies", i)
@@ -130,17 +135,22 @@ class _Reading:
         replacements = s.get("replacements", {})
         if not isinstance(replacements, Mapping):
             ck.fail((*p, "replacements"), "must be a table of transition = hazard", replacements)
+        waning = s.get("waning", {})
+        if not isinstance(waning, Mapping):
+            ck.fail((*p, "waning"), "must be a table of transition = {start = ..., end = ..., scale = ...}", waning)
         before = len(ck.problems)
         repl = {t: ck.attempt(read_hazard, ck, h, (*p, "replacements", t), self.notes)
                 for t, h in replacements.items()}
+        wanes = {t: ck.attempt(_read_waning, ck, w, (*p, "waning", t), 1.0) for t, w in waning.items()}
         hrs = s.get("hazard_ratios", {})
-        for key, names in (("hazard_ratios", hrs), ("replacements", replacements)):
+        for key, names in (("hazard_ratios", hrs), ("replacements", replacements), ("waning", waning)):
             for t in names:
                 if t not in tnames:
                     ck.add((*p, key, t), f"must name a transition {tnames}", t)
         if len(ck.problems) > before:
             raise Invalid
-        return ck.guarded(Strategy, s["name"], hrs, repl, s.get("state_costs", {}), s.get("transition_costs", {}))
+        return ck.guarded(Strategy, s["name"], hrs, repl, s.get("state_costs", {}), s.get("transition_costs", {}),
+                          wanes)
 
     # ------------------------------------------------------------------ sections
     def population(self, raw: Any) -> Population:
@@ -206,6 +216,25 @@ class _Reading:
     def run(self, raw: Any) -> RunSettings:
         v = self.ck.table(raw, ("run",), _keys("run"))
         return self.ck.guarded(RunSettings, **v)
+
+
+def _years_per(raw: Mapping) -> float:
+    """Years per unit of a hazard table's ``unit`` (1 when it is missing or bad: reported elsewhere)."""
+    try:
+        return to_years(1.0, raw.get("unit", "years"))
+    except (ValueError, TypeError):
+        return 1.0
+
+
+def _read_waning(ck: Checker, raw: Any, path: tuple, years_per_unit: float) -> Waning:
+    """A waning table ``{start = ..., end = ..., scale = ...}`` at ``path``, its times in years."""
+    node: Table = _keys("transitions")["waning"]
+    v = ck.table(raw, path, node.keys, rule="must be a table {start = ..., end = ..., scale = ...}")
+    try:
+        return Waning.at(path, v["start"] * years_per_unit, v["end"] * years_per_unit, v["scale"])
+    except ValidationError as err:  # the values as written in the file, not in years
+        ck.extend(Problem(q.path, q.rule, raw.get(q.path[-1], q.value)) for q in err.problems)
+        raise Invalid from None
 
 
 def _build(doc: Mapping, file: str | None, base_dir: Path | None

@@ -26,7 +26,7 @@ from enum import Enum
 from types import MappingProxyType
 from typing import Any, Iterator, Mapping
 
-from ...hazards import FAMILIES, FAMILY_DIMENSIONS, Dimension
+from ...hazards import FAMILIES, FAMILY_DIMENSIONS, WANING_SCALES, Dimension
 from ...model import BACKGROUND, Clock, EmpiricalAge, FixedAge, NormalAge, RunSettings, UniformAge, Valuation
 from ...model.settings import TUNNEL_ENTRIES
 from ...problems import KeyPath
@@ -276,6 +276,16 @@ _UNCERTAINTY = Items(doc="uncertain inputs: a distribution on a parameter or a g
 for _dist, _forms in UNCERTAINTY_FORMS.items():
     assert all(k in _UNCERTAINTY.item.variants[_dist] for form in _forms for k in form), _dist
 
+def _waning(unit: str) -> Table:
+    """A hazard ratio's waning: ``{start = ..., end = ..., scale = "log"}`` (docs/scenario-format.md)."""
+    return Table(inline=True, keys={
+        "start": Number(required=True, minimum=0, dimension=Dimension.TIME, doc=f"the ratio starts to wane ({unit})"),
+        "end": Number(required=True, minimum=0, strict_min=True, dimension=Dimension.TIME,
+                      doc=f"the ratio is 1 from here on ({unit}); > start"),
+        "scale": Text(default="log", choices=WANING_SCALES, doc="'log': log HR linear in time; 'hr': HR linear"),
+    })
+
+
 SCHEMA = Table(keys={
     "format_version": Number(required=True, integer=True, parameter=False, doc=f"{FORMAT_VERSION}"),
     "name": Text(doc="label for reports (default: the file name)"),
@@ -291,6 +301,10 @@ SCHEMA = Table(keys={
         "to": Text(required=True, ref=Ref.STATE),
         "clock": Text(default="entry", choices=_CLOCKS),
         "description": FreeText(),
+        "hazard_ratio": Number(minimum=0, dimension=Dimension.RATIO,
+                               doc="multiplies this transition's hazard in every strategy"),
+        "waning": _waning("in the transition's unit"),
+        "at_least_background": Flag(default=False, doc="the hazard is at least the background hazard"),
     })),
     "background": Table(keys={
         "to": Text(required=True, ref=Ref.STATE),
@@ -334,6 +348,8 @@ SCHEMA = Table(keys={
         "replacements": NameMap(value=HazardTable(), key_ref=Ref.TRANSITION, inline=False),
         "state_costs": _money(Ref.STATE),
         "transition_costs": _money(Ref.EXIT),
+        "waning": NameMap(value=_waning("in years"), key_ref=Ref.TRANSITION, inline=False,
+                          doc="per transition with a hazard ratio here: how the ratio wanes"),
     })),
     "valuation": Table(keys={
         "utilities": NameMap(value=Number(maximum=1, dimension=Dimension.SHARE), key_ref=Ref.STATE),
