@@ -3,8 +3,24 @@ exact and cycle-based) and their tables, executed inline or on a Dask cluster (o
 ``sim.psa`` 's runner module imports Dask)."""
 
 from .apply import model_for_draw, point_values, uncertain_parameters
+from .blocks import BlockResult, PsaJob, block_draws_for, join_blocks, psa_jobs, run_block, run_inline
+from .cohort_draws import CycleMethod, cycle_methods, cycle_per_draw
+from .dask_runner import PsaResult, SchedulerError, run_jobs, run_psa
+from .draws_run import models_for_draws, simulated_per_draw, simulated_vectorised
+from .exact_draws import constant_intensities, exact_constant_draws, exact_per_draw
+from .output import write_psa
+from .tables import DRAW_COLUMNS, EXACT, SIMULATED, cycle_label, sort_draw_table, table_hash
 
 __all__: list[str] = [
     # parameter draws applied to the model
     "uncertain_parameters", "model_for_draw", "point_values",
+]
+
+__all__ += [
+    # the per-draw runs, their table, the block jobs and their runners (inline or on Dask)
+    "BlockResult", "PsaJob", "block_draws_for", "join_blocks", "psa_jobs", "run_block", "run_inline",
+    "CycleMethod", "cycle_methods", "cycle_per_draw", "PsaResult", "SchedulerError", "run_jobs", "run_psa",
+    "models_for_draws", "simulated_per_draw", "simulated_vectorised", "constant_intensities",
+    "exact_constant_draws", "exact_per_draw", "write_psa", "DRAW_COLUMNS", "EXACT", "SIMULATED", "cycle_label",
+    "sort_draw_table", "table_hash",
 ]

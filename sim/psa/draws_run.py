@@ -19,6 +19,7 @@ Two paths give the same bits:
 from __future__ import annotations
 
 from collections.abc import Callable, Mapping, Sequence
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -28,19 +29,25 @@ from ..model import Model
 from .patient_values import Valuations, block_outcomes, draw_means
 from .tables import SIMULATED, draw_frame, sort_draw_table
 
-__all__ = ["ApplyDraw", "models_for_draws", "simulated_per_draw", "simulated_vectorised", "consecutive_runs"]
+__all__ = ["ApplyDraw", "base_model", "models_for_draws", "simulated_per_draw", "simulated_vectorised", "consecutive_runs"]
 
-ApplyDraw = Callable[[Model, Mapping[str, float]], Model]
-"""``apply(model, values) -> Model``: the model with one draw's parameter values (by parameter name)."""
+ApplyDraw = Callable[[Any, Mapping[str, float]], Model]
+"""``apply(source, values) -> Model``: the model with one draw's parameter values (by parameter name),
+``source`` being the scenario or model the draws refer to (e.g. :func:`sim.psa.model_for_draw`)."""
 
 
-def models_for_draws(model: Model, values: pd.DataFrame, apply: ApplyDraw | None) -> list[Model]:
+def base_model(source: Any) -> Model:
+    """The point-value model of a source: a :class:`Model`, or anything with a ``model`` (a scenario)."""
+    return source if isinstance(source, Model) else source.model
+
+
+def models_for_draws(source: Any, values: pd.DataFrame, apply: ApplyDraw | None) -> list[Model]:
     """One model per row of ``values`` (index: draw; one column per parameter); the point-value
     model for every draw when there are no columns or no ``apply``."""
     if apply is None or values.shape[1] == 0:
-        return [model] * len(values)
+        return [base_model(source)] * len(values)
     names = [str(c) for c in values.columns]
-    return [apply(model, dict(zip(names, map(float, row)))) for row in values.to_numpy(dtype=float)]
+    return [apply(source, dict(zip(names, map(float, row)))) for row in values.to_numpy(dtype=float)]
 
 
 def _rows(models: Sequence[Model], draws: np.ndarray, events: pd.DataFrame, patients: pd.DataFrame, first: int,

@@ -49,19 +49,20 @@ class Valuations:
                    discount_costs=np.array([m.valuation.discount_costs for m in models], dtype=float))
 
 
-def _discounted(start: NDArray, end: NDArray, rate: NDArray) -> NDArray:
-    """Discounted length of [start, end] at per-row annual rates (undiscounted where the rate is 0),
-    the expression of ``sim.analysis.time_in_state``."""
-    delta = np.log1p(rate)
+def _discounted(start: NDArray, end: NDArray, delta: NDArray, positive: bool) -> NDArray:
+    """Discounted length of [start, end] at per-row continuous rates ``delta`` = ln(1 + d)
+    (undiscounted where d is 0; ``positive``: every d > 0), the expression of
+    ``sim.analysis.time_in_state``: exp(-delta t0) (-expm1(-delta (t1 - t0))) / delta."""
     with np.errstate(divide="ignore", invalid="ignore"):
         d = np.exp(-delta * start) * -np.expm1(-delta * (end - start)) / delta
-    return np.where(rate > 0.0, d, end - start)
+    return d if positive else np.where(delta > 0.0, d, end - start)
 
 
-def _years(n: int, n_states: int, pid: NDArray, state: NDArray, start: NDArray, end: NDArray,
-           rate: NDArray | None) -> NDArray:
-    length = end - start if rate is None else _discounted(start, end, rate)
-    return np.bincount(pid * n_states + state, weights=length, minlength=n * n_states).reshape(n, n_states)
+def _strategy_rows(table: pd.DataFrame, k: int) -> slice:
+    """Rows of the ``k``-th strategy (the engine's tables are sorted by strategy)."""
+    codes = table["strategy"].cat.codes.to_numpy()
+    a, b = np.searchsorted(codes, [k, k + 1])
+    return slice(int(a), int(b))
 
 
 def block_outcomes(model: Model, strategy: str, events: pd.DataFrame, patients: pd.DataFrame, first: int,
@@ -77,50 +78,63 @@ def block_outcomes(model: Model, strategy: str, events: pd.DataFrame, patients: 
         of the block.
     values : the block's per-draw valuation of ``strategy``.
     """
-    ev = events[events["strategy"] == strategy] if events["strategy"].nunique() > 1 else events
-    pt = patients[patients["strategy"] == strategy] if patients["strategy"].nunique() > 1 else patients
-    n, n_states = len(pt), len(model.states)
+    k = list(patients["strategy"].cat.categories).index(strategy)
+    er, pr = _strategy_rows(events, k), _strategy_rows(patients, k)
+    n, n_states = pr.stop - pr.start, len(model.states)
     draw = np.arange(n) // n_per_draw  # patients come in id order, one block of draws
-    e_pid = ev["patient"].to_numpy() - first
-    e_time = ev["time"].to_numpy()
-    e_from = ev["from_state"].cat.codes.to_numpy().astype(np.int64)
-    exit_time = pt["exit_time"].to_numpy()
-    final = pt["final_state"].cat.codes.to_numpy().astype(np.int64)
+    e_pid = events["patient"].to_numpy()[er] - first
+    e_time = events["time"].to_numpy()[er]
+    e_from = events["from_state"].cat.codes.to_numpy()[er]
+    e_exit = events["transition"].cat.codes.to_numpy()[er]
+    exit_time = patients["exit_time"].to_numpy()[pr]
+    final = patients["final_state"].cat.codes.to_numpy()[pr]
     # sojourns: one ending at each move (from the previous move, or entry), and the last one to exit
-    first_move = np.ones(e_pid.size, dtype=bool)
-    first_move[1:] = e_pid[1:] != e_pid[:-1]
+    same = e_pid[1:] == e_pid[:-1]
+    e_start = np.empty(e_pid.size)
+    if e_pid.size:
+        e_start[0] = 0.0
+        e_start[1:] = np.where(same, e_time[:-1], 0.0)
     last_move = np.ones(e_pid.size, dtype=bool)
-    last_move[:-1] = e_pid[1:] != e_pid[:-1]
-    e_start = np.where(first_move, 0.0, np.concatenate(([0.0], e_time[:-1])))
+    last_move[:-1] = ~same
     last_time = np.zeros(n)
     last_time[e_pid[last_move]] = e_time[last_move]
     pid = np.concatenate((e_pid, np.arange(n)))
-    state = np.concatenate((e_from, final))
+    cell = pid * n_states + np.concatenate((e_from, final))
     start = np.concatenate((e_start, last_time))
     end = np.concatenate((e_time, exit_time))
     row_draw = draw[pid]
-    years = _years(n, n_states, pid, state, start, end, None)
-    years_e = _years(n, n_states, pid, state, start, end, values.discount_effects[row_draw])
-    years_c = _years(n, n_states, pid, state, start, end, values.discount_costs[row_draw])
+
+    def years(rates: NDArray | None) -> NDArray:
+        if rates is None:
+            length = end - start
+        else:
+            length = _discounted(start, end, np.log1p(rates)[row_draw], bool(np.all(rates > 0.0)))
+        return np.bincount(cell, weights=length, minlength=n * n_states).reshape(n, n_states)
+
+    y = years(None)
+    y_e = years(values.discount_effects)
+    same_rates = np.array_equal(values.discount_effects, values.discount_costs)
+    y_c = y_e if same_rates else years(values.discount_costs)
     # one-off costs at each move, by the model's exit numbering, discounted at the move
     e_draw = draw[e_pid]
-    c = values.exit_cost[e_draw, ev["transition"].cat.codes.to_numpy().astype(np.int64)]
+    c = values.exit_cost[e_draw, e_exit]
     one_off = np.bincount(e_pid, weights=c, minlength=n)
-    one_off_d = np.bincount(e_pid, weights=c * np.exp(-np.log1p(values.discount_costs[e_draw]) * e_time), minlength=n)
+    one_off_d = np.bincount(e_pid, weights=c * np.exp(-np.log1p(values.discount_costs)[e_draw] * e_time),
+                            minlength=n)
     alive = [j for j, s in enumerate(model.states) if not s.absorbing]
     u = values.utility[draw]
-    k = values.state_cost[draw]
+    kost = values.state_cost[draw]
 
-    def weighted(y: NDArray, w: NDArray | None) -> NDArray:
+    def weighted(t: NDArray, w: NDArray | None) -> NDArray:
         # explicit sum over states in a fixed order: the same bits for any number of rows
         out = np.zeros(n)
         for j in (alive if w is None else range(n_states)):
-            out += y[:, j] if w is None else y[:, j] * w[:, j]
+            out += t[:, j] if w is None else t[:, j] * w[:, j]
         return out
 
-    return {"life_years": weighted(years, None), "life_years_discounted": weighted(years_e, None),
-            "qalys": weighted(years, u), "qalys_discounted": weighted(years_e, u),
-            "costs": weighted(years, k) + one_off, "costs_discounted": weighted(years_c, k) + one_off_d}
+    return {"life_years": weighted(y, None), "life_years_discounted": weighted(y_e, None),
+            "qalys": weighted(y, u), "qalys_discounted": weighted(y_e, u),
+            "costs": weighted(y, kost) + one_off, "costs_discounted": weighted(y_c, kost) + one_off_d}
 
 
 def draw_means(values: dict[str, NDArray[np.float64]], n_per_draw: int) -> dict[str, NDArray[np.float64]]:

@@ -38,8 +38,9 @@ def markov_model(background: bool = False, horizon: float = 20.0, weibull: bool 
                  name="psa test model (invented)")
 
 
-def apply_values(model: Model, values) -> Model:
-    """The model with one draw's values (the test's own parameter names)."""
+def apply_values(source, values) -> Model:
+    """The model with one draw's values (the test's own parameter names); ``source`` a model or scenario."""
+    model = source if isinstance(source, Model) else source.model
     prog = model.transitions[0]
     if "progression_rate" in values:
         h = prog.hazard
