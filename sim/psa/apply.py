@@ -15,13 +15,15 @@ from __future__ import annotations
 
 from typing import Mapping
 
-from ..io.scenario import Scenario
+import tomlkit
+
+from ..io.scenario import Scenario, parameters
 from ..io.scenario.substitute import model_with_values
 from ..io.scenario.substitute import point_values as _point_values
 from ..model import Model
 from ..uncertainty import UncertainInput
 
-__all__ = ["uncertain_parameters", "model_for_draw", "point_values"]
+__all__ = ["uncertain_parameters", "model_for_draw", "point_values", "describe_uncertainty"]
 
 
 def uncertain_parameters(source: Scenario | Model) -> tuple[UncertainInput, ...]:
@@ -51,3 +53,47 @@ def model_for_draw(source: Scenario | Model, values: Mapping[str, float]) -> Mod
         A key that names no parameter, or a value that breaks the parameter's rule (key, value, rule).
     """
     return model_with_values(source, {k: float(v) for k, v in values.items()})
+
+
+def _num(x: float) -> str:
+    return f"{x:,.0f}" if 1e3 <= abs(x) < 1e9 else f"{x:.4g}"
+
+
+def describe_uncertainty(scenario: Scenario) -> list[str]:
+    """The uncertain inputs in words, for ``hazardtrace check``: each distribution with its
+    parameters (and, for a method-of-moments fit, what it was fitted from), the mean and 95% interval
+    of each parameter, and its point value in the deterministic run. No lines without uncertain
+    inputs."""
+    specs = uncertain_parameters(scenario)
+    if not specs:
+        return []
+    points = point_values(scenario)
+    raw_points = _file_values(scenario)
+    lines = [f"Uncertain inputs ({sum(len(u.keys) for u in specs)} parameters; draws reproducible from seed "
+             f"{scenario.run.seed}):"]
+    for u in specs:
+        d = u.distribution
+        head = u.keys[0] if u.univariate else f"[{', '.join(u.keys)}]"
+        fitted = ""
+        if u.fitted_from:
+            given = ", ".join(f"{k} {_num(v) if isinstance(v, float) else v}" for k, v in u.fitted_from.items())
+            fitted = f" (method of moments from {given})"
+        lines.append(f"  {head}: {d.describe()}{fitted}")
+        for key, mean, (lo, hi) in zip(u.keys, u.means().values(), u.intervals().values()):
+            where = "" if u.univariate else f"    {key}: "
+            if key in raw_points:
+                point = f"point value {_num(points[key])}"
+                if not lo <= points[key] <= hi:
+                    point += " (outside the 95% interval)"
+            else:
+                point = "no point value in the file: the deterministic run uses the mean"
+            lines.append(f"{where or '    '}mean {_num(mean)}, 95% interval {_num(lo)} to {_num(hi)}; {point}")
+        if u.description:
+            lines.append(f"    ({u.description})")
+    return lines
+
+
+def _file_values(scenario: Scenario) -> set[str]:
+    """The keys of the parameters the file itself gives a value."""
+    doc = tomlkit.parse(scenario.text).unwrap() if scenario.text else {}
+    return {p.key for p in parameters(doc)}

@@ -228,11 +228,12 @@ class Gamma(Univariate):
         return 0.0, math.inf
 
     def ppf(self, u: ArrayLike) -> np.ndarray:
-        return self.scale * special.gammaincinv(self.shape, np.asarray(u, dtype=np.float64))
+        with np.errstate(over="ignore"):
+            return self.scale * special.gammaincinv(self.shape, np.asarray(u, dtype=np.float64))
 
     def pdf(self, x: ArrayLike) -> np.ndarray:
         x = np.asarray(x, dtype=np.float64) / self.scale
-        inside = x > 0
+        inside = (x > 0) & (x < np.inf)
         xc = np.where(inside, x, 1.0)
         with np.errstate(divide="ignore", over="ignore"):
             log = special.xlogy(self.shape - 1, xc) - xc - special.gammaln(self.shape)
@@ -256,18 +257,22 @@ class LogNormal(Univariate):
 
     @property
     def mean(self) -> float:
-        return math.exp(self.mu + self.sigma ** 2 / 2.0)
+        try:
+            return math.exp(self.mu + self.sigma ** 2 / 2.0)
+        except OverflowError:
+            return math.inf
 
     @property
     def support(self) -> tuple[float, float]:
         return 0.0, math.inf
 
     def ppf(self, u: ArrayLike) -> np.ndarray:
-        return np.exp(self.mu + self.sigma * special.ndtri(np.asarray(u, dtype=np.float64)))
+        with np.errstate(over="ignore"):
+            return np.exp(self.mu + self.sigma * special.ndtri(np.asarray(u, dtype=np.float64)))
 
     def pdf(self, x: ArrayLike) -> np.ndarray:
         x = np.asarray(x, dtype=np.float64)
-        inside = x > 0
+        inside = (x > 0) & (x < np.inf)
         xc = np.where(inside, x, 1.0)
         z = (np.log(xc) - self.mu) / self.sigma
         return np.where(inside, np.exp(-0.5 * z * z) / (xc * self.sigma * math.sqrt(2 * math.pi)), 0.0)
@@ -341,7 +346,8 @@ class Normal(Univariate):
     def ppf(self, u: ArrayLike) -> np.ndarray:
         u = np.asarray(u, dtype=np.float64)
         if not self.truncated:
-            return self.location + self.sd * special.ndtri(u)
+            with np.errstate(over="ignore", invalid="ignore"):
+                return self.location + self.sd * special.ndtri(u)
         a, b = self._ab()
         if a > 0:  # reflect: quantile 1 - u of the interval [-b, -a]
             sa, sb = special.ndtr(-a), special.ndtr(-b)
@@ -349,7 +355,8 @@ class Normal(Univariate):
         else:
             pa, pb = special.ndtr(a), special.ndtr(b)
             z = special.ndtri(pa + u * (pb - pa))
-        return np.clip(self.location + self.sd * z, self.low, self.high)
+        with np.errstate(over="ignore", invalid="ignore"):
+            return np.clip(self.location + self.sd * z, self.low, self.high)
 
     def pdf(self, x: ArrayLike) -> np.ndarray:
         x = np.asarray(x, dtype=np.float64)
@@ -383,6 +390,8 @@ class Uniform(Univariate):
         object.__setattr__(self, "high", _real("high", self.high))
         if not self.high > self.low:
             raise _fail("high", f"must be > low ({self.low:g})", self.high)
+        if not math.isfinite(self.high - self.low):
+            raise _fail("high", "high - low must be a finite number", self.high)
 
     @property
     def mean(self) -> float:
@@ -420,6 +429,8 @@ class Triangular(Univariate):
             object.__setattr__(self, key, _real(key, getattr(self, key)))
         if not self.high > self.low:
             raise _fail("high", f"must be > low ({self.low:g})", self.high)
+        if not math.isfinite(self.high - self.low):
+            raise _fail("high", "high - low must be a finite number", self.high)
         if not self.low <= self.mode <= self.high:
             raise _fail("mode", f"must lie between low ({self.low:g}) and high ({self.high:g})", self.mode)
 

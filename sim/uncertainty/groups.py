@@ -51,6 +51,8 @@ class Dirichlet(Group):
         if isinstance(raw, (str, bytes)) or np.ndim(raw) != 1 or len(raw) < 2:
             raise _fail("alpha", "must be a list of at least 2 numbers", raw)
         object.__setattr__(self, "alpha", tuple(_real(("alpha", i), a, positive=True) for i, a in enumerate(raw)))
+        if not math.isfinite(math.fsum(self.alpha)):
+            raise _fail("alpha", "must have a finite sum", list(raw))
 
     @property
     def size(self) -> int:
@@ -128,11 +130,15 @@ class MultivariateNormal(Group):
         if np.any(np.diag(cov) < 0):
             i = int(np.argmax(np.diag(cov) < 0))
             raise _fail(("covariance", i, i), "must be >= 0 (a variance)", float(cov[i, i]))
-        w = np.linalg.eigvalsh(cov)
+        with np.errstate(all="ignore"):
+            w = np.linalg.eigvalsh(cov)
+        if not np.all(np.isfinite(w)):
+            raise _fail("covariance", "is too large for floating point numbers; rescale the parameters",
+                        [list(map(float, r)) for r in cov])
         tol = 1e-10 * max(1.0, float(np.max(np.abs(w))))
         if w[0] < -tol:
             raise _fail("covariance", f"must be positive semi-definite (its smallest eigenvalue is {w[0]:.4g})",
-                        [list(r) for r in cov])
+                        [list(map(float, r)) for r in cov])
         transform = tuple(self.transforms) if self.transforms else ("identity",) * n
         if len(transform) != n:
             raise _fail("transform", f"must list {n} scales, one per parameter", list(transform))
@@ -160,6 +166,10 @@ class MultivariateNormal(Group):
 
     def _back(self, z: np.ndarray) -> np.ndarray:
         out = np.array(z, dtype=np.float64, copy=True)
+        with np.errstate(over="ignore"):
+            return self._back_into(out, z)
+
+    def _back_into(self, out: np.ndarray, z: np.ndarray) -> np.ndarray:
         for j, t in enumerate(self.transforms):
             if t == "log":
                 out[..., j] = np.exp(z[..., j])
@@ -169,7 +179,8 @@ class MultivariateNormal(Group):
 
     def transform(self, u: ArrayLike) -> np.ndarray:
         z = special.ndtri(_uniforms(u))
-        return self._back(np.array(self.mean) + z @ self.factor.T)
+        with np.errstate(over="ignore", invalid="ignore"):
+            return self._back(np.array(self.mean) + z @ self.factor.T)
 
     def means(self) -> np.ndarray:
         m = np.array(self.mean)
@@ -179,7 +190,7 @@ class MultivariateNormal(Group):
         weights = weights / weights.sum()
         for j, t in enumerate(self.transforms):
             if t == "log":
-                out[j] = math.exp(m[j] + v[j] / 2.0)
+                out[j] = np.exp(np.float64(m[j] + v[j] / 2.0)) if m[j] + v[j] / 2.0 < 709.0 else math.inf
             elif t == "logit":
                 out[j] = float(np.sum(weights * special.expit(m[j] + math.sqrt(v[j]) * nodes)))
         return out

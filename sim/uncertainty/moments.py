@@ -30,11 +30,20 @@ from typing import Any, Sequence
 
 import numpy as np
 
-from .distributions import Beta, Gamma, LogNormal, Normal, _fail, _real
+from .distributions import Beta, DistributionError, Gamma, LogNormal, Normal, _fail, _real
 from .groups import Dirichlet
 
 __all__ = ["beta_from_mean_se", "gamma_from_mean_se", "lognormal_from_mean_se", "normal_from_mean_se",
            "dirichlet_from_shares", "MOMENT_FITS"]
+
+
+def _finite(family: str, build, se: float):
+    """``build()``, or the error at ``se`` when the fit's parameters leave the range of a double."""
+    try:
+        return build()
+    except (DistributionError, OverflowError, ZeroDivisionError, ValueError):
+        raise _fail("se", f"gives {family} parameters beyond the range of floating point numbers; "
+                          f"state the mean and standard error in other units", se) from None
 
 
 def beta_from_mean_se(mean: float, se: float) -> Beta:
@@ -51,8 +60,9 @@ def beta_from_mean_se(mean: float, se: float) -> Beta:
     if not s < limit:
         raise _fail("se", f"must be < sqrt(mean (1 - mean)) = {limit:.4g} for a beta distribution with mean "
                           f"{m:g} (the largest spread a beta with this mean can have)", se)
-    total = m * (1.0 - m) / (s * s) - 1.0
-    return Beta(m * total, (1.0 - m) * total)
+    total = math.exp(math.log(m * (1.0 - m)) - 2.0 * math.log(s)) - 1.0 if s < 1e-100 else \
+        m * (1.0 - m) / (s * s) - 1.0
+    return _finite("beta", lambda: Beta(m * total, (1.0 - m) * total), se)
 
 
 def gamma_from_mean_se(mean: float, se: float) -> Gamma:
@@ -61,7 +71,8 @@ def gamma_from_mean_se(mean: float, se: float) -> Gamma:
     s = _real("se", se, positive=True)
     if not m > 0:
         raise _fail("mean", "must be > 0 for a gamma distribution", mean)
-    return Gamma(m * m / (s * s), s * s / m)
+    log_ratio = math.log(m) - math.log(s)  # shape = (m/s)^2, scale = s (s/m), in logs: no overflow
+    return _finite("gamma", lambda: Gamma(math.exp(2.0 * log_ratio), s * math.exp(-log_ratio)), se)
 
 
 def lognormal_from_mean_se(mean: float, se: float) -> LogNormal:
@@ -71,8 +82,9 @@ def lognormal_from_mean_se(mean: float, se: float) -> LogNormal:
     s = _real("se", se, positive=True)
     if not m > 0:
         raise _fail("mean", "must be > 0 for a log-normal distribution", mean)
-    var_log = math.log1p((s / m) ** 2)
-    return LogNormal(math.log(m) - var_log / 2.0, math.sqrt(var_log))
+    log_ratio = math.log(s) - math.log(m)
+    var_log = math.log1p(math.exp(2.0 * log_ratio)) if log_ratio < 300 else 2.0 * log_ratio  # ln(1 + r^2)
+    return _finite("lognormal", lambda: LogNormal(math.log(m) - var_log / 2.0, math.sqrt(var_log)), se)
 
 
 def normal_from_mean_se(mean: float, se: float) -> Normal:

@@ -77,7 +77,10 @@ class UncertainInput:
         return isinstance(self.distribution, Univariate)
 
     def means(self) -> dict[str, float]:
-        """The mean of each parameter."""
+        """The mean of each parameter (for a fit to a stated mean, that mean as written: the fitted
+        distribution's differs from it by rounding only)."""
+        if self.univariate and "mean" in self.fitted_from:
+            return {self.keys[0]: float(self.fitted_from["mean"])}
         return dict(zip(self.keys, map(float, self.distribution.means())))
 
     def intervals(self, level: float = 0.95) -> dict[str, tuple[float, float]]:

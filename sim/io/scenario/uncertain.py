@@ -188,7 +188,7 @@ def _share_table(path: KeyPath, doc: Mapping) -> KeyPath | None:
     return None
 
 
-def _distribution(ck: Checker, dist: str, v: Mapping, p: KeyPath) -> tuple[Any, dict]:
+def _distribution(ck: Checker, dist: str, v: Mapping, p: KeyPath, raw: Mapping) -> tuple[Any, dict]:
     """The distribution of entry ``v`` (checked values) and what it was fitted from."""
     forms = UNCERTAINTY_FORMS[dist]
     given = [f for f in forms if all(k in v for k in f)]
@@ -218,8 +218,10 @@ def _distribution(ck: Checker, dist: str, v: Mapping, p: KeyPath) -> tuple[Any, 
         if form == ("mean", "se"):
             return MOMENT_FITS[dist](v["mean"], v["se"]), {"mean": v["mean"], "se": v["se"]}
         return _NATIVE[dist](*[v[k] for k in form]), {}
-    except ValidationError as err:
-        ck.extend(err.within(*p).problems)
+    except ValidationError as err:  # each problem with the value as written in the file
+        for problem in err.problems:
+            written = _get(raw, problem.path)
+            ck.add((*p, *problem.path), problem.rule, problem.value if written is None else written)
         raise Invalid from None
 
 
@@ -232,7 +234,7 @@ def _entry(ck: Checker, doc: Mapping, i: int, raw: Any) -> UncertainInput:
         ck.fail(p, f"missing required key {node.tag!r}")
     dist = ck.value(Text(choices=tuple(node.variants)), raw[node.tag], (*p, node.tag))
     v = ck.table(raw, p, node.variants[dist], extra=(node.tag,))
-    d, fitted = _distribution(ck, dist, v, p)
+    d, fitted = _distribution(ck, dist, v, p, raw)
     where = (*p, "parameter") if "parameter" in v else (*p, "parameters")
     names = (v["parameter"],) if "parameter" in v else v["parameters"]
     paths = []

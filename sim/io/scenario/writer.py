@@ -17,11 +17,12 @@ import tomlkit
 
 from ...hazards import FAMILIES, FAMILY_DIMENSIONS, Hazard
 from ...model import Model, RunSettings
+from ...uncertainty import UncertainInput
 from ..atomic import AtomicWriteError, write_text_atomic
 from .errors import ScenarioError
 from .schema import ENTRY_AGES, FORMAT_VERSION, SCHEMA, Flag, Items, Node
 
-__all__ = ["document_from_model", "scenario_text", "save_scenario"]
+__all__ = ["document_from_model", "scenario_text", "save_scenario", "uncertainty_entry"]
 
 
 def _plain(value: Any) -> Any:
@@ -75,8 +76,22 @@ def _entry_age(entry: Any) -> dict:
     return {node.tag: tag, **{k: _plain(getattr(entry, a)) for k, a in zip(node.variants[tag], attrs)}}
 
 
-def document_from_model(model: Model, run: RunSettings | None = None, description: str = "") -> dict:
-    """A scenario document (plain dict) equivalent to ``model``; :func:`scenario_text` renders it."""
+def uncertainty_entry(spec: UncertainInput) -> dict:
+    """One ``[[uncertainty]]`` table for ``spec``: the parameter (or group), the distribution and the
+    values it was given by (``mean`` and ``se`` when fitted by the method of moments, else its own
+    parameters), and the description."""
+    out: dict[str, Any] = {"parameter": spec.keys[0]} if spec.univariate else {"parameters": list(spec.keys)}
+    out["distribution"] = spec.distribution.family
+    out.update(spec.fitted_from or spec.distribution.parameters())
+    if spec.description:
+        out["description"] = spec.description
+    return _plain(out)
+
+
+def document_from_model(model: Model, run: RunSettings | None = None, description: str = "",
+                        uncertainty: tuple[UncertainInput, ...] = ()) -> dict:
+    """A scenario document (plain dict) equivalent to ``model`` (with the ``[[uncertainty]]`` entries
+    of ``uncertainty``); :func:`scenario_text` renders it."""
     doc = _section(SCHEMA.keys, {"format_version": FORMAT_VERSION, "name": model.name, "description": description})
     doc["states"] = [_section(_keys("states"), {"name": s.name, "absorbing": s.absorbing}) for s in model.states]
     doc["transitions"] = [{**_section(_keys("transitions"), {"name": t.name, "from": t.source, "to": t.target,
@@ -101,6 +116,8 @@ def document_from_model(model: Model, run: RunSettings | None = None, descriptio
     if run is not None:
         keys = _keys("run")
         doc["run"] = _section(keys, {k: getattr(run, k) for k in keys}, required=tuple(keys))
+    if uncertainty:
+        doc["uncertainty"] = [uncertainty_entry(u) for u in uncertainty]
     return doc
 
 
