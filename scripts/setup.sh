@@ -11,6 +11,9 @@ SYSTEM_PACKAGES=(libegl1 libgl1 libx11-6 libdbus-1-3 libfontconfig1 libfreetype6
                  xvfb xauth libxcb-cursor0 libxcb-icccm4 libxcb-image0 libxcb-keysyms1 libxcb-randr0
                  libxcb-render-util0 libxcb-shape0 libxcb-xinerama0 libxcb-xkb1 libxkbcommon-x11-0)
                  # ^ a real X server (Xvfb) and Qt's xcb plugin for scripts/screenshots.py
+SYSTEM_PACKAGES+=(libpango-1.0-0 libpangoft2-1.0-0 libharfbuzz-subset0  # WeasyPrint's layout (report PDF)
+                 poppler-utils  # pdftotext: tests read the report PDF's text
+                 chromium)      # headless browser: tests open the HTML report in a real browser
 
 missing=()
 if command -v dpkg-query >/dev/null 2>&1; then
