@@ -242,3 +242,17 @@ def test_check_on_the_command_line(tmp_path: Path) -> None:
     err = io.StringIO()
     code = main(["check", str(bad)], out=err)
     assert code == 2
+
+
+def test_renaming_a_state_or_transition_renames_it_in_parameter_names() -> None:
+    from sim.io.scenario import rename
+    doc = tomlkit.parse(DEMO.read_text(encoding="utf-8"))
+    rename(doc, "states", 1, "mild stage")  # mild
+    rename(doc, "transitions", 1, "worsening")  # progression
+    s = parse_scenario(tomlkit.dumps(doc), DEMO)
+    keys = {k for u in s.uncertainty for k in u.keys}
+    assert {'valuation.utilities."mild stage"', 'population.initial_state."mild stage"',
+            "strategies[1].hazard_ratios.worsening", "valuation.transition_costs.worsening"} <= keys
+    assert not any("mild" in k.replace("mild stage", "") or "progression" in k for k in keys)
+    before = load_scenario(DEMO)
+    assert [u.distribution for u in s.uncertainty] == [u.distribution for u in before.uncertainty]

@@ -7,6 +7,7 @@ from typing import Any, Iterator, MutableMapping
 
 from ...model.checks import is_number
 from .schema import Ref, references
+from .uncertain import renamed_parameter
 
 __all__ = ["rename", "RENAMEABLE"]
 
@@ -70,3 +71,24 @@ def rename(doc: Any, array: str, index: int, new: str) -> None:
                     value[new] = moved
             elif value == old:
                 container[key] = new
+    _rename_uncertain(doc, _FOLLOWS[kind], old, new)
+
+
+def _rename_uncertain(doc: Any, refs: tuple[Ref, ...], old: str, new: str) -> None:
+    """Parameter names in ``[[uncertainty]]`` that contain the old name follow it."""
+    entries = doc.get("uncertainty") if isinstance(doc, MutableMapping) else None
+    if not isinstance(entries, list):
+        return
+    for entry in entries:
+        if not isinstance(entry, MutableMapping):
+            continue
+        if isinstance(entry.get("parameter"), str):
+            got = renamed_parameter(doc, entry["parameter"], refs, old, new)
+            if got != entry["parameter"]:
+                entry["parameter"] = got
+        names = entry.get("parameters")
+        if isinstance(names, list):
+            for i, name in enumerate(names):
+                got = renamed_parameter(doc, name, refs, old, new)
+                if got != name:
+                    names[i] = got

@@ -32,9 +32,9 @@ from ...problems import KeyPath, ValidationError, format_key
 from ...uncertainty import (MOMENT_FITS, Beta, Dirichlet, Gamma, LogNormal, MultivariateNormal, Normal, Triangular,
                             UncertainInput, Uniform, Univariate, dirichlet_from_shares)
 from .checking import Checker, Invalid
-from .schema import SCHEMA, UNCERTAINTY_FORMS, HazardTable, Number, Ref, Text, node_at
+from .schema import SCHEMA, UNCERTAINTY_FORMS, HazardTable, Number, Ref, StateOrShares, Text, node_at
 
-__all__ = ["parse_key", "read_uncertainty", "SHARE_TABLES", "NOT_UNCERTAIN"]
+__all__ = ["parse_key", "read_uncertainty", "SHARE_TABLES", "NOT_UNCERTAIN", "renamed_parameter"]
 
 SHARE_TABLES = (("population", "sex_mix"), ("population", "initial_state"))
 """Tables of shares that sum to 1 (``initial_state`` also per sex, one level down)."""
@@ -359,3 +359,25 @@ def with_values(doc: Mapping, values: Mapping[KeyPath, float]) -> dict:
             node = nxt
         node[path[-1]] = float(value)
     return out
+
+
+def renamed_parameter(doc: Mapping, name: Any, refs: tuple[Ref, ...], old: str, new: str) -> Any:
+    """The parameter name ``name`` with each part that names ``old`` (a state, transition, ...: one of
+    ``refs``) renamed to ``new``; anything that is not a parameter name is returned unchanged."""
+    path = parse_key(name) if isinstance(name, str) else None
+    if path is None:
+        return name
+    out = list(path)
+    for n in range(1, len(path)):
+        parent = node_at(doc, tuple(out[:n]))
+        if isinstance(parent, StateOrShares):
+            table = _get(doc, path[:n])
+            per_sex = isinstance(table, Mapping) and table and all(isinstance(v, Mapping) for v in table.values())
+            ref = None if per_sex else Ref.STATE
+        else:
+            ref = getattr(parent, "key_ref", None)
+            if ref is None and n >= 2 and isinstance(node_at(doc, tuple(out[:n - 1])), StateOrShares):
+                ref = Ref.STATE  # a state of one sex's table
+        if ref in refs and out[n] == old:
+            out[n] = new
+    return format_key(tuple(out)) if out != list(path) else name
