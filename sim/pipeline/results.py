@@ -70,6 +70,54 @@ class RunResults:
         """One line per failed stage: ``"<stage> failed: <what went wrong>"``."""
         return [f"{stage} failed: {why}" for stage, why in self.failed.items()]
 
+    def _repr_html_(self) -> str:
+        """A compact HTML summary for notebooks: the model, the run's size and seed, and per strategy
+        life years, discounted QALYs and discounted costs as mean (MCSE) with the exact value where
+        there is one, each to the precision of its MCSE (:mod:`sim.analysis.display`); then the
+        increments' net monetary benefit and any failed stage. The full report:
+        :func:`sim.report.report_html`."""
+        from html import escape
+
+        from ..analysis import decimals_from_mcse, format_fixed
+
+        model = self.scenario.model
+        v = model.valuation
+        keys = {"life_years": "life years", "qalys_discounted": "QALYs (disc.)",
+                "costs_discounted": f"costs (disc., {v.currency})"}
+        rows = self.outcomes[self.outcomes["outcome"].isin(keys)]
+        head = "".join(f"<th>{escape(h)}</th>" for h in keys.values())
+        body = []
+        for strategy in model.strategy_names:
+            cells = []
+            for key in keys:
+                r = rows[(rows["strategy"] == strategy) & (rows["outcome"] == key)]
+                if not len(r):
+                    cells.append("<td></td>")
+                    continue
+                mean, mcse = float(r["mean"].iloc[0]), float(r["mcse"].iloc[0])
+                d = int(decimals_from_mcse([mcse])[0])
+                d = d if d >= 0 else 2
+                text = f"{format_fixed(mean, d)} ({format_fixed(mcse, d)})"
+                exact = float(r["exact"].iloc[0]) if "exact" in r else float("nan")
+                if exact == exact:
+                    text += f"; exact {format_fixed(exact, d)}"
+                cells.append(f'<td style="text-align:right">{escape(text)}</td>')
+            body.append(f"<tr><th>{escape(strategy)}</th>{''.join(cells)}</tr>")
+        s = self.settings
+        lines = [f"<b>{escape(model.name)}</b>: {int(s.get('patients', 0)):,} patients per strategy, seed "
+                 f"{escape(str(s.get('seed')))}, {self.n_events:,} events, {sum(self.seconds.values()):.1f} s; "
+                 f"discounting {100 * v.discount_costs:g}% costs, {100 * v.discount_effects:g}% effects"]
+        nmb = self.increments[self.increments["quantity"] == "nmb"] if "quantity" in self.increments else []
+        for _, r in (nmb.iterrows() if len(nmb) else ()):
+            d = int(decimals_from_mcse([float(r["mcse"])])[0])
+            d = d if d >= 0 else 0
+            lines.append(f"Net monetary benefit of {escape(str(r['strategy']))} vs {escape(str(r['comparator']))} at "
+                         f"{v.willingness_to_pay:,.0f} {escape(v.currency)}/QALY: {format_fixed(float(r['value']), d)} "
+                         f"(MCSE {format_fixed(float(r['mcse']), d)})")
+        lines += [f"<span style='color:#b03a2e'>{escape(line)}</span>" for line in self.failure_lines()]
+        table = (f"<table><thead><tr><th>mean (MCSE)</th>{head}</tr></thead><tbody>{''.join(body)}</tbody></table>")
+        return "<div>" + "<br/>".join(lines) + table + "</div>"
+
 
 def horizon_range(scenario: Scenario) -> tuple[float, float]:
     """Earliest and last horizon in time since entry (equal for a horizon in time since entry; for
