@@ -204,3 +204,23 @@ def test_model_objects_refuse_bad_waning_with_the_key():
     assert Clock.ENTRY.value == "entry"
     assert isinstance(Exponential(0.1), Exponential)
 
+
+def test_written_scenario_reads_back_with_its_effects():
+    from sim.io.scenario import document_from_model, scenario_text
+    m = load_scenario(SCENARIO).model
+    again = parse_scenario(scenario_text(document_from_model(m))).model
+    assert again.transitions == m.transitions
+    assert again.strategies == m.strategies
+
+
+def test_waning_times_and_ratios_are_parameters_a_draw_can_change():
+    # the probabilistic analysis reads a changed part again: waning times in the transition's unit
+    from sim.psa import model_for_draw
+    s = load_scenario(SCENARIO)
+    m = model_for_draw(s, {"strategies[1].waning.onset.end": 8.0, "transitions[1].waning.end": 48.0,
+                           "transitions[1].hazard_ratio": 1.2})
+    assert m.strategy("treated").waning["onset"] == Waning(2.0, 8.0, "log")
+    assert m.transitions[1].waning == Waning(1.0, 4.0, "hr") and m.transitions[1].hazard_ratio == 1.2
+    with pytest.raises(ScenarioError) as err:
+        model_for_draw(s, {"strategies[1].waning.onset.end": 1.0})
+    assert "must be > waning.start" in str(err.value)

@@ -69,6 +69,11 @@ def _hazard_doc(h: Hazard) -> dict:
     return out
 
 
+def _waning_doc(w: Any) -> dict | None:
+    """A waning as its table (times in years), or None."""
+    return None if w is None else {"start": w.start, "end": w.end, "scale": w.scale}
+
+
 def _entry_age(entry: Any) -> dict:
     node = _keys("population")["entry_age"]
     tag = next(t for t, cls in ENTRY_AGES.items() if isinstance(entry, cls))
@@ -95,7 +100,9 @@ def document_from_model(model: Model, run: RunSettings | None = None, descriptio
     doc = _section(SCHEMA.keys, {"format_version": FORMAT_VERSION, "name": model.name, "description": description})
     doc["states"] = [_section(_keys("states"), {"name": s.name, "absorbing": s.absorbing}) for s in model.states]
     doc["transitions"] = [{**_section(_keys("transitions"), {"name": t.name, "from": t.source, "to": t.target,
-                                                              "clock": t.clock.value}),
+                                                              "clock": t.clock.value, "hazard_ratio": t.hazard_ratio,
+                                                              "waning": _waning_doc(t.waning),
+                                                              "at_least_background": t.at_least_background}),
                            **_hazard_doc(t.hazard)} for t in model.transitions]
     if model.background is not None:
         bg = model.background
@@ -108,7 +115,8 @@ def document_from_model(model: Model, run: RunSettings | None = None, descriptio
     doc["strategies"] = [
         _section(_keys("strategies"), {"name": st.name, "hazard_ratios": st.hazard_ratios,
                                        "replacements": {k: _hazard_doc(v) for k, v in st.replacements.items()},
-                                       "state_costs": st.state_costs, "transition_costs": st.transition_costs})
+                                       "state_costs": st.state_costs, "transition_costs": st.transition_costs,
+                                       "waning": {k: _waning_doc(w) for k, w in st.waning.items()}})
         for st in model.strategies]
     v = model.valuation
     keys = _keys("valuation")
