@@ -51,6 +51,8 @@ def _fit(args: argparse.Namespace, out: TextIO) -> int:
             families.append("spline")
     if args.breaks and "piecewise" not in families:
         families.append("piecewise")
+    if "piecewise" in families and not args.breaks:
+        raise ValidationError(("--breaks",), "are required for the piecewise family (band starts, e.g. 0 6 12)")
     if args.curves or args.at_risk:
         if not (args.curves and args.at_risk):
             raise ValidationError(("--at-risk" if args.curves else "--curves",),

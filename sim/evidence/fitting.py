@@ -113,6 +113,32 @@ class Fit:
         p = len(self.spec.names)
         return self.spec.build(self.estimates[:p])
 
+    def compared_parameters(self) -> dict[str, Any] | None:
+        """The compared arm's hazard in the same family's scenario keys (None for one arm).
+
+        Proportional hazards with ratio ``HR``: exponential and Gompertz ``rate * HR``, piecewise
+        ``rates * HR``, Weibull ``scale * HR^(-1/shape)`` (since ``HR (t/scale)^shape``); spline
+        ``gamma0 + log HR``. Accelerated failure time with factor ``AF`` (``S_1(t) = S_0(t / AF)``):
+        log-logistic and gamma ``scale * AF``, log-normal and generalized gamma ``mu + log AF``.
+        """
+        if self.effect is None:
+            return None
+        out = dict(self.parameters)
+        beta = math.log(self.effect.estimate)
+        if self.family in ("exponential", "gompertz"):
+            out["rate"] = out["rate"] * self.effect.estimate
+        elif self.family == "piecewise":
+            out["rates"] = tuple(r * self.effect.estimate for r in out["rates"])
+        elif self.family == "weibull":
+            out["scale"] = out["scale"] * math.exp(-beta / out["shape"])
+        elif self.family == "spline":
+            out["gamma0"] = out["gamma0"] + beta
+        elif self.family in ("loglogistic", "gamma"):
+            out["scale"] = out["scale"] * self.effect.estimate
+        else:  # lognormal, gengamma
+            out["mu"] = out["mu"] + beta
+        return out
+
 
 # --------------------------------------------------------------------------------------------
 # Log-likelihood

@@ -12,12 +12,16 @@ Layout::
 
     [fits.weibull]           # every converged scenario family, same keys
     ...
+    [fits.weibull.compared_arm]  # two arms: the compared arm's hazard in the same family
+    ...
     [fits.weibull.statistics]  # not scenario keys: log-likelihood, AIC, BIC, covariance, effect
 
-The keys of ``[chosen]`` or of a ``[fits.<family>]`` table (without ``statistics``) go into a
-``[[transitions]]`` table (with ``name``, ``from``, ``to``, ``clock``) or a strategy's
-``replacements``. Fits of families that are not scenario families (generalized gamma, splines)
-and fits that did not converge are listed under ``[not_written]`` with the reason.
+The keys of ``[chosen]`` or of a ``[fits.<family>]`` table (without ``compared_arm`` and
+``statistics``) go into a ``[[transitions]]`` table (with ``name``, ``from``, ``to``, ``clock``);
+``compared_arm`` holds the second arm's hazard in the same family (equivalent to the hazard ratio or
+acceleration factor), e.g. for a strategy's ``replacements``. Fits of families that are not scenario
+families (generalized gamma, splines) and fits that did not converge are listed under
+``[not_written]`` with the reason.
 """
 
 from __future__ import annotations
@@ -41,11 +45,11 @@ def choose_fit(fits: Sequence[Fit], criterion: str = "aic") -> Fit | None:
     return min(usable, key=lambda f: f.aic if criterion == "aic" else f.bic)
 
 
-def _hazard_table(fit: Fit) -> tomlkit.items.Table:
+def _hazard_table(fit: Fit, parameters: dict | None = None) -> tomlkit.items.Table:
     table = tomlkit.table()
     table.add("family", fit.family)
     table.add("unit", fit.unit)
-    for key, value in fit.parameters.items():
+    for key, value in (fit.parameters if parameters is None else parameters).items():
         table.add(key, list(value) if isinstance(value, tuple) else value)
     return table
 
@@ -91,6 +95,8 @@ def fragment_text(fits: Sequence[Fit], *, source: str | None = None, criterion: 
         name = fit.label
         if fit.converged and fit.scenario:
             table = _hazard_table(fit)
+            if fit.effect is not None:  # the compared arm in the same family: a strategy's replacement
+                table.add("compared_arm", _hazard_table(fit, fit.compared_parameters()))
             table.add("statistics", _statistics(fit))
             fits_table.add(name, table)
         else:

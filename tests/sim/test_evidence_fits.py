@@ -277,3 +277,23 @@ def test_bad_fit_requests_name_the_parameter(rossi_data, two_arms):
     with pytest.raises(ValidationError) as err:
         fit_family(rossi_data, "weibull", arms=True)
     assert err.value.problem.path == ("group",)
+
+
+@pytest.mark.parametrize("family", ["exponential", "weibull", "gompertz", "loglogistic", "lognormal", "gamma",
+                                    "piecewise"])
+def test_compared_arm_hazard_in_the_same_family(two_arms, family):
+    """The compared arm's parameters reproduce the effect: H_1 = HR H_0 (proportional hazards) or
+    H_1(t) = H_0(t / AF) (accelerated failure time), by the families' own cumulative hazards."""
+    fit = fit_family(two_arms, family, breaks=[10.5, 30.5] if family == "piecewise" else None)
+    h0 = fit.hazard()
+    h1 = make_hazard(family, **fit.compared_parameters())
+    t = np.array([1.0, 10.0, 30.0, 52.0])
+    if fit.effect.kind == "hazard_ratio":
+        np.testing.assert_allclose(h1.cumhazard(t), fit.effect.estimate * h0.cumhazard(t), rtol=1e-12)
+    else:
+        np.testing.assert_allclose(h1.cumhazard(t), h0.cumhazard(t / fit.effect.estimate), rtol=1e-10)
+    assert tomllib_loads(fragment_text([fit]))["fits"][family]["compared_arm"]["family"] == family
+
+
+def tomllib_loads(text: str) -> dict:
+    return pytest.importorskip("tomllib").loads(text)
