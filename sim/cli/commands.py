@@ -41,6 +41,8 @@ __all__ = ["main", "describe"]
 # Add one line per verb module; errors follow ``main``'s exit codes.
 VERB_MODULES: tuple = ()
 from .fit import register as _register_fit; VERB_MODULES += (_register_fit,)  # noqa: E402,E702  hazardtrace fit
+from .report import register as _register_report; VERB_MODULES += (_register_report,)  # noqa: E402,E702  hazardtrace report
+from .rerun import register as _register_rerun; VERB_MODULES += (_register_rerun,)  # noqa: E402,E702  hazardtrace rerun
 
 SHOWN = ("life_years", "qalys_discounted", "costs_discounted")
 DEBUG_VARIABLE = "HAZARDTRACE_DEBUG"
