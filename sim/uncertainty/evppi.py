@@ -34,6 +34,8 @@ class IncrementalFits:
         ``E[ΔE | φ_i]``.
     diagnostics : one row per strategy other than the baseline and outcome: ``strategy``,
         ``outcome``, ``edf``, ``r_squared``, ``residual_sd``, ``smoothing``.
+    basis : the regression basis (for the standard error, :func:`evppi_from_fits`).
+    smoothing : ``(strategy index, outcome) -> smoothing parameters`` of each fit.
     """
 
     group: tuple[str, ...]
@@ -44,6 +46,8 @@ class IncrementalFits:
     fitted_costs: np.ndarray
     fitted_effects: np.ndarray
     diagnostics: pd.DataFrame
+    basis: SplineBasis
+    smoothing: dict[tuple[int, str], tuple[float, ...]]
 
     def net_benefits(self, wtp: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """(incremental net benefit, its fitted conditional mean), each (n_wtp, N, D)."""
@@ -104,27 +108,58 @@ def fit_incremental_means(per_draw: pd.DataFrame, parameters: pd.DataFrame, grou
     de = arrays.values[effects] - arrays.values[effects][:, [base]]
     basis = SplineBasis(x, structure=structure, basis_size=basis_size)
     fc, fe = np.zeros_like(dc), np.zeros_like(de)
-    rows = []
+    rows, smoothing = [], {}
     for j, strategy in enumerate(arrays.strategies):
         if j == base:
             continue
         for name, y, out in (("delta_costs", dc, fc), ("delta_effects", de, fe)):
             fit = basis.fit(y[:, j])
             out[:, j] = fit.fitted
+            smoothing[(j, name)] = fit.smoothing
             rows.append((strategy, name, fit.edf, fit.r_squared, fit.residual_sd, fit.smoothing))
     diagnostics = pd.DataFrame(rows, columns=["strategy", "outcome", "edf", "r_squared", "residual_sd", "smoothing"])
-    return IncrementalFits(tuple(group), arrays.strategies, arrays.strategies[base], dc, de, fc, fe, diagnostics)
+    return IncrementalFits(tuple(group), arrays.strategies, arrays.strategies[base], dc, de, fc, fe, diagnostics,
+                           basis, smoothing)
 
 
-def evppi_from_fits(fits: IncrementalFits, wtp: float | Sequence[float]) -> pd.DataFrame:
+def _evppi_samples(fits: IncrementalFits, grid: np.ndarray, n_samples: int, seed: int) -> np.ndarray:
+    """EVPPI (W, S) recomputed with the fitted values perturbed by their own regression error."""
+    base = fits.strategies.index(fits.baseline)
+    keys = [(j, o) for j in range(len(fits.strategies)) if j != base for o in ("delta_costs", "delta_effects")]
+    data = {"delta_costs": (fits.delta_costs, fits.fitted_costs), "delta_effects": (fits.delta_effects, fits.fitted_effects)}
+    resid = np.column_stack([data[o][0][:, j] - data[o][1][:, j] for j, o in keys])
+    n = resid.shape[0]
+    edf = float(fits.diagnostics["edf"].max())
+    cov = resid.T @ resid / max(n - edf, 1.0)
+    w, v = np.linalg.eigh(cov)
+    root = v * np.sqrt(np.clip(w, 0.0, None))  # cov = root root'
+    rng = np.random.default_rng(np.random.SeedSequence(seed))
+    z = rng.standard_normal((fits.basis.n_columns, n_samples, len(keys))) @ root.T
+    fc = np.repeat(fits.fitted_costs[None], n_samples, axis=0)
+    fe = np.repeat(fits.fitted_effects[None], n_samples, axis=0)
+    for k, (j, o) in enumerate(keys):
+        target = fc if o == "delta_costs" else fe
+        target[:, :, j] += fits.basis.smooth(fits.smoothing[(j, o)], z[:, :, k]).T
+    return np.stack([evpi_from_net_benefit(lam * fe - fc)[0] for lam in grid])
+
+
+def evppi_from_fits(fits: IncrementalFits, wtp: float | Sequence[float], *, se_samples: int = 200,
+                    seed: int = 0) -> pd.DataFrame:
     """EVPPI and EVPI at each willingness to pay from fitted conditional means.
+
+    Parameters
+    ----------
+    fits : the regressions (:func:`fit_incremental_means`).
+    wtp : willingness to pay per QALY, one value or a grid (each >= 0).
+    se_samples : samples for the standard error (0: none, the column is NaN).
+    seed : entropy of the ``numpy.random.SeedSequence`` for those samples.
 
     Returns
     -------
     pandas.DataFrame
-        Columns ``wtp``, ``parameters`` (the group joined by ``", "``), ``evppi``, ``evpi``,
-        ``evpi_mcse`` and ``clipped`` (True where the regression estimate exceeded the EVPI of the
-        same draws and was set to it).
+        Columns ``wtp``, ``parameters`` (the group joined by ``", "``), ``evppi``, ``evppi_se``,
+        ``evpi``, ``evpi_mcse`` and ``clipped`` (True where the regression estimate exceeded the
+        EVPI of the same draws and was set to it).
 
     Notes
     -----
@@ -133,18 +168,32 @@ def evppi_from_fits(fits: IncrementalFits, wtp: float | Sequence[float]) -> pd.D
     benefit (Strong, Oakley & Brennan 2014, Med Decis Making 34:311-326). It is >= 0 by
     construction (a mean of maxima is at least the maximum of means); it is at most the EVPI in
     expectation, but with finite draws a fit may exceed it slightly, so it is capped at the EVPI.
+
+    Standard error of the regression step, given the draws (in the spirit of Strong et al., who
+    sample the fitted values from the regression's posterior): the residuals of all fits
+    ``(ΔC_d, ΔE_d)`` are taken as independent over draws with the covariance ``Σ`` between fits
+    estimated from them (divided by ``N - edf``); each sample adds to every fit its own error
+    ``A_k ε_k`` with ``ε ~ N(0, Σ ⊗ I_N)`` (``A_k`` the fit's smoother matrix, see
+    :meth:`sim.uncertainty.SplineBasis.smooth`) and recomputes the EVPPI; ``evppi_se`` is the
+    standard deviation over the samples. It leaves out the smoothing bias and the sampling of the
+    draws themselves.
     """
     grid = wtp_grid(wtp)
+    if isinstance(se_samples, bool) or not isinstance(se_samples, (int, np.integer)) or se_samples < 0 \
+            or se_samples == 1:
+        raise ValidationError(("se_samples",), "must be 0 (no standard error) or an integer >= 2", se_samples)
     inb, fitted = fits.net_benefits(grid)
     value = np.maximum(evpi_from_net_benefit(fitted)[0], 0.0)
     full, mcse, _ = evpi_from_net_benefit(inb)
+    se = (_evppi_samples(fits, grid, int(se_samples), seed).std(axis=1, ddof=1) if se_samples
+          else np.full(len(grid), np.nan))
     return pd.DataFrame({"wtp": grid, "parameters": ", ".join(fits.group), "evppi": np.minimum(value, full),
-                         "evpi": full, "evpi_mcse": mcse, "clipped": value > full})
+                         "evppi_se": se, "evpi": full, "evpi_mcse": mcse, "clipped": value > full})
 
 
 def evppi(per_draw: pd.DataFrame, parameters: pd.DataFrame, group: Sequence[str], wtp: float | Sequence[float],
           *, costs: str = COSTS, effects: str = EFFECTS, structure: Structure = "tensor",
-          basis_size: int | None = None) -> pd.DataFrame:
+          basis_size: int | None = None, se_samples: int = 200, seed: int = 0) -> pd.DataFrame:
     """Expected value of partial perfect information on a parameter group, per patient.
 
     Parameters
@@ -157,6 +206,7 @@ def evppi(per_draw: pd.DataFrame, parameters: pd.DataFrame, group: Sequence[str]
     structure : ``"tensor"`` (default; 1-4 parameters, all interactions) or ``"additive"``
         (any number of parameters, no interactions: an underestimate when they interact).
     basis_size : basis functions per parameter (default: see :class:`sim.uncertainty.SplineBasis`).
+    se_samples, seed : for the standard error (see :func:`evppi_from_fits`).
 
     Returns
     -------
@@ -172,4 +222,4 @@ def evppi(per_draw: pd.DataFrame, parameters: pd.DataFrame, group: Sequence[str]
     """
     fits = fit_incremental_means(per_draw, parameters, group, costs=costs, effects=effects,
                                  structure=structure, basis_size=basis_size)
-    return evppi_from_fits(fits, wtp)
+    return evppi_from_fits(fits, wtp, se_samples=se_samples, seed=seed)

@@ -196,6 +196,28 @@ class SplineBasis:
         half = sla.solve_triangular(chol[0], self._r.T, lower=True)
         return beta, float(np.sum((f - self._r @ beta) ** 2)), float(np.sum(half ** 2))
 
+    def smooth(self, smoothing: tuple[float, ...], z: np.ndarray) -> np.ndarray:
+        """Fitted values, at the given smoothing parameters, of responses whose projections on the
+        basis's column space are ``Q z``: ``Q R (R'R + Σ λ_j S_j)^{-1} R' z``.
+
+        Parameters
+        ----------
+        smoothing : the smoothing parameters (as :attr:`SplineFit.smoothing`).
+        z : array (p, S): coordinates in the orthonormal basis ``Q`` of the column space (p columns).
+
+        Returns
+        -------
+        numpy.ndarray (N, S). Used to propagate residual noise through a fit: for ``ε`` with
+        independent ``N(0, σ²)`` entries, ``Q'ε`` has independent ``N(0, σ²)`` entries, so
+        ``smooth(λ, Q'ε) = A ε`` is the fit's own error.
+        """
+        with threadpool_limits(limits=1, user_api="blas"):
+            m = self._gram + self._jitter
+            for lam, s in zip(smoothing, self.penalties):
+                m = m + lam * s
+            sol = sla.cho_solve(sla.cho_factor(m, lower=True), self._r.T @ z)
+            return self._q @ (self._r @ sol)
+
     def fit(self, y: np.ndarray) -> SplineFit:
         """Fit one response ``y`` (length N), choosing the smoothing parameters by GCV.
 

@@ -157,3 +157,28 @@ def test_evppi_refuses_unknown_parameters_and_missing_draws():
     with pytest.raises(ValidationError) as err:
         evppi(table[table.draw < 20], params.assign(y=np.sin(np.arange(n))), ["x", "y"], [1.0])
     assert err.value.problem.path == ("draws",)
+
+
+def test_evppi_standard_error_matches_the_spread_over_repeated_regression_noise():
+    # The standard error describes the regression step given the draws: keep the parameter values
+    # fixed, draw the residual noise afresh R times and compare the spread of the R estimates with
+    # the mean reported standard error. The sample standard deviation of R values has relative
+    # standard error 1/sqrt(2 (R - 1)) (normal theory, from memory): 4 of those bound the gap.
+    rng = np.random.default_rng(17)
+    n, reps = 300, 40
+    x = rng.normal(size=n)
+    params = pd.DataFrame({"x": x})
+    estimates, ses = [], []
+    for _ in range(reps):
+        dc = -(600 + 1000 * x) + rng.normal(0, 1500, n)
+        de = 0.01 * x + rng.normal(0, 0.02, n)
+        table = per_draw({"a": (np.zeros(n), np.zeros(n)), "b": (dc, de)})
+        out = evppi_from_fits(fit_incremental_means(table, params, ["x"]), [0.0, 20_000.0], se_samples=100)
+        estimates.append(out["evppi"].to_numpy())
+        ses.append(out["evppi_se"].to_numpy())
+    spread = np.std(estimates, axis=0, ddof=1)
+    reported = np.mean(ses, axis=0)
+    assert np.all(np.abs(reported / spread - 1) <= 4 / np.sqrt(2 * (reps - 1))), (reported, spread)
+    with pytest.raises(ValidationError) as err:
+        evppi_from_fits(fit_incremental_means(table, params, ["x"]), [0.0], se_samples=1)
+    assert err.value.problem.path == ("se_samples",)
