@@ -10,8 +10,8 @@ earlier intervals is assumed, or the censorings are adjusted to match a reported
 Events are placed at the digitised times and censorings at the midpoints between digitised points;
 the patients still at risk at the end are censored at the last digitised time.
 
-This is a transcription of the published algorithm (the authors' R code, from memory) with guards
-the original lacks: no division by an empty risk set, events never negative nor above the risk set,
+This is a transcription of the published algorithm (the authors' R code, as reproduced in the
+supplement of the paper and in R packages that adapt it) with guards the original lacks: no division by an empty risk set, events never negative nor above the risk set,
 and a bound on the adjustment loops (:data:`MAX_ADJUSTMENTS`).
 """
 
@@ -141,13 +141,13 @@ def guyot_reconstruct(t: NDArray[np.float64], s: NDArray[np.float64], t_risk: ND
     j = n_int - 1
     lo, up = lower[j], upper[j]
 
-    def last_interval(nc: int) -> int:
+    def last_interval(nc: int, adjusting: bool = False) -> int:
         if nc <= 0:
             cen[lo:up] = 0
             nc = 0
         else:
             cen[lo:up] = _spread(nc, t[lo], t[up], t[lo:up + 1])
-        walk(j, n_int == 1, False)
+        walk(j, n_int == 1, adjusting)  # when adjusting to the total, the published code stops at the last point
         return nc
 
     if n_int > 1:
@@ -160,7 +160,7 @@ def guyot_reconstruct(t: NDArray[np.float64], s: NDArray[np.float64], t_risk: ND
         sum_before = int(d[:upper[j - 1] + 1].sum()) if n_int > 1 else 0
         if n_int > 1 and sum_before >= total_events:
             d[lo:up + 1] = 0
-            cen[lo:up] = 0
+            cen[lo:up + 1] = 0
             n_hat[lo + 1:up + 2] = n_risk[j]
             notes.append(f"the reported total of {total_events} events is reached before the last interval; "
                          f"no events after {t_risk[j]:g}")
@@ -168,7 +168,7 @@ def guyot_reconstruct(t: NDArray[np.float64], s: NDArray[np.float64], t_risk: ND
             total = int(d[:up + 1].sum())
             rounds = 0
             while total > total_events or (total < total_events and n_censor[j] > 0):
-                n_censor[j] = last_interval(int(n_censor[j] + (total - total_events)))
+                n_censor[j] = last_interval(int(n_censor[j] + (total - total_events)), adjusting=True)
                 total = int(d[:up + 1].sum())
                 rounds += 1
                 if rounds >= MAX_ADJUSTMENTS:
