@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from ..io import Scenario
-from ..model import BACKGROUND, Clock, Population
+from ..model import BACKGROUND, Clock, Population, transition_effect_words
 
 __all__ = ["describe", "describe_lines", "CLOCK_WORDS"]
 
@@ -44,6 +44,7 @@ def describe_lines(scenario: Scenario, conversions: bool = True) -> list[str]:
     for t in m.transitions:
         lines.append(f"  {t.name}: {t.source} -> {t.target}, {t.hazard.family} {t.hazard.params()} "
                      f"on {CLOCK_WORDS[t.clock]}")
+        lines += [f"  transition {t.name}: {words}" for words in transition_effect_words(m, t.name)]
     if m.background is not None:
         bg = m.background
         for sex, h in bg.hazards.items():
@@ -55,7 +56,8 @@ def describe_lines(scenario: Scenario, conversions: bool = True) -> list[str]:
     lines.append(f"Horizon: {m.horizon.value:g} {'years since entry' if m.horizon.scale == 'time' else '(attained age)'}")
     lines.append("Strategies:")
     for st in m.strategies:
-        parts = [f"hazard ratio {v:g} on {k}" for k, v in st.hazard_ratios.items()]
+        parts = [f"hazard ratio {v:g} on {k}" + (f" ({st.waning[k].words()})" if k in st.waning else "")
+                 for k, v in st.hazard_ratios.items()]
         parts += [f"{k} replaced by {h.family}" for k, h in st.replacements.items()]
         parts += [f"+{v:g}/year in {k}" for k, v in st.state_costs.items()]
         lines.append(f"  {st.name}: " + ("; ".join(parts) if parts else "as defined"))

@@ -224,3 +224,25 @@ def test_waning_times_and_ratios_are_parameters_a_draw_can_change():
     with pytest.raises(ScenarioError) as err:
         model_for_draw(s, {"strategies[1].waning.onset.end": 1.0})
     assert "must be > waning.start" in str(err.value)
+
+
+def test_hazardtrace_check_reports_the_waning_and_the_floor(capsys):
+    from sim.cli.commands import main
+    code = main(["check", str(SCENARIO)])
+    out = capsys.readouterr().out
+    assert code == 0
+    assert "transition disease death: hazard ratio 1.5 in every strategy, wanes to 1 on the hazard-ratio scale" in out
+    assert "transition disease death: hazard at least the background hazard; the fit falls below it from age" in out
+    assert "treated: hazard ratio 0.5 on onset (wanes to 1 on the log scale from 2 to 6 years)" in out
+
+
+def test_hazardtrace_check_refuses_bad_waning_with_exit_2(tmp_path, capsys):
+    from sim.cli.commands import main
+    path = tmp_path / "bad.toml"
+    path.write_text(TEXT.replace("waning = { onset = { start = 2.0, end = 6.0 } }",
+                                 "waning = { onset = { start = 6.0, end = 2.0 } }"), encoding="utf-8")
+    code = main(["check", str(path)])
+    err = capsys.readouterr().err
+    assert code == 2
+    line = _line_of(path.read_text(encoding="utf-8"), "start = 6.0")
+    assert f"bad.toml:{line}" in err and "strategies[1].waning.onset.end" in err and "must be > waning.start" in err
