@@ -16,6 +16,7 @@ from typing import TextIO
 import pandas as pd
 
 from ..hazards import UNIT_IN_YEARS
+from ..io.atomic import write_text_atomic
 from ..problems import ValidationError
 from ..evidence import (FAMILY_NAMES, choose_fit, fit_families, fit_table, read_at_risk, read_curves,
                         read_survival_data, reconstruct, write_fragment)
@@ -39,6 +40,13 @@ def _total_events(items: list[str]) -> dict[str, int]:
                                   item)
         out[arm or "all"] = n
     return out
+
+
+def _sheet(sheet: str | None) -> str | int:
+    """An .xlsx worksheet by name, or by position when given as a whole number (default the first)."""
+    if sheet is None:
+        return 0
+    return int(sheet) if sheet.isdigit() else sheet
 
 
 def _fit(args: argparse.Namespace, out: TextIO) -> int:
@@ -67,9 +75,18 @@ def _fit(args: argparse.Namespace, out: TextIO) -> int:
                 out.write(f"{args.curves} [{arm}]: {note}\n")
         data, source = rec.data, args.curves
         out.write(f"Reconstructed {data.n} patients, {data.n_events} events (Guyot et al. 2012).\n")
+        if args.write_patients:
+            table = pd.DataFrame({"time": data.time, "event": data.event.astype(int)})
+            if data.group is not None:
+                table.insert(0, "arm", data.group)
+            write_text_atomic(args.write_patients, table.to_csv(index=False), force=args.force)
+            out.write(f"Reconstructed patients written to {args.write_patients}\n")
     elif args.data:
+        if args.write_patients:
+            raise ValidationError(("--write-patients",), "writes reconstructed patients: it needs --curves and "
+                                  "--at-risk", args.write_patients)
         data = read_survival_data(args.data, time=args.time, event=args.event, entry=args.entry, group=args.group,
-                                  unit=args.unit)
+                                  unit=args.unit, sheet=_sheet(args.sheet))
         source = args.data
     else:
         raise ValidationError(("DATA",), "give a patient-level data file or --curves and --at-risk")
@@ -108,6 +125,7 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--event", default="event", help="event indicator column, 1 event / 0 censored (default 'event')")
     p.add_argument("--entry", help="delayed-entry time column (left truncation)")
     p.add_argument("--group", help="arm column (two arms: a hazard ratio or acceleration factor)")
+    p.add_argument("--sheet", help="worksheet of an .xlsx file (name, or position from 0; default the first)")
     p.add_argument("--unit", default="years", choices=tuple(UNIT_IN_YEARS), help="time unit of the data")
     p.add_argument("--families", nargs="+", default=list(DEFAULT_FAMILIES), choices=FAMILY_NAMES, metavar="FAMILY",
                    help=f"families to fit (default: {' '.join(DEFAULT_FAMILIES)}; also piecewise, spline)")
@@ -115,6 +133,7 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--knots", nargs="+", type=int, metavar="M", help="Royston-Parmar splines with M interior knots")
     p.add_argument("--curves", metavar="KM.csv", help="digitised Kaplan-Meier points: time, survival[, arm]")
     p.add_argument("--at-risk", metavar="RISK.csv", help="numbers at risk: time, at_risk[, arm]")
+    p.add_argument("--write-patients", metavar="PATIENTS.csv", help="also write the reconstructed patients")
     p.add_argument("--total-events", nargs="+", metavar="ARM=N", help="reported total events per arm")
     p.add_argument("--criterion", choices=("aic", "bic"), default="aic", help="how [chosen] is chosen")
     p.add_argument("--output", metavar="FRAGMENT.toml", help="write the fits as a scenario fragment")

@@ -121,10 +121,26 @@ def test_cli_fit_bad_input_exit_2_one_line(tmp_path, capsys):
 def test_cli_fit_from_curves(tmp_path, capsys):
     (tmp_path / "km.csv").write_text("time,survival\n0,1\n2,0.9\n4,0.75\n6,0.62\n8,0.5\n10,0.41\n12,0.35\n")
     (tmp_path / "risk.csv").write_text("time,at_risk\n0,120\n4,85\n8,55\n12,30\n")
+    patients = tmp_path / "patients.csv"
     code, text = _run(["fit", "--curves", str(tmp_path / "km.csv"), "--at-risk", str(tmp_path / "risk.csv"),
-                       "--unit", "months", "--families", "exponential", "weibull", "--total-events", "60"])
+                       "--unit", "months", "--families", "exponential", "weibull", "--total-events", "60",
+                       "--write-patients", str(patients)])
     assert code == 0, capsys.readouterr().err
     assert "Reconstructed 120 patients" in text and "weibull" in text
+    written = pd.read_csv(patients)
+    assert list(written.columns) == ["time", "event"] and len(written) == 120
+    assert f"{written['event'].sum()} events" in text
+
+
+def test_cli_fit_reads_a_named_worksheet(tmp_path, capsys):
+    path = tmp_path / "trial.xlsx"
+    with pd.ExcelWriter(path) as xl:
+        pd.DataFrame({"note": ["invented"]}).to_excel(xl, sheet_name="about", index=False)
+        _frame().to_excel(xl, sheet_name="patients", index=False)
+    code, text = _run(["fit", str(path), "--sheet", "patients", "--time", "months", "--event", "death",
+                       "--families", "exponential"])
+    assert code == 0, capsys.readouterr().err
+    assert "60 patients" in text
 
 
 # ---- background mortality -------------------------------------------------------------------------------
