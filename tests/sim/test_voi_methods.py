@@ -19,7 +19,7 @@ from sim.uncertainty import (acceptability_curve, compare_acceptability, compare
                              per_method)
 
 M_E, S_E, M_C, S_C, DELTA = 0.4, 0.3, 8000.0, 4000.0, 2500.0
-N = 20_000
+N = 10_000
 GRID = np.linspace(0, 60_000, 31)
 
 
