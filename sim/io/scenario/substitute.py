@@ -31,10 +31,19 @@ __all__ = ["model_with_values", "point_values", "scenario_document"]
 
 
 @functools.lru_cache(maxsize=16)
-def _text_document(text: str, file: str | None, fills: tuple) -> tuple[dict, dict[str, Parameter]]:
+def _text_document(text: str, specs: tuple) -> tuple[dict, dict[str, Parameter]]:
+    """The document of ``text`` with the means of ``specs`` filled in where the file gives no value
+    (as the reader did), and its parameters by key."""
     doc = tomlkit.parse(text).unwrap()
+    fills = {}
+    for spec in specs:
+        for key, mean in spec.means().items():
+            path = parse_key(key)
+            value = _get(doc, path) if path is not None else None
+            if path is not None and (isinstance(value, bool) or not isinstance(value, (int, float))):
+                fills[path] = mean
     if fills:
-        doc = with_values(doc, dict(fills))
+        doc = with_values(doc, fills)
     return doc, {p.key: p for p in parameters(doc)}
 
 
@@ -42,22 +51,6 @@ def _text_document(text: str, file: str | None, fills: tuple) -> tuple[dict, dic
 def _model_document(model: Model) -> tuple[dict, dict[str, Parameter]]:
     doc = document_from_model(model)
     return doc, {p.key: p for p in parameters(doc)}
-
-
-def _fills(scenario: Scenario) -> tuple:
-    """The point values the reader filled in from distributions' means (parameters the file gives
-    only by a distribution)."""
-    if not scenario.uncertainty:
-        return ()
-    doc = tomlkit.parse(scenario.text).unwrap() if scenario.text else {}
-    out = []
-    for spec in scenario.uncertainty:
-        for key, mean in spec.means().items():
-            path = parse_key(key)
-            value = _get(doc, path) if path is not None else None
-            if path is not None and (isinstance(value, bool) or not isinstance(value, (int, float))):
-                out.append((path, mean))
-    return tuple(out)
 
 
 def scenario_document(source: Scenario | Model) -> tuple[dict, dict[str, Parameter]]:
@@ -68,7 +61,7 @@ def scenario_document(source: Scenario | Model) -> tuple[dict, dict[str, Paramet
     if isinstance(source, Scenario):
         if not source.text:
             return _model_document(source.model)
-        return _text_document(source.text, str(source.path) if source.path else None, _fills(source))
+        return _text_document(source.text, tuple(source.uncertainty))
     if isinstance(source, Model):
         return _model_document(source)
     raise TypeError(f"expected a Scenario or a Model, got {type(source).__name__}")

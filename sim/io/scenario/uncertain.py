@@ -21,7 +21,7 @@ without the section.
 
 from __future__ import annotations
 
-import copy
+import functools
 import math
 import re
 from typing import Any, Mapping
@@ -44,6 +44,7 @@ _NATIVE = {"beta": Beta, "gamma": Gamma, "lognormal": LogNormal, "uniform": Unif
 _TOKEN = re.compile(r'\s*(?:(?P<bare>[A-Za-z0-9_-]+)|"(?P<quoted>(?:[^"\\]|\\.)*)"|\[(?P<index>\d+)\])\s*')
 
 
+@functools.lru_cache(maxsize=4096)
 def parse_key(text: str) -> KeyPath | None:
     """``'strategies[1].hazard_ratios."disease death"'`` -> ``("strategies", 1, "hazard_ratios",
     "disease death")``: the inverse of :func:`sim.problems.format_key`; ``None`` if not a key."""
@@ -341,21 +342,20 @@ def read_uncertainty(ck: Checker, doc: Mapping) -> tuple[list[UncertainInput], d
 
 
 def with_values(doc: Mapping, values: Mapping[KeyPath, float]) -> dict:
-    """A copy of ``doc`` with ``values`` set at their key paths (missing tables created); only the
-    top-level sections that change are copied."""
+    """A copy of ``doc`` with ``values`` set at their key paths (missing tables created). Only the
+    tables and arrays on the paths are copied (shallowly); everything else is shared with ``doc``."""
     out = dict(doc)
-    copied: set[str] = set()
+    fresh: set[int] = {id(out)}  # containers already copied for this call
     for path, value in values.items():
-        top = path[0]
-        if top not in copied:
-            out[top] = copy.deepcopy(out.get(top, {}))
-            copied.add(top)
-        node = out
+        node: Any = out
         for key in path[:-1]:
             nxt = node[key] if isinstance(key, int) else node.get(key)
-            if nxt is None or not isinstance(nxt, (Mapping, list)):
+            if not isinstance(nxt, (Mapping, list)):
                 nxt = {}
-                node[key] = nxt
+            elif id(nxt) not in fresh:
+                nxt = list(nxt) if isinstance(nxt, list) else dict(nxt)
+            fresh.add(id(nxt))
+            node[key] = nxt
             node = nxt
         node[path[-1]] = float(value)
     return out
