@@ -126,6 +126,8 @@ def _evppi_samples(fits: IncrementalFits, grid: np.ndarray, n_samples: int, seed
     """EVPPI (W, S) recomputed with the fitted values perturbed by their own regression error."""
     base = fits.strategies.index(fits.baseline)
     keys = [(j, o) for j in range(len(fits.strategies)) if j != base for o in ("delta_costs", "delta_effects")]
+    if not keys:  # one strategy: nothing to decide, EVPPI is 0 in every sample
+        return np.zeros((len(grid), n_samples))
     data = {"delta_costs": (fits.delta_costs, fits.fitted_costs), "delta_effects": (fits.delta_effects, fits.fitted_effects)}
     resid = np.column_stack([data[o][0][:, j] - data[o][1][:, j] for j, o in keys])
     n = resid.shape[0]

@@ -182,3 +182,12 @@ def test_evppi_standard_error_matches_the_spread_over_repeated_regression_noise(
     with pytest.raises(ValidationError) as err:
         evppi_from_fits(fit_incremental_means(table, params, ["x"]), [0.0], se_samples=1)
     assert err.value.problem.path == ("se_samples",)
+
+
+def test_a_single_strategy_has_no_value_of_information():
+    # With one strategy there is no decision: EVPI = EVPPI = 0 (definition).
+    n = 100
+    rng = np.random.default_rng(21)
+    table = per_draw({"only": (rng.normal(size=n), rng.normal(size=n))})
+    out = evppi(table, pd.DataFrame({"x": rng.normal(size=n)}), ["x"], [0.0, 1.0])
+    assert (out[["evppi", "evppi_se", "evpi"]] == 0).all().all()
