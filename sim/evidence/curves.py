@@ -30,7 +30,7 @@ __all__ = ["CleanCurve", "clean_curve", "read_curves", "read_at_risk", "Reconstr
 SINGLE_ARM = "all"
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)  # holds arrays: compared by identity
 class CleanCurve:
     """Digitised points after cleaning, and what was changed (one line each)."""
 
@@ -194,7 +194,7 @@ def read_at_risk(path: str | Path, *, time: str = "time", at_risk: str = "at_ris
     return out
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)  # holds arrays: compared by identity
 class Reconstruction:
     """Reconstructed patient-level data with the cleaned curves and every change and note per arm."""
 

@@ -37,7 +37,7 @@ def _unit(unit: str) -> str:
     return unit
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)  # holds arrays: compared by identity
 class SurvivalData:
     """Right-censored, possibly left-truncated survival times of one or more arms.
 
@@ -169,6 +169,8 @@ def _from_frame(frame: pd.DataFrame, time: str, event: str, entry: str | None, g
             if not ev[g == label].any():
                 raise SurvivalDataError.of([Problem((group,), f"arm {label!r} has no events (1 in column "
                                                     f"{event!r}): no hazard can be fitted to it", label, source)])
+    for arr in (t, ev, s) + ((g,) if g is not None else ()):
+        arr.setflags(write=False)
     return SurvivalData(t, ev, s, g, unit, source)
 
 

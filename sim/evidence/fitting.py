@@ -55,7 +55,7 @@ class Effect:
     log_se: float
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)  # holds arrays: compared by identity
 class Fit:
     """One fitted family.
 

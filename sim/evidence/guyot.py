@@ -28,7 +28,7 @@ MAX_ADJUSTMENTS = 10_000
 """Bound on the iterations that adjust the censorings of one interval."""
 
 
-@dataclass(frozen=True)
+@dataclass(frozen=True, eq=False)  # holds arrays: compared by identity
 class GuyotResult:
     """Reconstructed patients of one arm and the per-point bookkeeping.
 
