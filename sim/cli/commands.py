@@ -41,6 +41,7 @@ __all__ = ["main", "describe"]
 # Add one line per verb module; errors follow ``main``'s exit codes.
 VERB_MODULES: tuple = ()
 from .fit import register as _register_fit; VERB_MODULES += (_register_fit,)  # noqa: E402,E702  hazardtrace fit
+from .psa import register as _register_psa; VERB_MODULES += (_register_psa,)  # noqa: E402,E702  hazardtrace psa
 from .report import register as _register_report; VERB_MODULES += (_register_report,)  # noqa: E402,E702  hazardtrace report
 from .rerun import register as _register_rerun; VERB_MODULES += (_register_rerun,)  # noqa: E402,E702  hazardtrace rerun
 

@@ -9,6 +9,7 @@ from .dask_runner import PsaResult, SchedulerError, run_jobs, run_psa
 from .draws_run import models_for_draws, simulated_per_draw, simulated_vectorised
 from .exact_draws import constant_intensities, exact_constant_draws, exact_per_draw
 from .output import write_psa
+from .summaries import psa_summaries, reference_method, wtp_grid_for
 from .tables import DRAW_COLUMNS, EXACT, SIMULATED, cycle_label, sort_draw_table, table_hash
 
 __all__: list[str] = [
@@ -22,5 +23,5 @@ __all__ += [
     "CycleMethod", "cycle_methods", "cycle_per_draw", "PsaResult", "SchedulerError", "run_jobs", "run_psa",
     "models_for_draws", "simulated_per_draw", "simulated_vectorised", "constant_intensities",
     "exact_constant_draws", "exact_per_draw", "write_psa", "DRAW_COLUMNS", "EXACT", "SIMULATED", "cycle_label",
-    "sort_draw_table", "table_hash",
+    "sort_draw_table", "table_hash", "psa_summaries", "reference_method", "wtp_grid_for",
 ]
