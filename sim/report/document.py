@@ -118,7 +118,8 @@ def _outcomes_section(inputs: ReportInputs) -> str:
     nums, shown = outcome_table(inputs.outcomes, sc)
     numeric = [c for c in shown.columns if c in ("mean", "mcse", "exact", "z", "n")]
     exact = (" Exact: the Kolmogorov forward equations, averaged over entry ages and sexes; z = (mean − exact) / "
-             "MCSE." if "exact" in nums.columns else f" {inputs.exact_note}." if inputs.exact_note else "")
+             "MCSE." if "exact" in nums.columns else f" {inputs.exact_note[:1].upper()}{inputs.exact_note[1:]}."
+             if inputs.exact_note else "")
     body = _p("Simulated means per patient with their Monte Carlo standard errors (MCSE); each mean is shown to "
               "the second significant digit of its MCSE." + exact)
     body = _keep(body + _table(shown, numeric, cls="outcomes"))
