@@ -80,13 +80,27 @@ def test_delayed_entry_agrees_with_lifelines(rossi, delayed, family, fitter, con
     np.testing.assert_allclose(ours.loglik, ref.log_likelihood_, rtol=RTOL)
 
 
-def test_standard_errors_agree_with_lifelines(rossi, rossi_data):
-    """Delta-method standard errors of (shape, scale) vs lifelines' (rho_, lambda_) (both from the
-    observed information; finite differences here, automatic differentiation there: 1e-3)."""
-    ours = fit_family(rossi_data, "weibull")
-    ref = WeibullFitter().fit(rossi.week, rossi.arrest)
-    np.testing.assert_allclose(ours.standard_errors, [ref.summary.loc["rho_", "se(coef)"],
-                                                      ref.summary.loc["lambda_", "se(coef)"]], rtol=1e-3)
+@pytest.mark.parametrize("family, fitter, names", [
+    ("weibull", WeibullFitter, ["rho_", "lambda_"]),
+    ("loglogistic", LogLogisticFitter, ["beta_", "alpha_"]),
+    ("lognormal", LogNormalFitter, ["mu_", "sigma_"]),
+])
+def test_standard_errors_agree_with_lifelines(rossi, rossi_data, family, fitter, names):
+    """Delta-method standard errors vs lifelines' (both from the observed information; finite
+    differences here, automatic differentiation there: 1e-3); the parameters map one to one."""
+    ours = fit_family(rossi_data, family)
+    ref = fitter().fit(rossi.week, rossi.arrest)
+    np.testing.assert_allclose(ours.standard_errors, ref.summary.loc[names, "se(coef)"].to_numpy(), rtol=1e-3)
+
+
+def test_exponential_standard_error_by_the_delta_method(rossi, rossi_data):
+    """lifelines reports lambda_ = 1/rate: se(1/rate) = se(rate) / rate^2 (delta method)."""
+    ours = fit_family(rossi_data, "exponential")
+    ref = ExponentialFitter().fit(rossi.week, rossi.arrest)
+    rate, se = ours.estimates[0], ours.standard_errors[0]
+    np.testing.assert_allclose(se / rate**2, ref.summary.loc["lambda_", "se(coef)"], rtol=1e-3)
+    # observed information d / rate^2 at the maximum, so se = rate / sqrt(d) (closed form; common practice)
+    np.testing.assert_allclose(se, rate / math.sqrt(rossi_data.n_events), rtol=1e-6)
 
 
 def test_piecewise_agrees_with_lifelines(rossi, rossi_data, delayed):
