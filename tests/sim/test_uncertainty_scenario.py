@@ -231,17 +231,32 @@ def test_normal_truncated_at_zero_is_accepted_on_a_rate() -> None:
     assert isinstance(d, Normal) and d.low == 0.0 and np.isinf(d.high)
 
 
-def test_check_on_the_command_line(tmp_path: Path) -> None:
+def test_check_describes_the_uncertain_inputs_and_refuses_bad_ones(tmp_path: Path, capsys) -> None:
     import io
 
     from sim.cli.commands import main
+    from sim.report import describe as describe_model
     out = io.StringIO()
     assert main(["check", str(DEMO)], out=out) == 0
+    text = out.getvalue()
+    assert "Uncertain inputs (17 parameters; draws reproducible from seed 14):" in text
+    assert "valuation.utilities.well: beta(alpha=270.087, beta=47.6625) (method of moments from mean 0.85, " \
+           "se 0.02)" in text
+    assert "no point value in the file: the deterministic run uses the mean" in text
+    # without [[uncertainty]]: the model's description and nothing else
+    for name in DEMOS:
+        out = io.StringIO()
+        assert main(["check", str(SCENARIO_DIR / DEMOS[name])], out=out) == 0
+        assert out.getvalue() == describe_model(load_scenario(SCENARIO_DIR / DEMOS[name])) + \
+            "\n\nThe scenario is valid.\n"
     bad = tmp_path / "bad.toml"
-    bad.write_text(_with(BAD[0][0] and "[[uncertainty]]\n" + BAD[0][0]), encoding="utf-8")
-    err = io.StringIO()
-    code = main(["check", str(bad)], out=err)
-    assert code == 2
+    text = _with("[[uncertainty]]\n" + BAD[0][0])
+    bad.write_text(text, encoding="utf-8")
+    out = io.StringIO()
+    assert main(["check", str(bad)], out=out) == 2
+    line = _line(text, "se = 0.4")
+    shown = out.getvalue() + capsys.readouterr().err
+    assert f"{bad}:{line}: uncertainty[0].se: must be < sqrt(mean (1 - mean)) = 0.347" in shown
 
 
 def test_renaming_a_state_or_transition_renames_it_in_parameter_names() -> None:
