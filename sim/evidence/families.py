@@ -18,6 +18,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from ..hazards import Exponential, Gamma, Gompertz, LogLogistic, LogNormal, PiecewiseConstant, Weibull
+from ..model.checks import number
 from ..problems import ValidationError
 from .data import SurvivalData
 from .gengamma import GeneralizedGamma
@@ -116,9 +117,7 @@ def check_breaks(breaks: Sequence[float], data: SurvivalData | None = None) -> t
     start when missing. With ``data``, every band must start before the last exit time."""
     out: list[float] = []
     for i, b in enumerate(breaks):
-        if isinstance(b, bool) or not isinstance(b, (int, float, np.integer, np.floating)) or not math.isfinite(b) \
-                or b < 0:
-            raise ValidationError(("breaks", i), "must be a finite number >= 0", b)
+        b = number(("breaks", i), b, minimum=0.0)
         if out and not b > out[-1]:
             raise ValidationError(("breaks", i), f"must be greater than the previous break {out[-1]!r}", b)
         out.append(float(b))
