@@ -77,7 +77,8 @@ def describe_uncertainty(scenario: Scenario) -> list[str]:
         fitted = ""
         if u.fitted_from:
             given = ", ".join(f"{k} {_num(v) if isinstance(v, float) else v}" for k, v in u.fitted_from.items())
-            fitted = f" (method of moments from {given})"
+            moments = set(u.fitted_from) in ({"mean", "se"}, {"mean", "sample_size"})
+            fitted = f" ({'method of moments from' if moments else 'from'} {given})"
         lines.append(f"  {head}: {d.describe()}{fitted}")
         for key, mean, (lo, hi) in zip(u.keys, u.means().values(), u.intervals().values()):
             where = "" if u.univariate else f"    {key}: "

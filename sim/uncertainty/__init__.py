@@ -6,7 +6,7 @@ from .distributions import (Beta, Distribution, DistributionError, Gamma, LogNor
                             Univariate)
 from .groups import TRANSFORMS, Dirichlet, Group, MultivariateNormal
 from .moments import (MOMENT_FITS, beta_from_mean_se, dirichlet_from_shares, gamma_from_mean_se,
-                      lognormal_from_mean_se, normal_from_mean_se)
+                      lognormal_from_interval, lognormal_from_mean_se, mvn_from_correlation, normal_from_mean_se)
 from .sampling import UncertainInput, draw_table, group_uniforms
 
 __all__: list[str] = [
@@ -14,7 +14,7 @@ __all__: list[str] = [
     "Distribution", "Univariate", "Group", "Beta", "Gamma", "LogNormal", "Normal", "Uniform", "Triangular",
     "Dirichlet", "MultivariateNormal", "TRANSFORMS", "DistributionError", "MOMENT_FITS", "beta_from_mean_se",
     "gamma_from_mean_se", "lognormal_from_mean_se", "normal_from_mean_se", "dirichlet_from_shares",
-    "UncertainInput", "draw_table", "group_uniforms",
+    "UncertainInput", "draw_table", "group_uniforms", "lognormal_from_interval", "mvn_from_correlation",
 ]
 
 # decision uncertainty and the value of information, from per-draw tables (one row per draw and strategy)

@@ -16,8 +16,8 @@ from scipy import stats
 from sim.problems import ValidationError
 from sim.uncertainty import (Beta, Dirichlet, DistributionError, Gamma, LogNormal, MultivariateNormal, Normal,
                              Triangular, UncertainInput, Uniform, beta_from_mean_se, dirichlet_from_shares,
-                             draw_table, gamma_from_mean_se, group_uniforms, lognormal_from_mean_se,
-                             normal_from_mean_se)
+                             draw_table, gamma_from_mean_se, group_uniforms, lognormal_from_interval,
+                             lognormal_from_mean_se, mvn_from_correlation, normal_from_mean_se)
 
 # each family with scipy.stats' frozen equivalent (parameterisations in sim/uncertainty/distributions.py)
 CASES = [
@@ -102,12 +102,37 @@ def test_method_of_moments_beta_worked_example() -> None:
     (lambda: MultivariateNormal((0.0, 0.0), ((1.0, 0.5), (0.4, 1.0))), ("covariance", 0, 1), "symmetric"),
     (lambda: MultivariateNormal((0.0, 0.0), ((1.0, 0.0), (0.0, 1.0)), ("log", "exp")), ("transform", 1), "one of"),
     (lambda: MultivariateNormal((0.0, 0.0), ((1.0, 0.0, 0.0), (0.0, 1.0, 0.0))), ("covariance",), "2 x 2"),
+    (lambda: lognormal_from_interval([0.9, 0.5]), ("interval", 1), "> the interval's low end"),
+    (lambda: lognormal_from_interval([0.0, 0.5]), ("interval", 0), "> 0"),
+    (lambda: mvn_from_correlation([0, 0], [1, 1], [[1, 0.5], [0.5, 0.9]]), ("correlation", 1, 1), "unit diagonal"),
+    (lambda: mvn_from_correlation([0, 0], [1, 1], [[1, 1.5], [1.5, 1]]), ("correlation", 0, 1), "between -1 and 1"),
+    (lambda: mvn_from_correlation([0, 0, 0], [1, 1, 1], [[1, 0.9, -0.9], [0.9, 1, 0.9], [-0.9, 0.9, 1]]),
+     ("correlation",), "positive semi-definite"),
+    (lambda: mvn_from_correlation([0, 0], [1], [[1, 0], [0, 1]]), ("se",), "2 standard errors"),
 ])
 def test_impossible_parameters_name_the_key_the_value_and_the_rule(call, key, words) -> None:
     with pytest.raises(DistributionError) as err:
         call()
     problem = err.value.problem
     assert problem.path == key and words in problem.rule and problem.has_value
+
+
+def test_log_normal_from_a_95_percent_interval_reproduces_it() -> None:
+    # a hazard ratio 0.70 (0.55 to 0.89) read as symmetric on the log scale (common practice, no
+    # source): scipy.stats.lognorm's 95% interval of the fit is the stated one, its median sqrt(l h)
+    d = lognormal_from_interval([0.55, 0.89])
+    ref = stats.lognorm(d.sigma, scale=math.exp(d.mu))
+    np.testing.assert_allclose(ref.interval(0.95), (0.55, 0.89), rtol=1e-12)
+    assert ref.median() == pytest.approx(math.sqrt(0.55 * 0.89), rel=1e-12)
+
+
+def test_multivariate_normal_from_standard_errors_and_a_correlation_matrix() -> None:
+    se, r = np.array([0.06, 0.1, 0.2]), np.array([[1.0, -0.3, 0.1], [-0.3, 1.0, 0.0], [0.1, 0.0, 1.0]])
+    d = mvn_from_correlation([0.26, 3.4, 0.0], se, r.tolist(), ("log", "log", "identity"))
+    cov = np.array(d.covariance)
+    np.testing.assert_allclose(cov, r * np.outer(se, se), rtol=1e-15)
+    np.testing.assert_allclose(np.sqrt(np.diag(cov)), se, rtol=1e-15)  # the stated standard errors
+    assert d.transforms == ("log", "log", "identity")
 
 
 def test_dirichlet_marginals_are_betas_and_match_scipy() -> None:

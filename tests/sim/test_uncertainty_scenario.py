@@ -187,6 +187,33 @@ def test_bad_input_names_the_key_the_value_the_rule_and_the_line(entry, key, wor
     assert f"scen.toml:{problem.line}: uncertainty[0]" in str(err.value)
 
 
+def test_a_correlated_group_by_standard_errors_and_a_hazard_ratio_by_its_interval() -> None:
+    text = _with("""
+[[uncertainty]]
+parameters = ["transitions[0].shape", "transitions[0].scale"]
+distribution = "multivariate_normal"
+mean = [0.262, 3.4]
+se = [0.06, 0.1]
+correlation = [[1.0, -0.3], [-0.3, 1.0]]
+transform = ["log", "log"]
+
+[[uncertainty]]
+parameter = "strategies[1].hazard_ratios.onset"
+distribution = "lognormal"
+interval = [0.55, 0.89]
+""")
+    s = parse_scenario(text)
+    mvn, hr = (u.distribution for u in s.uncertainty)
+    np.testing.assert_allclose(np.array(mvn.covariance), [[0.0036, -0.0018], [-0.0018, 0.01]], rtol=1e-14)
+    assert hr.interval() == pytest.approx((0.55, 0.89), rel=1e-12)
+    again = parse_scenario(scenario_text(document_from_model(s.model, s.run, uncertainty=s.uncertainty)))
+    assert again.uncertainty == s.uncertainty
+    with pytest.raises(ScenarioError) as err:
+        parse_scenario(text.replace("[-0.3, 1.0]]", "[-0.3, 0.9]]"), "scen.toml")
+    assert err.value.problem.path == ("uncertainty", 0, "correlation", 1, 1)
+    assert err.value.problem.line == _line(text, "correlation = ")
+
+
 def test_a_parameter_named_by_two_entries_and_every_problem_at_once() -> None:
     entry = '[[uncertainty]]\nparameter = "valuation.utilities.well"\ndistribution = "beta"\nalpha = 5\nbeta = 5\n'
     bad = '[[uncertainty]]\nparameter = "nothing"\ndistribution = "beta"\nalpha = 5\nbeta = 5\n'

@@ -245,12 +245,12 @@ _MEAN_SE = {"mean": _ANY, "se": _POSITIVE}
 UNCERTAINTY_FORMS: Mapping[str, tuple[tuple[str, ...], ...]] = MappingProxyType({
     "beta": (("alpha", "beta"), ("mean", "se")),
     "gamma": (("shape", "scale"), ("mean", "se")),
-    "lognormal": (("mu", "sigma"), ("mean", "se")),
+    "lognormal": (("mu", "sigma"), ("mean", "se"), ("interval",)),
     "normal": (("mean", "sd"), ("mean", "se")),
     "uniform": (("low", "high"),),
     "triangular": (("low", "mode", "high"),),
     "dirichlet": (("alpha",), ("mean", "sample_size")),
-    "multivariate_normal": (("mean", "covariance"),),
+    "multivariate_normal": (("mean", "covariance"), ("mean", "se", "correlation")),
 })
 """For each ``[[uncertainty]]`` distribution, the ways of giving it (exactly one is given): its own
 parameters, or ``mean`` and ``se`` fitted by the method of moments (see :mod:`sim.uncertainty`)."""
@@ -258,7 +258,8 @@ _UNCERTAINTY = Items(doc="uncertain inputs: a distribution on a parameter or a g
     tag="distribution", inline=False, variants={
         "beta": {**_ONE, "alpha": _POSITIVE, "beta": _POSITIVE, **_MEAN_SE},
         "gamma": {**_ONE, "shape": _POSITIVE, "scale": _POSITIVE, **_MEAN_SE},
-        "lognormal": {**_ONE, "mu": _ANY, "sigma": _POSITIVE, **_MEAN_SE},
+        "lognormal": {**_ONE, "mu": _ANY, "sigma": _POSITIVE, **_MEAN_SE,
+                      "interval": Numbers(length=2, element=_POSITIVE, doc="a 95% interval [low, high]")},
         "normal": {**_ONE, "mean": Number(required=True, parameter=False), "sd": _POSITIVE, "se": _POSITIVE,
                    "low": _ANY, "high": _ANY},
         "uniform": {**_ONE, "low": Number(required=True, parameter=False),
@@ -269,7 +270,9 @@ _UNCERTAINTY = Items(doc="uncertain inputs: a distribution on a parameter or a g
         "dirichlet": {**_GROUP, "alpha": Numbers(element=_POSITIVE), "mean": Numbers(element=_POSITIVE),
                       "sample_size": _POSITIVE},
         "multivariate_normal": {**_GROUP, "mean": Numbers(required=True, element=_ANY),
-                                "covariance": Matrix(required=True, doc="on the estimation scale"),
+                                "covariance": Matrix(doc="on the estimation scale"),
+                                "se": Numbers(element=_POSITIVE, doc="standard errors on the estimation scale"),
+                                "correlation": Matrix(doc="correlation matrix (with se, instead of covariance)"),
                                 "transform": Texts(choices=TRANSFORMS,
                                                    doc="estimation scale of each parameter (default identity)")},
     }))

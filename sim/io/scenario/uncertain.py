@@ -30,7 +30,8 @@ from ...hazards import FAMILY_DIMENSIONS, make_hazard
 from ...model.checks import is_number
 from ...problems import KeyPath, ValidationError, format_key
 from ...uncertainty import (MOMENT_FITS, Beta, Dirichlet, Gamma, LogNormal, MultivariateNormal, Normal, Triangular,
-                            UncertainInput, Uniform, Univariate, dirichlet_from_shares)
+                            UncertainInput, Uniform, Univariate, dirichlet_from_shares, lognormal_from_interval,
+                            mvn_from_correlation)
 from .checking import Checker, Invalid
 from .schema import SCHEMA, UNCERTAINTY_FORMS, HazardTable, Number, Ref, StateOrShares, Text, node_at
 
@@ -215,7 +216,12 @@ def _distribution(ck: Checker, dist: str, v: Mapping, p: KeyPath, raw: Mapping) 
             return dirichlet_from_shares(v["mean"], v["sample_size"]), {"mean": list(v["mean"]),
                                                                         "sample_size": v["sample_size"]}
         if dist == "multivariate_normal":
-            return MultivariateNormal(v["mean"], v["covariance"], v.get("transform", ())), {}
+            if form == ("mean", "covariance"):
+                return MultivariateNormal(v["mean"], v["covariance"], v.get("transform", ())), {}
+            fitted = {k: _listed(v[k]) for k in ("mean", "se", "correlation", "transform") if k in v}
+            return mvn_from_correlation(v["mean"], v["se"], v["correlation"], v.get("transform", ())), fitted
+        if form == ("interval",):
+            return lognormal_from_interval(v["interval"]), {"interval": list(v["interval"])}
         if form == ("mean", "se"):
             return MOMENT_FITS[dist](v["mean"], v["se"]), {"mean": v["mean"], "se": v["se"]}
         return _NATIVE[dist](*[v[k] for k in form]), {}
@@ -224,6 +230,11 @@ def _distribution(ck: Checker, dist: str, v: Mapping, p: KeyPath, raw: Mapping) 
             written = _get(raw, problem.path)
             ck.add((*p, *problem.path), problem.rule, problem.value if written is None else written)
         raise Invalid from None
+
+
+def _listed(value: Any) -> Any:
+    """Tuples (as the checker returns lists) back to lists, as the file writes them."""
+    return [_listed(x) for x in value] if isinstance(value, (tuple, list)) else value
 
 
 def _entry(ck: Checker, doc: Mapping, i: int, raw: Any) -> UncertainInput:
