@@ -18,7 +18,8 @@ import pandas as pd
 from ..hazards import UNIT_IN_YEARS
 from ..io.atomic import write_text_atomic
 from ..problems import ValidationError
-from ..evidence import (FAMILY_NAMES, choose_fit, fit_families, fit_table, read_at_risk, read_curves,
+from ..io import load_scenario
+from ..evidence import (FAMILY_NAMES, below_background, choose_fit, fit_families, fit_table, read_at_risk, read_curves,
                         read_survival_data, reconstruct, write_fragment)
 
 __all__ = ["register"]
@@ -106,6 +107,8 @@ def _fit(args: argparse.Namespace, out: TextIO) -> int:
     if chosen is not None:
         out.write(f"\nLowest {args.criterion.upper()} among scenario families: {chosen.family} "
                   f"({', '.join(f'{k} = {v}' for k, v in chosen.parameters.items())}; unit {chosen.unit})\n")
+    if args.background:
+        _background_report(fits, args, out)
     if args.output:
         if chosen is None:
             raise ValidationError(("--families",), f"no fit of a scenario hazard family converged; nothing was "
@@ -113,6 +116,31 @@ def _fit(args: argparse.Namespace, out: TextIO) -> int:
         write_fragment(args.output, fits, source=source, criterion=args.criterion, force=args.force)
         out.write(f"Scenario fragment written to {args.output}\n")
     return 0
+
+
+def _background_report(fits: list, args: argparse.Namespace, out: TextIO) -> None:
+    """Where each converged fit falls below the background mortality of ``--background SCENARIO`` at
+    attained age ``--entry-age`` + t, over ``--horizon`` years (default: the scenario's horizon)."""
+    if args.entry_age is None:
+        raise ValidationError(("--entry-age",), "is required with --background (attained age at time 0, years)")
+    scenario = load_scenario(args.background)
+    model = scenario.model
+    if model.background is None:
+        raise ValidationError(("--background",), "the scenario has no [background] mortality", args.background)
+    horizon = args.horizon
+    if horizon is None:
+        horizon = model.horizon.value - (args.entry_age if model.horizon.scale == "age" else 0.0)
+    if not horizon > 0:
+        raise ValidationError(("--horizon",), "must be > 0 years (give --horizon, or an entry age below the "
+                              "scenario's horizon age)", horizon)
+    out.write(f"\nFitted hazards against the background mortality of {args.background} (entry age "
+              f"{args.entry_age:g}, {horizon:g} years):\n")
+    for fit in fits:
+        if not fit.converged:
+            continue
+        for found in below_background(fit.hazard(), model.background, entry_age=args.entry_age, horizon=horizon,
+                                      unit=fit.unit):
+            out.write(f"  {fit.label}: {found.describe()}\n")
 
 
 def register(sub: argparse._SubParsersAction) -> None:
@@ -135,6 +163,11 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--at-risk", metavar="RISK.csv", help="numbers at risk: time, at_risk[, arm]")
     p.add_argument("--write-patients", metavar="PATIENTS.csv", help="also write the reconstructed patients")
     p.add_argument("--total-events", nargs="+", metavar="ARM=N", help="reported total events per arm")
+    p.add_argument("--background", metavar="SCENARIO.toml", help="show where each fit falls below this scenario's "
+                   "background mortality at attained age (needs --entry-age)")
+    p.add_argument("--entry-age", type=float, metavar="AGE", help="attained age (years) at time 0, for --background")
+    p.add_argument("--horizon", type=float, metavar="YEARS", help="years examined with --background (default: the "
+                   "scenario's horizon)")
     p.add_argument("--criterion", choices=("aic", "bic"), default="aic", help="how [chosen] is chosen")
     p.add_argument("--output", metavar="FRAGMENT.toml", help="write the fits as a scenario fragment")
     p.add_argument("--force", action="store_true", help="replace an existing fragment file")

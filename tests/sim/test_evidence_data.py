@@ -7,6 +7,7 @@ from __future__ import annotations
 
 import io
 import math
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -164,3 +165,24 @@ def test_below_background_per_sex_and_never():
         assert res[sex].first == pytest.approx(math.log(0.05 / b) / 0.09 - 50.0, abs=1e-8)
     (never,) = below_background(Exponential(rate=1.0), Gompertz(rate=3e-5, shape=0.09), entry_age=50.0, horizon=30.0)
     assert never.intervals == () and never.first is None
+
+
+def test_cli_fit_shows_where_fits_fall_below_background(tmp_path, capsys):
+    """Exponential data (invented: rate 0.02 a year) against the lanthic demo's Gompertz background
+    (female 3e-5 e^{0.085 a}, male 5e-5 e^{0.085 a}): below from t* = ln(r / b) / 0.085 - 60 with r the
+    fitted rate d / T (closed forms)."""
+    rng = np.random.default_rng(12)
+    t = Exponential(rate=0.02).rvs(400, rng)
+    c = rng.uniform(1.0, 30.0, 400)
+    df = pd.DataFrame({"time": np.minimum(t, c), "event": (t <= c).astype(int)})
+    df.to_csv(tmp_path / "d.csv", index=False)
+    scenario = Path(__file__).resolve().parents[2] / "scenarios" / "lanthic_syndrome.toml"
+    code, text = _run(["fit", str(tmp_path / "d.csv"), "--families", "exponential", "--background", str(scenario),
+                       "--entry-age", "60"])
+    assert code == 0, capsys.readouterr().err
+    rate = df["event"].sum() / df["time"].sum()
+    for sex, b in (("female", 3e-5), ("male", 5e-5)):
+        line = next(ln for ln in text.splitlines() if ln.strip().startswith(f"exponential: {sex}"))
+        assert f"at years {math.log(rate / b) / 0.085 - 60.0:.3g}-40 since entry" in line, line
+    code, _ = _run(["fit", str(tmp_path / "d.csv"), "--families", "exponential", "--background", str(scenario)])
+    assert code == 2 and "--entry-age" in capsys.readouterr().err
