@@ -15,7 +15,7 @@ from .piecewise import PiecewiseConstant
 from .proportional import ProportionalHazards
 from .registry import FAMILIES, FAMILY_DIMENSIONS, make_hazard
 from .shape_scale import LogLogistic, Weibull
-from .waning import WANING_SCALES, WaningHazardRatio, rough_points, waning
+from .waning import WANING_SCALES, WaningHazardRatio, rough_points, waning_ratio
 from .units import (DAYS_PER_YEAR, MONTHS_PER_YEAR, UNIT_IN_YEARS, RateConversion, UnitError, from_years,
                     rate_from_risk, rate_per_year, rescale_risk, risk_from_rate, to_years)
 
@@ -24,4 +24,4 @@ __all__ = ["FAMILY_DIMENSIONS", "Dimension", "from_year_units", "to_year_units",
            "Weibull", "make_hazard", "DAYS_PER_YEAR", "MONTHS_PER_YEAR", "UNIT_IN_YEARS", "RateConversion",
            "UnitError", "from_years", "rate_from_risk", "rate_per_year", "rescale_risk", "risk_from_rate",
            "to_years", "AtLeastHazard", "Crossing", "ShiftedClock", "WANING_SCALES", "WaningHazardRatio",
-           "rough_points", "waning"]
+           "rough_points", "waning_ratio"]

@@ -38,7 +38,7 @@ from .base import Hazard, _invalid, _param
 from .piecewise import PiecewiseConstant
 from .proportional import ProportionalHazards
 
-__all__ = ["WANING_SCALES", "QUADRATURE_RTOL", "ROOT_RTOL", "WaningHazardRatio", "waning", "rough_points"]
+__all__ = ["WANING_SCALES", "QUADRATURE_RTOL", "ROOT_RTOL", "WaningHazardRatio", "waning_ratio", "rough_points"]
 
 WANING_SCALES = ("log", "hr")
 """``"log"``: the log hazard ratio moves linearly to 0; ``"hr"``: the hazard ratio moves linearly to 1."""
@@ -75,7 +75,7 @@ def rough_points(h: Hazard) -> tuple[float, ...]:
     return ()
 
 
-def waning(base: Hazard, hr: float, start: float, end: float, scale: str = "log") -> Hazard:
+def waning_ratio(base: Hazard, hr: float, start: float, end: float, scale: str = "log") -> Hazard:
     """``base`` with a hazard ratio ``hr`` that wanes from ``start`` to ``end``: a
     :class:`WaningHazardRatio`, or the plain hazard (``hr == 1``, or ``end == 0``) or its
     proportional version where the ratio never changes within the clock's range."""
@@ -314,7 +314,10 @@ class WaningHazardRatio(Hazard):
         last = edges.size - 2
         k = np.clip(np.searchsorted(edges, a, side="right") - 1, 0, last)
         nxt = edges[k + 1]
-        in_panel = self._integral(a, nxt)  # what is left of a's own panel
+        in_panel = cum[k + 1] - cum[k]  # what is left of a's own panel: all of it from its start (t1)
+        off = a != edges[k]
+        if np.any(off):
+            in_panel[off] = self._integral(a[off], nxt[off])
         rest = cum[-1] - cum[k + 1]  # the panels after it
         tau = np.full(a.shape, np.nan)
         left = np.maximum(r - in_panel - rest, 0.0)
@@ -350,12 +353,14 @@ class WaningHazardRatio(Hazard):
             hi[active] = np.where(f > 0.0, ta, hi[active])
             d = self._hazard(aa + ta)
             with np.errstate(divide="ignore", invalid="ignore"):
-                newton = ta - f / d
+                step = f / d
+            newton = ta - step
             la, ha = lo[active], hi[active]
-            inside = np.isfinite(newton) & (newton > la) & (newton < ha)
-            new = np.where(inside, newton, 0.5 * (la + ha))
-            tol = ROOT_RTOL * (aa + new) + 1e-300
-            done = (np.abs(new - ta) <= tol) | (ha - la <= tol)
+            tol = ROOT_RTOL * (aa + ta) + 1e-300
+            converged = np.abs(step) <= tol  # a final Newton step (quadratic convergence): take it
+            inside = np.isfinite(newton) & (newton >= la) & (newton <= ha)
+            new = np.where(inside | converged, newton, 0.5 * (la + ha))
+            done = converged | (ha - la <= tol)
             tau[active] = new
             active = active[~done]
         return tau

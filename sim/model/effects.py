@@ -11,7 +11,7 @@ from __future__ import annotations
 
 from typing import TYPE_CHECKING, Callable
 
-from ..hazards import AtLeastHazard, Hazard, ShiftedClock, waning
+from ..hazards import AtLeastHazard, Hazard, ShiftedClock, waning_ratio
 from ..problems import KeyPath
 from .parts import Clock, Waning
 
@@ -25,7 +25,7 @@ def with_ratio(h: Hazard, hr: float, wanes: Waning | None) -> Hazard:
     """``h`` times the hazard ratio ``hr``, constant or waning."""
     if wanes is None:
         return h.scaled(hr)
-    return waning(h, hr, wanes.start, wanes.end, wanes.scale)
+    return waning_ratio(h, hr, wanes.start, wanes.end, wanes.scale)
 
 
 def floor_clock_rule(clock: Clock, model: "Model") -> str | None:

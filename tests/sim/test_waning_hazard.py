@@ -19,7 +19,7 @@ from scipy import integrate
 
 from sim.hazards import (Exponential, Gamma, Gompertz, HazardParameterError, LogLogistic, LogNormal, PiecewiseConstant,
                          Weibull)
-from sim.hazards.waning import WaningHazardRatio, waning
+from sim.hazards.waning import WaningHazardRatio, waning_ratio
 
 EPS = np.finfo(np.float64).eps
 
@@ -113,8 +113,8 @@ def test_draws_follow_the_survival_function(name):
 @pytest.mark.parametrize("name", list(BASES))
 def test_a_ratio_of_one_is_the_plain_hazard(name):
     h0 = BASES[name]
-    assert waning(h0, 1.0, 2.0, 5.0) is h0
-    assert waning(h0, 0.5, 0.0, 0.0) is h0  # the effect is gone from clock 0
+    assert waning_ratio(h0, 1.0, 2.0, 5.0) is h0
+    assert waning_ratio(h0, 0.5, 0.0, 0.0) is h0  # the effect is gone from clock 0
     w = WaningHazardRatio(h0, 1.0, 2.0, 5.0, "log")
     t = np.array([0.0, 0.5, 2.0, 3.1, 4.99, 5.0, 9.0, np.inf])
     np.testing.assert_allclose(w.cumhazard(t), h0.cumhazard(t), rtol=1e-12, atol=0.0)
