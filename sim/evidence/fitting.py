@@ -91,6 +91,17 @@ class Fit:
     scenario: bool
     effect: Effect | None = None
     spec: FamilySpec | None = field(default=None, repr=False, compare=False)
+    theta: NDArray[np.float64] | None = field(default=None, repr=False)
+    theta_covariance: NDArray[np.float64] | None = field(default=None, repr=False)
+    """The estimates on the optimiser's scale (log for positive parameters and for the effect) and the
+    inverse observed information there: a multivariate normal on this scale is the usual
+    probabilistic-analysis distribution of the fit (:meth:`transforms`)."""
+
+    def transforms(self) -> tuple[str, ...]:
+        """Per entry of :attr:`theta`: ``"log"`` (value = e^theta) or ``"identity"``."""
+        assert self.spec is not None
+        out = tuple("log" if pos else "identity" for pos in self.spec.positive)
+        return out + (("log",) if self.effect is not None else ())
 
     @property
     def label(self) -> str:
@@ -337,9 +348,11 @@ def fit_family(data: SurvivalData, family: str | FamilySpec, *, breaks: Sequence
         jac = np.block([[jac, np.zeros((p, 1))], [np.zeros((1, p)), np.ones((1, 1))]])
         names = names + (("log_hazard_ratio",) if spec.effect == HAZARD_RATIO else ("log_acceleration_factor",))
         estimates = np.append(values, theta[p])
-    cov = None
+    cov = theta_cov = None
     if hess is not None and converged:
-        cov = jac @ np.linalg.inv(hess) @ jac.T
+        theta_cov = np.linalg.inv(hess)
+        theta_cov = 0.5 * (theta_cov + theta_cov.T)
+        cov = jac @ theta_cov @ jac.T
         cov = 0.5 * (cov + cov.T)
     ll = loglik(theta)
     k = theta.size
@@ -351,7 +364,7 @@ def fit_family(data: SurvivalData, family: str | FamilySpec, *, breaks: Sequence
                         math.exp(beta + _Z95 * se), se)
     return Fit(spec.name, spec.parameters(values), names, estimates, cov, ll, 2 * k - 2 * ll,
                k * math.log(data.n) - 2 * ll, data.n, data.n_events, converged, message, data.unit,
-               spec.scenario, effect, spec)
+               spec.scenario, effect, spec, np.array(theta), theta_cov)
 
 
 def fit_families(data: SurvivalData, families: Sequence[str] = ("exponential", "weibull", "gompertz", "loglogistic",

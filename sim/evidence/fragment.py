@@ -14,6 +14,8 @@ Layout::
     ...
     [fits.weibull.compared_arm]  # two arms: the compared arm's hazard in the same family
     ...
+    [fits.weibull.uncertainty]   # the fit as a multivariate normal for an [[uncertainty]] table
+    ...
     [fits.weibull.statistics]  # not scenario keys: log-likelihood, AIC, BIC, covariance, effect
 
 The keys of ``[chosen]`` or of a ``[fits.<family>]`` table (without ``compared_arm`` and
@@ -29,6 +31,7 @@ from __future__ import annotations
 from collections.abc import Sequence
 from pathlib import Path
 
+import numpy as np
 import tomlkit
 
 from ..io.atomic import write_text_atomic
@@ -75,6 +78,31 @@ def _statistics(fit: Fit) -> tomlkit.items.Table:
     return stats
 
 
+def _uncertainty(fit: Fit) -> tomlkit.items.Table | None:
+    """The fit's multivariate normal on its estimation scale, in the keys of a scenario
+    ``[[uncertainty]]`` table; the names are relative to the transition (and ``hazard_ratio`` to the
+    strategy's ``hazard_ratios`` entry), to be completed by the user."""
+    if fit.theta_covariance is None:
+        return None
+    assert fit.spec is not None
+    names = list(fit.spec.names)
+    keep = list(range(len(names)))
+    if fit.effect is not None and fit.effect.kind == "hazard_ratio":
+        names.append("hazard_ratio")
+        keep.append(len(fit.theta) - 1)
+    transforms = [fit.transforms()[i] for i in keep]
+    cov = fit.theta_covariance[np.ix_(keep, keep)]
+    table = tomlkit.table()
+    table.add(tomlkit.comment("for [[uncertainty]]: prefix each name with its key path, e.g. transitions[0].shape;"))
+    table.add(tomlkit.comment("hazard_ratio is strategies[k].hazard_ratios.<transition> (the compared arm)"))
+    table.add("parameters", names)
+    table.add("distribution", "multivariate_normal")
+    table.add("mean", [float(fit.theta[i]) for i in keep])
+    table.add("covariance", [[float(v) for v in row] for row in cov])
+    table.add("transform", transforms)
+    return table
+
+
 def fragment_text(fits: Sequence[Fit], *, source: str | None = None, criterion: str = "aic") -> str:
     """The fragment as TOML text (module docstring)."""
     doc = tomlkit.document()
@@ -84,7 +112,7 @@ def fragment_text(fits: Sequence[Fit], *, source: str | None = None, criterion: 
     if fits and fits[0].effect is not None:
         e = fits[0].effect
         doc.add(tomlkit.comment(f"Two arms: the hazards are those of the reference arm {e.reference!r}; the "
-                                f"effect of {e.compared!r} is in each fit's statistics."))
+                                f"compared arm {e.compared!r} is each fit's compared_arm; the effect is in its statistics."))
     chosen = choose_fit(fits, criterion)
     if chosen is not None:
         doc.add(tomlkit.comment(f"chosen: lowest {criterion.upper()} among converged scenario families"))
@@ -97,6 +125,9 @@ def fragment_text(fits: Sequence[Fit], *, source: str | None = None, criterion: 
             table = _hazard_table(fit)
             if fit.effect is not None:  # the compared arm in the same family: a strategy's replacement
                 table.add("compared_arm", _hazard_table(fit, fit.compared_parameters()))
+            uncertainty = _uncertainty(fit)
+            if uncertainty is not None:
+                table.add("uncertainty", uncertainty)
             table.add("statistics", _statistics(fit))
             fits_table.add(name, table)
         else:

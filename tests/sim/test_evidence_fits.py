@@ -311,3 +311,63 @@ def test_compared_arm_hazard_in_the_same_family(two_arms, family):
 
 def tomllib_loads(text: str) -> dict:
     return pytest.importorskip("tomllib").loads(text)
+
+
+@pytest.mark.parametrize("family, breaks", [("weibull", None), ("piecewise", [0.0, 20.5])])
+def test_fragment_uncertainty_is_accepted_by_the_scenario_reader(tmp_path, two_arms, family, breaks):
+    """A two-arm fit pasted into a scenario: the reference arm's keys in the transition, the hazard ratio
+    in the second strategy, and the fit's [uncertainty] table (names prefixed with their key paths) as an
+    [[uncertainty]] entry: the reader accepts it, and the group's mean on its log scale gives back the
+    estimates (e^mean = the fitted values; the covariance is the inverse observed information, so the
+    reported covariance is J C J' with J = diag(e^mean): the delta method)."""
+    tomllib = pytest.importorskip("tomllib")
+    fit = fit_family(two_arms, family, breaks=breaks)
+    doc = tomllib.loads(fragment_text([fit]))["fits"][family]
+    unc = doc["uncertainty"]
+    prefix = {n: f"transitions[0].{n}" for n in fit.spec.names}
+    prefix["hazard_ratio"] = "strategies[1].hazard_ratios.death"
+    names = [prefix[n] for n in unc["parameters"]]
+    np.testing.assert_allclose(np.exp(unc["mean"]), fit.estimates[:-1].tolist() + [fit.effect.estimate], rtol=1e-12)
+    jac = np.diag(np.exp(unc["mean"][:-1]))
+    np.testing.assert_allclose(jac @ np.array(unc["covariance"])[:-1, :-1] @ jac, fit.covariance[:-1, :-1],
+                               rtol=1e-10, atol=1e-300)
+
+    def toml(v):
+        return f'"{v}"' if isinstance(v, str) else repr(v)
+
+    hazard = "\n".join(f"{k} = {toml(v)}" for k, v in doc.items() if k not in ("compared_arm", "uncertainty",
+                                                                               "statistics"))
+    text = f"""format_version = 1
+[[states]]
+name = "alive"
+[[states]]
+name = "dead"
+absorbing = true
+[[transitions]]
+name = "death"
+from = "alive"
+to = "dead"
+{hazard}
+[population]
+initial_state = "alive"
+entry_age = {{ distribution = "fixed", age = 50 }}
+[horizon]
+value = 10
+[[strategies]]
+name = "arm 0"
+[[strategies]]
+name = "arm 1"
+hazard_ratios = {{ death = {fit.effect.estimate!r} }}
+[[uncertainty]]
+parameters = {toml(names).replace("'", '"')}
+distribution = "multivariate_normal"
+mean = {unc["mean"]!r}
+covariance = {unc["covariance"]!r}
+transform = {toml(unc["transform"]).replace("'", '"')}
+"""
+    path = tmp_path / "s.toml"
+    path.write_text(text)
+    from sim.io import load_scenario
+
+    scenario = load_scenario(path)
+    assert len(scenario.uncertainty) == 1
