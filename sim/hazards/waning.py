@@ -60,6 +60,13 @@ _MAX_PANELS = 4096
 _MAX_ITER = 200
 
 
+def _weighted(vals: FloatArray) -> FloatArray:
+    """The Gauss-Legendre sum of each row, by an elementwise product and a row sum (not a BLAS
+    matrix-vector product, whose rounding may depend on the number of rows: a lane's value must not
+    depend on which other lanes share the call, so that runs are the same for any chunking)."""
+    return (vals * _WEIGHTS).sum(axis=-1)
+
+
 def rough_points(h: Hazard) -> tuple[float, ...]:
     """Clock values where ``h`` jumps or has a kink, as far as known: the band starts of a
     piecewise-constant hazard, a waning window's ends, the crossings of a hazard floor (wrappers
@@ -188,11 +195,11 @@ class WaningHazardRatio(Hazard):
                 sd = s[d]
                 vals = self.ratio(sd) * self.base._hazard(sd)
                 vals = np.where(np.isnan(vals), 0.0, vals)
-                out[d] = width[d] * (vals @ _WEIGHTS)
+                out[d] = width[d] * _weighted(vals)
             if np.any(by_parts):
                 ap, bp, sp = a[by_parts], b[by_parts], s[by_parts]
                 ends = self.ratio(bp) * self.base._cumhazard(bp) - self.ratio(ap) * self.base._cumhazard(ap)
-                corr = (self._ratio_slope(sp) * self.base._cumhazard(sp)) @ _WEIGHTS
+                corr = _weighted(self._ratio_slope(sp) * self.base._cumhazard(sp))
                 got = ends - width[by_parts] * corr
                 out[by_parts] = np.where(np.isnan(got), np.inf, got)  # inf - inf: H0 overflowed
         return np.maximum(out, 0.0)

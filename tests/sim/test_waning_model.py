@@ -246,3 +246,14 @@ def test_hazardtrace_check_refuses_bad_waning_with_exit_2(tmp_path, capsys):
     assert code == 2
     line = _line_of(path.read_text(encoding="utf-8"), "start = 6.0")
     assert f"bad.toml:{line}" in err and "strategies[1].waning.onset.end" in err and "must be > waning.start" in err
+
+
+@pytest.mark.parametrize("chunk_size, workers", [(700, 1), (250, 2)])
+def test_same_log_bit_for_bit_for_any_chunking(chunk_size, workers):
+    # each lane's quadrature and root finding depend on that lane alone (no BLAS reductions over rows)
+    m = load_scenario(SCENARIO).model
+    ref = simulate(m, 1500, seed=7, chunk_size=1500, workers=1)
+    run = simulate(m, 1500, seed=7, chunk_size=chunk_size, workers=workers)
+    import pandas as pd
+    pd.testing.assert_frame_equal(run.events, ref.events, check_exact=True)
+    pd.testing.assert_frame_equal(run.patients, ref.patients, check_exact=True)
