@@ -29,6 +29,7 @@ import pandas as pd
 from numpy.typing import NDArray
 from scipy import optimize
 
+from ..problems import ValidationError
 from .data import SurvivalData
 from .families import FAMILY_NAMES, HAZARD_RATIO, FamilySpec, family_spec
 
@@ -217,7 +218,7 @@ def _gradient(f: Callable, theta: NDArray[np.float64]) -> NDArray[np.float64]:
     return g
 
 
-def hessian(f: Callable, theta: NDArray[np.float64]) -> NDArray[np.float64]:
+def _hessian(f: Callable, theta: NDArray[np.float64]) -> NDArray[np.float64]:
     """Central-difference Hessian of ``f`` at ``theta`` (step ``1e-4 max(1, |theta|)``)."""
     h = _steps(theta, 1e-4)
     n = theta.size
@@ -261,7 +262,7 @@ def _maximise(loglik: Callable, theta0: NDArray[np.float64]) -> tuple[NDArray[np
     hess = None
     decrement = math.inf
     for _ in range(8):  # Newton polishing on the finite-difference Hessian
-        hess = hessian(neg, theta)
+        hess = _hessian(neg, theta)
         g = _gradient(neg, theta)
         if not (np.all(np.isfinite(hess)) and np.all(np.isfinite(g))):
             return theta, None, False, "the log-likelihood is not finite near the optimum"
@@ -316,8 +317,6 @@ def fit_family(data: SurvivalData, family: str | FamilySpec, *, breaks: Sequence
     -----
     docs/methods.md, 'Survival fits from trial evidence'.
     """
-    from ..problems import ValidationError
-
     spec = family if isinstance(family, FamilySpec) else family_spec(family, breaks=breaks, knots=knots, data=data)
     groups = data.groups
     if arms is None:
@@ -373,8 +372,6 @@ def fit_families(data: SurvivalData, families: Sequence[str] = ("exponential", "
                  ) -> list[Fit]:
     """Fit several families (``spline`` once per number of knots in ``knots``); unknown names are
     refused before any fit."""
-    from ..problems import ValidationError
-
     unknown = [f for f in families if f not in FAMILY_NAMES]
     if unknown:
         raise ValidationError(("families",), f"must be among {', '.join(FAMILY_NAMES)}", unknown[0])
