@@ -257,3 +257,12 @@ def test_same_log_bit_for_bit_for_any_chunking(chunk_size, workers):
     import pandas as pd
     pd.testing.assert_frame_equal(run.events, ref.events, check_exact=True)
     pd.testing.assert_frame_equal(run.patients, ref.patients, check_exact=True)
+
+
+def test_renaming_a_transition_renames_its_waning():
+    import tomlkit
+    from sim.io.scenario import rename
+    doc = tomlkit.parse(TEXT)
+    rename(doc, "transitions", 0, "illness onset")
+    st = parse_scenario(tomlkit.dumps(doc)).model.strategy("treated")
+    assert dict(st.waning) == {"illness onset": Waning(2.0, 6.0, "log")}
