@@ -70,6 +70,8 @@ def test_agrees_with_lifelines_on_rossi(rossi, rossi_data, family, fitter, conve
     assert ours.loglik >= ref.log_likelihood_ - 1e-6  # at least as good a maximum
 
 
+# (the generalized gamma is left out here: on these data its Q is near 0, where the likelihood is flat in Q,
+# lifelines warns that its variances are not to be trusted, and a relative tolerance on Q means little)
 @pytest.mark.parametrize("family, fitter, convert", LIFELINES[:4], ids=[r[0] for r in LIFELINES[:4]])
 def test_delayed_entry_agrees_with_lifelines(rossi, delayed, family, fitter, convert):
     """Left truncation: lifelines' ``entry=`` (the likelihood conditions on survival to entry)."""
