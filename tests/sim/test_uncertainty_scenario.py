@@ -298,3 +298,21 @@ def test_renaming_a_state_or_transition_renames_it_in_parameter_names() -> None:
     assert not any("mild" in k.replace("mild stage", "") or "progression" in k for k in keys)
     before = load_scenario(DEMO)
     assert [u.distribution for u in s.uncertainty] == [u.distribution for u in before.uncertainty]
+
+
+def test_a_hazard_parameter_given_only_by_a_distribution_is_checked_against_the_family() -> None:
+    text = LANTHIC.replace("shape = 1.3\n", "", 1)  # the Weibull onset's shape: only a distribution
+    entry = '[[uncertainty]]\nparameter = "transitions[0].shape"\ndistribution = "normal"\nmean = 1.3\nsd = 0.1\n'
+    with pytest.raises(ScenarioError) as err:
+        parse_scenario(_with(entry, text))
+    assert "transitions[0].shape must be > 0" in err.value.problem.rule
+    s = parse_scenario(_with(entry.replace("sd = 0.1", "sd = 0.1\nlow = 0.5"), text))
+    assert s.model.transitions[0].hazard.shape == pytest.approx(s.uncertainty[0].distribution.mean, rel=1e-15)
+
+
+def test_a_sex_mix_given_only_by_a_dirichlet() -> None:
+    text = LANTHIC.replace("sex_mix = { female = 0.5, male = 0.5 }\n", "")
+    entry = ('[[uncertainty]]\nparameters = ["population.sex_mix.female", "population.sex_mix.male"]\n'
+             'distribution = "dirichlet"\nalpha = [30, 10]\n')
+    s = parse_scenario(_with(entry, text))
+    assert s.model.population.sex_mix == {"female": 0.75, "male": 0.25}

@@ -100,6 +100,8 @@ def _reference_problem(doc: Mapping, path: KeyPath) -> str | None:
     for n in range(1, len(path)):
         parent = node_at(doc, path[:n])
         key_ref = getattr(parent, "key_ref", None)
+        if path[:n] == ("population", "sex_mix"):
+            continue  # the sex mix declares the sexes
         if key_ref is not None and isinstance(path[n], str) and path[n] not in _names(doc, key_ref):
             return f"{format_key(path[:n + 1])} names no {key_ref.value} of this scenario"
     if path[:2] == ("population", "initial_state") and len(path) >= 3:
@@ -291,7 +293,8 @@ def _check_supports(ck: Checker, doc: Mapping, spec: UncertainInput, paths: list
             t = d.transforms[j]
             support = {"identity": (-math.inf, math.inf), "log": (0.0, math.inf), "logit": (0.0, 1.0)}[t]
             closed = (False, False)
-        why = _support_problem(spec.keys[j], d.family, support, closed, _rule(doc, path, node))
+        probe = doc if is_number(_get(doc, path)) else with_values(doc, {path: spec.means()[spec.keys[j]]})
+        why = _support_problem(spec.keys[j], d.family, support, closed, _rule(probe, path, node))
         if why:
             ck.add(at, why, spec.keys[j])
     if len(ck.problems) > before:
