@@ -316,3 +316,13 @@ def test_a_sex_mix_given_only_by_a_dirichlet() -> None:
              'distribution = "dirichlet"\nalpha = [30, 10]\n')
     s = parse_scenario(_with(entry, text))
     assert s.model.population.sex_mix == {"female": 0.75, "male": 0.25}
+
+
+def test_a_distribution_alone_for_a_preview() -> None:
+    from sim.io.scenario import distribution_of
+    d, fitted = distribution_of({"parameter": "anything", "distribution": "beta", "mean": 0.86, "se": 0.02})
+    assert isinstance(d, Beta) and (d.alpha, d.beta) == pytest.approx((258.0, 42.0), rel=1e-12)
+    assert fitted == {"mean": 0.86, "se": 0.02}
+    with pytest.raises(ScenarioError) as err:
+        distribution_of({"distribution": "gamma", "mean": 5.0, "se": -1.0, "bogus": 1})
+    assert [p.path for p in err.value.problems] == [("bogus",), ("se",)]

@@ -11,7 +11,8 @@ names it refers to), :mod:`.reader` (text to a validated :class:`Scenario`, ever
 as data), :mod:`.writer` (a model to a document and text; atomic saving), :mod:`.rename` (renaming a
 state or transition with its references), :mod:`.parameters` (every numeric parameter with its
 dimension), :mod:`.errors` (:class:`ScenarioError`), :mod:`.positions` (key lines of a text),
-:mod:`.durations`.
+:mod:`.durations`, :mod:`.uncertain` (the ``[[uncertainty]]`` section), :mod:`.substitute` (a
+model with other parameter values, for the probabilistic analysis).
 
 Reading keeps the document (``tomlkit``, which preserves comments and order) so that an edited
 scenario can be written back without losing what the user typed. Unknown keys are errors, never
@@ -25,9 +26,10 @@ from .parameters import Parameter, parameters
 from .reader import Scenario, load_scenario, parse_scenario
 from .rename import RENAMEABLE, rename
 from .schema import FORMAT_VERSION, SCHEMA, TIME_UNITS, Ref, declared_keys, references
-from .writer import document_from_model, save_scenario, scenario_text
+from .uncertain import distribution_of, parse_key
+from .writer import document_from_model, save_scenario, scenario_text, uncertainty_entry
 
 __all__ = ["FORMAT_VERSION", "Scenario", "RunSettings", "ScenarioError", "ScenarioProblems", "load_scenario",
            "parse_scenario", "scenario_text", "save_scenario", "document_from_model", "parse_duration",
            "problem_text", "Parameter", "parameters", "RENAMEABLE", "rename", "SCHEMA", "TIME_UNITS", "Ref",
-           "declared_keys", "references"]
+           "declared_keys", "references", "parse_key", "distribution_of", "uncertainty_entry"]

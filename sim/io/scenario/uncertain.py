@@ -33,9 +33,11 @@ from ...uncertainty import (MOMENT_FITS, Beta, Dirichlet, Gamma, LogNormal, Mult
                             UncertainInput, Uniform, Univariate, dirichlet_from_shares, lognormal_from_interval,
                             mvn_from_correlation)
 from .checking import Checker, Invalid
+from .errors import ScenarioError
 from .schema import SCHEMA, UNCERTAINTY_FORMS, HazardTable, Number, Ref, StateOrShares, Text, node_at
 
-__all__ = ["parse_key", "read_uncertainty", "SHARE_TABLES", "NOT_UNCERTAIN", "renamed_parameter"]
+__all__ = ["parse_key", "read_uncertainty", "distribution_of", "SHARE_TABLES", "NOT_UNCERTAIN",
+           "renamed_parameter"]
 
 SHARE_TABLES = (("population", "sex_mix"), ("population", "initial_state"))
 """Tables of shares that sum to 1 (``initial_state`` also per sex, one level down)."""
@@ -232,6 +234,32 @@ def _distribution(ck: Checker, dist: str, v: Mapping, p: KeyPath, raw: Mapping) 
             written = _get(raw, problem.path)
             ck.add((*p, *problem.path), problem.rule, problem.value if written is None else written)
         raise Invalid from None
+
+
+def distribution_of(entry: Any) -> tuple[Any, dict]:
+    """The distribution an ``[[uncertainty]]`` table describes, and what it was fitted from (empty
+    when given by its own parameters), without looking at the parameters it names: for a preview
+    while the table is being edited.
+
+    Raises
+    ------
+    ScenarioError
+        Every problem of the table's distribution keys, with key paths relative to the table
+        (``("se",)``, ``("covariance", 0, 1)``).
+    """
+    ck = Checker()
+    node = SCHEMA.keys["uncertainty"].item
+    try:
+        if not isinstance(entry, Mapping):
+            ck.fail((), "must be a table with a 'distribution'", entry)
+        if node.tag not in entry:
+            ck.fail((), f"missing required key {node.tag!r}")
+        dist = ck.value(Text(choices=tuple(node.variants)), entry[node.tag], (node.tag,))
+        keys = {k: n for k, n in node.variants[dist].items() if k not in ("parameter", "parameters")}
+        v = ck.table(entry, (), keys, extra=(node.tag, "parameter", "parameters"))
+        return _distribution(ck, dist, v, (), entry)
+    except Invalid:
+        raise ScenarioError.of(ck.problems) from None
 
 
 def _listed(value: Any) -> Any:
