@@ -81,7 +81,6 @@ def block_outcomes(model: Model, strategy: str, events: pd.DataFrame, patients: 
     k = list(patients["strategy"].cat.categories).index(strategy)
     er, pr = _strategy_rows(events, k), _strategy_rows(patients, k)
     n, n_states = pr.stop - pr.start, len(model.states)
-    draw = np.arange(n) // n_per_draw  # patients come in id order, one block of draws
     e_pid = events["patient"].to_numpy()[er] - first
     e_time = events["time"].to_numpy()[er]
     e_from = events["from_state"].cat.codes.to_numpy()[er]
@@ -99,39 +98,56 @@ def block_outcomes(model: Model, strategy: str, events: pd.DataFrame, patients: 
     last_time = np.zeros(n)
     last_time[e_pid[last_move]] = e_time[last_move]
     pid = np.concatenate((e_pid, np.arange(n)))
-    cell = pid * n_states + np.concatenate((e_from, final))
+    # cells state-major (state * n + patient): each state's column is contiguous below
+    cell = np.concatenate((e_from, final)).astype(np.int64) * n + pid
     start = np.concatenate((e_start, last_time))
     end = np.concatenate((e_time, exit_time))
-    row_draw = draw[pid]
+    row_draw: list = []  # each sojourn's draw, computed only if the discount rates differ by draw
+
+    def rate_of(rates: NDArray, rows: NDArray, draw_of_rows) -> NDArray | float:
+        """ln(1 + d) per row, or one number when every draw has the same rate (the same bits)."""
+        delta = np.log1p(rates)
+        if np.all(delta == delta[0]):
+            return float(delta[0])
+        if not draw_of_rows:
+            draw_of_rows.append(rows // n_per_draw)
+        return delta[draw_of_rows[0]]
 
     def years(rates: NDArray | None) -> NDArray:
         if rates is None:
             length = end - start
         else:
-            length = _discounted(start, end, np.log1p(rates)[row_draw], bool(np.all(rates > 0.0)))
-        return np.bincount(cell, weights=length, minlength=n * n_states).reshape(n, n_states)
+            length = _discounted(start, end, rate_of(rates, pid, row_draw), bool(np.all(rates > 0.0)))
+        return np.bincount(cell, weights=length, minlength=n * n_states).reshape(n_states, n)
 
     y = years(None)
     y_e = years(values.discount_effects)
     same_rates = np.array_equal(values.discount_effects, values.discount_costs)
     y_c = y_e if same_rates else years(values.discount_costs)
     # one-off costs at each move, by the model's exit numbering, discounted at the move
-    e_draw = draw[e_pid]
+    e_draw = e_pid // n_per_draw
     c = values.exit_cost[e_draw, e_exit]
     one_off = np.bincount(e_pid, weights=c, minlength=n)
-    one_off_d = np.bincount(e_pid, weights=c * np.exp(-np.log1p(values.discount_costs)[e_draw] * e_time),
+    one_off_d = np.bincount(e_pid, weights=c * np.exp(-rate_of(values.discount_costs, e_pid, []) * e_time),
                             minlength=n)
     alive = [j for j, s in enumerate(model.states) if not s.absorbing]
-    u = values.utility[draw]
-    kost = values.state_cost[draw]
+    n_draws = -(-n // n_per_draw)
+
+    def per_patient(column: NDArray) -> NDArray:
+        """A per-draw value spread over the draw's patients."""
+        return np.repeat(column, n_per_draw)[:n] if n_draws > 1 else np.full(n, column[0])
 
     def weighted(t: NDArray, w: NDArray | None) -> NDArray:
         # explicit sum over states in a fixed order: the same bits for any number of rows
         out = np.zeros(n)
         for j in (alive if w is None else range(n_states)):
-            out += t[:, j] if w is None else t[:, j] * w[:, j]
+            if w is None:
+                out += t[j]
+            elif np.any(w[:, j] != 0.0):
+                out += t[j] * per_patient(w[:, j])
         return out
 
+    u, kost = values.utility, values.state_cost
     return {"life_years": weighted(y, None), "life_years_discounted": weighted(y_e, None),
             "qalys": weighted(y, u), "qalys_discounted": weighted(y_e, u),
             "costs": weighted(y, kost) + one_off, "costs_discounted": weighted(y_c, kost) + one_off_d}
