@@ -17,7 +17,9 @@ the points of an empirical distribution) and over the sex mix. The solver is
 ``scipy.integrate.solve_ivp`` at rtol 1e-10, atol 1e-12, restarted at every jump of a hazard (life-table
 band edges) on the axis (time since entry or attained age) with fewer jumps; DOP853, or BDF where the
 system is stiff, with bounded work (:mod:`sim.reference.forward`). When the work limit is reached,
-:class:`NoExactSolution` says so.
+:class:`NoExactSolution` says so. A life-table background from every living state into the only
+absorbing state is factored out of the ODE instead (:mod:`sim.reference.factored`: no restarts at its
+band edges, tolerances 100 times tighter).
 
 A model with a non-constant hazard on the time-in-state clock (semi-Markov) has no such reference:
 :class:`NoExactSolution` says which transitions make it so.
@@ -36,6 +38,7 @@ from numpy.typing import ArrayLike, NDArray
 from ..engine import CancelToken
 from ..hazards import KERNEL_ERRSTATE
 from ..model.multistate import Clock, Model, ResolvedExit
+from .factored import background_target, integrate_factored
 from .forward import ATOL, RTOL, ExitRates, NoExactSolution, integrate_segments
 
 __all__ = ["NoExactSolution", "ExactSolution", "StackedSolution", "solve_exact", "solve_stacked",
@@ -178,9 +181,15 @@ def solve_stacked(model: Model, strategy: str | tuple[str, ...], entry_age: NDAr
         return StackedSolution(occ, np.zeros((r_n, m, n)), y0[size_p + size_i:].reshape(r_n, m, k_ex),
                                np.array([e.index for e in exits]))
     exit_rates = [ExitRates(s_k, d_k, tuple(groups), offset, moving) for s_k, d_k, groups, offset, moving in plan]
-    occ, integrals, flows = integrate_segments(
-        exit_rates, n, entry_age, p0, y0[size_p + size_i:].reshape(r_n, m, k_ex), t0, times, horizon, deltas, cancel,
-        to_horizon)
+    f0 = y0[size_p + size_i:].reshape(r_n, m, k_ex)
+    background = [e.is_background for e in exits]
+    d = background_target(exit_rates, background, np.array([s.absorbing for s in model.states]))
+    if d is not None:  # a life table: factored out of the ODE (no restarts at its band edges)
+        occ, integrals, flows = integrate_factored(exit_rates, background, d, n, entry_age, p0, f0, t0, times,
+                                                   horizon, deltas, cancel, to_horizon)
+    else:
+        occ, integrals, flows = integrate_segments(exit_rates, n, entry_age, p0, f0, t0, times, horizon, deltas,
+                                                   cancel, to_horizon)
     return StackedSolution(occ, integrals, flows, np.array([e.index for e in exits]))
 
 

@@ -96,6 +96,7 @@ class _Work:
     used: int = 0
     attempt_limit: int = MAX_EVALUATIONS
     first_step: float | None = None  # the largest step of the last segment solved
+    tolerance_scale: float = 1.0  # times the solvers' rtol and atol
 
     def check_cancel(self) -> None:
         if cancel_requested(self.cancel):
@@ -315,7 +316,8 @@ def _run(method: type[OdeSolver], fun: Callable, seg: _Segment, y: NDArray[np.fl
     """Step ``method`` over the segment; at each query axis value ``u`` (sorted) read the components
     ``index`` (queries, c) of the solution from the step's dense output."""
     rtol, atol = (RTOL, ATOL) if method is DOP853 else (STIFF_RTOL, STIFF_ATOL)
-    solver = method(fun, seg.lo, y, seg.hi, rtol=rtol, atol=atol, **options)
+    scale = options.pop("tolerance_scale", 1.0)
+    solver = method(fun, seg.lo, y, seg.hi, rtol=rtol * scale, atol=atol * scale, **options)
     at = np.empty(index.shape)
     done, largest = 0, 0.0
     while solver.status == "running":
@@ -351,7 +353,7 @@ def _solve_segment(seg: _Segment, y: NDArray[np.float64], u: NDArray[np.float64]
         work.attempt_limit = min(work.used + EXPLICIT_EVALUATIONS, MAX_EVALUATIONS)
         options = {} if first_step is None else {"first_step": min(first_step, seg.hi - seg.lo)}
         try:
-            return _run(DOP853, fun, seg, y, u, index, **options)
+            return _run(DOP853, fun, seg, y, u, index, tolerance_scale=work.tolerance_scale, **options)
         except _Overrun:
             if work.used >= MAX_EVALUATIONS:
                 raise _too_much(seg, stiffness) from None
@@ -362,7 +364,7 @@ def _solve_segment(seg: _Segment, y: NDArray[np.float64], u: NDArray[np.float64]
         return seg.jacobian(u)
 
     try:
-        return _run(BDF, fun, seg, y, u, index, jac=jac)
+        return _run(BDF, fun, seg, y, u, index, jac=jac, tolerance_scale=work.tolerance_scale)
     except _Overrun:
         raise _too_much(seg, stiffness) from None
 
@@ -378,8 +380,9 @@ def _too_much(seg: _Segment, stiffness: float) -> NoExactSolution:
 def integrate_segments(exits: Sequence[ExitRates], n_states: int, entry_age: NDArray[np.float64],
                        p0: NDArray[np.float64], f0: NDArray[np.float64], t0: float, times: NDArray[np.float64],
                        horizon: NDArray[np.float64], deltas: NDArray[np.float64],
-                       cancel: CancelToken | Callable[[], bool] | None = None, to_horizon: bool = False
-                       ) -> tuple[NDArray[np.float64], NDArray[np.float64], NDArray[np.float64]]:
+                       cancel: CancelToken | Callable[[], bool] | None = None, to_horizon: bool = False,
+                       blocks: tuple[NDArray[np.int64], NDArray[np.float64]] | None = None,
+                       tolerance_scale: float = 1.0) -> tuple[NDArray[np.float64], ...]:
     """Integrate the stacked forward equations from time since entry t0 (state p0 (m, n), flows f0
     (R, m, exits)) in segments between break points.
 
@@ -392,13 +395,17 @@ def integrate_segments(exits: Sequence[ExitRates], n_states: int, entry_age: NDA
     dense output, its rates held over the rest of that segment.
 
     ``to_horizon``: occupancy is wanted only at times up to each row's horizon (entries past it are
-    NaN), and each row is integrated only to its horizon.
+    NaN), and each row is integrated only to its horizon. ``blocks``: (rows, times) of further
+    queries, each reading its row's whole state (occupancy, integrals, flows) at a time in [t0, the
+    row's horizon]. ``tolerance_scale`` multiplies the solvers' tolerances.
 
     Returns
     -------
     occupancy : (m, len(times), n), p at max(times, t0).
     integrals : (R, m, n), integral of exp(-delta_r t) p(t) over [t0, horizon_m] (0 if horizon_m <= t0).
     flows : (R, m, exits), f0 plus the discounted flows over [t0, horizon_m].
+    blocks : only if ``blocks`` is given: (queries, n + R n + R exits), each query's row state, in the
+        layout of :func:`_row_blocks` (occupancy, then integrals and flows rate by rate).
 
     Raises
     ------
@@ -420,10 +427,13 @@ def integrate_segments(exits: Sequence[ExitRates], n_states: int, entry_age: NDA
     system = _Stacked(n_states, m, exits, src, dst, deltas, np.zeros(m), fixed, first_of, np.full(m, np.inf))
     span = np.maximum(horizon, t0) if to_horizon else np.maximum(horizon, float(times.max(initial=t0)))
     span = np.maximum(span, t0)
-    queries = _Queries(times, t0, horizon, span)
+    queries = _Queries(times, t0, horizon, span, blocks)
     state = (p0.copy(), np.zeros((r_n, m, n_states)), f0.copy())
-    out = (np.full((m, times.size, n_states), np.nan), np.zeros((r_n, m, n_states)), f0.copy())
-    work = _Work(cancel)
+    out = (np.full((m, times.size, n_states), np.nan), np.zeros((r_n, m, n_states)), f0.copy(),
+           np.full((queries.bq_row.size, n_states * (1 + r_n) + r_n * k_ex), np.nan))
+    if blocks is None:
+        out = out[:3]
+    work = _Work(cancel, tolerance_scale=tolerance_scale)
     zero, age = np.zeros(m), np.asarray(entry_age, dtype=float)
     begin = np.full(m, t0)
     if not np.any(span > t0):
@@ -451,7 +461,7 @@ class _Queries:
     reaches it."""
 
     def __init__(self, times: NDArray[np.float64], t0: float, horizon: NDArray[np.float64],
-                 span: NDArray[np.float64]) -> None:
+                 span: NDArray[np.float64], blocks: tuple[NDArray[np.int64], NDArray[np.float64]] | None) -> None:
         m = horizon.size
         self.n_times = times.size
         self.occ_row = np.repeat(np.arange(m), times.size)
@@ -460,6 +470,9 @@ class _Queries:
         self.hz_row = np.flatnonzero(horizon > t0)
         self.hz_t = horizon[self.hz_row]
         self.hz_done = np.zeros(self.hz_row.size, dtype=bool)
+        self.bq_row, self.bq_t = ((np.zeros(0, dtype=np.int64), np.zeros(0)) if blocks is None
+                                  else (np.asarray(blocks[0]), np.maximum(np.asarray(blocks[1], dtype=float), t0)))
+        self.bq_done = np.zeros(self.bq_row.size, dtype=bool)
 
 
 def _answer_at_start(queries: _Queries, state: tuple, out: tuple) -> None:
@@ -477,7 +490,7 @@ def _sweep(system: _Stacked, origin: NDArray[np.float64], begin: NDArray[np.floa
     m, n, r_n, k_ex = system.m, system.n, system.deltas.size, system.src.size
     system.start, system.end = origin, end
     p, acc_i, acc_f = state
-    occ, integrals, flows = out
+    occ, integrals, flows = out[:3]
     n_seg = breaks.size - 1
     live = np.isfinite(begin)
     first_seg = np.where(live, np.clip(np.searchsorted(breaks, np.where(live, begin, 0.0), side="right") - 1,
@@ -493,6 +506,7 @@ def _sweep(system: _Stacked, origin: NDArray[np.float64], begin: NDArray[np.floa
 
     occ_seg, occ_u = assign(queries.occ_row, queries.occ_t, queries.occ_done)
     hz_seg, hz_u = assign(queries.hz_row, queries.hz_t, queries.hz_done)
+    bq_seg, bq_u = assign(queries.bq_row, queries.bq_t, queries.bq_done)
     join_row = np.flatnonzero(live)  # each row's state at its end, for the next sweep
     join_seg, join_u = last_seg[join_row], end[join_row]
     for i in range(n_seg):
@@ -503,13 +517,15 @@ def _sweep(system: _Stacked, origin: NDArray[np.float64], begin: NDArray[np.floa
         seg = _Segment(float(breaks[i]), float(breaks[i + 1]), active, system)
         y = np.concatenate([p[active].ravel(), acc_i[:, active].ravel(), acc_f[:, active].ravel()])
         q_occ, q_hz, q_join = np.flatnonzero(occ_seg == i), np.flatnonzero(hz_seg == i), np.flatnonzero(join_seg == i)
+        q_bq = np.flatnonzero(bq_seg == i)
         a = active.size
         local = np.full(m, -1)
         local[active] = np.arange(a)
         # this segment's queries, (axis value, row) pairs: each reads its own row's block only
-        q_u = np.concatenate([occ_u[q_occ], hz_u[q_hz], join_u[q_join]])
+        q_u = np.concatenate([occ_u[q_occ], hz_u[q_hz], join_u[q_join], bq_u[q_bq]])
         order = np.argsort(q_u, kind="stable")
-        q_rows = local[np.concatenate([queries.occ_row[q_occ], queries.hz_row[q_hz], join_row[q_join]])][order]
+        q_rows = local[np.concatenate([queries.occ_row[q_occ], queries.hz_row[q_hz], join_row[q_join],
+                                       queries.bq_row[q_bq]])][order]
         solved = _solve_segment(seg, y, q_u[order], _row_blocks(a, n, r_n, k_ex, q_rows), work, work.first_step)
         work.first_step = solved.largest_step  # the next segment starts there (the last step is cut short)
         block = np.empty_like(solved.at)
@@ -524,8 +540,10 @@ def _sweep(system: _Stacked, origin: NDArray[np.float64], begin: NDArray[np.floa
             rows = queries.hz_row[q_hz]
             integrals[:, rows] = np.moveaxis(hz[:, n:n * (1 + r_n)].reshape(-1, r_n, n), 0, 1)
             flows[:, rows] = np.moveaxis(hz[:, n * (1 + r_n):].reshape(-1, r_n, k_ex), 0, 1)
+        if q_bq.size:
+            out[3][q_bq] = block[q_occ.size + q_hz.size + q_join.size:]
         if q_join.size:  # rows whose end falls inside the segment: their state there, not at its end
-            jb = block[q_occ.size + q_hz.size:]
+            jb = block[q_occ.size + q_hz.size:q_occ.size + q_hz.size + q_join.size]
             rows = join_row[q_join]
             p[rows] = jb[:, :n]
             acc_i[:, rows] = np.moveaxis(jb[:, n:n * (1 + r_n)].reshape(-1, r_n, n), 0, 1)

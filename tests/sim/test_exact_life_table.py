@@ -29,8 +29,10 @@ EMPIRICAL = f'{{ distribution = "empirical", ages = {list(ENTRY_AGES)}, weights 
 NORMAL = '{ distribution = "normal", mean = 55.0, sd = 8.0, low = 40.0, high = 75.0 }'
 
 
-def _scenario(onset: str, entry_age: str = EMPIRICAL):
-    """Illness-death with recovery and the bundled (invented) life table as background mortality."""
+def _scenario(onset: str, entry_age: str = EMPIRICAL, disease_death_to: str = "dead", extra: str = ""):
+    """Illness-death with recovery and the bundled (invented) life table as background mortality;
+    disease death into "dead" (the background's target) or into a fourth, absorbing state."""
+    fourth = "" if disease_death_to == "dead" else f'[[states]]\nname = "{disease_death_to}"\nabsorbing = true\n'
     text = f"""
 format_version = 1
 name = "life-table test (invented)"
@@ -41,7 +43,7 @@ name = "sick"
 [[states]]
 name = "dead"
 absorbing = true
-[[transitions]]
+{fourth}[[transitions]]
 name = "onset"
 from = "healthy"
 to = "sick"
@@ -57,7 +59,7 @@ rate = 0.3
 [[transitions]]
 name = "disease death"
 from = "sick"
-to = "dead"
+to = "{disease_death_to}"
 clock = "state"
 family = "exponential"
 rate = 0.05
@@ -78,6 +80,7 @@ scale = "age"
 [valuation]
 discount_costs = {DISCOUNT}
 discount_effects = {DISCOUNT}
+{extra}
 """
     return parse_scenario(text, base_dir=SCENARIOS)
 
@@ -90,58 +93,71 @@ def _band_rates() -> dict[str, np.ndarray]:
     return {sex: -np.log1p(-table[f"q_{sex}"].to_numpy()) for sex in ("female", "male")}
 
 
-def _generator(onset: float, background: float) -> np.ndarray:
-    return np.array([[-(onset + background), onset, background],
-                     [0.3, -(0.3 + 0.05 + background), 0.05 + background],
-                     [0.0, 0.0, 0.0]])
+def _generator(onset: float, background: float, split: bool = False) -> np.ndarray:
+    """States healthy, sick, dead (and, with ``split``, dead of disease)."""
+    if not split:
+        return np.array([[-(onset + background), onset, background],
+                         [0.3, -(0.3 + 0.05 + background), 0.05 + background],
+                         [0.0, 0.0, 0.0]])
+    return np.array([[-(onset + background), onset, background, 0.0],
+                     [0.3, -(0.3 + 0.05 + background), background, 0.05],
+                     [0.0, 0.0, 0.0, 0.0], [0.0, 0.0, 0.0, 0.0]])
 
 
-def _expm_reference(a0: float, mu: np.ndarray, times: np.ndarray, horizon: float, delta: float):
+def _expm_reference(a0: float, mu: np.ndarray, times: np.ndarray, horizon: float, delta: float, split: bool = False):
     """Occupancy at ``times`` and (undiscounted, discounted) time in state to ``horizon`` as products of
     matrix exponentials over the bands of attained age, the integrals by Van Loan's block exponential
     (Van Loan 1978, IEEE Trans Autom Control 23(3):395-404)."""
     edges = np.arange(np.floor(a0) + 1, a0 + max(horizon, times.max()) + 1) - a0
     cuts = np.unique(np.concatenate(([0.0], edges, times, [horizon])))
     cuts = cuts[cuts <= max(horizon, times.max())]
-    p = np.array([1.0, 0.0, 0.0])
-    occ, years, disc_years = {0.0: p}, np.zeros(3), np.zeros(3)
+    n = 4 if split else 3
+    p = np.eye(n)[0]
+    occ, years, disc_years = {0.0: p}, np.zeros(n), np.zeros(n)
     for lo, hi in zip(cuts[:-1], cuts[1:]):
-        q = _generator(0.1, mu[int(np.floor(a0 + 0.5 * (lo + hi)))])
+        q = _generator(0.1, mu[int(np.floor(a0 + 0.5 * (lo + hi)))], split)
         if hi <= horizon:
             for rate, acc in ((0.0, years), (delta, disc_years)):
-                block = np.zeros((6, 6))
-                block[:3, :3] = q - rate * np.eye(3)
-                block[:3, 3:] = np.eye(3)
-                acc += np.exp(-rate * lo) * (p @ linalg.expm(block * (hi - lo))[:3, 3:])
+                block = np.zeros((2 * n, 2 * n))
+                block[:n, :n] = q - rate * np.eye(n)
+                block[:n, n:] = np.eye(n)
+                acc += np.exp(-rate * lo) * (p @ linalg.expm(block * (hi - lo))[:n, n:])
         p = p @ linalg.expm(q * (hi - lo))
         occ[float(hi)] = p
     return np.array([occ[float(t)] for t in times]), years, disc_years
 
 
-def test_life_table_background_matches_products_of_matrix_exponentials():
+@pytest.mark.parametrize("split", [False, True], ids=["background factored out", "restarts at band edges"])
+def test_life_table_background_matches_products_of_matrix_exponentials(split):
     # Constant transition hazards and a life-table background: piecewise-constant intensities, so the
     # exact occupancy is a product of matrix exponentials over the bands (docs/methods.md, 'Exact
     # solution'; scipy.linalg.expm the independent reference). Band edges fall at different times
-    # since entry for the two entry ages.
-    model = _scenario('family = "exponential"\nrate = 0.1').model
+    # since entry for the two entry ages. With disease death into the background's target the life
+    # table is factored out of the ODE (sim.reference.factored); with a second absorbing state it is
+    # not, and the solver restarts at its band edges (sim.reference.forward).
+    states = ["healthy", "sick", "dead"] + (["dead of disease"] if split else [])
+    model = _scenario('family = "exponential"\nrate = 0.1', disease_death_to=states[-1] if split else "dead").model
     times = np.array([0.0, 0.4, 1.0, 2.5, 10.0, 20.0, 30.0])
     delta = np.log1p(DISCOUNT)
     sol = solve_exact(model, times, discount_rate=DISCOUNT)
     mu = _band_rates()
-    occ_ref, yrs_ref, dyrs_ref = np.zeros((times.size, 3)), np.zeros(3), np.zeros(3)
+    n = len(states)
+    occ_ref, yrs_ref, dyrs_ref = np.zeros((times.size, n)), np.zeros(n), np.zeros(n)
     for a0, w in zip(ENTRY_AGES, ENTRY_WEIGHTS):
         for sex in ("female", "male"):
-            occ, yrs, dyrs = _expm_reference(a0, mu[sex], times, 100.0 - a0, delta)
+            occ, yrs, dyrs = _expm_reference(a0, mu[sex], times, 100.0 - a0, delta, split)
             occ_ref += 0.5 * w * occ
             yrs_ref += 0.5 * w * yrs
             dyrs_ref += 0.5 * w * dyrs
-    got = sol.occupancy.pivot(index="time", columns="state", values="probability")[["healthy", "sick", "dead"]]
-    # the previous solver (adaptive steps across every band edge) was off by 6e-9 in occupancy and
-    # 7e-9 relative in time in state here; restarting at each edge gives 5e-13 and 1e-15
-    np.testing.assert_allclose(got.to_numpy(), occ_ref, rtol=0, atol=1e-11)
-    tis = sol.time_in_state.set_index("state").loc[["healthy", "sick", "dead"]]
-    np.testing.assert_allclose(tis["years"].to_numpy(), yrs_ref, rtol=1e-11)
-    np.testing.assert_allclose(tis["discounted_years"].to_numpy(), dyrs_ref, rtol=1e-11)
+    got = sol.occupancy.pivot(index="time", columns="state", values="probability")[states]
+    # the first solver (adaptive steps across every band edge) was off by 6e-9 in occupancy and 7e-9
+    # relative in time in state here; restarting at each edge gives 5e-13 and 1e-15 (1e-12 with a
+    # second absorbing state); the factored solve 4e-13 and 7e-16
+    occ_tol, tis_tol = (1e-11, 1e-11) if split else (1e-12, 1e-13)
+    np.testing.assert_allclose(got.to_numpy(), occ_ref, rtol=0, atol=occ_tol)
+    tis = sol.time_in_state.set_index("state").loc[states]
+    np.testing.assert_allclose(tis["years"].to_numpy(), yrs_ref, rtol=tis_tol)
+    np.testing.assert_allclose(tis["discounted_years"].to_numpy(), dyrs_ref, rtol=tis_tol)
 
 
 def _weibull_reference(a0: float, mu: np.ndarray, horizon: float, shape: float, scale: float) -> np.ndarray:
@@ -166,12 +182,14 @@ def test_weibull_onset_with_life_table_matches_tight_reference():
     # The demo's shape: an onset hazard singular at entry (Weibull shape 1.3 on time since entry) with
     # a life-table background; the solver integrates the first START_PHASE years on time since entry
     # and the rest on attained age. Reference: a tighter solve per entry age on time since entry.
+    # The life table is factored out of the ODE (one segment, no restarts); the solve before that
+    # (restarts at every band edge) was within 1.5e-11 of the reference, the factored one 1e-14.
     model = _scenario('family = "weibull"\nshape = 1.3\nscale = 30.0').model
     years = solve_exact(model, [1.0]).time_in_state.set_index("state")["years"]
     mu = _band_rates()
     ref = sum(0.5 * w * _weibull_reference(a0, mu[sex], 100.0 - a0, 1.3, 30.0)
               for a0, w in zip(ENTRY_AGES, ENTRY_WEIGHTS) for sex in ("female", "male"))
-    np.testing.assert_allclose(years[["healthy", "sick", "dead"]].to_numpy(), ref, rtol=1e-10)
+    np.testing.assert_allclose(years[["healthy", "sick", "dead"]].to_numpy(), ref, rtol=1e-12)
 
 
 def test_life_table_solve_restarts_at_shared_band_edges(monkeypatch):
@@ -181,7 +199,8 @@ def test_life_table_solve_restarts_at_shared_band_edges(monkeypatch):
     # at the entry ages, nor past the horizon at age 100); on time since entry only the first
     # START_PHASE years of each entry age add restarts (a count of the solver's restarts, not a
     # timing: speed belongs in benchmarks/).
-    model = _scenario('family = "weibull"\nshape = 1.3\nscale = 30.0', NORMAL).model
+    # (disease death into a state of its own: the background is not factored out of the ODE)
+    model = _scenario('family = "weibull"\nshape = 1.3\nscale = 30.0', NORMAL, disease_death_to="dead of disease").model
     segments = []
     real = forward._solve_segment
 
