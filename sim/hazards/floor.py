@@ -178,7 +178,7 @@ class AtLeastHazard(Hazard):
     def cumhazard_limit(self) -> float:
         j = self._starts.size - 1
         g = self.floor if self._use_floor[j] else self.fit
-        with np.errstate(invalid="ignore", over="ignore"):
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore", under="ignore"):
             tail = g.cumhazard_limit - float(g._cumhazard(np.array(self._starts[j])))
         return float(self._cum[j]) + (math.inf if not tail >= 0.0 else tail)
 

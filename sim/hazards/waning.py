@@ -175,10 +175,10 @@ class WaningHazardRatio(Hazard):
 
     def _ratio_slope(self, t: FloatArray) -> FloatArray:
         """:math:`R'(t)` on the window (``t`` inside ``[start, end]``)."""
-        span = self.end - self.start
+        span = np.float64(self.end - self.start)  # numpy division: a tiny span gives inf, not an exception
         if self.scale == "log":
-            return -self.ratio(t) * (math.log(self.hr) / span)
-        return np.full(np.shape(t), (1.0 - self.hr) / span)
+            return -self.ratio(t) * (np.float64(math.log(self.hr)) / span)
+        return np.full(np.shape(t), np.float64(1.0 - self.hr) / span)
 
     # ---- quadrature on the window ----------------------------------------------------------
     def _integral(self, a: FloatArray, b: FloatArray) -> FloatArray:
@@ -296,7 +296,9 @@ class WaningHazardRatio(Hazard):
             inside = (x[m] + tm <= t1) | ~np.isfinite(used)
             out[m[inside]] = tm[inside]
             go = m[~inside]
-            rem[go] = np.maximum(e[go] - used[~inside], 0.0)
+            with np.errstate(invalid="ignore"):  # inf - inf: an infinite draw stays infinite
+                left = e[go] - used[~inside]
+            rem[go] = np.where(np.isnan(left), np.inf, np.maximum(left, 0.0))
             at[go] = t1
         # piece 2: the window
         if t2 > t1:
@@ -321,22 +323,29 @@ class WaningHazardRatio(Hazard):
         last = edges.size - 2
         k = np.clip(np.searchsorted(edges, a, side="right") - 1, 0, last)
         nxt = edges[k + 1]
-        in_panel = cum[k + 1] - cum[k]  # what is left of a's own panel: all of it from its start (t1)
-        off = a != edges[k]
-        if np.any(off):
-            in_panel[off] = self._integral(a[off], nxt[off])
-        rest = cum[-1] - cum[k + 1]  # the panels after it
+        with np.errstate(invalid="ignore"):  # inf - inf where the integral overflowed: +inf below
+            in_panel = cum[k + 1] - cum[k]  # what is left of a's own panel: all of it from its start (t1)
+            off = a != edges[k]
+            if np.any(off):
+                in_panel[off] = self._integral(a[off], nxt[off])
+            rest = cum[-1] - cum[k + 1]  # the panels after it
+            in_panel = np.where(np.isnan(in_panel), np.inf, in_panel)
+            rest = np.where(k == last, 0.0, np.where(np.isnan(rest), np.inf, rest))
+            left = r - in_panel - rest  # NaN only for an infinite draw: +inf
+            left = np.where(np.isnan(left), np.inf, np.maximum(left, 0.0))
         tau = np.full(a.shape, np.nan)
-        left = np.maximum(r - in_panel - rest, 0.0)
         same = r < in_panel
         if np.any(same):
             tau[same] = self._solve(a[same], r[same], nxt[same] - a[same])
-        later = ~same & (r - in_panel < rest)
+        with np.errstate(invalid="ignore"):  # inf - inf for an infinite draw: not later (NaN < x is False)
+            later = ~same & (r - in_panel < rest)
         if np.any(later):
             y = cum[k[later] + 1] + (r[later] - in_panel[later])  # the target on the panels' scale
             j = np.clip(np.searchsorted(cum, y, side="right") - 1, k[later] + 1, last)
             s = edges[j]
-            tau[later] = (s - a[later]) + self._solve(s, np.maximum(y - cum[j], 0.0), edges[j + 1] - s)
+            with np.errstate(invalid="ignore"):  # inf - inf: the integral overflowed there; the event is at once
+                target = np.nan_to_num(np.maximum(y - cum[j], 0.0), nan=0.0, posinf=np.inf)
+            tau[later] = (s - a[later]) + self._solve(s, target, edges[j + 1] - s)
         return tau, left
 
     def _solve(self, a: FloatArray, r: FloatArray, width: FloatArray) -> FloatArray:
@@ -366,7 +375,7 @@ class WaningHazardRatio(Hazard):
             tol = ROOT_RTOL * (aa + ta) + 1e-300
             converged = np.abs(step) <= tol  # a final Newton step (quadratic convergence): take it
             inside = np.isfinite(newton) & (newton >= la) & (newton <= ha)
-            new = np.where(inside | converged, newton, 0.5 * (la + ha))
+            new = np.where(inside | converged, np.clip(newton, la, ha), 0.5 * (la + ha))
             done = converged | (ha - la <= tol)
             tau[active] = new
             active = active[~done]

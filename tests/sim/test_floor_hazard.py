@@ -130,3 +130,23 @@ def test_never_crossing_keeps_the_larger_everywhere():
     flipped = AtLeastHazard(Exponential(0.02), Exponential(0.05), 70.0)
     np.testing.assert_allclose(flipped.cumhazard([1.0, 50.0]), [0.05, 2.5], rtol=1e-15)
     assert CROSSING_TOL < 1e-9
+
+
+EXTREME = [Weibull(0.1, 1e-3), Gompertz(1e-300, 3.0), Gompertz(10.0, 2.0), Gompertz(1.0, -5.0), Exponential(0.0),
+           Exponential(1e200), LogNormal(-20.0, 0.01), PiecewiseConstant((0.0, 1e-9, 500.0), (0.0, 1e10, 0.0)),
+           ShiftedClock(GOMPERTZ, 130.0)]
+
+
+@pytest.mark.parametrize("fit", EXTREME, ids=lambda b: repr(b)[:40])
+def test_extreme_pairs_stay_quiet_and_never_nan(fit):
+    # no warning (errors here), no NaN, no negative time for any pair and range
+    x = np.array([0.0, 1e-300, 1e-9, 0.7, 2.0, 99.5, 1e6])
+    e = np.array([0.0, 1e-300, 1e-12, 0.5, 1.0, 50.0, np.inf])
+    xx, ee = np.meshgrid(x, e)
+    for floor in EXTREME:
+        for until in (1e-9, 1000.0):
+            w = AtLeastHazard(fit, floor, until)
+            t = w.conditional_time(xx, ee)
+            assert not np.any(np.isnan(t)) and np.all(t >= 0.0)
+            assert not np.any(np.isnan(w.cumhazard(np.append(x, np.inf)))) and not math.isnan(w.cumhazard_limit)
+            assert not np.any(np.isnan(w.hazard(x)))

@@ -185,3 +185,27 @@ def test_bad_parameters_are_named(kwargs, key, rule):
     assert err.value.problems[0].path == (key,)
     assert rule in err.value.problems[0].rule
     assert key in str(err.value)
+
+
+EXTREME_BASES = [Weibull(0.1, 1e-3), Weibull(5.0, 1e3), Gompertz(1e-300, 3.0), Gompertz(10.0, 2.0), Exponential(1e200),
+                 LogNormal(-20.0, 0.01), Gamma(0.01, 1e-5), LogLogistic(20.0, 1e-4),
+                 PiecewiseConstant((0.0, 1e-9, 500.0), (0.0, 1e10, 0.0))]
+
+
+@pytest.mark.parametrize("base", EXTREME_BASES, ids=lambda b: repr(b)[:40])
+def test_extreme_hazards_ratios_and_windows_stay_quiet_and_never_nan(base):
+    # overflowing and underflowing hazards, ratios and windows: no warning (they are errors here), no
+    # NaN, no negative time, H non-decreasing
+    x = np.array([0.0, 1e-300, 1e-9, 0.7, 2.0, 999.5, 1e6])
+    e = np.array([0.0, 1e-300, 1e-12, 0.5, 1.0, 50.0, np.inf])
+    xx, ee = np.meshgrid(x, e)
+    for (hr, scale), (t1, t2) in [((1e-300, "log"), (0.0, 1e-12)), ((1e300, "log"), (0.0, 1000.0)),
+                                  ((0.0, "hr"), (1e-300, 2e-300)), ((1e300, "hr"), (999.0, 1000.0)),
+                                  ((0.5, "log"), (0.5, 3.0))]:
+        w = WaningHazardRatio(base, hr, t1, t2, scale)
+        t = w.conditional_time(xx, ee)
+        h = w.cumhazard(np.append(x, np.inf))
+        assert not np.any(np.isnan(t)) and np.all(t >= 0.0)
+        assert not np.any(np.isnan(h)) and not np.any(np.isnan(w.hazard(x))) and not math.isnan(w.cumhazard_limit)
+        with np.errstate(invalid="ignore"):  # inf - inf in the check itself
+            assert not np.any(np.diff(h) < 0.0)
