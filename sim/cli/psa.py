@@ -119,6 +119,9 @@ def _print_summary(out: TextIO, scenario: Scenario, result, summaries: dict[str,
     out.write(f"{model.name}: {s['draws']:,} parameter draws of {len(s['parameters'])} uncertain parameters, "
               f"{s['patients']:,} patients per draw and strategy (seed {s['seed']}, {s['workers']} workers"
               f"{', scheduler ' + s['scheduler'] if s['scheduler'] else ''}) in {seconds:.1f} s\nOutput: {folder}/\n")
+    if not s["parameters"]:
+        out.write("Note: the scenario declares no [[uncertainty]] inputs: every draw has the point values (the draws "
+                  "differ only by their patients)\n")
     for note in result.notes:
         out.write(f"Note: {note}\n")
     means = result.table.groupby(["method", "strategy"], sort=False)[["costs_discounted", "qalys_discounted"]].mean()

@@ -182,3 +182,11 @@ def test_ctrl_c_while_writing_leaves_nothing(scenario, tmp_path, monkeypatch):
     assert len(calls) == 3
     assert sorted(p.name for p in tmp_path.iterdir()) == ["out", "psa_test.toml"]
     assert [p.name for p in out.iterdir()] == ["keep.txt"]
+
+
+def test_a_scenario_without_uncertainty_says_so(tmp_path, capsys):
+    path = tmp_path / "plain.toml"
+    path.write_text(SCENARIO.split("[[uncertainty]]")[0], encoding="utf-8")
+    assert _run(path, tmp_path / "out", "--cycles", "none") == 0
+    assert "declares no [[uncertainty]] inputs" in capsys.readouterr().out
+    assert pd.read_csv(tmp_path / "out" / "parameters.csv").columns.tolist() == ["draw"]
