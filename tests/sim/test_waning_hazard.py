@@ -209,3 +209,20 @@ def test_extreme_hazards_ratios_and_windows_stay_quiet_and_never_nan(base):
         assert not np.any(np.isnan(h)) and not np.any(np.isnan(w.hazard(x))) and not math.isnan(w.cumhazard_limit)
         with np.errstate(invalid="ignore"):  # inf - inf in the check itself
             assert not np.any(np.diff(h) < 0.0)
+
+
+def test_a_strategy_ratio_waning_on_a_transition_ratio_that_wanes():
+    # nested windows (the transition's own effect 1 -> 3, the strategy's 2 -> 6): quad of the product
+    base = Weibull(shape=0.6, scale=10.0)
+    inner = WaningHazardRatio(base, 1.5, 1.0, 3.0, "hr")
+    outer = WaningHazardRatio(inner, 0.5, 2.0, 6.0, "log")
+    for t in (0.5, 2.5, 4.0, 7.0, 19.0):
+        pts = [p for p in (1.0, 2.0, 3.0, 6.0) if p < t]
+        ref = integrate.quad(lambda u: ratio(u, 0.5, 2.0, 6.0, "log") * ratio(u, 1.5, 1.0, 3.0, "hr")
+                             * float(base.hazard(u)), 0.0, t, points=pts or None, epsrel=1e-12, limit=200)[0]
+        assert float(outer.cumhazard(t)) == pytest.approx(ref, rel=1e-10)
+    x = np.linspace(0.0, 15.0, 301)
+    e = np.random.default_rng(3).standard_exponential(301)
+    t = outer.conditional_time(x, e)
+    end = x + t
+    assert np.all(np.abs(outer.cumhazard(end) - outer.cumhazard(x) - e) <= 64 * EPS * outer.cumhazard(end) + 1e-12 * e)
