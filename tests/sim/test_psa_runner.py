@@ -112,3 +112,19 @@ def test_only_the_runner_module_imports_dask():
             if any(n.split(".")[0] in ("dask", "distributed") for n in names):
                 found.add(path.relative_to(root.parent).as_posix())
     assert found == {"sim/psa/dask_runner.py"}
+
+
+def test_draw_i_does_not_depend_on_the_number_of_draws():
+    # the scenario's own [[uncertainty]] inputs (sim.uncertainty.draw_table keyed by seed and names)
+    # and patients d*n.. for draw d: the first draws of a longer analysis are the same rows
+    from sim.io import parse_scenario
+
+    from .test_psa_cli import SCENARIO
+
+    scenario = parse_scenario(SCENARIO)
+    short = run_psa(scenario, 4, 50, workers=1, cycle_methods=cycle_methods(["competing-exit"], [1.0]))
+    long = run_psa(scenario, 9, 50, workers=1, cycle_methods=cycle_methods(["competing-exit"], [1.0]), block_draws=2)
+    assert short.values.shape == (4, 2)
+    head = long.table[long.table["draw"] < 4].reset_index(drop=True)
+    assert table_hash(head) == table_hash(short.table)
+    assert long.values.iloc[:4].equals(short.values)
