@@ -236,10 +236,10 @@ class WaningHazardRatio(Hazard):
     # ---- the Hazard interface --------------------------------------------------------------
     @property
     def cumhazard_limit(self) -> float:
-        with np.errstate(invalid="ignore"):
-            tail = self.base.cumhazard_limit - self._h0_end
-        if not tail >= 0.0:  # inf - inf: H0(t2) overflowed; the limit is infinite then
+        tail = self.base.cumhazard_limit - self._h0_end
+        if math.isnan(tail):  # inf - inf: H0(t2) overflowed; the limit is infinite then
             tail = math.inf
+        tail = max(tail, 0.0)  # an improper base already at its limit by t2 (rounding)
         return self._at_start + float(self._cum[-1]) + tail
 
     def params(self) -> dict[str, Any]:
