@@ -180,7 +180,7 @@ class AtLeastHazard(Hazard):
         g = self.floor if self._use_floor[j] else self.fit
         with np.errstate(divide="ignore", invalid="ignore", over="ignore", under="ignore"):
             tail = g.cumhazard_limit - float(g._cumhazard(np.array(self._starts[j])))
-        return float(self._cum[j]) + (math.inf if not tail >= 0.0 else tail)
+        return float(self._cum[j]) + (math.inf if math.isnan(tail) else max(tail, 0.0))  # NaN: inf - inf
 
     def params(self) -> dict[str, Any]:
         out: dict[str, Any] = {"until": self.until, "fit.family": self.fit.family, "floor.family": self.floor.family}
