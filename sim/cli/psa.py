@@ -98,7 +98,7 @@ def psa_command(scenario: Scenario, args: argparse.Namespace, out: TextIO) -> in
     t0 = time.perf_counter()
     try:
         result = run_psa(scenario, draws, patients, workers=workers, scheduler=args.scheduler,
-                         progress=EtaProgress(), cycle_methods=methods)
+                         progress=EtaProgress(), cycle_methods=methods, exact=not args.no_exact)
     except SimulationCancelled:
         raise KeyboardInterrupt from None
     summaries = psa_summaries(result.table, model)
@@ -159,6 +159,9 @@ def register(sub) -> None:
     p.add_argument("--scheduler", help="address of an existing Dask scheduler, e.g. tcp://host:8786")
     p.add_argument("--cycles", help="cycle-based approximations per draw: 'none' or 'conversion|years|correction,...' "
                                     "(default: each conversion at the longest run.cycle_lengths, half-cycle)")
+    p.add_argument("--no-exact", action="store_true",
+                   help="skip the exact (Kolmogorov) result per draw (Markov models; time-varying hazards solve the "
+                        "forward equations draw by draw, tens of milliseconds each)")
     p.add_argument("--output", help="output folder (default out/<scenario name>-psa)")
     p.add_argument("--force", action="store_true", help="replace an existing output folder")
     p.set_defaults(func=psa_command)

@@ -187,6 +187,7 @@ def test_ctrl_c_while_writing_leaves_nothing(scenario, tmp_path, monkeypatch):
 def test_a_scenario_without_uncertainty_says_so(tmp_path, capsys):
     path = tmp_path / "plain.toml"
     path.write_text(SCENARIO.split("[[uncertainty]]")[0], encoding="utf-8")
-    assert _run(path, tmp_path / "out", "--cycles", "none") == 0
+    assert _run(path, tmp_path / "out", "--cycles", "none", "--no-exact") == 0
     assert "declares no [[uncertainty]] inputs" in capsys.readouterr().out
+    assert set(pd.read_parquet(tmp_path / "out" / "draws.parquet")["method"]) == {"simulated"}
     assert pd.read_csv(tmp_path / "out" / "parameters.csv").columns.tolist() == ["draw"]
