@@ -186,3 +186,26 @@ def test_too_large_a_png_is_refused_with_a_message(qtbot, monkeypatch, tmp_path,
         qtbot.mouseClick(bar.png_button, Qt.MouseButton.LeftButton)
     assert "too large" in failed.args[0]
     assert not target.exists()
+
+
+def test_png_at_another_size_keeps_the_zoom_and_the_window(qtbot, monkeypatch, tmp_path, plot):
+    # Zoomed in, then saved for a slide: the saved plot shows the same data range (the axes are laid
+    # out again for the new shape), and the window's plot keeps its range and size.
+    plot.plot.setXRange(10.0, 30.0, padding=0)
+    plot.plot.setYRange(0.3, 0.9, padding=0)
+    qtbot.wait(100)
+    before = (plot.plot.viewRange(), plot.graphics.size())
+    shown_during = []
+    real = export_plot.svg_bytes
+
+    def spy(widget, title=""):
+        shown_during.append(plot.plot.viewRange())
+        return real(widget, title)
+
+    monkeypatch.setattr(export_plot, "svg_bytes", spy)
+    _choose(qtbot, plot.save_bar.size_choice, "slide")
+    image = _save(qtbot, monkeypatch, plot, tmp_path / "slide.png")
+    _assert_drawn(image)
+    assert shown_during == [before[0]]
+    assert (plot.plot.viewRange(), plot.graphics.size()) == before
+    assert image.width() / image.height() == pytest.approx(before[1].width() / before[1].height(), rel=0.01)
