@@ -70,14 +70,19 @@ class DrawExit:
         """The exit across draws (``exits[d]`` is draw d's)."""
         first = exits[0]
         unique: list[Hazard] = []
-        where: dict[Hazard, int] = {}
+        where: dict[object, int] = {}
         code = np.empty((len(exits), len(first.hazards)), dtype=np.int64)
         for d, ex in enumerate(exits):
             for c, h in enumerate(ex.hazards):
-                if h not in where:
-                    where[h] = len(unique)
+                try:  # equal hazards (frozen data classes) are evaluated once
+                    key: object = (0, h)
+                    hash(key)
+                except TypeError:  # a hazard that cannot be hashed: by identity
+                    key = (1, id(h))
+                if key not in where:
+                    where[key] = len(unique)
                     unique.append(h)
-                code[d, c] = where[h]
+                code[d, c] = where[key]
         sex_specific = any(len(set(map(id, ex.hazards))) > 1 for ex in exits)
         fields = dict(index=first.index, slot=first.slot, name=first.name, source=first.source, target=first.target,
                       clock=first.clock, hazards=first.hazards, is_background=first.is_background,
