@@ -175,6 +175,10 @@ class MainWindow(QMainWindow):
         self.redo_action.setShortcuts(QKeySequence.StandardKey.Redo)  # Ctrl+Y and Ctrl+Shift+Z
         edit_menu.addAction(self.undo_action)
         edit_menu.addAction(self.redo_action)
+        evidence_menu = self.menuBar().addMenu("E&vidence")
+        self.fit_data_action = evidence_menu.addAction("&Fit from data\u2026", self.show_fit_from_data)
+        self.fit_data_action.setToolTip("Fit survival curves to patient data or published curves and put a fit "
+                                        "into a transition")
         help_menu = self.menuBar().addMenu("&Help")
         self.about_action = help_menu.addAction("&About HazardTrace", self.show_about)
         self.field_shortcuts = FieldShortcuts(self, [self.undo_action, self.redo_action, self.new_action,
@@ -474,6 +478,16 @@ class MainWindow(QMainWindow):
             self.document.discard_recovery()
             return True
         return False
+
+    def show_fit_from_data(self) -> QMainWindow:
+        """Evidence > Fit from data: the window of :mod:`gui.evidence` on this scenario (one, reused)."""
+        from gui.evidence import EvidenceWindow  # loaded on first use
+
+        if getattr(self, "evidence_window", None) is None:
+            self.evidence_window = EvidenceWindow(self.document, self)
+        self.evidence_window.show()
+        self.evidence_window.raise_()
+        return self.evidence_window
 
     def show_about(self) -> AboutDialog:
         dialog = AboutDialog(self)

@@ -1,0 +1,160 @@
+"""Putting a fit into the open scenario: the transition's hazard (``family``, ``unit`` and the
+family's parameters), optionally its covariance as a ``[[uncertainty]]`` multivariate-normal group,
+and the explicit ``at_least_background`` choice (docs/scenario-format.md, ``[[transitions]]`` and
+``[[uncertainty]]``). No Qt here: :func:`fit_edit` returns a change that
+:meth:`gui.document.ScenarioDocument.edit` applies to the tomlkit document as one undoable step,
+keeping the user's comments.
+
+The group is written on the fit's own estimation scale (positive parameters as logarithms, the
+scale on which the observed information was inverted, ``transform = "log"``), so the draws keep each
+parameter inside its domain. Its mean and covariance are the fit's estimates mapped back through
+the fit's own Jacobian (:meth:`sim.evidence.FamilySpec.jacobian`): the inverse of the delta-method
+step :mod:`sim.evidence.fitting` took.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+from tomlkit.items import Comment, Whitespace
+
+from gui.editors.hazard_form import ALL_HAZARD_KEYS
+from gui.toml_edit import KeyPath, append_table, get_item, remove_table, remove_value, set_value, to_plain
+from sim.evidence import Fit
+from sim.problems import format_key
+
+__all__ = ["FitChoice", "hazard_values", "uncertainty_group", "fit_edit", "parameter_paths"]
+
+
+@dataclass(frozen=True)
+class FitChoice:
+    """What the user asked to apply.
+
+    ``arm`` is ``"reference"`` (the fit's hazard) or ``"compared"`` (the second arm's hazard in the
+    same family, :meth:`sim.evidence.Fit.compared_parameters`); ``covariance`` asks for the
+    ``[[uncertainty]]`` group (reference arm only); ``at_least_background`` is written as given
+    (``True`` sets the key, ``False`` removes it).
+    """
+
+    transition: int
+    arm: str = "reference"
+    covariance: bool = False
+    at_least_background: bool = False
+
+
+def hazard_values(fit: Fit, arm: str = "reference") -> dict[str, Any]:
+    """The transition keys of the fit: ``family``, ``unit`` and the parameters (lists for piecewise)."""
+    params = fit.compared_parameters() if arm == "compared" else fit.parameters
+    if params is None:
+        raise ValueError("the fit has one arm: there is no compared arm")
+    out: dict[str, Any] = {"family": fit.family, "unit": fit.unit}
+    for key, value in params.items():
+        out[key] = [float(v) for v in value] if isinstance(value, (tuple, list)) else float(value)
+    return out
+
+
+def parameter_paths(fit: Fit, transition: int) -> list[KeyPath]:
+    """Key paths of the fitted hazard parameters in ``[[transitions]]`` element ``transition``
+    (piecewise ``rates[i]`` as ``("rates", i)``), in the order of the fit's estimates."""
+    assert fit.spec is not None
+    paths: list[KeyPath] = []
+    for name in fit.spec.names:
+        base, _, index = name.partition("[")
+        paths.append(("transitions", transition, base, int(index[:-1])) if index else ("transitions", transition, name))
+    return paths
+
+
+def uncertainty_group(fit: Fit, transition: int) -> dict[str, Any] | None:
+    """The ``[[uncertainty]]`` table for the reference arm's parameters, or None when the fit has no
+    covariance (not converged, or the observed information not positive definite)."""
+    if fit.covariance is None or fit.spec is None:
+        return None
+    spec = fit.spec
+    p = len(spec.names)
+    values = np.asarray(fit.estimates[:p], dtype=np.float64)
+    theta = spec.to_theta(values)
+    jac = spec.jacobian(theta)  # d(value)/d(theta), diagonal
+    inv = np.linalg.inv(jac)
+    cov = inv @ np.asarray(fit.covariance)[:p, :p] @ inv.T
+    cov = 0.5 * (cov + cov.T)
+    return {"parameters": [format_key(path) for path in parameter_paths(fit, transition)],
+            "distribution": "multivariate_normal",
+            "mean": [float(v) for v in theta],
+            "covariance": [[float(v) for v in row] for row in cov],
+            "transform": ["log" if pos else "identity" for pos in spec.positive],
+            "description": f"{fit.label} fit: maximum likelihood, {fit.n} patients, {fit.n_events} events; "
+                           f"covariance from the observed information"}
+
+
+def _names_hazard_of(entry: Any, transition: int) -> bool:
+    """True when an ``[[uncertainty]]`` table names a hazard parameter of the transition."""
+    prefix = format_key(("transitions", transition)) + "."
+    plain = to_plain(entry) if entry is not None else {}
+    if not isinstance(plain, dict):
+        return False
+    names = plain.get("parameters", [plain.get("parameter")])
+    for name in names if isinstance(names, list) else []:
+        if isinstance(name, str) and name.startswith(prefix):
+            key = name[len(prefix):].split("[")[0].split(".")[0]
+            if key in ALL_HAZARD_KEYS:
+                return True
+    return False
+
+
+def _pop_trailing_trivia(table: Any) -> list[tuple[Any, Any]]:
+    """Remove and return the comments and blank lines at the end of a table's body: they belong to
+    what follows the table in the file, so keys added to the table go above them."""
+    body = table.value.body
+    tail: list[tuple[Any, Any]] = []
+    while body and body[-1][0] is None and isinstance(body[-1][1], (Whitespace, Comment)):
+        tail.insert(0, body.pop())
+    return tail
+
+
+def fit_edit(fit: Fit, choice: FitChoice, name: str = "") -> tuple[Callable[[Any], None], str]:
+    """The change to the scenario document and its undo label.
+
+    The transition's previous hazard keys are removed (its name, states, clock, hazard ratio and
+    waning stay); ``[[uncertainty]]`` tables that named its previous hazard parameters are removed
+    (they described a hazard that is no longer there); with ``covariance``, the fit's group is added.
+    """
+    if choice.covariance and choice.arm != "reference":
+        raise ValueError("the covariance group is written for the reference arm's hazard only")
+    values = hazard_values(fit, choice.arm)
+    group = uncertainty_group(fit, choice.transition) if choice.covariance else None
+    if choice.covariance and group is None:
+        raise ValueError(f"the {fit.label} fit has no covariance ({fit.message})")
+    i = choice.transition
+
+    def change(doc: Any) -> None:
+        table = get_item(doc, ("transitions", i))
+        if table is None:
+            raise KeyError(format_key(("transitions", i)))
+        for key in [k for k in list(table.keys()) if k in ALL_HAZARD_KEYS and k not in values]:
+            remove_value(doc, ("transitions", i, key))
+        if not choice.at_least_background:
+            remove_value(doc, ("transitions", i, "at_least_background"))
+        tail = _pop_trailing_trivia(table)  # comments that introduce the next section stay below the new keys
+        for key, value in values.items():
+            set_value(doc, ("transitions", i, key), value)
+        if choice.at_least_background:
+            set_value(doc, ("transitions", i, "at_least_background"), True)
+        table.value.body.extend(tail)
+        entries = get_item(doc, ("uncertainty",))
+        if entries is not None:
+            for j in reversed(range(len(entries))):
+                if _names_hazard_of(entries[j], i):
+                    remove_table(doc, ("uncertainty",), j)
+            if len(get_item(doc, ("uncertainty",))) == 0:
+                remove_value(doc, ("uncertainty",))
+        if group is not None:
+            append_table(doc, ("uncertainty",), group)
+
+    arm = f" ({fit.effect.compared} arm)" if choice.arm == "compared" and fit.effect is not None else ""
+    where = f"transition {name!r}" if name else f"transition {i}"
+    label = f"Fit {fit.label}{arm} to {where}" + (" with its covariance" if group is not None else "")
+    return change, label
+
