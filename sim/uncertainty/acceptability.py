@@ -10,7 +10,8 @@ from typing import Sequence
 import numpy as np
 import pandas as pd
 
-from sim.uncertainty._tables import COSTS, EFFECTS, draw_arrays, net_benefits, wtp_grid
+from sim.uncertainty._tables import COSTS, EFFECTS
+from sim.uncertainty.net_benefit import _net_benefits_over_wtp
 
 __all__ = ["acceptability_curve", "acceptability_frontier", "best_indicator"]
 
@@ -54,9 +55,8 @@ def acceptability_curve(per_draw: pd.DataFrame, wtp: float | Sequence[float], *,
     Claxton & Sculpher 2001, Health Econ 10:779-787; van Hout et al. 1994, from memory). For two
     strategies with normal incremental net benefit ``N(μ, σ²)`` this is ``Φ(μ/σ)``.
     """
-    arrays = draw_arrays(per_draw, [costs, effects])
-    grid = wtp_grid(wtp)
-    p = best_indicator(net_benefits(arrays, grid, costs, effects)).mean(axis=1)  # (n_wtp, D)
+    arrays, grid, nb = _net_benefits_over_wtp(per_draw, wtp, costs, effects)
+    p = best_indicator(nb).mean(axis=1)  # (n_wtp, D)
     n = len(arrays.draws)
     d = len(arrays.strategies)
     return pd.DataFrame({
@@ -85,9 +85,7 @@ def acceptability_frontier(per_draw: pd.DataFrame, wtp: float | Sequence[float],
     highest acceptability curve where the distribution of net benefit is skewed (Fenwick, Claxton &
     Sculpher 2001, Health Econ 10:779-787).
     """
-    arrays = draw_arrays(per_draw, [costs, effects])
-    grid = wtp_grid(wtp)
-    nb = net_benefits(arrays, grid, costs, effects)
+    arrays, grid, nb = _net_benefits_over_wtp(per_draw, wtp, costs, effects)
     mean_nb = nb.mean(axis=1)  # (n_wtp, D)
     best = mean_nb.argmax(axis=1)
     p = best_indicator(nb).mean(axis=1)[np.arange(len(grid)), best]

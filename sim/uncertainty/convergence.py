@@ -10,6 +10,7 @@ import numpy as np
 import pandas as pd
 
 from sim.uncertainty._tables import COSTS, EFFECTS, draw_arrays, wtp_grid
+from sim.uncertainty.net_benefit import _increments
 
 __all__ = ["running_mean", "inb_convergence"]
 
@@ -57,15 +58,11 @@ def inb_convergence(per_draw: pd.DataFrame, comparator: str, wtp: float | Sequen
     independent, so the MCSE is that of a mean of independent values.
     """
     arrays = draw_arrays(per_draw, [costs, effects])
-    base = arrays.index_of(comparator)
+    increments = _increments(arrays, comparator, costs, effects)
     grid = wtp_grid(wtp)
     n = len(arrays.draws)
     parts = []
-    for j, strategy in enumerate(arrays.strategies):
-        if j == base:
-            continue
-        de = arrays.values[effects][:, j] - arrays.values[effects][:, base]
-        dc = arrays.values[costs][:, j] - arrays.values[costs][:, base]
+    for strategy, dc, de in increments:
         mean, mcse = running_mean(grid[:, None] * de[None] - dc[None])
         parts.append(pd.DataFrame({
             "strategy": strategy, "comparator": comparator, "wtp": np.repeat(grid, n),

@@ -13,9 +13,35 @@ from typing import Sequence
 import numpy as np
 import pandas as pd
 
-from sim.uncertainty._tables import COSTS, EFFECTS, draw_arrays, net_benefits, wtp_grid
+from sim.uncertainty._tables import COSTS, EFFECTS, DrawArrays, draw_arrays, net_benefits, wtp_grid
 
 __all__ = ["net_benefit", "incremental_results", "incremental_analysis", "ce_plane"]
+
+
+def _net_benefits_over_wtp(per_draw: pd.DataFrame, wtp: float | Sequence[float], costs: str,
+                           effects: str) -> tuple[DrawArrays, np.ndarray, np.ndarray]:
+    """What every statistic over a willingness-to-pay grid starts from: the checked per-draw arrays,
+    the grid, and the net benefits ``NB_{i,d}(λ) = λ E_{i,d} - C_{i,d}`` as an (n_wtp, N, D) array.
+    """
+    arrays = draw_arrays(per_draw, [costs, effects])
+    grid = wtp_grid(wtp)
+    return arrays, grid, net_benefits(arrays, grid, costs, effects)
+
+
+def _increments(arrays: DrawArrays, comparator: str, costs: str,
+                effects: str) -> list[tuple[str, np.ndarray, np.ndarray]]:
+    """Per-draw increments against ``comparator``: ``(strategy, ΔC_i, ΔE_i)`` for each other strategy,
+    in strategy order, with ``ΔC_i = C_{i,d} - C_{i,0}`` and ``ΔE_i = E_{i,d} - E_{i,0}``.
+
+    Raises
+    ------
+    ValidationError
+        When ``comparator`` is not one of the strategies (checked here, before anything else is).
+    """
+    base = arrays.index_of(comparator)
+    c, e = arrays.values[costs], arrays.values[effects]
+    return [(strategy, c[:, j] - c[:, base], e[:, j] - e[:, base])
+            for j, strategy in enumerate(arrays.strategies) if j != base]
 
 
 def net_benefit(per_draw: pd.DataFrame, wtp: float | Sequence[float], *, costs: str = COSTS,
@@ -38,9 +64,7 @@ def net_benefit(per_draw: pd.DataFrame, wtp: float | Sequence[float], *, costs: 
     ``NB_d(λ) = λ E_d - C_d`` (net monetary benefit; Stinnett & Mullahy 1998, from memory;
     docs/methods.md, 'Net benefit and incremental results').
     """
-    arrays = draw_arrays(per_draw, [costs, effects])
-    grid = wtp_grid(wtp)
-    nb = net_benefits(arrays, grid, costs, effects)
+    arrays, grid, nb = _net_benefits_over_wtp(per_draw, wtp, costs, effects)
     n_wtp, n, d = nb.shape
     return pd.DataFrame({
         "wtp": np.repeat(grid, n * d),
@@ -79,13 +103,8 @@ def incremental_results(per_draw: pd.DataFrame, comparator: str, *, costs: str =
     follow common practice, no source.
     """
     arrays = draw_arrays(per_draw, [costs, effects])
-    base = arrays.index_of(comparator)
     rows = []
-    for j, strategy in enumerate(arrays.strategies):
-        if j == base:
-            continue
-        dc = arrays.values[costs][:, j] - arrays.values[costs][:, base]
-        de = arrays.values[effects][:, j] - arrays.values[effects][:, base]
+    for strategy, dc, de in _increments(arrays, comparator, costs, effects):
         mc, me = float(dc.mean()), float(de.mean())
         quadrant = _quadrant(mc, me)
         icer = mc / me if quadrant in ("NE", "SW") else np.nan
@@ -188,13 +207,8 @@ def ce_plane(per_draw: pd.DataFrame, comparator: str, *, costs: str = COSTS, eff
     incremental results').
     """
     arrays = draw_arrays(per_draw, [costs, effects])
-    base = arrays.index_of(comparator)
     parts = []
-    for j, strategy in enumerate(arrays.strategies):
-        if j == base:
-            continue
-        de = arrays.values[effects][:, j] - arrays.values[effects][:, base]
-        dc = arrays.values[costs][:, j] - arrays.values[costs][:, base]
+    for strategy, dc, de in _increments(arrays, comparator, costs, effects):
         n = len(de)
         parts.append(pd.DataFrame({
             "strategy": [strategy] * (n + 1), "comparator": [comparator] * (n + 1),

@@ -11,7 +11,8 @@ import numpy as np
 import pandas as pd
 
 from sim.problems import ValidationError
-from sim.uncertainty._tables import COSTS, EFFECTS, check_positive, draw_arrays, net_benefits, wtp_grid
+from sim.uncertainty._tables import COSTS, EFFECTS, check_positive
+from sim.uncertainty.net_benefit import _net_benefits_over_wtp
 
 __all__ = ["evpi", "evpi_from_net_benefit", "population_factor", "population_evpi"]
 
@@ -70,9 +71,8 @@ def evpi(per_draw: pd.DataFrame, wtp: float | Sequence[float], *, costs: str = C
     ``L(z) = φ(z) - z (1 - Φ(z))`` (Raiffa & Schlaifer 1961, Applied Statistical Decision Theory;
     Claxton 1999, from memory).
     """
-    arrays = draw_arrays(per_draw, [costs, effects])
-    grid = wtp_grid(wtp)
-    value, mcse, best = evpi_from_net_benefit(net_benefits(arrays, grid, costs, effects))
+    arrays, grid, nb = _net_benefits_over_wtp(per_draw, wtp, costs, effects)
+    value, mcse, best = evpi_from_net_benefit(nb)
     return pd.DataFrame({"wtp": grid, "evpi": value, "mcse": mcse,
                          "optimal_strategy": np.asarray(arrays.strategies, dtype=object)[best]})
 
