@@ -243,15 +243,11 @@ def test_non_convergence_is_reported_not_nan():
     assert "did not converge" in written["not_written"]["lognormal"]
 
 
-def test_fragment_keys_read_back_by_the_scenario_reader(tmp_path, rossi_data):
-    """The [chosen] keys pasted into a transition give the fitted hazard (months -> years by the reader)."""
-    tomllib = pytest.importorskip("tomllib")
-    fit = fit_family(SurvivalData.from_arrays(rossi_data.time / 4.0, rossi_data.event, unit="months"), "weibull")
-    chosen = tomllib.loads(fragment_text([fit]))["chosen"]
-    assert chosen == {"family": "weibull", "unit": "months", **fit.parameters}
+def _load_pasted_fragment(tmp_path, hazard_keys: str, more_tables: str = ""):
+    """A fit fragment's hazard keys pasted into the death transition of a two-state scenario (alive ->
+    dead, everyone entering at 50, 10 years), with ``more_tables`` after it: the scenario as read back."""
     from sim.io import load_scenario
 
-    keys = "\n".join(f"{k} = {v!r}" if not isinstance(v, str) else f'{k} = "{v}"' for k, v in chosen.items())
     text = f"""format_version = 1
 [[states]]
 name = "alive"
@@ -262,16 +258,26 @@ absorbing = true
 name = "death"
 from = "alive"
 to = "dead"
-{keys}
+{hazard_keys}
 [population]
 initial_state = "alive"
 entry_age = {{ distribution = "fixed", age = 50 }}
 [horizon]
 value = 10
-"""
+{more_tables}"""
     path = tmp_path / "s.toml"
     path.write_text(text)
-    hazard = load_scenario(path).model.transitions[0].hazard
+    return load_scenario(path)
+
+
+def test_fragment_keys_read_back_by_the_scenario_reader(tmp_path, rossi_data):
+    """The [chosen] keys pasted into a transition give the fitted hazard (months -> years by the reader)."""
+    tomllib = pytest.importorskip("tomllib")
+    fit = fit_family(SurvivalData.from_arrays(rossi_data.time / 4.0, rossi_data.event, unit="months"), "weibull")
+    chosen = tomllib.loads(fragment_text([fit]))["chosen"]
+    assert chosen == {"family": "weibull", "unit": "months", **fit.parameters}
+    keys = "\n".join(f"{k} = {v!r}" if not isinstance(v, str) else f'{k} = "{v}"' for k, v in chosen.items())
+    hazard = _load_pasted_fragment(tmp_path, keys).model.transitions[0].hazard
     expected = make_hazard("weibull", shape=fit.parameters["shape"], scale=fit.parameters["scale"] / 12.0)
     grid = np.array([0.5, 1.0, 3.0])
     np.testing.assert_allclose(hazard.cumhazard(grid), expected.cumhazard(grid), rtol=1e-12)
@@ -339,23 +345,7 @@ def test_fragment_uncertainty_is_accepted_by_the_scenario_reader(tmp_path, two_a
 
     hazard = "\n".join(f"{k} = {toml(v)}" for k, v in doc.items() if k not in ("compared_arm", "uncertainty",
                                                                                "statistics"))
-    text = f"""format_version = 1
-[[states]]
-name = "alive"
-[[states]]
-name = "dead"
-absorbing = true
-[[transitions]]
-name = "death"
-from = "alive"
-to = "dead"
-{hazard}
-[population]
-initial_state = "alive"
-entry_age = {{ distribution = "fixed", age = 50 }}
-[horizon]
-value = 10
-[[strategies]]
+    scenario = _load_pasted_fragment(tmp_path, hazard, f"""[[strategies]]
 name = "arm 0"
 [[strategies]]
 name = "arm 1"
@@ -366,10 +356,5 @@ distribution = "multivariate_normal"
 mean = {unc["mean"]!r}
 covariance = {unc["covariance"]!r}
 transform = {toml(unc["transform"]).replace("'", '"')}
-"""
-    path = tmp_path / "s.toml"
-    path.write_text(text)
-    from sim.io import load_scenario
-
-    scenario = load_scenario(path)
+""")
     assert len(scenario.uncertainty) == 1
