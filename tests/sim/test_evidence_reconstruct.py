@@ -132,35 +132,32 @@ def test_cleaning_reports_every_change():
     assert np.all(np.diff(c.survival) <= 0)
 
 
+def _refusal(read, path, text: str) -> SurvivalDataError:
+    """The error ``read`` (a reader of digitised files) raises on ``path`` holding ``text``."""
+    path.write_text(text)
+    with pytest.raises(SurvivalDataError) as err:
+        read(path)
+    return err.value
+
+
 def test_large_rise_or_out_of_range_is_refused_with_the_line(tmp_path):
     path = tmp_path / "km.csv"
-    path.write_text("time,survival\n0,1\n1,0.8\n2,0.9\n3,0.5\n")
-    with pytest.raises(SurvivalDataError) as err:
-        read_curves(path)
-    p = err.value.problem
+    p = _refusal(read_curves, path, "time,survival\n0,1\n1,0.8\n2,0.9\n3,0.5\n").problem
     assert (p.file, p.line, p.path, p.value) == (str(path), 4, ("survival",), 0.9)
-    path.write_text("time,survival\n0,1\n1,-0.3\n")
-    with pytest.raises(SurvivalDataError) as err:
-        read_curves(path)
-    assert err.value.problem.line == 3 and "[0, 1]" in err.value.problem.rule
-    path.write_text("time,survival\n0,1\n1,abc\n")
-    with pytest.raises(SurvivalDataError) as err:
-        read_curves(path)
-    assert (err.value.problem.line, err.value.problem.value) == (3, "abc")
+    p = _refusal(read_curves, path, "time,survival\n0,1\n1,-0.3\n").problem
+    assert p.line == 3 and "[0, 1]" in p.rule
+    p = _refusal(read_curves, path, "time,survival\n0,1\n1,abc\n").problem
+    assert (p.line, p.value) == (3, "abc")
 
 
 def test_increasing_numbers_at_risk_are_refused(tmp_path):
     path = tmp_path / "risk.csv"
-    path.write_text("arm,time,at_risk\nA,0,100\nA,6,80\nA,12,85\nB,0,90\n")
-    with pytest.raises(SurvivalDataError) as err:
-        read_at_risk(path)
-    p = err.value.problem
+    err = _refusal(read_at_risk, path, "arm,time,at_risk\nA,0,100\nA,6,80\nA,12,85\nB,0,90\n")
+    p = err.problem
     assert (p.file, p.line, p.path, p.value) == (str(path), 4, ("at_risk",), 85)
-    assert "must not increase" in str(err.value) and str(path) in str(err.value)
-    path.write_text("time,at_risk\n1,100\n")
-    with pytest.raises(SurvivalDataError) as err:
-        read_at_risk(path)
-    assert err.value.problem.line == 2 and "must be 0" in err.value.problem.rule
+    assert "must not increase" in str(err) and str(path) in str(err)
+    p = _refusal(read_at_risk, path, "time,at_risk\n1,100\n").problem
+    assert p.line == 2 and "must be 0" in p.rule
 
 
 def test_read_curves_and_at_risk_by_arm(tmp_path):
