@@ -82,3 +82,7 @@ class FitWorker(FunctionWorker):
     def cancel(self) -> None:
         self._cancel.set()
 
+    @property
+    def cancel_requested(self) -> bool:
+        return self._cancel.is_set()
+

@@ -118,7 +118,6 @@ class SurvivalPlot(PlotPanel):
         left.setPen(pg.mkPen(None))
         left.setTextPen(pg.mkPen(_TEXT))
         self.risk.setTitle("number at risk", color=_TEXT, size="9pt")
-        self.risk.setMaximumHeight(90)
         self.risk_texts: list[pg.TextItem] = []
         self.graphics.addItem(self.legend, row=2, col=0)
         self.graphics.ci.layout.setRowStretchFactor(1, 0)
@@ -171,6 +170,7 @@ class SurvivalPlot(PlotPanel):
                 self.risk_texts.append(text)
         self.risk.getAxis("left").setTicks([[(len(labels) - 1 - r, lab) for r, lab in enumerate(labels)]])
         self.risk.setYRange(-0.6, len(labels) - 0.4, padding=0)
+        self.risk.setFixedHeight(34 + 22 * len(labels))
 
 
 class HazardPlot(PlotPanel):
@@ -182,8 +182,7 @@ class HazardPlot(PlotPanel):
         self.background = _Slots(self.plot, lambda i: pg.PlotDataItem(
             pen=pg.mkPen(OKABE_ITO["black"], width=2, style=Qt.PenStyle.DotLine, cosmetic=True)))
         self.regions: list[pg.LinearRegionItem] = []
-        self.note = pg.TextItem("", color=OKABE_ITO["vermillion"], anchor=(0, 0))
-        self.plot.addItem(self.note, ignoreBounds=True)
+        self.note = ""
 
     def show_fits(self, curves: Sequence[tuple[int, int, NDArray[np.float64], NDArray[np.float64], float]]) -> None:
         for j, (i, arm, t, h, width) in enumerate(curves):
@@ -206,9 +205,7 @@ class HazardPlot(PlotPanel):
             region.setZValue(-10)
             self.plot.addItem(region)
             self.regions.append(region)
-        self.note.setText(note)
-        view = self.plot.getViewBox().viewRange()
-        self.note.setPos(view[0][0], view[1][1])
+        self.note = note
 
 
 class DiagnosticPlot(PlotPanel):

@@ -482,10 +482,10 @@ class EvidenceWindow(QMainWindow):
                     haz.append((i, arm, t_pos, np.asarray(hz.hazard(t_pos)), width))
                     cum.append((i, arm, t_pos, np.asarray(hz.cumhazard(t_pos)), width))
             legend_fits.append((len(surv) - len(fit_hazards(fit)), fit))
+        self._draw_background(chosen, t_pos)
         self.survival_plot.show_fits(surv)
         self.hazard_plot.show_fits(haz)
         self.diagnostic_plot.show_fits(cum)
-        self._draw_background(chosen, t_pos)
         self.diagnostic_plot.plot.enableAutoRange()
         self.survival_plot.plot.setXRange(0.0, view_end, padding=0.02)
         self.hazard_plot.plot.setXRange(0.0, view_end, padding=0.02)
@@ -513,7 +513,8 @@ class EvidenceWindow(QMainWindow):
                 if x is not None and len(x):
                     entries.append((self.hazard_plot.background.items[0], "background (attained age)"))
             plot.set_legend(entries)
-            plot.set_title(title)
+            note = self.hazard_plot.note if plot is self.hazard_plot else ""
+            plot.set_title("; ".join(filter(None, (title, note))))
 
     def _draw_background(self, chosen: Fit | None, t_pos) -> None:
         """The background hazard per data unit at attained age, and where the chosen fit is below it."""
@@ -547,7 +548,7 @@ class EvidenceWindow(QMainWindow):
                                      "hazards.") if falls else f"{chosen.label}: the fitted hazard stays above the "
                                     "background hazard over the horizon.")
             self.floor_note.setStyleSheet(f"color: {OKABE_ITO['vermillion']};" if falls else "")
-            note = "fit below background (shaded)" if falls else ""
+            note = f"shaded: {chosen.label} below the background hazard" if falls else ""
         self.hazard_plot.show_background(curves, below, note)
 
 

@@ -5,7 +5,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from sim.problems import NO_VALUE, Problem, ValidationError
+from sim.problems import NO_VALUE, Problem, ValidationError, format_key
 
 __all__ = ["problem_words", "error_words"]
 
@@ -17,9 +17,12 @@ def problem_words(p: Problem) -> str:
         where.append(Path(p.file).name)
     if p.line:
         where.append(f"line {p.line}")
-    if p.path:
-        where.append(f"column '{p.path[0]}'" if len(p.path) == 1 else ".".join(map(str, p.path)))
-    value = "" if p.value is NO_VALUE or p.value is None else f"{p.value!r} "
+    if p.path:  # a column of a file, else a setting of the window (breaks, knots, families)
+        where.append(f"column '{p.path[0]}'" if p.file and len(p.path) == 1 else format_key(p.path))
+    v = p.value
+    if isinstance(v, float) and v.is_integer():
+        v = int(v)  # a code read as a number: 2, not 2.0
+    value = "" if v is NO_VALUE or v is None else f"{v!r} "
     head = ", ".join(where)
     return f"{head}: {value}{p.rule}" if head else f"{value}{p.rule}"
 
