@@ -11,6 +11,7 @@ and the plots (:mod:`gui.evidence.plots`); everything it shows comes from ``sim.
 from __future__ import annotations
 
 import numpy as np
+import pandas as pd
 from PySide6.QtCore import QSortFilterProxyModel, Qt, Signal
 from PySide6.QtGui import QKeySequence
 from PySide6.QtWidgets import (QAbstractItemView, QCheckBox, QComboBox, QDoubleSpinBox, QFormLayout, QGridLayout,
@@ -25,7 +26,7 @@ from sim.evidence import FAMILY_NAMES, Fit, below_background, fit_table
 from sim.hazards import UNIT_IN_YEARS
 from sim.problems import ValidationError
 
-from .curves import at_risk_counts, fit_hazards, km_by_arm
+from .curves import ArmKM, at_risk_counts, fit_hazards, km_by_arm
 from .fit_worker import FitOutcome, FitRequest, FitWorker
 from .plots import DiagnosticPlot, HazardPlot, SurvivalPlot, nice_ticks
 from .scenario_edit import FitChoice, fit_edit
@@ -59,6 +60,7 @@ class EvidenceWindow(QMainWindow):
         self.setWindowTitle("Fit from data \u2014 HazardTrace")
         self.document = document
         self.evidence: Evidence | None = None
+        self._kms: list[ArmKM] = []
         self.fits: list[Fit] = []
         self._job: Job | None = None
         self._build()
@@ -226,6 +228,7 @@ class EvidenceWindow(QMainWindow):
     # ------------------------------------------------------------------ evidence
     def _on_loaded(self, evidence: Evidence) -> None:
         self.evidence = evidence
+        self._kms = km_by_arm(evidence.data)
         self.fits = []
         self.table_model.set_frame(_empty_table())
         data = evidence.data
@@ -394,13 +397,15 @@ class EvidenceWindow(QMainWindow):
 
     # ------------------------------------------------------------------ the scenario
     def _on_scenario(self, scenario: object, _errors: list) -> None:
-        names = self.document.names("transitions")
         current = self.transition.currentText()
         self.transition.blockSignals(True)
         self.transition.clear()
-        self.transition.addItems(names)
-        if current in names:
-            self.transition.setCurrentText(current)
+        for i, table in enumerate(self.document.tables("transitions")):  # the index is the edit's address
+            name = table.get("name")
+            self.transition.addItem(name if isinstance(name, str) and name else f"transitions[{i}]", i)
+        found = self.transition.findText(current)
+        if found >= 0:
+            self.transition.setCurrentIndex(found)
         self.transition.blockSignals(False)
         if scenario is not None:
             age = getattr(scenario.model.population.entry_age, "mean", None)
@@ -413,16 +418,19 @@ class EvidenceWindow(QMainWindow):
         self._on_transition()
 
     def _on_transition(self, *_args) -> None:
-        i = self.transition.currentIndex()
-        self.floor.setChecked(bool(self.document.get(("transitions", i, "at_least_background"), False))
-                              if i >= 0 else False)
-        self._on_selection() if self.fits else self._redraw()
+        i = self.transition.currentData()
+        self.floor.setChecked(i is not None and bool(self.document.get(("transitions", i, "at_least_background"),
+                                                                       False)))
+        if self.fits:
+            self._on_selection()
+        else:
+            self._redraw()
 
     def apply_fit(self) -> bool:
         """Put the selected fit into the chosen transition as one undoable edit."""
         fit = self.selected_fit()
-        i = self.transition.currentIndex()
-        if fit is None or i < 0:
+        i = self.transition.currentData()
+        if fit is None or i is None:
             self._message("Choose a fit in the table and a transition first.", error=True)
             return False
         choice = FitChoice(i, self.arm.currentData() or "reference",
@@ -454,7 +462,7 @@ class EvidenceWindow(QMainWindow):
         if ev is None:
             return
         data = ev.data
-        kms = km_by_arm(data)
+        kms = self._kms
         self.survival_plot.show_km(kms)
         self.diagnostic_plot.show_km(kms)
         self.survival_plot.show_points([ev.points[a] for a in sorted(ev.points)])
@@ -471,7 +479,6 @@ class EvidenceWindow(QMainWindow):
         t_pos = t[1:]
         chosen = self.selected_fit()
         surv, haz, cum, legend_fits = [], [], [], []
-        shown = [f for f in self.fits if f.converged]
         for i, fit in enumerate(self.fits):
             if not fit.converged:
                 continue
@@ -493,9 +500,9 @@ class EvidenceWindow(QMainWindow):
         finite = np.concatenate(seen) if seen else np.array([])
         if finite.size:
             self.hazard_plot.plot.setYRange(0.0, 1.2 * float(np.percentile(finite, 98)), padding=0)
-        self._legends(kms, legend_fits, bool(ev.points), len(shown))
+        self._legends(kms, legend_fits, bool(ev.points))
 
-    def _legends(self, kms, legend_fits, points: bool, _n: int) -> None:
+    def _legends(self, kms: list[ArmKM], legend_fits: list[tuple[int, Fit]], points: bool) -> None:
         arms = [k.arm for k in kms]
         several = len(arms) > 1
         km_entries = [(self.survival_plot.km.items[i], f"Kaplan-Meier {a}" if several else "Kaplan-Meier")
@@ -552,7 +559,5 @@ class EvidenceWindow(QMainWindow):
         self.hazard_plot.show_background(curves, below, note)
 
 
-def _empty_table():
-    import pandas as pd
-
+def _empty_table() -> pd.DataFrame:
     return pd.DataFrame({c: [] for c in TABLE_COLUMNS})

@@ -163,3 +163,47 @@ def test_main_window_menu_opens_the_window_on_its_scenario(qtbot, doc: ScenarioD
     assert [shown.transition.itemText(i) for i in range(shown.transition.count())] == ["disease death"]
     main.fit_data_action.trigger()
     assert main.evidence_window is shown  # one window, reused
+
+
+def test_parquet_columns_offered_and_read(qtbot, window: EvidenceWindow, tmp_path: Path) -> None:
+    import pandas as pd
+
+    path = tmp_path / "trial.parquet"
+    pd.read_csv(DATA / "two_arm_trial.csv").to_parquet(path)
+    window.source.set_data_file(path)
+    boxes = window.source
+    assert [boxes.time_col.itemText(i) for i in range(boxes.time_col.count())] == ["arm", "months", "death"]
+    assert (boxes.time_col.currentText(), boxes.event_col.currentText(), boxes.group_col.currentText(),
+            boxes.entry_col.currentText()) == ("months", "death", "arm", "(none)")
+    boxes.data_unit.setCurrentText("months")
+    evidence = boxes.read_data()
+    assert evidence is not None and evidence.data.groups == ("control", "treated") and evidence.data.n == 120
+    assert window.arm.count() == 2 and window.arm.currentData() == "reference"
+
+
+def test_each_plot_saves_png_and_svg(qtbot, window: EvidenceWindow, tmp_path: Path, monkeypatch) -> None:
+    from PySide6.QtGui import QImage
+    from PySide6.QtSvg import QSvgRenderer
+    from PySide6.QtWidgets import QFileDialog
+
+    window.source.set_data_file(DATA / "two_arm_trial.csv")
+    window.source.read_data()
+    for name, box in window.family_checks.items():
+        box.setChecked(name in ("exponential", "weibull"))
+    with qtbot.waitSignal(window.fits_shown, timeout=30_000):
+        window.start_fits()
+    qtbot.waitUntil(lambda: not window.is_fitting())
+    for index, plot in enumerate((window.survival_plot, window.hazard_plot, window.diagnostic_plot)):
+        window.plot_tabs.setCurrentIndex(index)
+        qtbot.wait(50)
+        for kind, button in (("png", plot.save_bar.png_button), ("svg", plot.save_bar.svg_button)):
+            path = tmp_path / f"{plot.save_bar.name}.{kind}"
+            monkeypatch.setattr(QFileDialog, "getSaveFileName",
+                                staticmethod(lambda *a, p=path, **k: (str(p), "")))
+            with qtbot.waitSignal(plot.save_bar.saved, timeout=20_000):
+                qtbot.mouseClick(button, Qt.MouseButton.LeftButton)
+            if kind == "png":
+                image = QImage(str(path))
+                assert not image.isNull() and image.width() >= plot.graphics.width()
+            else:
+                assert QSvgRenderer(str(path)).isValid()
