@@ -24,9 +24,10 @@ from tomlkit.items import Comment, Whitespace
 from gui.editors.hazard_form import ALL_HAZARD_KEYS
 from gui.toml_edit import KeyPath, append_table, get_item, remove_table, remove_value, set_value, to_plain
 from sim.evidence import Fit
+from sim.hazards import UNIT_IN_YEARS, from_years, to_years
 from sim.problems import format_key
 
-__all__ = ["FitChoice", "hazard_values", "uncertainty_group", "fit_edit", "parameter_paths"]
+__all__ = ["FitChoice", "hazard_values", "uncertainty_group", "fit_edit", "parameter_paths", "waning_note"]
 
 
 @dataclass(frozen=True)
@@ -104,6 +105,27 @@ def _names_hazard_of(entry: Any, transition: int) -> bool:
     return False
 
 
+def _keep_waning_times(doc: Any, i: int, new_unit: str) -> None:
+    """A transition's ``waning`` times are in its ``unit``: when the fit brings another unit, the
+    same times are written in it (:func:`sim.hazards.to_years`, :func:`sim.hazards.from_years`)."""
+    old_unit = to_plain(get_item(doc, ("transitions", i, "unit"))) or "years"
+    waning = to_plain(get_item(doc, ("transitions", i, "waning")))
+    if old_unit == new_unit or not isinstance(waning, dict) or old_unit not in UNIT_IN_YEARS:
+        return
+    for key in ("start", "end"):
+        value = waning.get(key)
+        if isinstance(value, (int, float)) and not isinstance(value, bool):
+            set_value(doc, ("transitions", i, "waning", key), from_years(to_years(float(value), old_unit), new_unit))
+
+
+def waning_note(document_table: dict, fit: Fit) -> str:
+    """Words for the undo label when :func:`fit_edit` rewrites a transition's waning times."""
+    old_unit = document_table.get("unit", "years")
+    if isinstance(document_table.get("waning"), dict) and old_unit != fit.unit:
+        return f"; waning times rewritten from {old_unit} to {fit.unit}"
+    return ""
+
+
 def _pop_trailing_trivia(table: Any) -> list[tuple[Any, Any]]:
     """Remove and return the comments and blank lines at the end of a table's body: they belong to
     what follows the table in the file, so keys added to the table go above them."""
@@ -135,6 +157,7 @@ def fit_edit(fit: Fit, choice: FitChoice, name: str = "") -> tuple[Callable[[Any
             raise KeyError(format_key(("transitions", i)))
         for key in [k for k in list(table.keys()) if k in ALL_HAZARD_KEYS and k not in values]:
             remove_value(doc, ("transitions", i, key))
+        _keep_waning_times(doc, i, values["unit"])
         if not choice.at_least_background:
             remove_value(doc, ("transitions", i, "at_least_background"))
         tail = _pop_trailing_trivia(table)  # comments that introduce the next section stay below the new keys

@@ -29,7 +29,7 @@ from sim.problems import ValidationError
 from .curves import ArmKM, at_risk_counts, fit_hazards, km_by_arm
 from .fit_worker import FitOutcome, FitRequest, FitWorker
 from .plots import DiagnosticPlot, HazardPlot, SurvivalPlot, nice_ticks
-from .scenario_edit import FitChoice, fit_edit
+from .scenario_edit import FitChoice, fit_edit, waning_note
 from .source_panel import Evidence, SourcePanel
 from .words import error_words
 
@@ -66,6 +66,7 @@ class EvidenceWindow(QMainWindow):
         self._build()
         self.source.loaded.connect(self._on_loaded)
         document.validated.connect(self._on_scenario)
+        document.loaded.connect(self._on_document_loaded)
         self._on_scenario(document.scenario, document.errors)
         self.resize(1500, 950)
 
@@ -417,6 +418,13 @@ class EvidenceWindow(QMainWindow):
         self.floor.setEnabled(has_bg)
         self._on_transition()
 
+    def _on_document_loaded(self) -> None:
+        """Another scenario was opened: its entry age and horizon replace the previous one's."""
+        self.entry_age.setValue(0.0)
+        self._on_scenario(self.document.scenario, self.document.errors)
+        self._set_horizon()
+        self._redraw()
+
     def _on_transition(self, *_args) -> None:
         i = self.transition.currentData()
         self.floor.setChecked(i is not None and bool(self.document.get(("transitions", i, "at_least_background"),
@@ -438,6 +446,7 @@ class EvidenceWindow(QMainWindow):
                            self.floor.isChecked() and self.floor.isEnabled())
         try:
             change, label = fit_edit(fit, choice, self.transition.currentText())
+            label += waning_note(self.document.table(("transitions", i)), fit)
             done = self.document.edit(label, change)
         except (ValueError, KeyError) as err:
             self._message(f"Not applied: {error_words(err)}", error=True)
@@ -447,7 +456,6 @@ class EvidenceWindow(QMainWindow):
                           error=True)
             return False
         self._message(f"{label} (Edit > Undo takes it back).")
-        self.apply_message.setText(label)
         self.applied.emit(label)
         return True
 

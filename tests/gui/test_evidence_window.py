@@ -234,3 +234,27 @@ def test_piecewise_and_spline_fits(qtbot, window: EvidenceWindow, doc: ScenarioD
     np.testing.assert_allclose(np.exp(group["mean"]), events / exposure, rtol=1e-5)
     np.testing.assert_allclose(np.diag(np.array(group["covariance"])), 1.0 / events, rtol=1e-3)
     assert doc.scenario is not None, doc.errors
+
+
+def test_waning_times_follow_the_fits_unit(qtbot, window: EvidenceWindow, doc: ScenarioDocument) -> None:
+    text = doc.text.replace('rate = 0.05              # per year, invented',
+                            'rate = 0.05              # per year, invented\nhazard_ratio = 0.8\n'
+                            'waning = { start = 1.5, end = 3, scale = "log" }')
+    doc.set_text(text)
+    assert doc.scenario is not None, doc.errors
+    read_and_fit(qtbot, window, group=False, families=("weibull",))
+    window.covariance.setChecked(False)
+    assert window.apply_fit()
+    t = tomlkit.parse(doc.text)["transitions"][0]
+    assert t["unit"] == "months" and t["hazard_ratio"] == 0.8
+    # 1.5 and 3 years in months (12 months a year, docs/scenario-format.md)
+    assert (t["waning"]["start"], t["waning"]["end"], t["waning"]["scale"]) == (18.0, 36.0, "log")
+    assert window.apply_message.text().endswith("waning times rewritten from years to months (Edit > Undo takes it back).")
+    assert doc.scenario is not None, doc.errors
+    # another scenario opened: its entry age and horizon are taken
+    doc.new_from_demo("lanthic")
+    assert window.entry_age.value() == pytest.approx(doc.scenario.model.population.entry_age.mean, abs=0.05)  # 1 decimal
+    h = doc.scenario.model.horizon
+    years = h.value - window.entry_age.value() if h.scale == "age" else h.value
+    assert window.horizon.value() == pytest.approx(years * 12, abs=0.01)
+    assert [window.transition.itemText(i) for i in range(window.transition.count())] == doc.names("transitions")
