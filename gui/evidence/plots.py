@@ -105,7 +105,7 @@ class SurvivalPlot(PlotPanel):
         self.points = _Slots(self.plot, lambda i: pg.ScatterPlotItem(
             symbol="x" if i == 0 else "+", size=7, pen=pg.mkPen(OKABE_ITO["orange"] if i == 0 else OKABE_ITO["sky blue"],
                                                               width=1.5), brush=None))
-        self.fits = _Slots(self.plot, lambda i: pg.PlotDataItem())
+        self.fits = _Slots(self.plot, lambda i: pg.PlotDataItem(connect="finite"))
         # numbers at risk: a row of text under the axes, on the same time axis
         self.graphics.removeItem(self.legend)
         self.risk: pg.PlotItem = self.graphics.addPlot(row=1, col=0)
@@ -178,7 +178,7 @@ class HazardPlot(PlotPanel):
 
     def __init__(self, parent=None) -> None:
         super().__init__("hazard_fits", "time", "hazard per time unit", legend_columns=3, parent=parent)
-        self.fits = _Slots(self.plot, lambda i: pg.PlotDataItem())
+        self.fits = _Slots(self.plot, lambda i: pg.PlotDataItem(connect="finite"))
         self.background = _Slots(self.plot, lambda i: pg.PlotDataItem(
             pen=pg.mkPen(OKABE_ITO["black"], width=2, style=Qt.PenStyle.DotLine, cosmetic=True)))
         self.regions: list[pg.LinearRegionItem] = []
@@ -215,7 +215,7 @@ class DiagnosticPlot(PlotPanel):
         super().__init__("log_cumulative_hazard", "log time", "log cumulative hazard", legend_columns=3, parent=parent)
         self.km = _Slots(self.plot, lambda i: pg.PlotDataItem(pen=_km_pen(i), symbol="o", symbolSize=4,
                                                               symbolPen=None, symbolBrush=KM_COLOURS[i % 2]))
-        self.fits = _Slots(self.plot, lambda i: pg.PlotDataItem())
+        self.fits = _Slots(self.plot, lambda i: pg.PlotDataItem(connect="finite"))
 
     def show_km(self, kms: Sequence[ArmKM]) -> None:
         for i, km in enumerate(kms):

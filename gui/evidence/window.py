@@ -226,6 +226,11 @@ class EvidenceWindow(QMainWindow):
         edit.addAction(self.undo_action)
         edit.addAction(self.redo_action)
 
+    def closeEvent(self, event) -> None:  # noqa: N802 - Qt API
+        """Closing the window stops a fit run after the family being fitted."""
+        self.cancel_fits()
+        super().closeEvent(event)
+
     # ------------------------------------------------------------------ evidence
     def _on_loaded(self, evidence: Evidence) -> None:
         self.evidence = evidence

@@ -207,3 +207,26 @@ def test_each_plot_saves_png_and_svg(qtbot, window: EvidenceWindow, tmp_path: Pa
                 assert not image.isNull() and image.width() >= plot.graphics.width()
             else:
                 assert QSvgRenderer(str(path)).isValid()
+
+
+def test_delayed_entry_is_read_and_said(qtbot, window: EvidenceWindow, tmp_path: Path) -> None:
+    import pandas as pd
+
+    frame = pd.read_csv(DATA / "two_arm_trial.csv")
+    frame["start"] = np.where(np.arange(len(frame)) % 3 == 0, np.round(0.5 * frame["months"], 2), 0.0)  # invented
+    path = tmp_path / "delayed.csv"
+    frame.to_csv(path, index=False)
+    window.source.set_data_file(path)
+    assert window.source.entry_col.currentText() == "start"
+    window.source.group_col.setCurrentText("(none)")
+    window.source.data_unit.setCurrentText("months")
+    evidence = window.source.read_data()
+    assert evidence is not None and evidence.data.delayed
+    assert "delayed entry" in window.source.message.text()
+    assert "does not take delayed entry into account" in window.data_note.text()
+    # at risk at t: entered before t and not yet exited (counted from the file directly)
+    ticks = [float(t.pos().x()) for t in window.survival_plot.risk_texts]
+    counts = [int(t.toPlainText()) for t in window.survival_plot.risk_texts]
+    for t, n in zip(ticks, counts):
+        entered = (frame["start"] < t) | (frame["start"] == 0.0)
+        assert n == int(((frame["months"] >= t) & entered).sum())
