@@ -61,6 +61,7 @@ class EvidenceWindow(QMainWindow):
         self.document = document
         self.evidence: Evidence | None = None
         self._kms: list[ArmKM] = []
+        self._generation = 0  # which data set the fits shown belong to
         self.fits: list[Fit] = []
         self._job: Job | None = None
         self._build()
@@ -233,6 +234,8 @@ class EvidenceWindow(QMainWindow):
 
     # ------------------------------------------------------------------ evidence
     def _on_loaded(self, evidence: Evidence) -> None:
+        self.cancel_fits()  # a run on the previous data is stopped and its fits are not shown
+        self._generation += 1
         self.evidence = evidence
         self._kms = km_by_arm(evidence.data)
         self.fits = []
@@ -306,8 +309,9 @@ class EvidenceWindow(QMainWindow):
         worker = FitWorker(self.evidence.data, request)
         worker.progress.connect(self._on_progress)
         job = Job(worker)
-        job.finished.connect(self._on_fitted)
-        job.failed.connect(self._on_fit_failed)
+        generation = self._generation
+        job.finished.connect(lambda outcome: self._on_fitted(outcome) if generation == self._generation else None)
+        job.failed.connect(lambda text: self._on_fit_failed(text) if generation == self._generation else None)
         job.done.connect(self._on_job_done)
         self._job = job
         self.fit_button.setEnabled(False)
@@ -358,6 +362,8 @@ class EvidenceWindow(QMainWindow):
 
     def _on_job_done(self) -> None:
         self._job = None
+        if self.progress.format().startswith("cancelling"):  # a run whose outcome was not shown
+            self.progress.setFormat("cancelled")
         self.fit_button.setEnabled(self.evidence is not None)
         self.cancel_button.setEnabled(False)
 

@@ -230,3 +230,16 @@ def test_delayed_entry_is_read_and_said(qtbot, window: EvidenceWindow, tmp_path:
     for t, n in zip(ticks, counts):
         entered = (frame["start"] < t) | (frame["start"] == 0.0)
         assert n == int(((frame["months"] >= t) & entered).sum())
+
+
+def test_new_data_while_fitting_drops_the_old_run(qtbot, window: EvidenceWindow) -> None:
+    window.source.set_data_file(DATA / "two_arm_trial.csv")
+    window.source.read_data()
+    window.start_fits()
+    old = window._job
+    window.source.group_col.setCurrentText("(none)")
+    window.source.read_data()  # other data while the first run is going
+    assert old.worker.cancel_requested
+    qtbot.waitUntil(lambda: not window.is_fitting(), timeout=30_000)
+    assert window.fits == [] and window.proxy.rowCount() == 0  # the old run's fits are not shown
+    assert window.fit_button.isEnabled()
