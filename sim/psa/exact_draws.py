@@ -11,8 +11,9 @@ stack given to :func:`sim.reference.expm_batched` at once: 1,000 draws are a few
 Expected moves through exit k (for one-off costs) are int exp(-delta t) p_source(t) q_k dt, the
 source's integral times the exit's rate.
 
-Time-varying intensities (attained age, time since entry; still Markov): the forward equations per
-draw (:func:`sim.reference.exact_outcomes`, one stacked solve of all strategies per draw).
+Time-varying intensities (attained age, time since entry; still Markov): one system of forward
+equations for the whole block of draws (:mod:`sim.psa.exact_stacked`), or, for life tables and
+hazards infinite at entry, the reference solver draw by draw (:func:`sim.reference.exact_outcomes`).
 Semi-Markov models have no exact result (:class:`sim.reference.NoExactSolution`).
 
 Outcome definitions: :func:`sim.analysis.combine_outcomes` (docs/methods.md, 'Outcomes and
@@ -30,6 +31,7 @@ from numpy.typing import NDArray
 from ..analysis import OUTCOMES, combine_outcomes
 from ..model import Model, is_constant_hazard
 from ..reference import exact_outcomes, expm_batched, population_pairs
+from .exact_stacked import exact_stacked, stackable
 from .tables import EXACT, draw_frame, sort_draw_table
 
 __all__ = ["constant_intensities", "exact_per_draw", "exact_constant_draws"]
@@ -109,11 +111,17 @@ def exact_constant_draws(models: Sequence[Model], draws: Sequence[int], strategi
 def exact_per_draw(models: Sequence[Model], draws: Sequence[int], strategies: tuple[str, ...] | None = None,
                    n_nodes: int = 48) -> pd.DataFrame:
     """Exact outcomes per draw and strategy (method ``"exact"``): batched matrix exponentials when
-    every draw has constant intensities, else the forward equations draw by draw. Raises
+    every draw has constant intensities, else the stacked forward equations of the block, else the
+    reference solver draw by draw. Raises
     :class:`sim.reference.NoExactSolution` for a semi-Markov model."""
     names = tuple(strategies or models[0].strategy_names)
     if all(constant_intensities(m) for m in models):
         return exact_constant_draws(models, draws, names, n_nodes)
+    if stackable(models, names):
+        try:
+            return exact_stacked(models, draws, names, n_nodes)
+        except ValueError:  # a hazard infinite at entry, or the stacked solve failed: the reference solver
+            pass
     parts = []
     for model, d in zip(models, draws):
         table = exact_outcomes(model, names, n_nodes).pivot(index="strategy", columns="outcome", values="value")
