@@ -2,7 +2,7 @@
 exact and cycle-based) and their tables, executed inline or on a Dask cluster (only
 ``sim.psa`` 's runner module imports Dask)."""
 
-from .apply import model_for_draw, point_values, uncertain_parameters
+from .apply import describe_uncertainty, inputs_table, model_for_draw, point_values, uncertain_parameters
 from .blocks import BlockResult, PsaJob, block_draws_for, join_blocks, psa_jobs, run_block, run_inline
 from .cohort_draws import CycleMethod, cycle_methods, cycle_per_draw
 from .dask_runner import PsaResult, SchedulerError, run_jobs, run_psa
@@ -14,7 +14,7 @@ from .tables import DRAW_COLUMNS, EXACT, SIMULATED, cycle_label, sort_draw_table
 
 __all__: list[str] = [
     # parameter draws applied to the model
-    "uncertain_parameters", "model_for_draw", "point_values",
+    "uncertain_parameters", "model_for_draw", "point_values", "describe_uncertainty", "inputs_table",
 ]
 
 __all__ += [

@@ -15,6 +15,7 @@ from __future__ import annotations
 
 from typing import Mapping
 
+import pandas as pd
 import tomlkit
 
 from ..io.scenario import Scenario, parameters
@@ -23,7 +24,7 @@ from ..io.scenario.substitute import point_values as _point_values
 from ..model import Model
 from ..uncertainty import UncertainInput
 
-__all__ = ["uncertain_parameters", "model_for_draw", "point_values", "describe_uncertainty"]
+__all__ = ["uncertain_parameters", "model_for_draw", "point_values", "describe_uncertainty", "inputs_table"]
 
 
 def uncertain_parameters(source: Scenario | Model) -> tuple[UncertainInput, ...]:
@@ -98,3 +99,26 @@ def _file_values(scenario: Scenario) -> set[str]:
     """The keys of the parameters the file itself gives a value."""
     doc = tomlkit.parse(scenario.text).unwrap() if scenario.text else {}
     return {p.key for p in parameters(doc)}
+
+
+INPUT_COLUMNS = ("parameter", "group", "distribution", "parameters", "fitted_from", "mean", "low_95", "high_95",
+                 "point_value", "point_from_file", "description")
+
+
+def inputs_table(scenario: Scenario) -> pd.DataFrame:
+    """One row per uncertain parameter, for export beside a probabilistic analysis: its key, the index
+    of its ``[[uncertainty]]`` entry (``group``), the distribution and its native parameters (as
+    text), what a fit started from, the mean and 95% interval, the point value of the deterministic
+    run and whether the file gives it (else the mean stands in). Empty (with the columns) without
+    uncertain inputs."""
+    specs = uncertain_parameters(scenario)
+    points = point_values(scenario) if specs else {}
+    in_file = _file_values(scenario) if specs else set()
+    rows = []
+    for g, u in enumerate(specs):
+        params = u.distribution.describe()
+        fitted = ", ".join(f"{k} {v}" for k, v in u.fitted_from.items())
+        for key, mean, (lo, hi) in zip(u.keys, u.means().values(), u.intervals().values()):
+            rows.append((key, g, u.distribution.family, params, fitted, mean, lo, hi, points[key], key in in_file,
+                         u.description))
+    return pd.DataFrame(rows, columns=list(INPUT_COLUMNS))

@@ -95,3 +95,15 @@ def test_every_draw_of_the_demo_gives_a_valid_model_holding_its_values() -> None
     means = {k: v for u in uncertain_parameters(s) for k, v in u.means().items()}
     sd = table.std()
     assert np.all(np.abs(table.mean() - pd.Series(means)[table.columns]) <= 4 * sd / math.sqrt(len(table)))
+
+
+def test_the_inputs_table_lists_each_uncertain_parameter() -> None:
+    from sim.psa import inputs_table
+    s = load_scenario(DEMO)
+    table = inputs_table(s)
+    assert len(table) == 17 and table["parameter"].is_unique
+    row = table.set_index("parameter").loc["transitions[2].rate"]
+    assert row["distribution"] == "gamma" and row["mean"] == 0.05 and not row["point_from_file"]
+    assert row["low_95"] < 0.05 < row["high_95"]
+    assert table.set_index("parameter").loc["transitions[0].rate", "point_from_file"]
+    assert inputs_table(load_scenario(LANTHIC)).empty
