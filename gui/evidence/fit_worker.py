@@ -8,7 +8,7 @@ The fits themselves are :func:`sim.evidence.fit_family`'s; the table is
 from __future__ import annotations
 
 import threading
-from collections.abc import Callable, Sequence
+from collections.abc import Callable
 from dataclasses import dataclass
 
 from PySide6.QtCore import Signal

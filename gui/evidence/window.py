@@ -14,28 +14,28 @@ import numpy as np
 import pandas as pd
 from PySide6.QtCore import QSortFilterProxyModel, Qt, Signal
 from PySide6.QtGui import QKeySequence
-from PySide6.QtWidgets import (QAbstractItemView, QCheckBox, QComboBox, QDoubleSpinBox, QFormLayout, QGridLayout,
-                               QGroupBox, QHBoxLayout, QLabel, QLineEdit, QMainWindow, QProgressBar, QPushButton,
+from PySide6.QtWidgets import (QAbstractItemView, QCheckBox, QComboBox, QDoubleSpinBox, QFormLayout, QGroupBox,
+                               QHBoxLayout, QLabel, QMainWindow, QProgressBar, QPushButton,
                                QScrollArea, QSplitter, QTableView, QTabWidget, QVBoxLayout, QWidget)
 
 from gui.document import ScenarioDocument
 from gui.palette import OKABE_ITO
 from gui.results.table_model import RAW_ROLE, DataFrameModel
 from gui.worker import Job
-from sim.evidence import FAMILY_NAMES, Fit, below_background, fit_table
+from sim.evidence import Fit, below_background, fit_table
 from sim.hazards import UNIT_IN_YEARS
 from sim.problems import ValidationError
 
 from .curves import ArmKM, at_risk_counts, fit_hazards, km_by_arm
+from .families_panel import FamiliesPanel
 from .fit_worker import FitOutcome, FitRequest, FitWorker
 from .plots import DiagnosticPlot, HazardPlot, SurvivalPlot, nice_ticks
 from .scenario_edit import FitChoice, fit_edit, waning_note
 from .source_panel import Evidence, SourcePanel
 from .words import error_words
 
-__all__ = ["EvidenceWindow", "TABLE_COLUMNS", "DEFAULT_FAMILIES"]
+__all__ = ["EvidenceWindow", "TABLE_COLUMNS"]
 
-DEFAULT_FAMILIES = ("exponential", "weibull", "gompertz", "loglogistic", "lognormal", "gamma", "gengamma")
 #: Columns of the fit table in the order shown (those of :func:`sim.evidence.fit_table`).
 TABLE_COLUMNS = ("family", "AIC", "dAIC", "BIC", "dBIC", "loglik", "k", "effect", "converged", "parameters")
 _GRID = 301
@@ -78,25 +78,10 @@ class EvidenceWindow(QMainWindow):
         QVBoxLayout(data_box).addWidget(self.source)
 
         fam_box = QGroupBox("2. Families")
-        grid = QGridLayout(fam_box)
-        self.family_checks: dict[str, QCheckBox] = {}
-        labels = {"loglogistic": "log-logistic", "lognormal": "log-normal", "gengamma": "generalized gamma",
-                  "piecewise": "piecewise constant", "spline": "Royston-Parmar spline"}
-        for i, name in enumerate(FAMILY_NAMES):
-            box = QCheckBox(labels.get(name, name))
-            box.setChecked(name in DEFAULT_FAMILIES)
-            grid.addWidget(box, i // 3, i % 3)
-            self.family_checks[name] = box
-        self.breaks = QLineEdit()
-        self.breaks.setPlaceholderText("band starts, e.g. 0, 6, 12")
-        self.breaks.setToolTip("Piecewise constant: the start of each band, in the data's time unit")
-        self.knots = QLineEdit("1")
-        self.knots.setToolTip("Royston-Parmar splines: numbers of interior knots (1 to 3), e.g. 1, 2")
-        row = len(FAMILY_NAMES) // 3 + 1
-        grid.addWidget(QLabel("Breaks"), row, 0)
-        grid.addWidget(self.breaks, row, 1, 1, 2)
-        grid.addWidget(QLabel("Spline knots"), row + 1, 0)
-        grid.addWidget(self.knots, row + 1, 1, 1, 2)
+        self.families = FamiliesPanel()
+        self.family_checks, self.breaks, self.knots = self.families.checks, self.families.breaks, self.families.knots
+        grid, row = self.families.grid, self.families.next_row
+        QVBoxLayout(fam_box).addWidget(self.families)
         self.fit_button = QPushButton("Fit")
         self.fit_button.setEnabled(False)
         self.fit_button.clicked.connect(self.start_fits)
@@ -111,7 +96,7 @@ class EvidenceWindow(QMainWindow):
         buttons.addWidget(self.fit_button)
         buttons.addWidget(self.cancel_button)
         buttons.addWidget(self.progress, 1)
-        grid.addLayout(buttons, row + 2, 0, 1, 3)
+        grid.addLayout(buttons, row, 0, 1, 3)
 
         table_box = QGroupBox("3. Fits (click a column to sort; the selected fit is drawn bold)")
         self.table_model = DataFrameModel()
@@ -276,27 +261,8 @@ class EvidenceWindow(QMainWindow):
 
     # ------------------------------------------------------------------ fitting
     def request(self) -> FitRequest:
-        """The families, breaks and knots chosen (refused with a message when they cannot be read)."""
-        families = tuple(n for n, box in self.family_checks.items() if box.isChecked())
-        if not families:
-            raise ValidationError(("families",), "choose at least one family")
-        breaks = None
-        if "piecewise" in families:
-            try:
-                breaks = tuple(float(v) for v in self.breaks.text().replace(";", ",").split(",") if v.strip())
-            except ValueError:
-                raise ValidationError(("breaks",), "must be numbers separated by commas", self.breaks.text()) from None
-            if not breaks:
-                raise ValidationError(("breaks",), "are required for the piecewise family (band starts, e.g. 0, 6, 12)")
-        knots: tuple[int, ...] = (1,)
-        if "spline" in families:
-            try:
-                knots = tuple(int(v) for v in self.knots.text().split(",") if v.strip()) or (1,)
-            except ValueError:
-                knots = (0,)
-            if any(k not in (1, 2, 3) for k in knots):
-                raise ValidationError(("knots",), "must be 1, 2 or 3 interior knots", self.knots.text())
-        return FitRequest(families, breaks, knots)
+        """The families, breaks and knots chosen (:meth:`FamiliesPanel.request`)."""
+        return self.families.request()
 
     def start_fits(self) -> None:
         if self.evidence is None or self._job is not None:
