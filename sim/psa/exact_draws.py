@@ -6,14 +6,17 @@ Constant intensities (every exit's hazard constant in every strategy and draw): 
 int_0^T exp(-delta t) p(t) dt = p0 int_0^T expm((Q - delta I) t) dt, read off one matrix
 exponential of the block matrix [[Q - delta I, I], [0, 0]] T, whose upper right block is that
 integral (Van Loan 1978, "Computing integrals involving the matrix exponential", IEEE Trans Autom
-Control 23(3):395-404). Every draw, strategy, stratum, horizon and discount rate is one matrix of a
-stack given to :func:`sim.reference.expm_batched` at once: 1,000 draws are a few array operations.
+Control 23(3):395-404). Every strategy, stratum, horizon and discount rate of a draw is one matrix of
+a stack given to :func:`sim.reference.expm_batched` at once.
 Expected moves through exit k (for one-off costs) are int exp(-delta t) p_source(t) q_k dt, the
 source's integral times the exit's rate.
 
-Time-varying intensities (attained age, time since entry; still Markov): one system of forward
-equations for the whole block of draws (:mod:`sim.psa.exact_stacked`), or, for life tables and
-hazards infinite at entry, the reference solver draw by draw (:func:`sim.reference.exact_outcomes`).
+Time-varying intensities (attained age, time since entry; still Markov): the forward equations draw by
+draw with vectorised intensities (:mod:`sim.psa.exact_stacked`), or, for life tables and hazards
+infinite at entry, the reference solver draw by draw (:func:`sim.reference.exact_outcomes`).
+
+Each draw is computed on its own (its own matrix-exponential stack, its own ODE system), so its bits
+do not depend on the other draws of its block: the table is the same for any blocks and workers.
 Semi-Markov models have no exact result (:class:`sim.reference.NoExactSolution`).
 
 Outcome definitions: :func:`sim.analysis.combine_outcomes` (docs/methods.md, 'Outcomes and
@@ -61,7 +64,7 @@ def _generator(model: Model, strategy: str) -> tuple[NDArray, list[tuple[int, in
 def exact_constant_draws(models: Sequence[Model], draws: Sequence[int], strategies: tuple[str, ...] | None = None,
                          n_nodes: int = 48) -> pd.DataFrame:
     """Exact outcomes per draw and strategy for time-homogeneous Markov models (rows of the
-    per-draw table, method ``"exact"``), all draws in one batch of matrix exponentials."""
+    per-draw table, method ``"exact"``), each draw's matrices in one batch of matrix exponentials."""
     names = tuple(strategies or models[0].strategy_names)
     if not all(constant_intensities(m) for m in models):
         raise ValueError("exact_constant_draws needs constant hazards in every draw")
@@ -84,7 +87,15 @@ def exact_constant_draws(models: Sequence[Model], draws: Sequence[int], strategi
                     m[:n, n:] = np.eye(n)
                     mats.append(m * t)
                     jobs.append((d, j, c, wt, r))
-    blocks = expm_batched(np.array(mats))[:, :n, n:] if mats else np.zeros((0, n, n))
+    # one stack per draw: the scaling of expm_batched follows the largest matrix of its stack, so a
+    # draw's bits must not depend on the other draws of the block
+    owner = np.array([job[0] for job in jobs])
+    stack = np.array(mats)
+    blocks = np.zeros((len(mats), n, n))
+    for d in range(len(models)):
+        mine = np.flatnonzero(owner == d)
+        if mine.size:
+            blocks[mine] = expm_batched(stack[mine])[:, :n, n:]
     n_sex = max(len(m.population.sexes) for m in models)
     integrals = np.zeros((len(models), len(names), 3, n_sex, n))  # per sex: the flows need its rates
     for (d, j, c, wt, r), block in zip(jobs, blocks):
@@ -111,8 +122,8 @@ def exact_constant_draws(models: Sequence[Model], draws: Sequence[int], strategi
 def exact_per_draw(models: Sequence[Model], draws: Sequence[int], strategies: tuple[str, ...] | None = None,
                    n_nodes: int = 48) -> pd.DataFrame:
     """Exact outcomes per draw and strategy (method ``"exact"``): batched matrix exponentials when
-    every draw has constant intensities, else the stacked forward equations of the block, else the
-    reference solver draw by draw. Raises
+    every draw has constant intensities, else the forward equations with vectorised intensities, else
+    the reference solver, each draw by itself. Raises
     :class:`sim.reference.NoExactSolution` for a semi-Markov model."""
     names = tuple(strategies or models[0].strategy_names)
     if all(constant_intensities(m) for m in models):

@@ -9,6 +9,7 @@ from __future__ import annotations
 import dataclasses
 
 import numpy as np
+import pandas as pd
 import pytest
 import scipy.integrate
 import scipy.linalg
@@ -174,3 +175,14 @@ def test_stacked_forward_equations_match_the_reference_solver(weibull, spread):
             row = table[(table["draw"] == d) & (table["strategy"] == s)].iloc[0]
             for o in OUTCOMES:
                 assert row[o] == pytest.approx(ref.loc[s, o], rel=1e-8)
+
+
+@pytest.mark.parametrize("background", [False, True])
+def test_a_draws_exact_row_does_not_depend_on_its_block(background):
+    # constant rates (one matrix-exponential stack per draw) and a Gompertz background (one ODE
+    # system per draw): the same bits alone and among other draws
+    model = markov_model(background=background)
+    models = models_for_draws(model, draws_table(6), apply_values)
+    together = exact_per_draw(models, range(6))
+    alone = pd.concat([exact_per_draw(models[d:d + 1], [d]) for d in range(6)], ignore_index=True)
+    pd.testing.assert_frame_equal(together, alone, check_exact=True)
