@@ -165,11 +165,13 @@ def test_main_window_menu_opens_the_window_on_its_scenario(qtbot, doc: ScenarioD
     assert main.evidence_window is shown  # one window, reused
 
 
-def test_parquet_columns_offered_and_read(qtbot, window: EvidenceWindow, tmp_path: Path) -> None:
+@pytest.mark.parametrize("suffix", [".parquet", ".xlsx"])
+def test_parquet_and_xlsx_columns_offered_and_read(qtbot, window: EvidenceWindow, tmp_path: Path, suffix: str) -> None:
     import pandas as pd
 
-    path = tmp_path / "trial.parquet"
-    pd.read_csv(DATA / "two_arm_trial.csv").to_parquet(path)
+    path = tmp_path / f"trial{suffix}"
+    frame = pd.read_csv(DATA / "two_arm_trial.csv")
+    frame.to_parquet(path) if suffix == ".parquet" else frame.to_excel(path, index=False)
     window.source.set_data_file(path)
     boxes = window.source
     assert [boxes.time_col.itemText(i) for i in range(boxes.time_col.count())] == ["arm", "months", "death"]
