@@ -17,6 +17,7 @@ from PySide6.QtWidgets import QCheckBox, QComboBox, QLineEdit, QWidget
 
 from gui.document import FieldError, KeyPath, ScenarioDocument, format_key
 from gui.palette import OKABE_ITO
+from gui.uncertainty.button import DistributionButton
 
 __all__ = ["FieldSet", "Binding", "mark_invalid", "parse_typed", "INVALID_COLOUR", "HINT_COLOUR", "TYPING_PAUSE_MS"]
 
@@ -88,6 +89,7 @@ class FieldSet:
         self.document = document
         self.bindings: list[Binding] = []
         self.groups: list[tuple[KeyPath, QWidget]] = []
+        self.distribution_buttons: list[DistributionButton] = []
 
     # ------------------------------------------------------------------ widgets
     def line(self, key: KeyPath, kind: str = "value", help: str = "", placeholder: str = "",
@@ -107,6 +109,10 @@ class FieldSet:
             timer.timeout.connect(lambda b=b: self._line_finished(b))
             w.textEdited.connect(timer.start)
             w.editingFinished.connect(timer.stop)
+        if kind == "value" and commit is None:  # a model parameter gets its "±" distribution button
+            button = DistributionButton.attach(self.document, w, tuple(key))
+            if button is not None:
+                self.distribution_buttons.append(button)
         self._fill(b)
         return w
 
@@ -238,3 +244,4 @@ class FieldSet:
             b.alive = False
         self.bindings.clear()
         self.groups.clear()
+        self.distribution_buttons.clear()
