@@ -177,9 +177,12 @@ def engine_section(cfg: Config) -> list[Row]:
                     "array; n = the engine's exponential draws)",
                     f"{r:.2f}x (floor {fmt_time(median(times['floor']))})", f"<= {FLOOR_TARGET:g}x",
                     **_judge(cfg, r <= FLOOR_TARGET),
-                    how=f"ratio per round, median; the same arithmetic in a preallocated buffer: "
-                        f"{fmt_time(median(times['floor_in_place']))}, engine / that = "
-                        f"{ratio('engine1', 'floor_in_place'):.2f}x"))
+                    how=f"ratio per round, median; per round: "
+                        + ", ".join(f"{a / b:.2f}x" for a, b in zip(times["engine1"], times["floor"]))
+                        + " (other processes' CPU share: " + ", ".join(f"{x:.0%}" for x in times.load)
+                        + f"); the same arithmetic in a preallocated buffer: "
+                          f"{fmt_time(median(times['floor_in_place']))}, engine / that = "
+                          f"{ratio('engine1', 'floor_in_place'):.2f}x"))
     for key, label, target in (("loop", f"per-patient Python loop ({cfg.n_loop:,} patients, scaled)", 15),
                                ("monthly", f"cycle-based microsimulation, monthly cycles ({cfg.n_monthly:,} patients, "
                                            "scaled)", 15),

@@ -5,6 +5,7 @@ All numbers in these models are invented for benchmarking; they describe no real
 
 from __future__ import annotations
 
+import importlib
 import math
 from dataclasses import dataclass
 
@@ -33,11 +34,24 @@ REFERENCE = {
 SURVIVAL_TIMES = (10.0, 20.0, 40.0)
 
 
-def reference_model() -> Model:
+def reference_model(package: str = "sim") -> Model:
     """Illness-death: healthy -> sick (Weibull on time since entry), sick -> healthy and sick -> dead
     (exponential on time in state), background death from every living state (Gompertz on attained
     age: h(a) = b exp(g a) with g = 0.09/year and h(40) = 0.001/year, so b = 0.001 exp(-0.09 * 40)).
-    Entry age uniform on [40, 70], 60-year horizon. Invented numbers."""
+    Entry age uniform on [40, 70], 60-year horizon. Invented numbers. ``package``: build it from
+    another copy of the package (e.g. ``"sim_old"`` for comparisons in one process)."""
+    if package != "sim":
+        hz = importlib.import_module(f"{package}.hazards")
+        ms = importlib.import_module(f"{package}.model.multistate")
+        pop = importlib.import_module(f"{package}.model.population")
+        Exponential, Gompertz, Weibull = hz.Exponential, hz.Gompertz, hz.Weibull  # noqa: N806
+        BackgroundMortality, Clock, Horizon, Model, State, Strategy, Transition = (  # noqa: N806
+            ms.BackgroundMortality, ms.Clock, ms.Horizon, ms.Model, ms.State, ms.Strategy, ms.Transition)
+        Population, UniformAge = pop.Population, pop.UniformAge  # noqa: N806
+    else:
+        from sim.hazards import Exponential, Gompertz, Weibull
+        from sim.model.multistate import BackgroundMortality, Clock, Horizon, Model, State, Strategy, Transition
+        from sim.model.population import Population, UniformAge
     p = REFERENCE
     g = p["gompertz_slope"]
     b = p["gompertz_hazard_at_40"] * math.exp(-g * 40.0)
