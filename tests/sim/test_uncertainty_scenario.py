@@ -160,6 +160,8 @@ BAD = [
      ("parameter",), "decision rule", "valuation.willingness_to_pay"),
     ('parameter = "valuation.utilities.well"\ndistribution = "beta"\nalpha = 5\nbeta = 5\nmean = 0.5\nse = 0.1\n',
      (), "exactly one of: alpha and beta or mean and se", None),
+    ('parameter = "transitions[2].rate"\ndistribution = "gamma"\nmean = 0.08\nse = 0.01\n',
+     ("parameter",), "transitions[2] gives its constant hazard by events and per", "transitions[2].rate"),
     ('parameter = "valuation.utilities.well"\ndistribution = "weibull"\n',
      ("distribution",), "must be one of", "weibull"),
     ('parameter = "valuation.utilities.well"\ndistribution = "uniform"\nlow = 0.5\nhigh = 0.9\nmode = 0.7\n',

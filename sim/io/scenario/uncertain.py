@@ -34,7 +34,8 @@ from ...uncertainty import (MOMENT_FITS, Beta, Dirichlet, Gamma, LogNormal, Mult
                             mvn_from_correlation)
 from .checking import Checker, Invalid
 from .errors import ScenarioError
-from .schema import SCHEMA, UNCERTAINTY_FORMS, HazardTable, Number, Ref, StateOrShares, Text, node_at
+from .schema import (EXPONENTIAL_FORMS, SCHEMA, UNCERTAINTY_FORMS, HazardTable, Number, Ref, StateOrShares, Text,
+                     node_at)
 
 __all__ = ["parse_key", "read_uncertainty", "distribution_of", "SHARE_TABLES", "NOT_UNCERTAIN",
            "renamed_parameter"]
@@ -110,6 +111,19 @@ def _reference_problem(doc: Mapping, path: KeyPath) -> str | None:
         states = _names(doc, Ref.STATE)
         if path[-1] not in states:
             return f"{format_key(path)} names no state of this scenario"
+    return None
+
+
+def _form_problem(doc: Mapping, path: KeyPath) -> str | None:
+    """A constant hazard's parameter the file does not give while its table uses another form
+    (``events`` and ``per`` given, a distribution on ``rate``)."""
+    table = _get(doc, path[:-1])
+    if not (isinstance(table, Mapping) and table.get("family") == "exponential" and path[-1] not in table):
+        return None
+    for form in EXPONENTIAL_FORMS:
+        if path[-1] not in form and any(k in table for k in form):
+            return (f"{format_key(path[:-1])} gives its constant hazard by {' and '.join(form)}: put the "
+                    f"distribution on one of those, or write {path[-1]} there instead")
     return None
 
 
@@ -291,7 +305,7 @@ def _entry(ck: Checker, doc: Mapping, i: int, raw: Any) -> UncertainInput:
         if path in NOT_UNCERTAIN:
             ck.add(at, NOT_UNCERTAIN[path], name)
             continue
-        wrong = _reference_problem(doc, path)
+        wrong = _reference_problem(doc, path) or _form_problem(doc, path)
         if wrong:
             ck.add(at, wrong, name)
             continue
