@@ -135,6 +135,15 @@ def test_multivariate_normal_from_standard_errors_and_a_correlation_matrix() -> 
     assert d.transforms == ("log", "log", "identity")
 
 
+def test_dirichlet_from_mean_shares_and_a_sample_size() -> None:
+    # alpha_k = m_k n (Briggs et al. 2006, ch. 4): the means are the stated shares, and each share's
+    # variance is m (1 - m) / (n + 1), that of a Beta(m n, (1 - m) n) (scipy.stats.dirichlet)
+    d = dirichlet_from_shares([0.7, 0.2, 0.1], 200)
+    ref = stats.dirichlet(d.alpha)
+    np.testing.assert_allclose(ref.mean(), [0.7, 0.2, 0.1], rtol=1e-14)
+    np.testing.assert_allclose(ref.var(), np.array([0.7, 0.2, 0.1]) * [0.3, 0.8, 0.9] / 201, rtol=1e-12)
+
+
 def test_dirichlet_marginals_are_betas_and_match_scipy() -> None:
     d = Dirichlet((140.0, 60.0, 5.0))
     ref = stats.dirichlet(d.alpha)
