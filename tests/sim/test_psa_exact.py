@@ -186,3 +186,17 @@ def test_a_draws_exact_row_does_not_depend_on_its_block(background):
     together = exact_per_draw(models, range(6))
     alone = pd.concat([exact_per_draw(models[d:d + 1], [d]) for d in range(6)], ignore_index=True)
     pd.testing.assert_frame_equal(together, alone, check_exact=True)
+
+
+def test_a_life_table_goes_to_the_reference_solver():
+    from sim.hazards import PiecewiseConstant
+    from sim.psa.exact_stacked import stackable
+
+    base = markov_model(horizon=15.0)
+    table = PiecewiseConstant((0.0, 65.0, 70.0), (0.01, 0.02, 0.04))  # invented rates by attained age
+    model = dataclasses.replace(base, background=BackgroundMortality("dead", {"all": table}))
+    models = models_for_draws(model, draws_table(2), apply_values)
+    assert not stackable(models, model.strategy_names)
+    exact = exact_per_draw(models, [0, 1])
+    ref = exact_outcomes(models[1]).pivot(index="strategy", columns="outcome", values="value")
+    assert exact[(exact["draw"] == 1) & (exact["strategy"] == "usual")].iloc[0]["qalys"] == ref.loc["usual", "qalys"]
