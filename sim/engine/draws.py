@@ -103,9 +103,9 @@ class DrawExit:
                draw: NDArray[np.int64]) -> NDArray[np.float64]:
         """Conditional event times of lanes with clocks ``x``, draws ``e``, sex codes ``sex`` (None:
         code 0) and block draw indexes ``draw`` (under the kernels' error state)."""
-        codes = self.code[draw, 0] if sex is None else self.code[draw, sex]
         if self.kind == "one":
             return self.unique[0]._conditional_time(x, e)
+        codes = self.code[draw, 0] if sex is None else self.code[draw, sex]
         if self.kind == "rate":  # Exponential: e / rate, +inf for a zero rate
             r = self.rate[codes]
             return np.where(r > 0.0, e / r, np.inf)
@@ -124,6 +124,12 @@ class DrawExit:
 
     def _grouped(self, x: NDArray, e: NDArray, codes: NDArray) -> NDArray:
         out = np.empty_like(x)
+        if len(self.unique) <= 8:  # a few hazards (e.g. one per sex): a mask each
+            for c, h in enumerate(self.unique):
+                m = codes == c
+                if m.any():
+                    out[m] = h._conditional_time(x[m], e[m])
+            return out
         order = np.argsort(codes, kind="stable")
         sorted_codes = codes[order]
         cuts = np.flatnonzero(np.diff(sorted_codes)) + 1
