@@ -293,6 +293,13 @@ class Hazard(abc.ABC):
             t[refine] = self._polish(x[refine], e[refine], t[refine])
         return t
 
+    def _conditional_time_large_ratio(self, x: FloatArray, e: FloatArray, hr: float) -> FloatArray | None:
+        """Conditional time under the cumulative hazard ``hr * H`` for 1-D lanes where ``e / hr``
+        overflows although ``e`` is finite (a tiny hazard ratio), or ``None`` where the family has
+        no form for it (:class:`ProportionalHazards` then keeps ``+inf``). Families whose time
+        can stay finite there override it."""
+        return None
+
     def _increment(self, x: FloatArray, t: FloatArray) -> FloatArray:
         """H(x + t) - H(x) by Gauss-Legendre quadrature of h (for short intervals, t <= x)."""
         s = x[:, None] + t[:, None] * _GL_NODES

@@ -58,3 +58,7 @@ class Exponential(Hazard):
 
     def _conditional_time(self, x: FloatArray, e: FloatArray) -> FloatArray:
         return e / self.rate if self.rate > 0.0 else np.full(e.shape, np.inf)
+
+    def _conditional_time_large_ratio(self, x: FloatArray, e: FloatArray, hr: float) -> FloatArray:
+        """``e / (rate hr)`` as ``(e / rate) / hr``: finite where ``e / hr`` alone overflows."""
+        return (e / self.rate) / hr if self.rate > 0.0 else np.full(e.shape, np.inf)

@@ -48,6 +48,7 @@ def _gammaincc_cf(a: float, z: FloatArray) -> tuple[FloatArray, FloatArray]:
     return -z + a * np.log(z) - sc.gammaln(a) + np.log(h), 1.0 / h
 
 
+_BIG = float(np.finfo(np.float64).max)
 _GAMMA_TAIL_H = 650.0  # H above which the gamma inverse uses Newton on log Q (exp(-H) ~ 1e-283)
 
 
@@ -107,7 +108,10 @@ class Gamma(_ShapeScale):
         return np.where(np.isinf(t), 1.0 / theta, h)
 
     def _cumhazard(self, t: FloatArray) -> FloatArray:
-        z = t / self.scale
+        return self._cum_z(t / self.scale)
+
+    def _cum_z(self, z: FloatArray) -> FloatArray:
+        """Cumulative hazard on the z = t/scale clock."""
         p = sc.gammainc(self.shape, z)
         h = np.array(-np.log1p(-p), dtype=np.float64)
         upper = p >= 0.5
@@ -116,6 +120,10 @@ class Gamma(_ShapeScale):
         return h
 
     def _inv_cumhazard(self, y: FloatArray) -> FloatArray:
+        return self.scale * self._inv_z(y)
+
+    def _inv_z(self, y: FloatArray) -> FloatArray:
+        """Inverse cumulative hazard on the z = t/scale clock."""
         a = self.shape
         z = np.full(y.shape, np.inf)
         low = y <= math.log(2.0)  # P <= 1/2: invert the lower function, accurate for tiny y
@@ -125,7 +133,56 @@ class Gamma(_ShapeScale):
         far = (y > _GAMMA_TAIL_H) & np.isfinite(y)
         if np.any(far):
             z[far] = self._far_tail_z(y[far])
-        return self.scale * z
+        return z
+
+    @property
+    def _z_flat(self) -> float:
+        """z beyond which the hazard equals 1/scale in double precision: there
+        ``scale h = 1 - (a - 1)/z + O(z^-2)`` (the continued fraction of ``_gammaincc_cf``),
+        a relative deviation below 2^-60."""
+        return 2.0 ** 60 * max(1.0, abs(self.shape - 1.0))
+
+    def _conditional_time(self, x: FloatArray, e: FloatArray) -> FloatArray:
+        """The base-class inversion, except on a clock so late that the hazard is flat (there
+        ``T = e * scale``; also where ``x / scale`` overflows) or where the inversion overflowed
+        (``x + T`` beyond the largest double with ``T`` finite): there the event time is
+        taken on the ``z = t/scale`` clock, in two legs if it crosses the flat region."""
+        t = super()._conditional_time(x, e)
+        z = x / self.scale
+        lost = (e < np.inf) & (~(t < np.inf) | (z > self._z_flat))
+        if np.any(lost):
+            t = np.array(t, dtype=np.float64)
+            t[lost] = self.scale * self._late_z(z[lost], e[lost])
+        return t
+
+    def _late_z(self, z: FloatArray, e: FloatArray) -> FloatArray:
+        """Time on the z clock from ``z`` to spend the hazard ``e`` (1-D, finite ``e``): ``e`` itself
+        from the flat region on; before it, the inverse up to the flat region's start and ``e``
+        less the hazard spent there beyond it."""
+        zf = self._z_flat
+        out = np.array(e, dtype=np.float64)
+        early = ~(z > zf)
+        if np.any(early):
+            ze, ee = z[early], e[early]
+            hz = self._cum_z(ze)
+            gap = float(self._cum_z(np.array([zf]))[0]) - hz  # hazard left before the flat region
+            inside = ee <= gap
+            with np.errstate(invalid="ignore"):  # inf - inf (the root beyond the largest double)
+                first = np.where(inside, self._inv_z(np.where(inside, hz + ee, 0.0)) - ze, 0.0)
+                out[early] = np.where(inside, first, (zf - ze) + (ee - gap))
+        return np.where(np.isnan(out), np.inf, out)
+
+    def _conditional_time_large_ratio(self, x: FloatArray, e: FloatArray, hr: float) -> FloatArray | None:
+        """Conditional time under ``hr * H`` where ``e / hr`` overflows: the hazard to spend then
+        exceeds the largest double, so the time lies far in the flat region, ``T = e scale / hr``
+        (relative error below ``z_flat / (e / hr)``); ``None`` for a shape so large that the
+        flat region starts beyond ``2^-60`` of the largest double."""
+        if self._z_flat > 2.0 ** -60 * _BIG:
+            return None
+        ratio = self.scale / hr
+        if ratio < np.inf:
+            return e * ratio
+        return (e * self.scale) / hr
 
     def _far_tail_z(self, y: FloatArray) -> FloatArray:
         """Solve -log Q(a, z) = y for y > _GAMMA_TAIL_H by Newton with a bracket (1-D arrays)."""
@@ -138,6 +195,12 @@ class Gamma(_ShapeScale):
         lo = np.full_like(y, z_lo)
         hi = z_lo + (y - h_lo) / slope
         z = hi.copy() if a >= 1.0 else lo.copy()  # monotone Newton: from the right if convex
+        with np.errstate(invalid="ignore"):  # y near the largest double: z overflows (inf - inf)
+            z = self._far_newton(y, z, lo, hi)
+        return np.where(np.isnan(z), np.inf, z)
+
+    def _far_newton(self, y: FloatArray, z: FloatArray, lo: FloatArray, hi: FloatArray) -> FloatArray:
+        """The bracketed Newton iteration of ``_far_tail_z``."""
         for _ in range(100):
             r = -self._log_q(z) - y
             hi = np.where(r > 0.0, z, hi)

@@ -20,7 +20,7 @@ from typing import ClassVar
 import numpy as np
 from scipy import special as sc
 
-from ._numerics import FloatArray, _log1prel, _log_exprel, _softplus
+from ._numerics import FloatArray, _log1prel, _log_expm1, _log_exprel, _softplus
 from .base import Hazard, _param
 from .dimensions import Dimension
 
@@ -88,6 +88,19 @@ def _gompertz_time(log_b: FloatArray | float, g: float, e: FloatArray) -> FloatA
     return np.where(e > 0.0, np.where(lv >= 0.0, np.inf, t), 0.0)
 
 
+def _log_form(log_b: FloatArray, g: float, t: FloatArray, edge: FloatArray, bem1: FloatArray,
+              gomp: FloatArray) -> tuple[FloatArray, FloatArray]:
+    """``B expm1(g t)`` and ``B exp(g t)`` from ``log B`` on the lanes ``edge`` (the others kept):
+    ``sign(g) exp(log B + log|expm1(g t)|)`` and ``exp(log B + g t)``, finite wherever the
+    products are, whatever the size of ``exp(g t)`` or the precision of a subnormal ``B``."""
+    gt = g * t
+    with np.errstate(divide="ignore"):  # t = 0: log 0 = -inf, exp(-inf) = 0
+        log_abs = np.where(gt > 0.0, _log_expm1(np.maximum(gt, 0.0)), np.log(-np.expm1(np.minimum(gt, 0.0))))
+    lb = np.where(edge, log_b, 0.0)
+    return (np.where(edge, math.copysign(1.0, g) * np.exp(lb + np.where(edge, log_abs, 0.0)), bem1),
+            np.where(edge, np.exp(lb + np.where(edge, gt, 0.0)), gomp))
+
+
 @dataclass(frozen=True)
 class Gompertz(Hazard):
     """Gompertz hazard, exponential in the clock (human adult mortality on attained age).
@@ -141,6 +154,11 @@ class Gompertz(Hazard):
 
     def _conditional_time(self, x: FloatArray, e: FloatArray) -> FloatArray:
         return _gompertz_time(math.log(self.rate) + self.shape * x, self.shape, e)
+
+    def _conditional_time_large_ratio(self, x: FloatArray, e: FloatArray, hr: float) -> FloatArray:
+        """Under ``hr * H``: the Gompertz time with ``log B = log hr + log b + g x`` (no ``b hr``
+        formed, which may underflow, and no ``e / hr``, which overflowed)."""
+        return _gompertz_time(math.log(hr) + math.log(self.rate) + self.shape * x, self.shape, e)
 
 
 @dataclass(frozen=True)
@@ -206,6 +224,24 @@ class GompertzMakeham(Hazard):
     def _conditional_time(self, x: FloatArray, e: FloatArray) -> FloatArray:
         return self._solve(math.log(self.rate) + self.shape * x, e)
 
+    def _conditional_time_large_ratio(self, x: FloatArray, e: FloatArray, hr: float) -> FloatArray | None:
+        """Under ``hr * H`` where ``y = e / hr`` overflows (``y`` above the largest double), one term
+        of ``c T + (B/g) expm1(g T) = y`` is negligible to rounding: for ``g > 0`` the Makeham term
+        (``c T <= 2^-60 y`` is checked), giving the Gompertz time with ``log B = log hr + log b + g x``;
+        for ``g < 0`` the bounded Gompertz term (``B/|g| <= 2^-60 y``), giving ``(e / c) / hr``;
+        for ``g = 0``, ``(e / (b + c)) / hr``. ``None`` where the neglected term is not negligible."""
+        b, g, c = self.rate, self.shape, self.constant
+        if g == 0.0:
+            return (e / (b + c)) / hr
+        if g > 0.0:
+            t = _gompertz_time(math.log(hr) + math.log(b) + g * x, g, e)
+            return t if np.all(c * t <= 2.0 ** -60 * _BIG) else None
+        if c == 0.0:
+            return _gompertz_time(math.log(hr) + math.log(b) + g * x, g, e)
+        if b * math.exp(min(g * float(np.min(x)), 0.0)) / -g > 2.0 ** -60 * _BIG:
+            return None
+        return (e / c) / hr
+
     def _solve(self, log_b: FloatArray, e: FloatArray) -> FloatArray:
         """T with c T + (B/g)(exp(g T) - 1) = e, B = exp(log_b); arrays of equal shape."""
         b, g, c = self.rate, self.shape, self.constant
@@ -259,6 +295,10 @@ class GompertzMakeham(Hazard):
             big_b, c, e = big_b * scale, c * scale, e * scale
         else:
             c = np.full(e.shape, c)
+        # B subnormal (few significant bits) or exp(g T) near overflow: the Gompertz terms in log
+        # form there, from log B (scaled like B above), never from the rounded B
+        log_bs = log_b + power * math.log(2.0) if np.any(deep) else log_b
+        sub = big_b < _TINY_NORMAL
         t_c = e / c
         t_g = _gompertz_time(log_b, g, e)
         t_lin = e / (c + big_b)
@@ -273,10 +313,14 @@ class GompertzMakeham(Hazard):
         for _ in range(200):
             with np.errstate(invalid="ignore"):  # inf/inf steps near the top of the range: NaN -> bisect
                 em1 = np.expm1(g * t)
-                f = c * t + big_b * em1 / g - e  # > 0: t too large
+                bem1 = big_b * em1  # B expm1(g t)
+                gomp = big_b * (1.0 + em1)  # Gompertz hazard at x + t
+                edge = sub | (g * t > 700.0)
+                if np.any(edge):
+                    bem1, gomp = _log_form(log_bs, g, t, edge, bem1, gomp)
+                f = c * t + bem1 / g - e  # > 0: t too large
                 hi = np.where(f > 0.0, t, hi)
                 lo = np.where(f <= 0.0, t, lo)
-                gomp = big_b * (1.0 + em1)  # Gompertz hazard at x + t
                 fp = c + gomp
                 step = f * fp / (fp * fp - 0.5 * f * g * gomp)
                 new = t - step
@@ -289,6 +333,7 @@ class GompertzMakeham(Hazard):
             if not np.any(keep):
                 break
             idx, t, lo, hi, big_b, e, c = idx[keep], new[keep], lo[keep], hi[keep], big_b[keep], e[keep], c[keep]
+            log_bs, sub = log_bs[keep], sub[keep]
         else:  # pragma: no cover - bisection guarantees convergence well within 200 steps
             out[idx] = t
         if g > 0.0:

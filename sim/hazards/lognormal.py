@@ -38,7 +38,7 @@ class LogNormal(Hazard):
     :math:`\\sqrt{2/\\pi} / (\\sigma t\\,\\mathrm{erfcx}(w/\\sqrt 2))` for ``w >= 0``), and
     :math:`H^{-1}(y) = \\exp(\\mu - \\sigma\\,\\Phi^{-1}(e^{-y}))` via ``ndtri_exp``.
     scipy: ``lognorm(s=sigma, scale=exp(mu))``. Conditional time: the base-class inversion
-    with Newton polishing.
+    with Newton polishing; on the w clock where ``x + T`` overflows.
     """
 
     mu: float
@@ -75,6 +75,10 @@ class LogNormal(Hazard):
         return -sc.log_ndtr(-self._w(t))
 
     def _inv_cumhazard(self, y: FloatArray) -> FloatArray:
+        return np.exp(self.mu + self.sigma * self._w_inv(y))
+
+    def _w_inv(self, y: FloatArray) -> FloatArray:
+        """w = (log t - mu) / sigma at which H = y."""
         w = -sc.ndtri_exp(-y)
         far = (y > 3000.0) & np.isfinite(y)
         if np.any(far):
@@ -87,7 +91,54 @@ class LogNormal(Hazard):
                 else self._edge_step(wf, log_sf, y[far])
             w = np.array(w, dtype=np.float64)
             w[far] = wf + step
-        return np.exp(self.mu + self.sigma * w)
+        return w
+
+    def _conditional_time(self, x: FloatArray, e: FloatArray) -> FloatArray:
+        """The base-class inversion, except where it overflowed (``x + T`` beyond the largest
+        double, ``T`` finite): there ``T = x expm1(sigma (w_end - w_x))`` on the w clock, with
+        ``w_end`` from ``H(x) + e`` (see ``_late``)."""
+        t = super()._conditional_time(x, e)
+        lost = (t == np.inf) & (e < np.inf)
+        if np.any(lost):
+            t = np.array(t, dtype=np.float64)
+            xl = x[lost]
+            hx = self._cumhazard(xl)
+            t[lost] = np.where(hx < np.inf, self._late(xl, self._w_inv(hx + e[lost])), np.inf)
+        return t
+
+    def _late(self, x: FloatArray, w_end: FloatArray) -> FloatArray:
+        """Time from clock ``x`` to the end at ``w_end``: ``x expm1(sigma (w_end - w_x))``, with no
+        ``x + T`` formed (``exp(mu + sigma w_end)`` at ``x = 0``). An error ``d`` in ``w_end``
+        moves ``H`` by ``h d``, about ``w^2 d``: within the rounding of ``H`` for ``|d| ~ eps w``."""
+        with np.errstate(divide="ignore", invalid="ignore"):  # log 0 and 0 * inf at x = 0, replaced below
+            w_x = self._w(x)
+            return self._grown(x, self.sigma * (w_end - w_x), w_end)
+
+    def _grown(self, x: FloatArray, d: FloatArray, w_end: FloatArray) -> FloatArray:
+        """``x expm1(d)`` (``d = log((x + T)/x)``), as ``exp(log x + d)(1 - e^-d)`` where
+        ``expm1(d)`` alone would overflow; ``exp(mu + sigma w_end)`` at ``x = 0``."""
+        with np.errstate(divide="ignore", invalid="ignore"):  # x = 0 lanes, replaced below
+            late = np.where(d > 700.0, np.exp(np.log(x) + d) * -np.expm1(-d), x * np.expm1(d))
+        return np.where(x > 0.0, late, np.exp(self.mu + self.sigma * w_end))
+
+    def _conditional_time_large_ratio(self, x: FloatArray, e: FloatArray, hr: float) -> FloatArray | None:
+        """Conditional time under ``hr * H`` where ``y = e / hr`` overflows. There
+        ``-log Phi(-w) = w^2/2 + log(w sqrt(2 pi)) + O(w^-2)`` (Mills ratio; DLMF 7.12.1) with
+        ``w_end >= sqrt(2 y) > 1e154``, so ``w_end^2 = 2 (H(x) + y)`` to a relative ``1e-305``:
+        ``w_end = sqrt(2) sqrt(y) sqrt(1 + H(x) / y)``, ``sqrt(y) = sqrt(e) / sqrt(hr)``. Where
+        ``w_x > 1e9`` (``H(x)`` itself may overflow) the same expansion at ``x`` gives
+        ``w_end^2 = w_x^2 + 2 y`` to rounding, and ``w_end - w_x = 2 y / (w_end + w_x)`` without
+        cancellation. Finite only for a tiny sigma."""
+        with np.errstate(divide="ignore", invalid="ignore"):  # log 0 at x = 0
+            w_x = self._w(x)
+        root2y = math.sqrt(2.0) * (np.sqrt(e) / math.sqrt(hr))  # sqrt(2 y)
+        hx = self._cumhazard(x)
+        far = w_x > 1e9
+        w_end = root2y * np.sqrt(1.0 + np.where(far, 0.0, hx) * hr / e)
+        with np.errstate(invalid="ignore"):  # x = 0 lanes (w_x = -inf: inf - inf) are not far
+            step = root2y * (root2y / (np.hypot(w_x, root2y) + w_x))  # w_end - w_x where far
+        t = np.where(far, self._grown(x, self.sigma * step, w_end), self._late(x, w_end))
+        return np.where(root2y < np.inf, t, np.inf)  # sqrt(2 y) itself beyond the double range
 
     @staticmethod
     def _edge_step(w: FloatArray, log_sf: FloatArray, y: FloatArray) -> FloatArray:

@@ -76,7 +76,8 @@ class PiecewiseConstant(Hazard):
         b = np.array(breaks)
         r = np.array(rates)
         end = np.append(b[1:], np.inf)
-        cum = np.concatenate(([0.0], np.cumsum(r[:-1] * np.diff(b))))
+        with np.errstate(over="ignore"):  # band totals beyond the largest double: H = +inf from there
+            cum = np.concatenate(([0.0], np.cumsum(r[:-1] * np.diff(b))))
         for name, arr in (("breaks", breaks), ("rates", rates)):
             object.__setattr__(self, name, arr)
         for name, arr in (("_b", b), ("_r", r), ("_end", end), ("_cum", cum)):
@@ -113,7 +114,10 @@ class PiecewiseConstant(Hazard):
 
     def _inv_cumhazard(self, y: FloatArray) -> FloatArray:
         j, dt = self._from_cum(y)
-        return self._b[j] + dt
+        t = self._b[j] + dt
+        if np.isinf(self._cum[-1]):  # band totals overflowed: inf - inf at y = inf, which gives inf
+            t = np.where(np.isnan(t), np.inf, t)
+        return t
 
     def _conditional_time(self, x: FloatArray, e: FloatArray) -> FloatArray:
         n = self._b.size
@@ -130,4 +134,33 @@ class PiecewiseConstant(Hazard):
             j, dt = self._from_cum(y)
             t_cross = room + (self._b[j] - self._b[nxt]) + dt
         last = i == n - 1
-        return np.where(within, t_within, np.where(last, np.inf, t_cross))
+        t = np.where(within, t_within, np.where(last, np.inf, t_cross))
+        lost = ~(y < np.inf) & ~within & ~last  # the target cumulative hazard overflowed (or inf - inf)
+        if np.any(lost):
+            t = np.array(t, dtype=np.float64)
+            with np.errstate(invalid="ignore"):  # inf - inf for an infinite draw: +inf below
+                rest = e[lost] - left[lost]
+            t[lost] = np.where(e[lost] < np.inf, self._walk(nxt[lost], rest, room[lost]), np.inf)
+        return t
+
+    def _walk(self, j: NDArray[np.intp], rest: FloatArray, room: FloatArray) -> FloatArray:
+        """Time to the event for 1-D lanes whose target cumulative hazard overflows (band totals
+        near the largest double): from band ``j`` on (``room`` years after the clock), the hazard
+        ``rest`` still to go is spent band by band, without forming cumulative sums. ``+inf`` where
+        it outlasts every band (a last rate of 0)."""
+        n = self._b.size
+        start = self._b[j]
+        out = np.full(rest.shape, np.inf)
+        open_ = np.ones(rest.shape, dtype=bool)
+        with np.errstate(invalid="ignore", over="ignore"):  # 0 * inf: a last band of rate 0
+            for _ in range(n):
+                r = self._r[j]
+                total = np.where(r > 0.0, r * (self._end[j] - self._b[j]), 0.0)
+                here = open_ & (rest < total)
+                out = np.where(here, room + (self._b[j] - start) + rest / np.where(here, r, 1.0), out)
+                open_ &= ~here & (j < n - 1)
+                if not np.any(open_):
+                    break
+                rest = np.where(open_, rest - total, rest)
+                j = np.where(open_, j + 1, j)
+        return out

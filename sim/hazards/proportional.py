@@ -82,6 +82,13 @@ class ProportionalHazards(Hazard):
             if same is not None:
                 t = np.array(t, dtype=np.float64)
                 t[lost] = same._conditional_time(x[lost], e[lost])
+            else:  # a form in e and hr of the base's own, where e / hr overflowed
+                over = (y == np.inf) & (e < np.inf)
+                if np.any(over):
+                    fix = self.base._conditional_time_large_ratio(x[over], e[over], self.hr)
+                    if fix is not None:
+                        t = np.array(t, dtype=np.float64)
+                        t[over] = fix
         return t
 
     def _same_family(self) -> Hazard | None:
@@ -89,13 +96,17 @@ class ProportionalHazards(Hazard):
         (exponential, Weibull, Gompertz(-Makeham), piecewise-constant: the rate parameters times
         ``hr``, the Weibull scale times ``hr ** (-1 / shape)``), so that its conditional time takes
         the draw ``e`` itself instead of ``e / hr``; ``None`` for the other families, or where the
-        scaled parameters leave their domain (underflow to 0, overflow)."""
+        scaled parameters leave their domain (overflow) or lose digits (a rate times ``hr``
+        subnormal or 0)."""
         from .exponential import Exponential
         from .gompertz import Gompertz, GompertzMakeham
         from .piecewise import PiecewiseConstant
         from .shape_scale import Weibull
 
         b, hr = self.base, self.hr
+        rates = [getattr(b, n) for n in ("rate", "constant") if hasattr(b, n)] + list(getattr(b, "rates", ()))
+        if any(0.0 < r * hr < _TINY_NORMAL for r in rates):  # a scaled rate subnormal or 0: digits lost
+            return None
         try:
             with np.errstate(over="ignore", under="ignore"):
                 if isinstance(b, Exponential):

@@ -35,6 +35,16 @@ def _overflowed_end(t: FloatArray, log_end: FloatArray, z: FloatArray, e: FloatA
     return np.where(edge, np.where(np.isnan(redo), 0.0, redo), t)
 
 
+def _late_end(log_end: FloatArray, la: FloatArray, x: FloatArray, z: FloatArray) -> FloatArray:
+    """``log(x + T)`` as ``log x + z`` where ``log a(x) = k log(x / scale)`` overflowed (a huge
+    shape on a late clock: ``H(x)`` beyond the double range, ``z = log((x + T)/x)`` still
+    finite); other lanes unchanged."""
+    edge = la == np.inf
+    if not np.any(edge):
+        return log_end
+    return np.where(edge, np.log(x) + z, log_end)
+
+
 @dataclass(frozen=True)
 class _ShapeScale(Hazard):
     """Shared parameters of the proper two-parameter families with a shape and a time scale
@@ -160,6 +170,21 @@ class LogLogistic(_ShapeScale):
         with np.errstate(invalid="ignore"):  # e = 0 or e = inf lanes, replaced below
             z = _softplus(lem1 + _softplus(-la)) / k  # log((x + T) / x)
             log_end = log_lam + np.logaddexp(la + e, lem1) / k  # log(x + T)
+            log_end = _late_end(log_end, la, x, z)
             t = np.exp(log_end) * -np.expm1(-z)
         t = _overflowed_end(t, log_end, z, e)
         return np.where(e > 0.0, np.where(e < np.inf, t, np.inf), 0.0)
+
+    def _conditional_time_large_ratio(self, x: FloatArray, e: FloatArray, hr: float) -> FloatArray:
+        """Conditional time under ``hr * H`` where ``y = e / hr`` overflows: the formulas of
+        ``_conditional_time`` with ``log(expm1(y)) = y`` (exact in double precision for
+        ``y > 40``) and ``y / k`` formed as ``e / (hr k)``; finite only for a huge shape ``k``."""
+        k, log_lam = self.shape, math.log(self.scale)
+        q = e / (hr * k)  # y / k
+        la = k * (np.log(x) - log_lam)
+        with np.errstate(invalid="ignore"):  # q = inf lanes: T = inf, set below
+            z = q + _softplus(-la) / k
+            log_end = _late_end(log_lam + q + _softplus(la) / k, la, x, z)
+            t = np.exp(log_end) * -np.expm1(-z)
+        t = _overflowed_end(t, log_end, z, e)
+        return np.where(q < np.inf, t, np.inf)
