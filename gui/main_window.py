@@ -20,6 +20,7 @@ from gui.preview import HazardPreview
 from gui.results import ResultsPanel
 from gui.run_panel import RunPanel
 from gui.shortcuts import FieldShortcuts
+from gui.uncertainty.page import PsaPage
 from sim.io.demo import DEMOS
 
 __all__ = ["MainWindow"]
@@ -134,6 +135,8 @@ class MainWindow(QMainWindow):
         self.tabs = QTabWidget()
         self.tabs.addTab(self.model_page, "Model")
         self.tabs.addTab(self.results_page, "Results")
+        self.psa_page = PsaPage(doc)
+        self.tabs.addTab(self.psa_page, "Probabilistic analysis")
 
         split = QSplitter(Qt.Orientation.Horizontal)
         split.addWidget(left)
@@ -514,6 +517,7 @@ class MainWindow(QMainWindow):
                 self.document.discard_recovery()
             self.run_panel.shutdown()
             self.results_panel.shutdown()
+            self.psa_page.shutdown()
             event.accept()
         else:
             event.ignore()

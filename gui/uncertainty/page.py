@@ -1,0 +1,335 @@
+"""The "Probabilistic analysis" page: run settings (draws, patients per draw, local workers, the
+cycle-based approximations to compare), Run and Cancel with progress and the estimated time left,
+and the views of the finished analysis (:mod:`gui.uncertainty.views`). The analysis runs in a worker
+thread (:class:`gui.uncertainty.worker.PsaJob`); the window never waits for it.
+"""
+
+from __future__ import annotations
+
+import html
+import os
+
+from PySide6.QtCore import QCoreApplication, Qt, Signal, Slot
+from PySide6.QtWidgets import (QCheckBox, QComboBox, QFormLayout, QGroupBox, QHBoxLayout, QLabel, QProgressBar,
+                               QPushButton, QSpinBox, QSplitter, QStackedWidget, QTabWidget, QVBoxLayout, QWidget)
+
+from gui.document import ScenarioDocument
+from gui.palette import OKABE_ITO
+from gui.results.exports import Exporter
+from sim.cli.psa import DEFAULT_DRAWS, DEFAULT_PATIENTS
+from sim.io import Scenario
+from sim.psa import CycleMethod
+from sim.reference import Conversion, Correction
+from sim.report import cycle_words
+
+from .views import AcceptabilityView, CePlaneView, ConvergenceView, EvpiView, PsaTablesView
+from .worker import PsaJob, PsaOutcome, PsaRequest, PsaWorker, eta_text
+
+__all__ = ["PsaPage", "PsaRunControls", "CANCELLING_TEXT"]
+
+CANCELLING_TEXT = "Cancelling… (after the block of draws running now)"
+MAX_DRAWS = 1_000_000
+MAX_PATIENTS = 100_000_000
+
+
+class PsaRunControls(QWidget):
+    """Settings, Run/Cancel and progress of the analysis; emits ``finished(PsaOutcome)``."""
+
+    finished = Signal(object)
+    started = Signal()
+
+    def __init__(self, parent: QWidget | None = None) -> None:
+        super().__init__(parent)
+        self.scenario: Scenario | None = None
+        self.job: PsaJob | None = None
+        self.draws = QSpinBox()
+        self.draws.setObjectName("psa_draws")
+        self.draws.setRange(1, MAX_DRAWS)
+        self.draws.setGroupSeparatorShown(True)
+        self.draws.setValue(DEFAULT_DRAWS)
+        self.draws.setToolTip("Parameter draws; draw i is the same whatever the number of draws or workers")
+        self.patients = QSpinBox()
+        self.patients.setObjectName("psa_patients")
+        self.patients.setRange(0, MAX_PATIENTS)
+        self.patients.setGroupSeparatorShown(True)
+        self.patients.setValue(DEFAULT_PATIENTS)
+        self.patients.setSpecialValueText("none (exact and cycle-based only)")
+        self.patients.setToolTip("Simulated patients per draw and strategy (the same patients in every strategy)")
+        self.workers = QSpinBox()
+        self.workers.setObjectName("psa_workers")
+        self.workers.setRange(1, max(64, os.cpu_count() or 1))
+        self.workers.setToolTip("1 runs in this program; more start a local Dask cluster of worker processes "
+                                "(a few seconds to start). The results do not depend on this number.")
+        form = QFormLayout()
+        form.addRow("Parameter draws", self.draws)
+        form.addRow("Patients per draw", self.patients)
+        form.addRow("Workers (this machine)", self.workers)
+
+        self.approx = QGroupBox("Cycle-based approximations on the same draws")
+        self.conversions: dict[str, QCheckBox] = {}
+        box = QVBoxLayout(self.approx)
+        for c in Conversion:
+            cb = QCheckBox(c.value)
+            cb.setObjectName(f"psa_conversion_{c.value}")
+            cb.setChecked(True)
+            self.conversions[c.value] = cb
+            box.addWidget(cb)
+        self.cycle_length = QComboBox()
+        self.cycle_length.setObjectName("psa_cycle_length")
+        self.correction = QComboBox()
+        self.correction.setObjectName("psa_correction")
+        for c in Correction:
+            self.correction.addItem(c.value, c.value)
+        self.correction.setCurrentIndex(self.correction.findData(Correction.HALF_CYCLE.value))
+        sub = QFormLayout()
+        sub.addRow("Cycle length", self.cycle_length)
+        sub.addRow("Correction", self.correction)
+        box.addLayout(sub)
+        self.approx_note = QLabel()
+        self.approx_note.setWordWrap(True)
+        box.addWidget(self.approx_note)
+
+        self.run_button = QPushButton("Run analysis")
+        self.run_button.setObjectName("psa_run")
+        self.cancel_button = QPushButton("Cancel")
+        self.cancel_button.setObjectName("psa_cancel")
+        self.cancel_button.setEnabled(False)
+        buttons = QHBoxLayout()
+        buttons.addWidget(self.run_button)
+        buttons.addWidget(self.cancel_button)
+        buttons.addStretch(1)
+        self.progress = QProgressBar()
+        self.progress.setRange(0, 1)
+        self.progress.setValue(0)
+        self.status = QLabel("Idle")
+        self.status.setObjectName("psa_status")
+        self.status.setWordWrap(True)
+        self.reason = QLabel()
+        self.reason.setWordWrap(True)
+        self.reason.setStyleSheet(f"color: {OKABE_ITO['vermillion']};")
+
+        layout = QVBoxLayout(self)
+        layout.addLayout(form)
+        layout.addWidget(self.approx)
+        layout.addLayout(buttons)
+        layout.addWidget(self.progress)
+        layout.addWidget(self.status)
+        layout.addWidget(self.reason)
+        layout.addStretch(1)
+        self.run_button.clicked.connect(self.start)
+        self.cancel_button.clicked.connect(self.cancel)
+        app = QCoreApplication.instance()
+        if app is not None:
+            app.aboutToQuit.connect(self.shutdown)
+        self.set_scenario(None, "Open a valid scenario to run its probabilistic analysis.")
+
+    # ------------------------------------------------------------------ scenario
+    def set_scenario(self, scenario: Scenario | None, reason: str = "") -> None:
+        """The scenario the next analysis runs (None: Run is disabled and ``reason`` shown)."""
+        first = self.scenario is None or scenario is None or scenario.run != self.scenario.run
+        self.scenario = scenario
+        if scenario is not None and not scenario.uncertainty and not reason:
+            reason = ("This scenario has no [[uncertainty]] inputs: every draw is the point-value model. "
+                      "Give parameters distributions with the ± button beside their fields.")
+        self.reason.setText(reason)
+        self.reason.setVisible(bool(reason))
+        if scenario is not None and first:
+            self.workers.setValue(min(int(scenario.run.workers), self.workers.maximum()))
+            current = self.cycle_length.currentData()
+            self.cycle_length.clear()
+            for h in sorted(scenario.run.cycle_lengths):
+                self.cycle_length.addItem(cycle_words(h), float(h))
+            keep = self.cycle_length.findData(current)
+            self.cycle_length.setCurrentIndex(keep if keep >= 0 else self.cycle_length.count() - 1)
+        markov = scenario is not None and scenario.model.is_markov
+        self.approx.setEnabled(markov and self.job is None)
+        self.approx_note.setText("" if markov or scenario is None else
+                                 "Only for Markov models (constant hazards or hazards on attained age): this model "
+                                 "has no cycle-based or exact result per draw.")
+        self.approx_note.setVisible(bool(self.approx_note.text()))
+        self._update_enabled()
+
+    def request(self) -> PsaRequest:
+        """The analysis the fields ask for."""
+        methods: tuple[CycleMethod, ...] = ()
+        h = self.cycle_length.currentData()
+        if self.scenario is not None and self.scenario.model.is_markov and h is not None:
+            methods = tuple(CycleMethod(c, float(h), self.correction.currentData())
+                            for c, cb in self.conversions.items() if cb.isChecked())
+        return PsaRequest(self.draws.value(), self.patients.value(), self.workers.value(), methods)
+
+    # ------------------------------------------------------------------ run
+    def is_running(self) -> bool:
+        return self.job is not None
+
+    @Slot()
+    def start(self) -> None:
+        if self.job is not None or self.scenario is None:
+            return
+        job = PsaJob(PsaWorker(self.scenario, self.request()))
+        job.draws.connect(self._on_draws)
+        job.finished.connect(self._on_finished)
+        job.failed.connect(self._on_failed)
+        job.cancelled.connect(self._on_cancelled)
+        self.job = job
+        self.progress.setRange(0, 0)
+        self.status.setText("Starting…")
+        self._update_enabled()
+        self.started.emit()
+        job.start()
+
+    @Slot()
+    def cancel(self) -> None:
+        if self.job is not None:
+            self.job.cancel()
+            self.cancel_button.setEnabled(False)
+            self.status.setText(CANCELLING_TEXT)
+
+    @Slot()
+    def shutdown(self) -> None:
+        """Cancel a running analysis and wait for its thread (before the window closes)."""
+        if self.job is not None:
+            self.job.stop()
+            self.job = None
+            self._idle("Cancelled")
+
+    def _update_enabled(self) -> None:
+        running = self.job is not None
+        self.run_button.setEnabled(not running and self.scenario is not None)
+        self.cancel_button.setEnabled(running)
+        for w in (self.draws, self.patients, self.workers):
+            w.setEnabled(not running)
+        self.approx.setEnabled(not running and self.scenario is not None and self.scenario.model.is_markov)
+
+    def _idle(self, text: str) -> None:
+        self.progress.setRange(0, 1)
+        self.progress.setValue(0)
+        self.status.setText(text)
+        self._update_enabled()
+
+    @Slot(int, int, float)
+    def _on_draws(self, done: int, total: int, left: float) -> None:
+        if self.job is None or self.job.worker.cancel_requested:
+            return
+        self.progress.setRange(0, max(total, 1))
+        self.progress.setValue(done)
+        self.status.setText(eta_text(done, total, left))
+
+    @Slot(object)
+    def _on_finished(self, outcome: PsaOutcome) -> None:
+        self.job = None
+        self.progress.setRange(0, 1)
+        self.progress.setValue(1)
+        r = outcome.request
+        self.status.setText(f"Done: {r.draws:,} draws × {r.patients:,} patients per draw in {outcome.seconds:.1f} s"
+                            + "".join(f"\nNote: {n}" for n in outcome.result.notes))
+        self._update_enabled()
+        self.finished.emit(outcome)
+
+    @Slot(str)
+    def _on_failed(self, message: str) -> None:
+        self.job = None
+        self._idle("Failed: " + message)
+
+    @Slot()
+    def _on_cancelled(self) -> None:
+        self.job = None
+        self._idle("Cancelled; nothing was kept")
+
+
+class PsaPage(QWidget):
+    """The run controls beside the views; follows ``document`` (the scenario validated last)."""
+
+    results_shown = Signal()
+
+    def __init__(self, document: ScenarioDocument, parent: QWidget | None = None) -> None:
+        super().__init__(parent)
+        self.document = document
+        self.outcome: PsaOutcome | None = None
+        self.controls = PsaRunControls()
+        self.exporter = Exporter(self)
+        self.title = QLabel()
+        self.title.setWordWrap(True)
+        self.title.setTextFormat(Qt.TextFormat.RichText)
+        self.ce_plane = CePlaneView()
+        self.acceptability = AcceptabilityView()
+        self.evpi = EvpiView()
+        self.convergence = ConvergenceView()
+        self.tables = PsaTablesView()
+        self.tabs = QTabWidget()
+        self.tabs.addTab(self.ce_plane, "Cost-effectiveness plane")
+        self.tabs.addTab(self.acceptability, "Acceptability")
+        self.tabs.addTab(self.evpi, "EVPI")
+        self.tabs.addTab(self.convergence, "Convergence")
+        self.tabs.addTab(self.tables, "Tables")
+        placeholder = QLabel("Run the probabilistic analysis to see the cost-effectiveness plane, the acceptability "
+                             "curves, the EVPI and the convergence here.")
+        placeholder.setWordWrap(True)
+        placeholder.setAlignment(Qt.AlignmentFlag.AlignCenter)
+        self.stack = QStackedWidget()
+        self.stack.addWidget(placeholder)
+        self.stack.addWidget(self.tabs)
+        self.status = QLabel()
+        self.status.setWordWrap(True)
+        right = QWidget()
+        rv = QVBoxLayout(right)
+        rv.setContentsMargins(0, 0, 0, 0)
+        rv.addWidget(self.title)
+        rv.addWidget(self.stack, 1)
+        rv.addWidget(self.status)
+        left = QWidget()
+        lv = QVBoxLayout(left)
+        lv.addWidget(QLabel("<b>Probabilistic analysis</b>"))
+        lv.addWidget(self.controls, 1)
+        left.setMinimumWidth(330)
+        left.setMaximumWidth(420)
+        split = QSplitter(Qt.Orientation.Horizontal)
+        split.addWidget(left)
+        split.addWidget(right)
+        split.setStretchFactor(1, 1)
+        layout = QVBoxLayout(self)
+        layout.setContentsMargins(0, 0, 0, 0)
+        layout.addWidget(split)
+
+        self.controls.finished.connect(self.show_outcome)
+        document.validated.connect(self._on_validated)
+        self.tables.save_requested.connect(lambda frame, name: self.exporter.save_table(self, frame, name))
+        for view in self.views():
+            view.panel.save_bar.saved.connect(self._on_saved)
+            view.panel.save_bar.failed.connect(self._on_failed)
+        self.exporter.saved.connect(self._on_saved)
+        self.exporter.failed.connect(self._on_failed)
+        self._on_validated(document.scenario, document.errors)
+
+    def views(self) -> list:
+        return [self.ce_plane, self.acceptability, self.evpi, self.convergence]
+
+    def _on_validated(self, scenario: object, errors: list) -> None:
+        reason = "" if scenario is not None else (errors[0].text if errors else "The scenario cannot be read.")
+        self.controls.set_scenario(scenario, reason)  # type: ignore[arg-type]
+
+    @Slot(object)
+    def show_outcome(self, outcome: PsaOutcome) -> None:
+        """Show a finished analysis in every view."""
+        self.outcome = outcome
+        model, r = outcome.scenario.model, outcome.request
+        self.title.setText(f"<b>{html.escape(model.name)}</b> — {r.draws:,} parameter draws of "
+                           f"{len(outcome.result.settings.get('parameters', []))} uncertain parameters, "
+                           f"{r.patients:,} patients per draw and strategy, seed {outcome.result.settings['seed']}")
+        self.stack.setCurrentWidget(self.tabs)
+        for view in self.views():
+            view.show_outcome(outcome)
+        self.tables.show_outcome(outcome)
+        self.results_shown.emit()
+
+    def shutdown(self) -> None:
+        self.controls.shutdown()
+        self.exporter.shutdown()
+
+    @Slot(str)
+    def _on_saved(self, path: str) -> None:
+        self.status.setText(f"Saved {path}")
+
+    @Slot(str)
+    def _on_failed(self, message: str) -> None:
+        self.status.setText(f"Not saved: {message}")
