@@ -14,6 +14,7 @@ DEMOS = {
     "lanthic": "lanthic_syndrome.toml",
     "ferrovian": "ferrovian_progression.toml",
     "risk-vs-rate": "constant_hazard_risk_vs_rate.toml",
+    "quorrel-psa": "quorrel_psa.toml",  # with [[uncertainty]] inputs: the demo of hazardtrace psa
 }
 
 
