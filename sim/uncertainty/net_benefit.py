@@ -13,7 +13,8 @@ from typing import Sequence
 import numpy as np
 import pandas as pd
 
-from sim.uncertainty._tables import COSTS, EFFECTS, DrawArrays, draw_arrays, net_benefits, wtp_grid
+from ..problems import ValidationError
+from ._tables import COSTS, EFFECTS, DrawArrays, draw_arrays, net_benefits, wtp_grid
 
 __all__ = ["net_benefit", "incremental_results", "incremental_analysis", "ce_plane"]
 
@@ -36,9 +37,13 @@ def _increments(arrays: DrawArrays, comparator: str, costs: str,
     Raises
     ------
     ValidationError
-        When ``comparator`` is not one of the strategies (checked here, before anything else is).
+        When ``comparator`` is not one of the strategies (checked here, before anything else is), or
+        the table holds only one strategy.
     """
     base = arrays.index_of(comparator)
+    if len(arrays.strategies) < 2:
+        raise ValidationError(("per_draw", "strategy"), "needs at least two strategies to compare",
+                              list(arrays.strategies))
     c, e = arrays.values[costs], arrays.values[effects]
     return [(strategy, c[:, j] - c[:, base], e[:, j] - e[:, base])
             for j, strategy in enumerate(arrays.strategies) if j != base]

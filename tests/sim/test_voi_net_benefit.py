@@ -119,3 +119,13 @@ def test_strategy_labels_need_not_be_text_and_grids_must_be_numbers():
     with pytest.raises(ValidationError) as err:
         net_benefit(table, "a lot")
     assert err.value.problem.path == ("wtp",)
+
+
+@pytest.mark.parametrize("statistic", [incremental_results, ce_plane, inb_convergence])
+def test_one_strategy_has_no_increments(statistic):
+    # A table with only the comparator: a clear error naming the strategies, not a pandas failure.
+    table = pd.DataFrame({"draw": [0, 1], "strategy": ["usual care"] * 2,
+                          "costs_discounted": [1.0, 2.0], "qalys_discounted": [0.5, 0.6]})
+    args = ("usual care", 20_000.0) if statistic is inb_convergence else ("usual care",)
+    with pytest.raises(ValidationError, match="at least two strategies"):
+        statistic(table, *args)
