@@ -15,6 +15,7 @@ from gui.about import AboutDialog
 from gui.diagram import ModelDiagram
 from gui.document import DocumentError, FieldError, ScenarioDocument
 from gui.editors import PANELS, BackgroundEditor, EditorPanel, SourceEditor, TransitionsEditor
+from gui.export_plot import ask_save_path
 from gui.palette import OKABE_ITO
 from gui.preview import HazardPreview
 from gui.results import ResultsPanel
@@ -170,6 +171,11 @@ class MainWindow(QMainWindow):
         self.save_action = file_menu.addAction("&Save", QKeySequence.StandardKey.Save, self.save)
         self.save_as_action = file_menu.addAction("Save &as…", QKeySequence.StandardKey.SaveAs, self.save_as)
         file_menu.addSeparator()
+        self.report_action = file_menu.addAction("Write &report…", self.write_report)
+        self.report_action.setToolTip("An HTML or PDF report of the results on screen (and of the probabilistic "
+                                      "analysis of the same scenario, when one is shown)")
+        self.report_action.setEnabled(False)
+        file_menu.addSeparator()
         self.quit_action = file_menu.addAction("&Quit", QKeySequence.StandardKey.Quit, self.close)
         edit_menu = self.menuBar().addMenu("&Edit")
         self.undo_action = doc.undo_stack.createUndoAction(self, "&Undo")
@@ -214,6 +220,7 @@ class MainWindow(QMainWindow):
         self.run_panel.run_started.connect(self._on_run_started)
         self.run_panel.results_ready.connect(self._on_results_ready)
         self.results_panel.results_shown.connect(self.results_shown)
+        self.results_panel.report_written.connect(lambda p: self.statusBar().showMessage(f"Report written: {p}", 15000))
         self.results_panel.results_shown.connect(self.run_panel.mark_shown)  # time from Run to results shown
 
     # ------------------------------------------------------------------ slots
@@ -309,6 +316,7 @@ class MainWindow(QMainWindow):
         self._run_pending = False
         self._last_run_text = self.run_panel.last_run.text()
         self.results_panel.show_results(results)
+        self.report_action.setEnabled(True)
         self.tabs.setCurrentWidget(self.results_page)
         self._update_results_state()
 
@@ -491,6 +499,20 @@ class MainWindow(QMainWindow):
         self.evidence_window.show()
         self.evidence_window.raise_()
         return self.evidence_window
+
+    def write_report(self) -> bool:
+        """File -> Write report: the report of the run on screen (sim.report), with the probabilistic
+        analysis' tables when the analysis shown is of the same scenario; written off the GUI thread."""
+        results = self.results_panel.results
+        if results is None:
+            return False
+        stem = results.scenario.path.stem if results.scenario.path else "hazardtrace"
+        answer = ask_save_path(self, "Write report", str(Path(self.document.dialog_folder()) / f"{stem}_report.html"),
+                               {"html": "HTML report (*.html)", "pdf": "PDF report (*.pdf)"})
+        if answer is None:
+            return False
+        self.document.remember_folder(answer[0].parent)
+        return self.results_panel.write_report(str(answer[0]), self.psa_page.report_tables(results.scenario))
 
     def show_about(self) -> AboutDialog:
         dialog = AboutDialog(self)

@@ -12,6 +12,9 @@ from PySide6.QtGui import QCloseEvent
 from PySide6.QtWidgets import QHBoxLayout, QLabel, QMenu, QStackedWidget, QTabWidget, QToolButton, QVBoxLayout, QWidget
 
 from sim.pipeline.run import RunResults
+from sim.report import inputs_from_results, write_report
+
+from ..worker import FunctionWorker, Job
 
 from ..run_panel import settings_text
 from .curves import CurvesView
@@ -22,7 +25,13 @@ from .outcomes import OutcomesView, increments_frame, outcomes_frame
 from .plot_panel import PlotPanel
 from .table_view import TableView
 
-__all__ = ["ResultsPanel"]
+__all__ = ["ResultsPanel", "write_run_report"]
+
+
+def write_run_report(results: RunResults, path: str, psa_tables: dict | None = None) -> str:
+    """The HTML or PDF report (by the suffix) of a run held in memory, with the summary tables of a
+    probabilistic analysis of the same scenario (:func:`sim.report.write_report`); the written path."""
+    return str(write_report(inputs_from_results(results), path, force=True, psa_tables=psa_tables))
 
 
 def _stem(text: str) -> str:
@@ -34,10 +43,12 @@ class ResultsPanel(QWidget):
     once every view has drawn it."""
 
     results_shown = Signal()
+    report_written = Signal(str)
 
     def __init__(self, parent: QWidget | None = None) -> None:
         super().__init__(parent)
         self.results: RunResults | None = None
+        self._report_jobs: list[Job] = []
         self._waiting_for_curves = False
         self.exporter = Exporter(self)
 
@@ -122,6 +133,23 @@ class ResultsPanel(QWidget):
         """Wait for background work (curve computation, exports); call before the window closes."""
         self.curves.shutdown()
         self.exporter.shutdown()
+        for job in list(self._report_jobs):
+            job.stop()
+        self._report_jobs.clear()
+
+    def write_report(self, path: str, psa_tables: dict | None = None) -> bool:
+        """Write the report of the run on screen to ``path`` (.html or .pdf) in a worker thread;
+        ``report_written(path)`` or a "Not saved" status follows. False without results."""
+        if self.results is None:
+            return False
+        job = Job(FunctionWorker(write_run_report, self.results, str(path), psa_tables))
+        job.finished.connect(lambda written: (self._on_saved(str(written)), self.report_written.emit(str(written))))
+        job.failed.connect(self._on_save_failed)
+        job.done.connect(lambda: setattr(self, "_report_jobs", [j for j in self._report_jobs if j.is_running()]))
+        self._report_jobs.append(job)
+        self.status.setText(f"Writing the report to {path}…")
+        job.start()
+        return True
 
     def closeEvent(self, event: QCloseEvent) -> None:  # noqa: N802 (Qt name)
         self.shutdown()

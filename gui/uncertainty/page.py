@@ -9,6 +9,7 @@ from __future__ import annotations
 import html
 import os
 
+import pandas as pd
 from PySide6.QtCore import QCoreApplication, Qt, Signal, Slot
 from PySide6.QtWidgets import (QCheckBox, QComboBox, QFormLayout, QGroupBox, QHBoxLayout, QLabel, QProgressBar,
                                QPushButton, QSpinBox, QSplitter, QStackedWidget, QTabWidget, QVBoxLayout, QWidget)
@@ -22,6 +23,7 @@ from sim.psa import CycleMethod
 from sim.reference import Conversion, Correction
 from sim.report import cycle_words
 
+from .density import number_text
 from .views import AcceptabilityView, CePlaneView, ConvergenceView, EvpiView, PsaTablesView
 from .worker import PsaJob, PsaOutcome, PsaRequest, PsaWorker, eta_text
 
@@ -321,6 +323,25 @@ class PsaPage(QWidget):
             view.show_outcome(outcome)
         self.tables.show_outcome(outcome)
         self.results_shown.emit()
+
+    def report_tables(self, scenario: Scenario | None) -> dict[str, pd.DataFrame] | None:
+        """The analysis' tables for a report of a run of ``scenario`` (None when the analysis shown is
+        of another scenario text, or there is none): the incremental results per method, the
+        acceptability and EVPI at the grid point nearest the scenario's willingness to pay, and the
+        noise share, as the views show them."""
+        o = self.outcome
+        if o is None or scenario is None or o.scenario.text != scenario.text or not o.summaries:
+            return None
+        s = o.summaries
+        wtp = o.scenario.model.valuation.willingness_to_pay
+        tables = {"Incremental results over the parameter draws (per method)": s["incremental"]}
+        for name, title in (("ceac", "Probability cost-effective"), ("evpi", "EVPI per patient")):
+            grid = s[name]["wtp"].to_numpy()
+            at = grid[abs(grid - wtp).argmin()]
+            tables[f"{title} at a willingness to pay of {number_text(at)}"] = s[name][s[name]["wtp"] == at]
+        if "noise_share" in s:
+            tables["Share of the variance that is patient-level noise (simulated rows)"] = s["noise_share"]
+        return tables
 
     def shutdown(self) -> None:
         self.controls.shutdown()
