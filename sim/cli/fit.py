@@ -19,28 +19,12 @@ from ..hazards import UNIT_IN_YEARS
 from ..io.atomic import write_text_atomic
 from ..problems import ValidationError
 from ..io import load_scenario
-from ..evidence import (FAMILY_NAMES, below_background, choose_fit, fit_families, fit_table, read_at_risk, read_curves,
-                        read_survival_data, reconstruct, write_fragment)
+from ..evidence import (FAMILY_NAMES, below_background, choose_fit, fit_families, fit_table, parse_total_events,
+                        read_at_risk, read_curves, read_survival_data, reconstruct, write_fragment)
 
 __all__ = ["register"]
 
 DEFAULT_FAMILIES = ("exponential", "weibull", "gompertz", "loglogistic", "lognormal", "gamma", "gengamma")
-
-
-def _total_events(items: list[str]) -> dict[str, int]:
-    """``ARM=N`` pairs (or a single ``N`` for one arm) as a mapping."""
-    out: dict[str, int] = {}
-    for item in items:
-        arm, _, value = item.rpartition("=")
-        try:
-            n = int(value)
-        except ValueError:
-            n = -1
-        if n < 0:
-            raise ValidationError(("--total-events",), "must be ARM=N (or N for one arm) with N a whole number >= 0",
-                                  item)
-        out[arm or "all"] = n
-    return out
 
 
 def _sheet(sheet: str | None) -> str | int:
@@ -70,7 +54,8 @@ def _fit(args: argparse.Namespace, out: TextIO) -> int:
             raise ValidationError(("DATA",), "give either patient-level DATA or --curves/--at-risk, not both",
                                   args.data)
         rec = reconstruct(read_curves(args.curves), read_at_risk(args.at_risk),
-                          total_events=_total_events(args.total_events or []), unit=args.unit, source=args.curves)
+                          total_events=parse_total_events(args.total_events or [], ("--total-events",)),
+                          unit=args.unit, source=args.curves)
         for arm, notes in rec.notes.items():
             for note in notes:
                 out.write(f"{args.curves} [{arm}]: {note}\n")

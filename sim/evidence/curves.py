@@ -13,6 +13,8 @@ numbers at risk that increase.
 
 from __future__ import annotations
 
+import re
+from collections.abc import Iterable
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Mapping
@@ -21,13 +23,15 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
-from ..problems import Problem
+from ..problems import KeyPath, Problem
 from .data import SurvivalData, SurvivalDataError
 from .guyot import guyot_reconstruct
 
-__all__ = ["CleanCurve", "clean_curve", "read_curves", "read_at_risk", "Reconstruction", "reconstruct"]
+__all__ = ["CleanCurve", "clean_curve", "read_curves", "read_at_risk", "Reconstruction", "reconstruct",
+           "parse_total_events", "SINGLE_ARM"]
 
 SINGLE_ARM = "all"
+"""The arm label of one-arm curves (and of data without a group column)."""
 
 
 @dataclass(frozen=True, eq=False)  # holds arrays: compared by identity
@@ -262,3 +266,36 @@ def reconstruct(curves: Mapping[str, CleanCurve], at_risk: Mapping[str, tuple[ND
     data = SurvivalData.from_arrays(np.concatenate(times), np.concatenate(events).astype(int),
                                     group=np.concatenate(groups) if several else None, unit=unit, source=source)
     return Reconstruction(data, dict(curves), notes)
+
+
+def parse_total_events(items: str | Iterable[str], key: KeyPath = ("total_events",)) -> dict[str, int]:
+    """Reported total events per arm, from ``ARM=N`` items (``N`` alone for one arm, labelled
+    :data:`SINGLE_ARM`), as :func:`reconstruct` takes them.
+
+    Parameters
+    ----------
+    items : str or iterable of str
+        The items (``["control=120", "treated=95"]``), or one string of comma-separated items
+        (``"control=120, treated=95"``); blanks around arms and numbers are ignored.
+    key : tuple
+        The key path that names the input in a problem (``("--total-events",)`` on the command line).
+
+    Raises
+    ------
+    SurvivalDataError
+        An item that is not ``ARM=N`` with ``N`` a whole number >= 0, or an arm given twice.
+    """
+    parts = items.split(",") if isinstance(items, str) else list(items)
+    out: dict[str, int] = {}
+    for raw in parts:
+        item = raw.strip()
+        if not item and isinstance(items, str):
+            continue
+        arm, _, value = item.rpartition("=")
+        if not re.fullmatch(r"[0-9]+", value.strip()):
+            raise SurvivalDataError(key, "must be ARM=N (or N for one arm) with N a whole number >= 0", item)
+        label = arm.strip() or SINGLE_ARM
+        if label in out:
+            raise SurvivalDataError(key, f"gives arm {label!r} twice", item)
+        out[label] = int(value)
+    return out

@@ -12,6 +12,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 from pathlib import Path
+from zipfile import BadZipFile
 from typing import Any
 
 import numpy as np
@@ -21,10 +22,14 @@ from numpy.typing import NDArray
 from ..hazards import UNIT_IN_YEARS
 from ..problems import Problem, ValidationError
 
-__all__ = ["SurvivalData", "SurvivalDataError", "read_survival_data", "MAX_PROBLEMS"]
+__all__ = ["SurvivalData", "SurvivalDataError", "read_survival_data", "file_columns", "file_sheets",
+           "MAX_PROBLEMS"]
 
 MAX_PROBLEMS = 20
 """At most this many row problems are listed (the first ones in file order)."""
+_UNREADABLE = (ValueError, OSError, ImportError, KeyError, BadZipFile)
+"""What pandas, pyarrow and openpyxl raise for a file that is not the table its name says (an .xlsx
+file that is not a zip archive raises BadZipFile)."""
 
 
 class SurvivalDataError(ValidationError):
@@ -205,23 +210,71 @@ def read_survival_data(path: str | Path, *, time: str = "time", event: str = "ev
         rule): a missing or non-numeric value, a negative time, an event code other than 0/1, an
         entry at or after the exit; and data (or an arm) without events.
     """
+    unit = _unit(unit)
+    frame, first = _read_table(path, sheet)
+    return _from_frame(frame, time, event, entry, group, unit, str(Path(path)), first_line=first)
+
+
+def _read_table(path: str | Path, sheet: str | int = 0, header_only: bool = False) -> tuple[pd.DataFrame, int]:
+    """The table of a .csv, .parquet (.pq) or .xlsx file (only its header with ``header_only``) and the
+    file's line number of its first row."""
     p = Path(path)
     source = str(p)
-    unit = _unit(unit)
     suffix = p.suffix.lower()
     if not p.is_file():
         raise SurvivalDataError.of([Problem((), "must be an existing file", file=source)])
+    if suffix not in (".csv", ".parquet", ".pq", ".xlsx"):
+        raise SurvivalDataError.of([Problem((), "must be a .csv, .parquet or .xlsx file", suffix, source)])
+    rows = 0 if header_only else None
     try:
         if suffix == ".csv":
-            frame, first = pd.read_csv(p), 2
-        elif suffix in (".parquet", ".pq"):
-            frame, first = pd.read_parquet(p), 1
-        elif suffix == ".xlsx":
-            frame, first = pd.read_excel(p, sheet_name=sheet, engine="openpyxl"), 2
-        else:
-            raise SurvivalDataError.of([Problem((), "must be a .csv, .parquet or .xlsx file", suffix, source)])
-    except SurvivalDataError:
-        raise
-    except (ValueError, OSError, ImportError, KeyError) as err:  # malformed file: name it and the reason
+            return pd.read_csv(p, nrows=rows), 2
+        if suffix == ".xlsx":
+            return pd.read_excel(p, sheet_name=sheet, nrows=rows, engine="openpyxl"), 2
+        if header_only:
+            import pyarrow.parquet as pq
+
+            return pd.DataFrame(columns=pq.read_schema(p).names), 1
+        return pd.read_parquet(p), 1
+    except _UNREADABLE as err:  # malformed file: name it and the reason
         raise SurvivalDataError.of([Problem((), f"cannot be read as a {suffix} table: {err}", file=source)]) from None
-    return _from_frame(frame, time, event, entry, group, unit, source, first_line=first)
+
+
+def file_columns(path: str | Path, sheet: str | int | None = None) -> list[str]:
+    """The column names in a data file's header (to choose the time, event, entry and arm columns).
+
+    Parameters
+    ----------
+    path : path-like
+        A ``.csv``, ``.parquet`` (``.pq``) or ``.xlsx`` file.
+    sheet : str or int, optional
+        Worksheet of an .xlsx file, by name or position (default the first, :func:`file_sheets`).
+
+    Raises
+    ------
+    SurvivalDataError
+        An unknown file type, a missing or unreadable file, an unknown worksheet.
+    """
+    frame, _ = _read_table(path, 0 if sheet is None else sheet, header_only=True)
+    return [str(c) for c in frame.columns]
+
+
+def file_sheets(path: str | Path) -> list[str]:
+    """The worksheet names of an .xlsx file in workbook order; ``[]`` for a .csv or Parquet file (one
+    table each).
+
+    Raises
+    ------
+    SurvivalDataError
+        A missing or unreadable .xlsx file.
+    """
+    p = Path(path)
+    if p.suffix.lower() != ".xlsx":
+        return []
+    if not p.is_file():
+        raise SurvivalDataError.of([Problem((), "must be an existing file", file=str(p))])
+    try:
+        with pd.ExcelFile(p, engine="openpyxl") as book:
+            return [str(name) for name in book.sheet_names]
+    except _UNREADABLE as err:
+        raise SurvivalDataError.of([Problem((), f"cannot be read as a .xlsx workbook: {err}", file=str(p))]) from None

@@ -29,7 +29,11 @@ import pandas as pd
 from numpy.typing import NDArray
 from scipy import optimize
 
-from ..problems import ValidationError
+from ..hazards import make_hazard
+from ..io.scenario import uncertainty_entry
+from ..problems import KeyPath, ValidationError, format_key
+from ..uncertainty import LogNormal, MultivariateNormal, Normal, UncertainInput
+from .curves import SINGLE_ARM
 from .data import SurvivalData
 from .families import FAMILY_NAMES, HAZARD_RATIO, FamilySpec, family_spec
 
@@ -150,6 +154,87 @@ class Fit:
         else:  # lognormal, gengamma
             out["mu"] = out["mu"] + beta
         return out
+
+    def arm_hazards(self) -> dict[str, Any]:
+        """Per arm label, the fitted hazard object (clock in the data's unit): the reference arm's
+        (:meth:`hazard`) and, for two arms, the compared arm's from :meth:`compared_parameters` (a
+        family that is not a scenario family builds it by its own recipe); one arm is labelled
+        :data:`SINGLE_ARM`."""
+        if self.effect is None:
+            return {SINGLE_ARM: self.hazard()}
+        params = self.compared_parameters()
+        assert params is not None and self.spec is not None
+        if self.scenario:
+            compared = make_hazard(self.family, **params)
+        else:
+            compared = self.spec.build(np.array([params[n] for n in self.spec.names], dtype=np.float64))
+        return {self.effect.reference: self.hazard(), self.effect.compared: compared}
+
+    def hazard_keys(self, arm: str = "reference") -> dict[str, Any]:
+        """The keys of a ``[[transitions]]`` table for the fitted hazard: ``family``, ``unit`` and the
+        family's parameters (piecewise ``breaks`` and ``rates`` as lists), of the reference arm or
+        (``arm="compared"``) of the compared arm (:meth:`compared_parameters`)."""
+        if arm not in ("reference", "compared"):
+            raise ValidationError(("arm",), "must be 'reference' or 'compared'", arm)
+        params = self.compared_parameters() if arm == "compared" else self.parameters
+        if params is None:
+            raise ValidationError(("arm",), "the fit has one arm: there is no compared arm", arm)
+        out: dict[str, Any] = {"family": self.family, "unit": self.unit}
+        for key, value in params.items():
+            out[key] = [float(v) for v in value] if isinstance(value, (tuple, list)) else float(value)
+        return out
+
+    def parameter_paths(self, transition: int) -> list[KeyPath]:
+        """Key paths of the reference arm's hazard parameters in ``[[transitions]]`` element
+        ``transition`` (piecewise ``rates[i]`` as ``("transitions", k, "rates", i)``), in the order
+        of :attr:`estimates`."""
+        assert self.spec is not None
+        paths: list[KeyPath] = []
+        for name in self.spec.names:
+            base, _, index = name.partition("[")
+            paths.append(("transitions", transition, base, int(index[:-1])) if index
+                         else ("transitions", transition, name))
+        return paths
+
+    def uncertainty_group(self, transition: int, description: str | None = None) -> dict[str, Any] | None:
+        """The reference arm's hazard parameters as an ``[[uncertainty]]`` entry of the scenario file
+        (:func:`sim.io.scenario.uncertainty_entry`), or None without a covariance (not converged, the
+        observed information not positive definite) or for a family that is not a scenario family.
+
+        The distribution is the fit's normal approximation on its estimation scale (positive
+        parameters as logarithms, ``transform = "log"``), so every draw stays inside the family's
+        domain: mean :math:`\\hat\\theta` and covariance :math:`\\Sigma_\\theta`, the inverse observed
+        information there. The delta method maps it back to :attr:`covariance`:
+        :math:`J \\Sigma_\\theta J^T` with :math:`J = \\partial\\,\\text{value} / \\partial\\theta`
+        (:meth:`FamilySpec.jacobian`). Several parameters give a ``multivariate_normal`` group; one
+        (exponential, single-band piecewise) gives its univariate marginal, ``lognormal`` (``mu``,
+        ``sigma``) on a log scale or ``normal`` (``mean``, ``sd``).
+
+        Parameters
+        ----------
+        transition : int
+            Index of the ``[[transitions]]`` element the fitted hazard is written to.
+        description : str, optional
+            The entry's ``description`` (default: the fit, its patients and events).
+        """
+        if self.theta_covariance is None or self.theta is None or self.spec is None or not self.scenario:
+            return None
+        p = len(self.spec.names)
+        mean = np.asarray(self.theta[:p], dtype=np.float64)
+        cov = np.asarray(self.theta_covariance, dtype=np.float64)[:p, :p]
+        cov = 0.5 * (cov + cov.T)
+        transforms = self.transforms()[:p]
+        keys = tuple(format_key(path) for path in self.parameter_paths(transition))
+        if p == 1:
+            sd = math.sqrt(float(cov[0, 0]))
+            dist: Any = (LogNormal(float(mean[0]), sd) if transforms[0] == "log" else Normal(float(mean[0]), sd))
+        else:
+            dist = MultivariateNormal(tuple(float(v) for v in mean), tuple(tuple(float(v) for v in row) for row in cov),
+                                      transforms)
+        if description is None:
+            description = (f"{self.label} fit: maximum likelihood, {self.n} patients, {self.n_events} events; "
+                           f"covariance from the observed information")
+        return uncertainty_entry(UncertainInput(keys, dist, description=description))
 
 
 # --------------------------------------------------------------------------------------------

@@ -48,12 +48,10 @@ def choose_fit(fits: Sequence[Fit], criterion: str = "aic") -> Fit | None:
     return min(usable, key=lambda f: f.aic if criterion == "aic" else f.bic)
 
 
-def _hazard_table(fit: Fit, parameters: dict | None = None) -> tomlkit.items.Table:
+def _hazard_table(fit: Fit, arm: str = "reference") -> tomlkit.items.Table:
     table = tomlkit.table()
-    table.add("family", fit.family)
-    table.add("unit", fit.unit)
-    for key, value in (fit.parameters if parameters is None else parameters).items():
-        table.add(key, list(value) if isinstance(value, tuple) else value)
+    for key, value in fit.hazard_keys(arm).items():
+        table.add(key, value)
     return table
 
 
@@ -124,7 +122,7 @@ def fragment_text(fits: Sequence[Fit], *, source: str | None = None, criterion: 
         if fit.converged and fit.scenario:
             table = _hazard_table(fit)
             if fit.effect is not None:  # the compared arm in the same family: a strategy's replacement
-                table.add("compared_arm", _hazard_table(fit, fit.compared_parameters()))
+                table.add("compared_arm", _hazard_table(fit, "compared"))
             uncertainty = _uncertainty(fit)
             if uncertainty is not None:
                 table.add("uncertainty", uncertainty)
