@@ -1,7 +1,8 @@
 """The three plots of the evidence window, each a :class:`gui.results.plot_panel.PlotPanel` (white
 background, legend below, PNG/SVG save bar):
 
-- :class:`SurvivalPlot`: Kaplan-Meier per arm with its 95% band, the digitised points of a
+- :class:`SurvivalPlot`: Kaplan-Meier per arm with its 95% band (log(-log) interval,
+  :func:`sim.evidence.kaplan_meier`), the digitised points of a
   reconstruction, the fitted survival curves extrapolated to the horizon, and the numbers at risk
   in a row under the axes;
 - :class:`HazardPlot`: the fitted hazards, the background hazard at attained age and the stretches
@@ -10,7 +11,8 @@ background, legend below, PNG/SVG save bar):
   parallel lines suggest a Weibull with proportional hazards, common practice, no source).
 
 Curves are created once per slot and updated with ``setData``; a slot not needed is emptied.
-No estimation here: the arrays come from :mod:`gui.evidence.curves` and ``sim``.
+No estimation here: the arrays come from ``sim`` (:func:`sim.evidence.kaplan_meier_by_arm`,
+:func:`sim.evidence.numbers_at_risk`, :meth:`sim.evidence.Fit.arm_hazards`).
 """
 
 from __future__ import annotations
@@ -26,8 +28,8 @@ from PySide6.QtGui import QColor, QPen
 
 from gui.palette import OKABE_ITO
 from gui.results.plot_panel import PlotPanel
+from sim.evidence import KaplanMeier
 
-from .curves import ArmKM
 
 __all__ = ["SurvivalPlot", "HazardPlot", "DiagnosticPlot", "KM_COLOURS", "FIT_COLOURS", "nice_ticks", "fit_pen"]
 
@@ -125,13 +127,12 @@ class SurvivalPlot(PlotPanel):
         for axis in (left, self.plot.getAxis("left")):  # the same width: the two rows share the time axis
             axis.setWidth(60)
 
-    def show_km(self, kms: Sequence[ArmKM]) -> None:
+    def show_km(self, kms: Sequence[KaplanMeier]) -> None:
         for i, km in enumerate(kms):
             x, y = _steps(km.time, km.survival)
             self.km.get(i).setData(x, y)
-            lo, hi = km.band()
-            xl, yl = _steps(km.time, lo)
-            xh, yh = _steps(km.time, hi)
+            xl, yl = _steps(km.time, km.lower)
+            xh, yh = _steps(km.time, km.upper)
             self.lower.get(i).setData(xl, yl)
             self.upper.get(i).setData(xh, yh)
             while len(self.bands) <= i:
@@ -217,7 +218,7 @@ class DiagnosticPlot(PlotPanel):
                                                               symbolPen=None, symbolBrush=KM_COLOURS[i % 2]))
         self.fits = _Slots(self.plot, lambda i: pg.PlotDataItem(connect="finite"))
 
-    def show_km(self, kms: Sequence[ArmKM]) -> None:
+    def show_km(self, kms: Sequence[KaplanMeier]) -> None:
         for i, km in enumerate(kms):
             t, s = km.time, km.survival
             keep = (t > 0) & (s > 0) & (s < 1)

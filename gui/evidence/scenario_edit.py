@@ -3,13 +3,9 @@ family's parameters), optionally its covariance as a ``[[uncertainty]]`` multiva
 and the explicit ``at_least_background`` choice (docs/scenario-format.md, ``[[transitions]]`` and
 ``[[uncertainty]]``). No Qt here: :func:`fit_edit` returns a change that
 :meth:`gui.document.ScenarioDocument.edit` applies to the tomlkit document as one undoable step,
-keeping the user's comments.
-
-The group is written on the fit's own estimation scale (positive parameters as logarithms, the
-scale on which the observed information was inverted, ``transform = "log"``), so the draws keep each
-parameter inside its domain. Its mean and covariance are the fit's estimates mapped back through
-the fit's own Jacobian (:meth:`sim.evidence.FamilySpec.jacobian`): the inverse of the delta-method
-step :mod:`sim.evidence.fitting` took.
+keeping the user's comments. The keys and the group are the fit's own
+(:meth:`sim.evidence.Fit.hazard_keys`, :meth:`sim.evidence.Fit.uncertainty_group`: the fit's normal
+approximation on its estimation scale); only their place in the document is decided here.
 """
 
 from __future__ import annotations
@@ -18,16 +14,15 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
-import numpy as np
 from tomlkit.items import Comment, Whitespace
 
 from gui.editors.hazard_form import ALL_HAZARD_KEYS
-from gui.toml_edit import KeyPath, append_table, get_item, remove_table, remove_value, set_value, to_plain
+from gui.toml_edit import append_table, get_item, remove_table, remove_value, set_value, to_plain
 from sim.evidence import Fit
 from sim.hazards import UNIT_IN_YEARS, from_years, to_years
 from sim.problems import format_key
 
-__all__ = ["FitChoice", "hazard_values", "uncertainty_group", "fit_edit", "parameter_paths", "waning_note"]
+__all__ = ["FitChoice", "fit_edit", "waning_note"]
 
 
 @dataclass(frozen=True)
@@ -44,50 +39,6 @@ class FitChoice:
     arm: str = "reference"
     covariance: bool = False
     at_least_background: bool = False
-
-
-def hazard_values(fit: Fit, arm: str = "reference") -> dict[str, Any]:
-    """The transition keys of the fit: ``family``, ``unit`` and the parameters (lists for piecewise)."""
-    params = fit.compared_parameters() if arm == "compared" else fit.parameters
-    if params is None:
-        raise ValueError("the fit has one arm: there is no compared arm")
-    out: dict[str, Any] = {"family": fit.family, "unit": fit.unit}
-    for key, value in params.items():
-        out[key] = [float(v) for v in value] if isinstance(value, (tuple, list)) else float(value)
-    return out
-
-
-def parameter_paths(fit: Fit, transition: int) -> list[KeyPath]:
-    """Key paths of the fitted hazard parameters in ``[[transitions]]`` element ``transition``
-    (piecewise ``rates[i]`` as ``("rates", i)``), in the order of the fit's estimates."""
-    assert fit.spec is not None
-    paths: list[KeyPath] = []
-    for name in fit.spec.names:
-        base, _, index = name.partition("[")
-        paths.append(("transitions", transition, base, int(index[:-1])) if index else ("transitions", transition, name))
-    return paths
-
-
-def uncertainty_group(fit: Fit, transition: int) -> dict[str, Any] | None:
-    """The ``[[uncertainty]]`` table for the reference arm's parameters, or None when the fit has no
-    covariance (not converged, or the observed information not positive definite)."""
-    if fit.covariance is None or fit.spec is None:
-        return None
-    spec = fit.spec
-    p = len(spec.names)
-    values = np.asarray(fit.estimates[:p], dtype=np.float64)
-    theta = spec.to_theta(values)
-    jac = spec.jacobian(theta)  # d(value)/d(theta), diagonal
-    inv = np.linalg.inv(jac)
-    cov = inv @ np.asarray(fit.covariance)[:p, :p] @ inv.T
-    cov = 0.5 * (cov + cov.T)
-    return {"parameters": [format_key(path) for path in parameter_paths(fit, transition)],
-            "distribution": "multivariate_normal",
-            "mean": [float(v) for v in theta],
-            "covariance": [[float(v) for v in row] for row in cov],
-            "transform": ["log" if pos else "identity" for pos in spec.positive],
-            "description": f"{fit.label} fit: maximum likelihood, {fit.n} patients, {fit.n_events} events; "
-                           f"covariance from the observed information"}
 
 
 def _names_hazard_of(entry: Any, transition: int) -> bool:
@@ -145,8 +96,8 @@ def fit_edit(fit: Fit, choice: FitChoice, name: str = "") -> tuple[Callable[[Any
     """
     if choice.covariance and choice.arm != "reference":
         raise ValueError("the covariance group is written for the reference arm's hazard only")
-    values = hazard_values(fit, choice.arm)
-    group = uncertainty_group(fit, choice.transition) if choice.covariance else None
+    values = fit.hazard_keys(choice.arm)
+    group = fit.uncertainty_group(choice.transition) if choice.covariance else None
     if choice.covariance and group is None:
         raise ValueError(f"the {fit.label} fit has no covariance ({fit.message})")
     i = choice.transition

@@ -10,20 +10,20 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
-import pandas as pd
 from numpy.typing import NDArray
 from PySide6.QtCore import Qt, Signal
 from PySide6.QtWidgets import (QComboBox, QFileDialog, QFormLayout, QHBoxLayout, QLabel, QLineEdit, QPushButton,
                                QTabWidget, QVBoxLayout, QWidget)
 
 from gui.palette import OKABE_ITO
-from sim.evidence import SurvivalData, read_at_risk, read_curves, read_survival_data, reconstruct
+from sim.evidence import (SurvivalData, file_columns, file_sheets, parse_total_events, read_at_risk, read_curves,
+                          read_survival_data, reconstruct)
 from sim.hazards import UNIT_IN_YEARS
 from sim.problems import ValidationError
 
 from .words import error_words
 
-__all__ = ["Evidence", "SourcePanel", "NONE", "file_columns"]
+__all__ = ["Evidence", "SourcePanel", "NONE"]
 
 NONE = "(none)"
 
@@ -41,24 +41,6 @@ class Evidence:
     @property
     def reconstructed(self) -> bool:
         return bool(self.points)
-
-
-def file_columns(path: str | Path) -> list[str]:
-    """Column names in a data file's header (to offer them in the column boxes); [] if unreadable."""
-    p = Path(path)
-    try:
-        suffix = p.suffix.lower()
-        if suffix == ".csv":
-            return [str(c) for c in pd.read_csv(p, nrows=0).columns]
-        if suffix in (".parquet", ".pq"):
-            import pyarrow.parquet as pq
-
-            return list(pq.read_schema(p).names)
-        if suffix == ".xlsx":
-            return [str(c) for c in pd.read_excel(p, nrows=0, engine="openpyxl").columns]
-    except (OSError, ValueError, ImportError, KeyError):
-        return []
-    return []
 
 
 def _path_row(edit: QLineEdit, button: QPushButton) -> QWidget:
@@ -101,6 +83,10 @@ class SourcePanel(QWidget):
         self.data_path.editingFinished.connect(self._fill_columns)
         self.data_browse = QPushButton("Browse…")
         self.data_browse.clicked.connect(self._browse_data)
+        self.sheet = QComboBox()
+        self.sheet.setToolTip("Worksheet of an .xlsx file (the columns offered are its header's)")
+        self.sheet.setEnabled(False)
+        self.sheet.currentTextChanged.connect(self._on_sheet_changed)
         self.time_col, self.event_col, self.entry_col, self.group_col = (QComboBox() for _ in range(4))
         for box in (self.time_col, self.event_col, self.entry_col, self.group_col):
             box.setEditable(True)
@@ -114,6 +100,7 @@ class SourcePanel(QWidget):
         page = QWidget()
         form = QFormLayout(page)
         form.addRow("File", _path_row(self.data_path, self.data_browse))
+        form.addRow("Worksheet", self.sheet)
         form.addRow("Time column", self.time_col)
         form.addRow("Event column", self.event_col)
         form.addRow("Entry column", self.entry_col)
@@ -171,7 +158,30 @@ class SourcePanel(QWidget):
         self._fill_columns()
 
     def _fill_columns(self) -> None:
-        self._set_columns(file_columns(self.data_path.text()))
+        """Offer the file's worksheets (an .xlsx file) and its columns (``sim.evidence``); none when
+        the file cannot be read yet (the Read button then says why)."""
+        path = self.data_path.text().strip()
+        try:
+            sheets = file_sheets(path) if path else []
+        except ValidationError:
+            sheets = []
+        self.sheet.blockSignals(True)
+        self.sheet.clear()
+        self.sheet.addItems(sheets)
+        self.sheet.setEnabled(bool(sheets))
+        self.sheet.blockSignals(False)
+        self._on_sheet_changed()
+
+    def _chosen_sheet(self) -> str | None:
+        return self.sheet.currentText() if self.sheet.count() else None
+
+    def _on_sheet_changed(self, _text: str = "") -> None:
+        path = self.data_path.text().strip()
+        try:
+            columns = file_columns(path, self._chosen_sheet()) if path else []
+        except ValidationError:
+            columns = []
+        self._set_columns(columns)
 
     def _set_columns(self, columns: list[str]) -> None:
         lower = {c.lower(): c for c in columns}
@@ -211,7 +221,7 @@ class SourcePanel(QWidget):
         try:
             data = read_survival_data(path, time=self.time_col.currentText(), event=self.event_col.currentText(),
                                       entry=optional[self.entry_col], group=optional[self.group_col],
-                                      unit=self.data_unit.currentText())
+                                      unit=self.data_unit.currentText(), sheet=self._chosen_sheet() or 0)
         except ValidationError as err:
             self._show_problem(err)
             return None
@@ -222,16 +232,6 @@ class SourcePanel(QWidget):
         self.loaded.emit(evidence)
         return evidence
 
-    def _totals(self) -> dict[str, int]:
-        out: dict[str, int] = {}
-        for item in filter(None, (s.strip() for s in self.total_events.text().split(","))):
-            arm, _, value = item.rpartition("=")
-            if not value.strip().isdigit():
-                raise ValidationError(("total events",), "must be ARM=N (or N for one arm) with N a whole number >= 0",
-                                      item)
-            out[arm.strip() or "all"] = int(value)
-        return out
-
     def read_curves(self) -> Evidence | None:
         """Read, clean and reconstruct the published curve (Guyot et al. 2012)."""
         km, risk = self.km_path.text().strip(), self.risk_path.text().strip()
@@ -239,7 +239,8 @@ class SourcePanel(QWidget):
             if not (km and risk):
                 raise ValidationError(("file",), "choose both the digitised points and the numbers at risk")
             curves = read_curves(km)
-            rec = reconstruct(curves, read_at_risk(risk), total_events=self._totals(),
+            totals = parse_total_events(self.total_events.text(), ("total events",))
+            rec = reconstruct(curves, read_at_risk(risk), total_events=totals,
                               unit=self.curve_unit.currentText(), source=km)
         except ValidationError as err:
             self._show_problem(err)

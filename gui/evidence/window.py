@@ -22,11 +22,10 @@ from gui.document import ScenarioDocument
 from gui.palette import OKABE_ITO
 from gui.results.table_model import RAW_ROLE, DataFrameModel
 from gui.worker import Job
-from sim.evidence import Fit, below_background, fit_table
+from sim.evidence import Fit, KaplanMeier, below_background, fit_table, kaplan_meier_by_arm, numbers_at_risk
 from sim.hazards import UNIT_IN_YEARS
 from sim.problems import ValidationError
 
-from .curves import ArmKM, at_risk_counts, fit_hazards, km_by_arm
 from .families_panel import FamiliesPanel
 from .fit_worker import FitOutcome, FitRequest, FitWorker
 from .plots import DiagnosticPlot, HazardPlot, SurvivalPlot, nice_ticks
@@ -60,7 +59,7 @@ class EvidenceWindow(QMainWindow):
         self.setWindowTitle("Fit from data \u2014 HazardTrace")
         self.document = document
         self.evidence: Evidence | None = None
-        self._kms: list[ArmKM] = []
+        self._kms: list[KaplanMeier] = []
         self._generation = 0  # which data set the fits shown belong to
         self.fits: list[Fit] = []
         self._job: Job | None = None
@@ -222,14 +221,14 @@ class EvidenceWindow(QMainWindow):
         self.cancel_fits()  # a run on the previous data is stopped and its fits are not shown
         self._generation += 1
         self.evidence = evidence
-        self._kms = km_by_arm(evidence.data)
+        self._kms = kaplan_meier_by_arm(evidence.data)
         self.fits = []
         self.table_model.set_frame(_empty_table())
         data = evidence.data
         self.fit_button.setEnabled(True)
         self.horizon_unit.setText(data.unit)
-        self.data_note.setText("Kaplan-Meier drawn on exit times only: the estimator does not take delayed entry "
-                               "into account (the fits do)." if data.delayed else "")
+        self.data_note.setText("Delayed entry: the Kaplan-Meier risk sets and the fits count each patient from "
+                               "entry to exit." if data.delayed else "")
         self.arm.blockSignals(True)
         self.arm.clear()
         if len(data.groups) == 2:
@@ -456,7 +455,7 @@ class EvidenceWindow(QMainWindow):
         view_end = end if self.view.currentIndex() == 1 else min(end, 1.2 * follow)
         ticks = nice_ticks(view_end)
         ticks = ticks[ticks <= follow]
-        self.survival_plot.show_at_risk(ticks, at_risk_counts(data, ticks))
+        self.survival_plot.show_at_risk(ticks, numbers_at_risk(data, ticks))
         for plot in (self.survival_plot, self.hazard_plot):
             plot.plot.setLabel("bottom", data.unit, color="#000000")
         self.hazard_plot.plot.setLabel("left", f"hazard per {data.unit.rstrip('s')}", color="#000000")
@@ -469,11 +468,11 @@ class EvidenceWindow(QMainWindow):
                 continue
             width = 3.5 if fit is chosen else 1.6
             with np.errstate(all="ignore"):
-                for arm, hz in enumerate(fit_hazards(fit).values()):
+                for arm, hz in enumerate(fit.arm_hazards().values()):
                     surv.append((i, arm, t, np.asarray(hz.sf(t)), width))
                     haz.append((i, arm, t_pos, np.asarray(hz.hazard(t_pos)), width))
                     cum.append((i, arm, t_pos, np.asarray(hz.cumhazard(t_pos)), width))
-            legend_fits.append((len(surv) - len(fit_hazards(fit)), fit))
+            legend_fits.append((len(surv) - len(fit.arm_hazards()), fit))
         self._draw_background(chosen, t_pos)
         self.survival_plot.show_fits(surv)
         self.hazard_plot.show_fits(haz)
@@ -487,7 +486,7 @@ class EvidenceWindow(QMainWindow):
             self.hazard_plot.plot.setYRange(0.0, 1.2 * float(np.percentile(finite, 98)), padding=0)
         self._legends(kms, legend_fits, bool(ev.points))
 
-    def _legends(self, kms: list[ArmKM], legend_fits: list[tuple[int, Fit]], points: bool) -> None:
+    def _legends(self, kms: list[KaplanMeier], legend_fits: list[tuple[int, Fit]], points: bool) -> None:
         arms = [k.arm for k in kms]
         several = len(arms) > 1
         km_entries = [(self.survival_plot.km.items[i], f"Kaplan-Meier {a}" if several else "Kaplan-Meier")
@@ -527,7 +526,7 @@ class EvidenceWindow(QMainWindow):
                 curves.append((t_pos, np.asarray(hz.hazard(t_pos * unit_years + shift)) * unit_years))
         below, note = [], ""
         if chosen is not None and chosen.converged:
-            hazards = fit_hazards(chosen)
+            hazards = chosen.arm_hazards()
             arm = 1 if self.arm.currentData() == "compared" and len(hazards) == 2 else 0
             fitted = list(hazards.values())[arm]
             found = below_background(fitted, bg, entry_age=age, horizon=float(t_pos[-1]) * unit_years,

@@ -19,7 +19,7 @@ from gui.evidence import EvidenceWindow, FitRequest, FitWorker
 from gui.evidence.fit_worker import run_fits
 from gui.main_window import MainWindow
 from sim.analysis import kaplan_meier
-from sim.evidence import read_at_risk, read_curves, read_survival_data, reconstruct
+from sim.evidence import kaplan_meier_by_arm, read_at_risk, read_curves, read_survival_data, reconstruct
 
 DATA = Path(__file__).resolve().parents[1] / "data" / "evidence"
 
@@ -183,6 +183,28 @@ def test_parquet_and_xlsx_columns_offered_and_read(qtbot, window: EvidenceWindow
     assert window.arm.count() == 2 and window.arm.currentData() == "reference"
 
 
+def test_xlsx_worksheet_chosen_offers_its_columns_and_is_read(qtbot, window: EvidenceWindow, tmp_path: Path) -> None:
+    import pandas as pd
+
+    path = tmp_path / "trial.xlsx"
+    frame = pd.read_csv(DATA / "two_arm_trial.csv")
+    with pd.ExcelWriter(path, engine="openpyxl") as book:  # invented: a notes sheet first, the patients second
+        pd.DataFrame({"note": ["invented data"]}).to_excel(book, sheet_name="notes", index=False)
+        frame.rename(columns={"months": "futime"}).to_excel(book, sheet_name="patients", index=False)
+    boxes = window.source
+    boxes.set_data_file(path)
+    assert boxes.sheet.isEnabled()
+    assert [boxes.sheet.itemText(i) for i in range(boxes.sheet.count())] == ["notes", "patients"]
+    assert [boxes.time_col.itemText(i) for i in range(boxes.time_col.count())] == ["note"]
+    boxes.sheet.setCurrentText("patients")
+    assert [boxes.time_col.itemText(i) for i in range(boxes.time_col.count())] == ["arm", "futime", "death"]
+    assert boxes.time_col.currentText() == "futime"
+    evidence = boxes.read_data()
+    assert evidence is not None and evidence.data.n == 120
+    boxes.set_data_file(DATA / "two_arm_trial.csv")  # a CSV has no worksheets
+    assert not boxes.sheet.isEnabled() and boxes.sheet.count() == 0
+
+
 def test_each_plot_saves_png_and_svg(qtbot, window: EvidenceWindow, tmp_path: Path, monkeypatch) -> None:
     from PySide6.QtGui import QImage
     from PySide6.QtSvg import QSvgRenderer
@@ -225,7 +247,14 @@ def test_delayed_entry_is_read_and_said(qtbot, window: EvidenceWindow, tmp_path:
     evidence = window.source.read_data()
     assert evidence is not None and evidence.data.delayed
     assert "delayed entry" in window.source.message.text()
-    assert "does not take delayed entry into account" in window.data_note.text()
+    assert "count each patient from entry to exit" in window.data_note.text()
+    # the Kaplan-Meier drawn is sim's, with the entry times (its risk sets: entry < t <= exit)
+    km = kaplan_meier_by_arm(evidence.data)[0]
+    kx, ky = window.survival_plot.km.items[0].getData()
+    np.testing.assert_array_equal(np.unique(kx), km.time)
+    np.testing.assert_array_equal(np.unique(ky), np.unique(km.survival))
+    lx, ly = window.survival_plot.lower.items[0].getData()
+    np.testing.assert_array_equal(np.unique(ly), np.unique(km.lower))
     # at risk at t: entered before t and not yet exited (counted from the file directly)
     ticks = [float(t.pos().x()) for t in window.survival_plot.risk_texts]
     counts = [int(t.toPlainText()) for t in window.survival_plot.risk_texts]
