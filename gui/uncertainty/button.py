@@ -1,4 +1,4 @@
-"""The "±" button at the right end of a parameter's field: it opens the parameter's distribution
+"""The "±" button at the right end of a parameter's field (or Ctrl+Shift+D in the field): it opens the parameter's distribution
 editor (:class:`gui.uncertainty.editor.DistributionEditor`) and shows whether the parameter has a
 distribution (a blue "±"), none (a grey one) or one with a problem (vermillion); its tooltip
 describes the distribution with its mean and 95% interval, as the validated scenario gives them.
@@ -7,7 +7,7 @@ describes the distribution with its mean and 95% interval, as the validated scen
 from __future__ import annotations
 
 from PySide6.QtCore import QObject, QRectF, Qt
-from PySide6.QtGui import QAction, QColor, QFont, QIcon, QPainter, QPixmap
+from PySide6.QtGui import QAction, QColor, QFont, QIcon, QKeySequence, QPainter, QPixmap
 from PySide6.QtWidgets import QLineEdit, QToolButton
 
 from gui.document import KeyPath, ScenarioDocument
@@ -16,7 +16,10 @@ from gui.palette import OKABE_ITO
 from .density import number_text
 from .entry import find_entry, is_uncertain_parameter, parameter_name, spec_for
 
-__all__ = ["DistributionButton", "STATE_COLOURS"]
+__all__ = ["DistributionButton", "STATE_COLOURS", "SHORTCUT"]
+
+#: Opens the distribution editor of the field that has the keyboard focus.
+SHORTCUT = "Ctrl+Shift+D"
 
 #: Colour of the "±" for: no distribution, a distribution, a distribution with a problem.
 STATE_COLOURS = {"none": "#9A9A9A", "set": OKABE_ITO["blue"], "problem": OKABE_ITO["vermillion"]}
@@ -51,6 +54,8 @@ class DistributionButton(QObject):
         self.editor = None
         self.action = QAction(_icon("none"), "Distribution…", line)
         self.action.setObjectName(f"distribution:{parameter_name(self.key)}")
+        self.action.setShortcut(QKeySequence(SHORTCUT))
+        self.action.setShortcutContext(Qt.ShortcutContext.WidgetShortcut)  # this field's only
         self.action.triggered.connect(self.open_editor)
         line.addAction(self.action, QLineEdit.ActionPosition.TrailingPosition)
         document.validated.connect(self.refresh)  # after each change, with the reader's verdict
@@ -91,6 +96,7 @@ class DistributionButton(QObject):
                     tip += (f": {spec.distribution.describe()}; mean {number_text(float(spec.distribution.means()[j]))}"
                             f", 95% interval {number_text(float(lo))} to {number_text(float(hi))}")
         self.action.setIcon(_icon(self.state))
+        tip += f" — {SHORTCUT} in the field"
         self.action.setToolTip(tip)
         self.action.setText(tip)
 

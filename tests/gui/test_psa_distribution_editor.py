@@ -183,7 +183,14 @@ def test_existing_entry_edited_in_place_and_removed(qtbot, window: MainWindow) -
     entries = tomllib.loads(doc.text)["uncertainty"]
     assert entries[0] == {"parameter": "transitions[0].rate", "distribution": "lognormal", "mean": 0.08, "se": 0.02,
                           "description": "invented cohort: 96 onsets in 1,200 person-years"}
-    editor = open_editor(qtbot, window, button)
+    field = transitions.detail_fields.widget_at(("transitions", 0, "rate"))
+    field.setFocus()
+    qtbot.waitUntil(field.hasFocus, timeout=3000)
+    old = button.editor
+    qtbot.keyClick(field, Qt.Key.Key_D, Qt.KeyboardModifier.ControlModifier | Qt.KeyboardModifier.ShiftModifier)
+    qtbot.waitUntil(lambda: button.editor is not old and button.editor.isVisible(), timeout=3000)  # from the keyboard
+    editor = button.editor
+    assert editor.family.currentData() == "lognormal"
     qtbot.mouseClick(editor.remove_button, Qt.MouseButton.LeftButton)
     assert all(e.get("parameter") != "transitions[0].rate" for e in tomllib.loads(doc.text)["uncertainty"])
     assert doc.scenario is not None and button.state == "none"
