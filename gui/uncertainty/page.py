@@ -273,9 +273,16 @@ class PsaPage(QWidget):
         self.stack.addWidget(self.tabs)
         self.status = QLabel()
         self.status.setWordWrap(True)
+        self.stale = QLabel()
+        self.stale.setObjectName("psa_stale")
+        self.stale.setWordWrap(True)
+        self.stale.setStyleSheet(f"QLabel {{ border: 1px solid {OKABE_ITO['orange']}; padding: 4px; "
+                                 f"background: #FFF4E0; }}")
+        self.stale.hide()
         right = QWidget()
         rv = QVBoxLayout(right)
         rv.setContentsMargins(0, 0, 0, 0)
+        rv.addWidget(self.stale)
         rv.addWidget(self.title)
         rv.addWidget(self.stack, 1)
         rv.addWidget(self.status)
@@ -309,6 +316,14 @@ class PsaPage(QWidget):
     def _on_validated(self, scenario: object, errors: list) -> None:
         reason = "" if scenario is not None else (errors[0].text if errors else "The scenario cannot be read.")
         self.controls.set_scenario(scenario, reason)  # type: ignore[arg-type]
+        self._update_stale()
+
+    def _update_stale(self) -> None:
+        """Say so when the scenario shown was edited after the analysis on screen."""
+        changed = self.outcome is not None and self.document.text != self.outcome.scenario.text
+        self.stale.setText("The scenario has changed since this analysis: the views show the analysis of the "
+                           "earlier version. Run it again to update them." if changed else "")
+        self.stale.setVisible(changed)
 
     @Slot(object)
     def show_outcome(self, outcome: PsaOutcome) -> None:
@@ -322,6 +337,7 @@ class PsaPage(QWidget):
         for view in self.views():
             view.show_outcome(outcome)
         self.tables.show_outcome(outcome)
+        self._update_stale()
         self.results_shown.emit()
 
     def report_tables(self, scenario: Scenario | None) -> dict[str, pd.DataFrame] | None:

@@ -89,8 +89,11 @@ def test_write_report_of_the_run_on_screen_and_of_its_psa(qtbot, window: MainWin
     assert set(tables[title]["wtp"]) == {30000.0} and len(tables[title]) == ceac["method"].nunique() * 2
 
     # an analysis of another scenario text is not mixed into the report of this run
+    assert not page.stale.isVisible()
     window.document.set_value(("valuation", "discount_costs"), 0.04)
     assert page.report_tables(results.scenario) is not None  # the analysis is of the run's text still
+    assert page.stale.isVisible() and "changed since this analysis" in page.stale.text()
     page.controls.start()
     qtbot.waitUntil(lambda: not page.controls.is_running(), timeout=60000)
     assert page.report_tables(results.scenario) is None
+    assert not page.stale.isVisible()
