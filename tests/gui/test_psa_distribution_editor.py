@@ -207,3 +207,19 @@ def test_group_member_says_where_to_edit_and_no_button_for_settings(qtbot, windo
     valuation = window.editor(ValuationEditor)
     assert all(b.key != ("valuation", "willingness_to_pay") for b in valuation.fields.distribution_buttons)
     assert all(b.key[-1] != "currency" for b in valuation.fields.distribution_buttons)
+
+
+def test_a_bad_entry_typed_in_the_text_marks_the_parameters_button(qtbot, window: MainWindow) -> None:
+    doc = window.document
+    valuation = window.editor(ValuationEditor)
+    button = button_of(valuation.rows, ("valuation", "utilities", "severe"))
+    assert button.state == "set"
+    bad = 'parameter = "valuation.utilities.severe"\ndistribution = "beta"\nmean = 0.45\nse = 0.6\n'
+    good = 'parameter = "valuation.utilities.severe"\ndistribution = "beta"\nmean = 0.45\nse = 0.05\n'
+    assert good in doc.text
+    doc.set_text(doc.text.replace(good, bad))  # as typed in the scenario text view
+    assert doc.scenario is None and button.state == "problem"
+    tip = button.action.toolTip()
+    assert "se" in tip and "0.6" in tip and "beta" in tip  # the key, the value and the rule
+    window.undo_action.trigger()
+    assert doc.scenario is not None and button.state == "set"
