@@ -164,8 +164,7 @@ class Model:
             hazards = (h,) * len(sexes)
             if t.at_least_background and self.background is not None:
                 bg = self.background
-                hazards = tuple(at_least_background(h, t.clock, self, bg.hazards.get(sex, bg.hazards.get("all")))
-                                for sex in sexes)
+                hazards = tuple(at_least_background(h, t.clock, self, bg.hazard_for(sex)) for sex in sexes)
             src = self.state_index(t.source)
             per_state[src].append(ResolvedExit(
                 index=k, slot=len(per_state[src]), name=t.name, source=src,
@@ -173,7 +172,7 @@ class Model:
                 is_background=False))
         if self.background is not None:
             bg = self.background
-            hz = tuple(bg.hazards.get(sex, bg.hazards.get("all")) for sex in sexes)
+            hz = tuple(bg.hazard_for(sex) for sex in sexes)  # times bg.multiplier
             for s, state in enumerate(self.states):
                 if not state.absorbing:
                     per_state[s].append(ResolvedExit(

@@ -12,13 +12,13 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from ..hazards import WANING_SCALES, Hazard
+from ..hazards import WANING_SCALES, Hazard, PiecewiseConstant
 from ..problems import KeyPath, ValidationError
 from .checks import Problems, flag, number, number_map, string
 from .errors import ModelError
 from .frozen import FrozenMap
 
-__all__ = ["BACKGROUND", "Clock", "State", "Waning", "MAX_WANING_YEARS", "Transition", "BackgroundMortality", "Horizon", "Strategy", "item_key"]
+__all__ = ["BACKGROUND", "Clock", "State", "Waning", "MAX_WANING_YEARS", "Transition", "BackgroundMortality", "scaled_background", "Horizon", "Strategy", "item_key"]
 
 BACKGROUND = "background death"
 
@@ -176,11 +176,19 @@ class BackgroundMortality:
     ``clock`` (attained age by default: a Gompertz law or a piecewise-constant life table); it is kept
     as a read-only :class:`~sim.model.FrozenMap`. In a scenario file the hazards are the tables
     ``[background.<sex>]``, so their problems are at ``("background", sex)``.
+
+    ``multiplier`` (> 0, finite; default 1) is a standardised mortality ratio applied to every
+    background hazard: the model's background hazard is ``multiplier * h(t)`` (docs/methods.md,
+    'Background mortality multiplier'). ``hazards`` keep the hazards as given; :meth:`hazard_for`
+    gives the scaled one the model uses. A piecewise-constant hazard (a life table) stays piecewise
+    constant (its rates scaled), so the exact solver still sees its band edges; any other hazard is
+    wrapped by :meth:`sim.hazards.Hazard.scaled`. A multiplier of 1 returns the hazards themselves.
     """
 
     target: str
     hazards: Mapping[str, Hazard]
     clock: Clock = Clock.AGE
+    multiplier: float = 1.0
 
     def __post_init__(self) -> None:
         found = Problems()
@@ -189,8 +197,45 @@ class BackgroundMortality:
         hazards = _hazard_map(found, ("background",), self.hazards)
         if isinstance(self.hazards, Mapping) and not self.hazards:
             found.add(("background",), "must give at least one hazard (per sex or 'all')", {})
+        multiplier = found.check(number, ("background", "multiplier"), self.multiplier, minimum=0.0,
+                                 strict_min=True, error=ModelError)
         found.raise_if_any(ModelError)
-        _set(self, clock=clock, hazards=hazards)
+        scaled = {}
+        for sex, h in hazards.items():
+            try:
+                scaled[sex] = scaled_background(h, multiplier)
+            except ValidationError:  # e.g. a band rate times the multiplier beyond the largest double
+                found.add(("background", "multiplier"), f"makes the background hazard of {sex!r} too large "
+                                                        f"(not finite)", multiplier)
+        found.raise_if_any(ModelError)
+        _set(self, clock=clock, hazards=hazards, multiplier=multiplier)
+        object.__setattr__(self, "_scaled", FrozenMap(scaled))  # derived: not a field (no part in ==, hash)
+
+    @property
+    def scaled_hazards(self) -> Mapping[str, Hazard]:
+        """Per sex (or ``"all"``), the hazard times :attr:`multiplier` (the given hazards when it is 1)."""
+        return self._scaled
+
+    def hazard_for(self, sex: str) -> Hazard:
+        """The background hazard (times :attr:`multiplier`) of ``sex``, or of ``"all"``."""
+        return self._scaled.get(sex, self._scaled.get("all"))
+
+
+def scaled_background(h: Hazard, multiplier: float) -> Hazard:
+    """``multiplier * h``: ``h`` itself when the multiplier is 1; a piecewise-constant hazard with its
+    rates scaled (still piecewise constant: the exact solver's band handling sees its edges); else
+    :meth:`sim.hazards.Hazard.scaled` (a proportional-hazards wrapper).
+
+    Raises
+    ------
+    ValidationError
+        A scaled rate is not finite, or ``multiplier`` is not a number >= 0.
+    """
+    if multiplier == 1.0:
+        return h
+    if type(h) is PiecewiseConstant:
+        return PiecewiseConstant(h.breaks, tuple(float(r) * multiplier for r in h.rates))
+    return h.scaled(multiplier)
 
 
 MAX_AGE = 130.0

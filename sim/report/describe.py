@@ -50,6 +50,9 @@ def describe_lines(scenario: Scenario, conversions: bool = True) -> list[str]:
         for sex, h in bg.hazards.items():
             lines.append(f"  {BACKGROUND} ({sex}): every living state -> {bg.target}, {h.family} "
                          f"on {CLOCK_WORDS[bg.clock]}")
+        if bg.multiplier != 1.0:
+            lines.append(f"  {BACKGROUND}: every hazard above times {bg.multiplier:g} "
+                         f"(background.multiplier, a standardised mortality ratio)")
     p = m.population
     lines.append(f"Population: start in {_initial_words(p)}, entry age {type(p.entry_age).__name__} "
                  f"(mean {p.entry_age.mean:.1f}), sex mix {dict(p.sex_mix)}")

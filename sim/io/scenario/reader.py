@@ -183,7 +183,7 @@ class _Reading:
         node: Table = SCHEMA.keys["background"]
         extra = {"female", "male", "all", *sexes} - set(node.keys)
         data = ck.table(raw, path, node.keys, extra=extra)
-        others = [k for k in raw if k not in ("to", "clock", "life_table")]
+        others = [k for k in raw if k not in node.keys]
         if "life_table" in raw:
             if others:
                 ck.fail((*path, others[0]), "give background hazards either by life_table or per sex, not both")
@@ -196,7 +196,7 @@ class _Reading:
             if any(h is None for h in got.values()):
                 raise Invalid
             hazards = got
-        return ck.guarded(BackgroundMortality, data["to"], hazards, data["clock"])
+        return ck.guarded(BackgroundMortality, data["to"], hazards, data["clock"], data["multiplier"])
 
     def horizon(self, raw: Any) -> Horizon:
         ck = self.ck

@@ -312,6 +312,8 @@ SCHEMA = Table(keys={
     "background": Table(keys={
         "to": Text(required=True, ref=Ref.STATE),
         "clock": Text(default="age", choices=_CLOCKS),
+        "multiplier": Number(default=1.0, minimum=0, strict_min=True, dimension=Dimension.RATIO,
+                             doc="standardised mortality ratio: multiplies every background hazard (> 0)"),
         "life_table": Table(keys={
             "file": Text(required=True, is_file=True, doc="CSV or .xlsx file"),
             "kind": Text(required=True, choices=("q", "m")),

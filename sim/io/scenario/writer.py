@@ -106,7 +106,8 @@ def document_from_model(model: Model, run: RunSettings | None = None, descriptio
                            **_hazard_doc(t.hazard)} for t in model.transitions]
     if model.background is not None:
         bg = model.background
-        doc["background"] = {**_section(_keys("background"), {"to": bg.target, "clock": bg.clock.value}),
+        doc["background"] = {**_section(_keys("background"), {"to": bg.target, "clock": bg.clock.value,
+                                                                "multiplier": bg.multiplier}),
                              **{sex: _hazard_doc(h) for sex, h in bg.hazards.items()}}
     pop = model.population
     doc["population"] = _section(_keys("population"), {"initial_state": pop.initial_state, "sex_mix": pop.sex_mix,
