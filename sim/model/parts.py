@@ -18,7 +18,8 @@ from .checks import Problems, flag, number, number_map, string
 from .errors import ModelError
 from .frozen import FrozenMap
 
-__all__ = ["BACKGROUND", "Clock", "State", "Waning", "MAX_WANING_YEARS", "Transition", "BackgroundMortality", "scaled_background", "Horizon", "Strategy", "item_key"]
+__all__ = ["BACKGROUND", "Clock", "State", "Waning", "MAX_WANING_YEARS", "Transition", "BackgroundMortality",
+           "scaled_background", "Horizon", "Strategy", "item_key"]
 
 BACKGROUND = "background death"
 
