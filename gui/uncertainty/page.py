@@ -23,7 +23,6 @@ from sim.psa import CycleMethod
 from sim.reference import Conversion, Correction
 from sim.report import cycle_words
 
-from .density import number_text
 from .views import AcceptabilityView, CePlaneView, ConvergenceView, EvpiView, PsaTablesView
 from .worker import PsaJob, PsaOutcome, PsaRequest, PsaWorker, eta_text
 
@@ -341,23 +340,13 @@ class PsaPage(QWidget):
         self.results_shown.emit()
 
     def report_tables(self, scenario: Scenario | None) -> dict[str, pd.DataFrame] | None:
-        """The analysis' tables for a report of a run of ``scenario`` (None when the analysis shown is
-        of another scenario text, or there is none): the incremental results per method, the
-        acceptability and EVPI at the grid point nearest the scenario's willingness to pay, and the
-        noise share, as the views show them."""
+        """The analysis' summary tables, named as :func:`sim.psa.psa_summaries` names them, for the
+        report of a run of ``scenario`` (sim.report lays them out); None when the analysis shown is
+        of another scenario text, or there is none."""
         o = self.outcome
         if o is None or scenario is None or o.scenario.text != scenario.text or not o.summaries:
             return None
-        s = o.summaries
-        wtp = o.scenario.model.valuation.willingness_to_pay
-        tables = {"Incremental results over the parameter draws (per method)": s["incremental"]}
-        for name, title in (("ceac", "Probability cost-effective"), ("evpi", "EVPI per patient")):
-            grid = s[name]["wtp"].to_numpy()
-            at = grid[abs(grid - wtp).argmin()]
-            tables[f"{title} at a willingness to pay of {number_text(at)}"] = s[name][s[name]["wtp"] == at]
-        if "noise_share" in s:
-            tables["Share of the variance that is patient-level noise (simulated rows)"] = s["noise_share"]
-        return tables
+        return dict(o.summaries)
 
     def shutdown(self) -> None:
         self.controls.shutdown()
