@@ -10,7 +10,8 @@ Verbs::
 Exit codes: 0 ok, 2 bad input or output that cannot be written (one line naming the file, key or
 folder), 1 internal error (one line and a hint to report it; the traceback with
 ``HAZARDTRACE_DEBUG=1``) or a stage after the simulation that failed (``<stage> failed: ...``; the
-simulation's output is still written), 130 interrupted (Ctrl-C; no half-written output is left).
+simulation's output is still written; exit 2 instead, in one line, when the user's input caused it),
+130 interrupted (Ctrl-C; no half-written output is left).
 """
 
 from __future__ import annotations
@@ -141,6 +142,10 @@ def _run(scenario: Scenario, args: argparse.Namespace, out: TextIO) -> int:
         if study.tunnel_entry is not None:
             out.write(_tunnel_line(study) + "\n")
     out.write(f"\n{CAUTION}\n")
+    if results.failed_by_input:  # input the user can fix: one line naming the cause, exit 2
+        sys.stderr.write(f"hazardtrace: error: {'; '.join(results.failure_lines())} (the simulation and the "
+                         f"other results are in {folder}/)\n")
+        return 2
     for line in results.failure_lines():  # the output folder holds everything computed before
         sys.stderr.write(f"hazardtrace: {line}\n")
     if not results.complete:

@@ -66,6 +66,12 @@ class RunResults:
         """Every stage that ran finished (no entry in :attr:`failed`)."""
         return not self.failed
 
+    @property
+    def failed_by_input(self) -> bool:
+        """Some stage failed and every failure was caused by the user's input (each entry of
+        :attr:`failed` a ``StageFailure`` with ``by_input``), not a bug: the command line exits 2."""
+        return bool(self.failed) and all(getattr(why, "by_input", False) for why in self.failed.values())
+
     def failure_lines(self) -> list[str]:
         """One line per failed stage: ``"<stage> failed: <what went wrong>"``."""
         return [f"{stage} failed: {why}" for stage, why in self.failed.items()]

@@ -30,7 +30,7 @@ import pandas as pd
 
 from ..analysis import (OutcomeAccumulator, incremental, occupancy_to_own_horizon, patient_outcomes, summarise,
                         survival_to_own_horizon)
-from ..engine import CancelToken, SimulationCancelled, SimulationResult, cancel_requested
+from ..engine import CancelToken, SimulationCancelled, SimulationError, SimulationResult, cancel_requested
 from ..io import Scenario
 from ..problems import ValidationError
 from ..reference import (NoExactSolution, StudyResult, discretization_study, exact_outcomes_and_occupancy,
@@ -41,7 +41,7 @@ from .plan import RunPlan
 from .results import time_grid
 from .sinks import ChunkSink
 
-__all__ = ["Progress", "RunState", "Stage", "STAGES", "run_stages", "failure_text"]
+__all__ = ["Progress", "RunState", "Stage", "STAGES", "StageFailure", "run_stages", "failure_text"]
 
 Progress = Callable[[str, int, int], None]
 INCREMENT_COLUMNS = ["strategy", "comparator", "quantity", "value", "mcse", "mcse_unpaired"]
@@ -198,7 +198,8 @@ def run_stages(state: RunState, stages: tuple[Stage, ...] = STAGES) -> RunState:
 
     A finished simulation is never lost: when a stage with an ``on_failure`` clean-up (exact solution,
     estimates, error study) raises anything but a cancel request, :func:`failure_text` of the error
-    goes to ``state.failed`` and the run goes on with what it has."""
+    goes to ``state.failed`` (a :class:`StageFailure` saying whether the input caused it) and the run
+    goes on with what it has."""
     for stage in stages:
         state.check_cancel()
         reason = stage.skip(state)
@@ -211,13 +212,37 @@ def run_stages(state: RunState, stages: tuple[Stage, ...] = STAGES) -> RunState:
             stage.run(state)
         except SimulationCancelled:
             raise
-        except Exception as err:  # noqa: BLE001 - recorded, reported with the results (exit 1 on the CLI)
+        except Exception as err:  # noqa: BLE001 - recorded, reported with the results (CLI: exit 2 or 1)
             if stage.on_failure is None:
                 raise
-            state.failed[stage.name] = failure_text(err)
+            state.failed[stage.name] = StageFailure(failure_text(err), by_input=input_caused(err))
             stage.on_failure(state, state.failed[stage.name])
         state.seconds[stage.name] = time.perf_counter() - t0
     return state
+
+
+class StageFailure(str):
+    """The one-line account of a failed stage (a ``str``, as in ``RunResults.failed``) with
+    :attr:`by_input`: True when the user's input caused it (see :func:`input_caused`; the command
+    line exits 2), False for a bug (exit 1)."""
+
+    by_input: bool
+
+    def __new__(cls, text: str, by_input: bool = False) -> StageFailure:
+        obj = super().__new__(cls, text)
+        obj.by_input = by_input
+        return obj
+
+    def __reduce__(self):  # picklable with its cause (process and Dask executors)
+        return (StageFailure, (str(self), self.by_input))
+
+
+def input_caused(err: BaseException) -> bool:
+    """Whether a stage failed because of the user's input: a :class:`sim.problems.ValidationError`
+    (a scenario, hazard or export problem naming its key), the engine's stop for a runaway chain of
+    moves (:class:`sim.engine.SimulationError`, as for the simulation itself) or a model the exact
+    solver cannot cope with (:class:`sim.reference.NoExactSolution`). Anything else is a bug."""
+    return isinstance(err, (ValidationError, SimulationError, NoExactSolution))
 
 
 def failure_text(err: BaseException) -> str:

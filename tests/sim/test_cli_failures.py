@@ -182,3 +182,22 @@ def test_ctrl_c_mid_run_exits_130_and_leaves_nothing(tmp_path) -> None:
     assert proc.returncode == 130, seen + err
     assert "Traceback" not in err and "interrupted" in err
     assert not folder.exists() and list(tmp_path.iterdir()) == []
+
+
+def test_a_later_stage_failed_by_the_input_is_one_line_exit_2(tmp_path, capsys, monkeypatch) -> None:
+    """The input caused it (here a ValidationError naming its key): exit 2, one line naming the cause,
+    and the simulation's output is written all the same."""
+    from sim.problems import ValidationError
+
+    problem = ValidationError(("run", "cycle_lengths", 0), "must give at most 100,000 cycles", 1e-300)
+    _fail_stage(monkeypatch, "study", problem)
+    folder = tmp_path / "out"
+    code, out, err = _run(["run", str(SCENARIO), "--patients", "300", "--format", "csv", "--output", str(folder)],
+                          capsys)
+    assert code == 2
+    lines = _lines(err)
+    assert lines == [f"hazardtrace: error: study failed: {problem} (the simulation and the other results are "
+                     f"in {folder}/)"], err
+    assert "run.cycle_lengths[0]" in lines[0] and "Traceback" not in err and "report" not in err
+    assert len(pd.read_csv(folder / "events.csv")) > 0 and (folder / "summary.csv").exists()
+    assert "Simulated (mean, Monte Carlo standard error)" in out
