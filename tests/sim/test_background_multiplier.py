@@ -21,7 +21,7 @@ from sim.hazards import Dimension, Exponential, Gompertz, PiecewiseConstant, Pro
 from sim.io.demo import DEMOS, SCENARIO_DIR
 from sim.io.scenario import ScenarioError, document_from_model, parameters, parse_scenario, scenario_text
 from sim.model import BackgroundMortality, Clock, FixedAge, Horizon, Model, ModelError, Population, State, Transition
-from sim.psa import model_for_draw, point_values, uncertain_parameters
+from sim.psa import model_for_draw, point_values, run_psa, uncertain_parameters
 import sim.reference.exact as exact_module
 from sim.reference.exact import occupancy_for_entry, solve_exact
 from sim.reference.factored import background_target
@@ -218,6 +218,22 @@ def test_a_probabilistic_draw_on_the_multiplier_changes_the_model():
     # a bare model (written with its multiplier) takes the key too
     m = model_for_draw(s.model, {"background.multiplier": 2.0})
     assert m.background.multiplier == 2.0
+
+
+def test_the_exact_rows_of_a_probabilistic_analysis_follow_the_drawn_multiplier():
+    # Wiring: each draw's exact row is the exact solution of the model with the drawn multiplier (the
+    # solver itself is checked against closed forms and scipy.linalg.expm above).
+    s = parse_scenario(LANTHIC.read_text(encoding="utf-8") + PSA.replace(repr(SIGMA), "0.5"), LANTHIC)
+    result = run_psa(s, draws=3, patients=0, workers=1, processes=False)
+    assert result.values["background.multiplier"].nunique() == 3
+    for draw, row in result.values.iterrows():
+        m = model_for_draw(s, row.to_dict())
+        assert m.background.multiplier == row["background.multiplier"]
+        want = solve_exact(m, np.array([1.0]), discount_rate=m.valuation.discount_effects).life_expectancy
+        got = result.table[result.table["draw"] == draw].set_index("strategy")
+        for _, w in want.iterrows():
+            assert got.loc[w["strategy"], "life_years"] == pytest.approx(w["years"], rel=1e-9)
+            assert got.loc[w["strategy"], "life_years_discounted"] == pytest.approx(w["discounted_years"], rel=1e-9)
 
 
 @pytest.mark.parametrize("value,rule", [("0", "must be > 0"), ("-1.5", "must be > 0"), ("inf", "must be finite"),
