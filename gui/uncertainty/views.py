@@ -14,7 +14,8 @@ import pandas as pd
 import pyqtgraph as pg
 from PySide6.QtCore import Qt, Signal
 from PySide6.QtGui import QColor, QPen
-from PySide6.QtWidgets import (QComboBox, QDoubleSpinBox, QHBoxLayout, QLabel, QPushButton, QVBoxLayout, QWidget)
+from PySide6.QtWidgets import (QComboBox, QDoubleSpinBox, QHBoxLayout, QLabel, QPushButton, QSpinBox, QVBoxLayout,
+                               QWidget)
 
 from gui.palette import EXACT as EXACT_SERIES
 from gui.palette import SIMULATED as SIMULATED_SERIES
@@ -23,7 +24,7 @@ from gui.results.plot_panel import PlotPanel
 from gui.results.table_view import TableView
 from sim.psa import EXACT, SIMULATED, CycleMethod, reference_method
 from sim.report import cycle_words
-from sim.uncertainty import differing_wtp_ranges
+from sim.uncertainty import differing_wtp_ranges, population_evpi
 
 from .density import number_text
 from .worker import PsaOutcome
@@ -247,32 +248,68 @@ class AcceptabilityView(_View):
 
 
 class EvpiView(_View):
-    """The expected value of perfect information per patient over the willingness to pay, one curve
-    per method."""
+    """The expected value of perfect information over the willingness to pay, one curve per method:
+    per patient, or for a population (patients a year over a number of years, discounted at the
+    scenario's cost discount rate: :func:`sim.uncertainty.population_evpi`)."""
 
     def __init__(self, parent: QWidget | None = None) -> None:
         super().__init__("evpi", "Willingness to pay per QALY", "EVPI per patient", parent)
+        self.population = QSpinBox()
+        self.population.setObjectName("evpi_population")
+        self.population.setRange(0, 1_000_000_000)
+        self.population.setGroupSeparatorShown(True)
+        self.population.setSpecialValueText("per patient")
+        self.population.setToolTip("Patients a year the decision affects (per patient: 0)")
+        self.years = QSpinBox()
+        self.years.setObjectName("evpi_years")
+        self.years.setRange(1, 200)
+        self.years.setValue(10)
+        self.years.setToolTip("Years the decision holds (its time horizon)")
+        self.controls.addWidget(QLabel("Population a year"))
+        self.controls.addWidget(self.population, 1)
+        self.controls.addWidget(QLabel("over years"))
+        self.controls.addWidget(self.years)
+        self.population.valueChanged.connect(lambda _v: self._draw())
+        self.years.valueChanged.connect(lambda _v: self._draw())
         self.curves: dict[str, pg.PlotDataItem] = {}
+        self.frames: dict[str, pd.DataFrame] = {}
 
     def show_outcome(self, outcome: PsaOutcome) -> None:
         self.outcome = outcome
+        self._draw()
+
+    def _draw(self) -> None:
         self._clear()
-        self.curves = {}
-        if "evpi" not in outcome.summaries:
+        self.curves, self.frames = {}, {}
+        o = self.outcome
+        if o is None or "evpi" not in o.summaries:
             return
-        frame = outcome.summaries["evpi"]
+        frame = o.summaries["evpi"]
+        v = o.scenario.model.valuation
+        people, years = self.population.value(), self.years.value()
+        column = "population_evpi" if people else "evpi"
         entries = []
-        for method in outcome.methods:
+        for method in o.methods:
             g = frame[frame["method"] == method]
-            item = pg.PlotDataItem(g["wtp"].to_numpy(), g["evpi"].to_numpy(), pen=method_line(method, outcome))
+            if people:
+                g = population_evpi(g, people, years, v.discount_costs)
+            item = pg.PlotDataItem(g["wtp"].to_numpy(), g[column].to_numpy(), pen=method_line(method, o))
             self.panel.plot.addItem(item)
-            self.curves[method] = item
-            entries.append((item, method_words(method, outcome)))
-        wtp = outcome.scenario.model.valuation.willingness_to_pay
-        self.panel.plot.addLine(x=wtp, pen=pg.mkPen("#777777", style=Qt.PenStyle.DotLine))
+            self.curves[method], self.frames[method] = item, g
+            entries.append((item, method_words(method, o)))
+        self.panel.plot.addLine(x=v.willingness_to_pay, pen=pg.mkPen("#777777", style=Qt.PenStyle.DotLine))
         self.panel.set_legend(entries)
-        currency = outcome.scenario.model.valuation.currency
-        self.panel.set_title(f"Expected value of perfect information per patient ({currency})")
+        if people:
+            self.panel.plot.setLabel("left", "Population EVPI", color="#000000")
+            self.panel.set_title(f"Population EVPI ({v.currency}): {people:,} patients a year for {years} years")
+            factor = float(next(iter(self.frames.values()))["population_factor"].iloc[0]) if self.frames else 0.0
+            self.note.setText(f"{people:,} patients a year over {years} years, discounted at {v.discount_costs:g} a "
+                              f"year (the scenario's cost discount rate; first year in full): {factor:,.0f} "
+                              "discounted patients.")
+        else:
+            self.panel.plot.setLabel("left", "EVPI per patient", color="#000000")
+            self.panel.set_title(f"Expected value of perfect information per patient ({v.currency})")
+            self.note.setText("")
 
 
 class ConvergenceView(_View):

@@ -20,7 +20,8 @@ from gui.main_window import MainWindow
 from gui.uncertainty.page import CANCELLING_TEXT
 from gui.uncertainty.views import Z95
 from sim.psa import EXACT, SIMULATED, wtp_grid_for
-from sim.uncertainty import acceptability_curve, acceptability_frontier, ce_plane, evpi, inb_convergence
+from sim.uncertainty import (acceptability_curve, acceptability_frontier, ce_plane, evpi, inb_convergence,
+                             population_evpi)
 
 ROOT = Path(__file__).resolve().parents[2]
 QUORREL = ROOT / "scenarios" / "quorrel_psa.toml"
@@ -122,26 +123,31 @@ def test_finished_analysis_plots_what_sim_computes(qtbot, window: MainWindow, tm
     for method, item in page.acceptability.curves.items():
         curve = acceptability_curve(table[table["method"] == method], grid)
         curve = curve[curve["strategy"] == new]
-        cx, cy = item.getData()
+        cx, cy = item.getOriginalDataset()
         np.testing.assert_array_equal(cx, grid)
         np.testing.assert_array_equal(cy, curve["probability"].to_numpy())
     front = acceptability_frontier(table[table["method"] == EXACT], grid)
-    np.testing.assert_array_equal(page.acceptability.frontier.getData()[1], front["probability"].to_numpy())
+    np.testing.assert_array_equal(page.acceptability.frontier.getOriginalDataset()[1], front["probability"].to_numpy())
 
     # EVPI per method
     for method, item in page.evpi.curves.items():
         ev = evpi(table[table["method"] == method], grid)
-        np.testing.assert_array_equal(item.getData()[1], ev["evpi"].to_numpy())
+        np.testing.assert_array_equal(item.getOriginalDataset()[1], ev["evpi"].to_numpy())
     assert set(page.evpi.curves) == set(methods)
+    set_spin(qtbot, page.evpi.population, 5000)  # for a population: 5,000 patients a year over 10 years
+    for method, item in page.evpi.curves.items():
+        ev = population_evpi(evpi(table[table["method"] == method], grid), 5000, 10, model.valuation.discount_costs)
+        np.testing.assert_array_equal(item.getOriginalDataset()[1], ev["population_evpi"].to_numpy())
+    assert "discounted patients" in page.evpi.note.text()
 
     # convergence of the simulated rows' INB at the scenario's willingness to pay, with its band
     conv = inb_convergence(table[table["method"] == SIMULATED], comparator, model.valuation.willingness_to_pay)
     line = page.convergence.curves[new]
-    np.testing.assert_array_equal(line.getData()[1], conv["mean"].to_numpy())
+    np.testing.assert_array_equal(line.getOriginalDataset()[1], conv["mean"].to_numpy())
     lo, hi = page.convergence.bands[new]
     ok = conv["mcse"].notna().to_numpy()
-    np.testing.assert_allclose(hi.getData()[1], (conv["mean"] + Z95 * conv["mcse"]).to_numpy()[ok], rtol=1e-15)
-    np.testing.assert_allclose(lo.getData()[1], (conv["mean"] - Z95 * conv["mcse"]).to_numpy()[ok], rtol=1e-15)
+    np.testing.assert_allclose(hi.getOriginalDataset()[1], (conv["mean"] + Z95 * conv["mcse"]).to_numpy()[ok], rtol=1e-15)
+    np.testing.assert_allclose(lo.getOriginalDataset()[1], (conv["mean"] - Z95 * conv["mcse"]).to_numpy()[ok], rtol=1e-15)
 
     # one colour per method, the same in every view (the palette's)
     colours = {m: page.acceptability.curves[m].opts["pen"].color().name() for m in methods}
@@ -149,7 +155,7 @@ def test_finished_analysis_plots_what_sim_computes(qtbot, window: MainWindow, tm
     assert len(set(colours.values())) == len(methods)
     assert all(page.evpi.curves[m].opts["pen"].color().name() == colours[m] for m in methods)
 
-    for i, name in enumerate(["ce_plane", "acceptability", "evpi", "convergence"]):
+    for i, name in enumerate(["ce_plane", "acceptability", "evpi_population", "convergence"]):
         page.tabs.setCurrentIndex(i)
         qtbot.wait(100)  # laid out as the user sees it
         assert window.grab().save(str(shots(tmp_path) / f"psa_{name}.png"))
