@@ -8,29 +8,47 @@ from __future__ import annotations
 
 import html
 import os
+from pathlib import Path
 
 import pandas as pd
 from PySide6.QtCore import QCoreApplication, Qt, Signal, Slot
-from PySide6.QtWidgets import (QCheckBox, QComboBox, QFormLayout, QGroupBox, QHBoxLayout, QLabel, QProgressBar,
-                               QPushButton, QSpinBox, QSplitter, QStackedWidget, QTabWidget, QVBoxLayout, QWidget)
+from PySide6.QtWidgets import (QCheckBox, QComboBox, QFileDialog, QFormLayout, QGroupBox, QHBoxLayout, QLabel,
+                               QMessageBox, QProgressBar, QPushButton, QSpinBox, QSplitter, QStackedWidget, QTabWidget,
+                               QVBoxLayout, QWidget)
 
 from gui.document import ScenarioDocument
 from gui.palette import OKABE_ITO
 from gui.results.exports import Exporter
+from gui.worker import FunctionWorker, Job
 from sim.cli.psa import DEFAULT_DRAWS, DEFAULT_PATIENTS
 from sim.io import Scenario
-from sim.psa import CycleMethod
+from sim.io.export import metadata_for
+from sim.psa import CycleMethod, write_psa
 from sim.reference import Conversion, Correction
 from sim.report import cycle_words
 
 from .views import AcceptabilityView, CePlaneView, ConvergenceView, EvpiView, PsaTablesView
 from .worker import PsaJob, PsaOutcome, PsaRequest, PsaWorker, eta_text
 
-__all__ = ["PsaPage", "PsaRunControls", "CANCELLING_TEXT"]
+__all__ = ["PsaPage", "PsaRunControls", "CANCELLING_TEXT", "write_analysis_folder"]
 
 CANCELLING_TEXT = "Cancelling… (after the block of draws running now)"
 MAX_DRAWS = 1_000_000
 MAX_PATIENTS = 100_000_000
+
+
+def write_analysis_folder(outcome: PsaOutcome, folder: str) -> str:
+    """The analysis as ``hazardtrace psa`` writes it (:func:`sim.psa.write_psa`: per-draw table and
+    parameter draws as Parquet and CSV, every summary table as CSV, ``metadata.json``), atomically,
+    replacing ``folder`` (the window asked first); returns the folder."""
+    s, r = outcome.scenario, outcome.result
+    meta = metadata_for(s.text, r.settings["seed"], outcome.request.patients, extra={
+        "command": "psa (window)", "scenario_file": str(s.path) if s.path else None,
+        "draws": outcome.request.draws, "workers": outcome.request.workers, "scheduler": None,
+        "block_draws": r.settings["block_draws"], "cycle_methods": r.settings["cycle_methods"],
+        "parameters": r.settings["parameters"], "notes": list(r.notes), "seconds": round(r.seconds, 3)})
+    write_psa(folder, r.table, r.values, meta, outcome.summaries, force=True)
+    return str(folder)
 
 
 class PsaRunControls(QWidget):
@@ -252,6 +270,13 @@ class PsaPage(QWidget):
         self.title = QLabel()
         self.title.setWordWrap(True)
         self.title.setTextFormat(Qt.TextFormat.RichText)
+        self.save_folder = QPushButton("Save analysis folder…")
+        self.save_folder.setObjectName("psa_save_folder")
+        self.save_folder.setToolTip("Every table of the analysis and its metadata in one folder, as "
+                                    "'hazardtrace psa' writes it")
+        self.save_folder.setEnabled(False)
+        self.save_folder.clicked.connect(self.ask_save_folder)
+        self._jobs: list[Job] = []
         self.ce_plane = CePlaneView()
         self.acceptability = AcceptabilityView()
         self.evpi = EvpiView()
@@ -282,7 +307,10 @@ class PsaPage(QWidget):
         rv = QVBoxLayout(right)
         rv.setContentsMargins(0, 0, 0, 0)
         rv.addWidget(self.stale)
-        rv.addWidget(self.title)
+        head = QHBoxLayout()
+        head.addWidget(self.title, 1)
+        head.addWidget(self.save_folder, 0, Qt.AlignmentFlag.AlignTop)
+        rv.addLayout(head)
         rv.addWidget(self.stack, 1)
         rv.addWidget(self.status)
         left = QWidget()
@@ -336,6 +364,7 @@ class PsaPage(QWidget):
         for view in self.views():
             view.show_outcome(outcome)
         self.tables.show_outcome(outcome)
+        self.save_folder.setEnabled(True)
         self._update_stale()
         self.results_shown.emit()
 
@@ -348,9 +377,45 @@ class PsaPage(QWidget):
             return None
         return dict(o.summaries)
 
+    def ask_save_folder(self) -> bool:
+        """Ask for a folder name and write the analysis there (asks before replacing a folder)."""
+        o = self.outcome
+        if o is None:
+            return False
+        stem = o.scenario.path.stem if o.scenario.path else "scenario"
+        start = str(Path(self.exporter.directory or self.document.dialog_folder()) / f"{stem}-psa")
+        path, _ = QFileDialog.getSaveFileName(self, "Save the analysis as a folder", start, "Folder (*)",
+                                              options=QFileDialog.Option.DontConfirmOverwrite)
+        if not path:
+            return False
+        if Path(path).exists():
+            answer = QMessageBox.question(self, "Replace folder", f"{path} exists. Replace it with this analysis?",
+                                          QMessageBox.StandardButton.Yes | QMessageBox.StandardButton.No,
+                                          QMessageBox.StandardButton.No)
+            if answer != QMessageBox.StandardButton.Yes:
+                return False
+        return self.save_analysis_folder(path)
+
+    def save_analysis_folder(self, path: str) -> bool:
+        """Write the analysis on screen to the folder ``path`` in a worker thread."""
+        if self.outcome is None:
+            return False
+        self.exporter.directory = str(Path(path).parent)
+        job = Job(FunctionWorker(write_analysis_folder, self.outcome, path))
+        job.finished.connect(lambda folder: self._on_saved(str(folder)))
+        job.failed.connect(self._on_failed)
+        job.done.connect(lambda: setattr(self, "_jobs", [j for j in self._jobs if j.is_running()]))
+        self._jobs.append(job)
+        self.status.setText(f"Writing {path}…")
+        job.start()
+        return True
+
     def shutdown(self) -> None:
         self.controls.shutdown()
         self.exporter.shutdown()
+        for job in list(self._jobs):
+            job.stop()
+        self._jobs.clear()
 
     @Slot(str)
     def _on_saved(self, path: str) -> None:

@@ -5,6 +5,7 @@ sim.uncertainty's functions on the analysis' table must equal the plotted data),
 
 from __future__ import annotations
 
+import json
 import os
 import threading
 from pathlib import Path
@@ -19,7 +20,7 @@ from gui.document import ScenarioDocument
 from gui.main_window import MainWindow
 from gui.uncertainty.page import CANCELLING_TEXT
 from gui.uncertainty.views import Z95
-from sim.psa import EXACT, SIMULATED, wtp_grid_for
+from sim.psa import EXACT, SIMULATED, table_hash, wtp_grid_for
 from sim.uncertainty import (acceptability_curve, acceptability_frontier, ce_plane, evpi, inb_convergence,
                              population_evpi)
 
@@ -179,3 +180,15 @@ def test_finished_analysis_plots_what_sim_computes(qtbot, window: MainWindow, tm
     pd.testing.assert_frame_equal(back[["wtp", "evpi"]].reset_index(drop=True),
                                   o.summaries["evpi"][["wtp", "evpi"]].reset_index(drop=True), rtol=1e-12)
     assert "Saved" in page.status.text()
+
+    # the whole analysis as a folder, as `hazardtrace psa` writes it
+    folder = tmp_path / "quorrel-psa"
+    monkeypatch.setattr(QFileDialog, "getSaveFileName", lambda *a, **k: (str(folder), "Folder (*)"))
+    qtbot.mouseClick(page.save_folder, Qt.MouseButton.LeftButton)
+    qtbot.waitUntil(lambda: page.status.text() == f"Saved {folder}", timeout=20000)
+    back = pd.read_parquet(folder / "draws.parquet")
+    pd.testing.assert_frame_equal(back, table.reset_index(drop=True), check_dtype=False)
+    meta = json.loads((folder / "metadata.json").read_text(encoding="utf-8"))
+    assert meta["draws"] == 20 and meta["patients"] == 200 and meta["seed"] == 14
+    assert meta["draws_table_sha256"] == table_hash(table)
+    assert (folder / "ceac.csv").exists() and (folder / "parameters.csv").exists()
