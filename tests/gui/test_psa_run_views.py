@@ -192,3 +192,18 @@ def test_finished_analysis_plots_what_sim_computes(qtbot, window: MainWindow, tm
     assert meta["draws"] == 20 and meta["patients"] == 200 and meta["seed"] == 14
     assert meta["draws_table_sha256"] == table_hash(table)
     assert (folder / "ceac.csv").exists() and (folder / "parameters.csv").exists()
+
+
+def test_a_failed_analysis_says_why_and_the_controls_come_back(qtbot, window: MainWindow, monkeypatch) -> None:
+    import gui.uncertainty.worker as worker_module
+    from sim.problems import ValidationError
+
+    def refuse(*_args, **_kwargs):
+        raise ValidationError(("workers",), "must be a positive integer", 0)
+    monkeypatch.setattr(worker_module, "run_psa", refuse)
+    page = open_page(qtbot, window)
+    c = page.controls
+    qtbot.mouseClick(c.run_button, Qt.MouseButton.LeftButton)
+    qtbot.waitUntil(lambda: not c.is_running(), timeout=10000)
+    assert c.status.text().startswith("Failed: ") and "workers" in c.status.text() and "positive" in c.status.text()
+    assert c.run_button.isEnabled() and c.draws.isEnabled() and page.outcome is None
