@@ -1,9 +1,12 @@
-"""``hazardtrace report RUN_DIR|SCENARIO [--output FILE.html|.pdf]``: the report a reviewer reads.
+"""``hazardtrace report RUN_DIR|PSA_DIR|SCENARIO [--output FILE.html|.pdf]``: the report a reviewer reads.
 
-From a run folder (written by ``hazardtrace run``) the report shows the recorded tables and
-re-estimates the curves from the recorded event log. From a scenario file the scenario is first run
-in memory at its own settings (``--patients`` and ``--seed`` override them), with nothing written
-but the report.
+The folder's kind comes from its ``metadata.json``: a probabilistic analysis's folder (written by
+``hazardtrace psa``) gives the scenario in words with its uncertain inputs and the uncertainty
+section (with ``--population`` and ``--years`` the population EVPI, with ``--evppi`` the EVPPI of
+parameter groups, computed from the recorded draws). From a run folder (written by ``hazardtrace run``)
+the report shows the recorded tables and re-estimates the curves from the recorded event log. From a
+scenario file the scenario is first run in memory at its own settings (``--patients`` and ``--seed``
+override them), with nothing written but the report.
 """
 
 from __future__ import annotations
@@ -16,7 +19,8 @@ from typing import TextIO
 from ..io import load_scenario
 from ..io.export import ExportError
 from ..pipeline import run_scenario
-from ..report import TraceRequest, inputs_from_results, load_run_folder, metadata_path, write_report
+from ..report import (TraceRequest, folder_kind, inputs_from_results, load_psa_folder, load_run_folder,
+                      metadata_path, write_report)
 from .progress import StageProgress
 
 __all__ = ["register"]
@@ -37,10 +41,27 @@ def _trace(text: str) -> TraceRequest:
     return TraceRequest(method, h)
 
 
+def _group(text: str) -> list[str]:
+    """``--evppi "key, key"``: a parameter group, keys separated by commas."""
+    return [k.strip() for k in text.split(",") if k.strip()]
+
+
 def _report(args: argparse.Namespace, out: TextIO) -> int:
     source = Path(args.source)
     is_run = source.is_dir() or source.name == "metadata.json"
-    if is_run:
+    tables = None
+    psa_only = (args.population is not None or args.years is not None or args.evppi)
+    if is_run and folder_kind(source) == "psa":
+        inputs, tables = load_psa_folder(source, population=args.population, years=args.years,
+                                         evppi_groups=[_group(g) for g in args.evppi or ()])
+        default = metadata_path(source).parent / "report.html"
+        what = f"the probabilistic analysis {metadata_path(source).parent}"
+    elif psa_only:
+        raise ExportError(f"{source}: --population, --years and --evppi apply to a probabilistic analysis's folder "
+                          f"(hazardtrace psa)", file=source, key=("--population" if args.population is not None else
+                                                                  "--years" if args.years is not None else "--evppi",),
+                          rule="only with a folder written by 'hazardtrace psa'")
+    elif is_run:
         inputs = load_run_folder(source)
         default = metadata_path(source).parent / "report.html"
         what = f"the run folder {metadata_path(source).parent}"
@@ -60,19 +81,23 @@ def _report(args: argparse.Namespace, out: TextIO) -> int:
         raise ExportError(f"{source}: no such run folder or scenario file", file=source,
                           rule="must be a run folder (hazardtrace run), its metadata.json or a scenario file")
     target = Path(args.output) if args.output else default
-    written = write_report(inputs, target, force=args.force, traces=args.trace or None)
+    written = write_report(inputs, target, force=args.force, traces=args.trace or None, psa_tables=tables)
     out.write(f"Report of {what}: {written}\n")
     return 0
 
 
 def register(sub: argparse._SubParsersAction) -> None:
     """Add the ``report`` verb to the command line's sub-parsers."""
-    p = sub.add_parser("report", help="write a self-contained HTML (or PDF) report of a run folder or a scenario",
+    p = sub.add_parser("report", help="write a self-contained HTML (or PDF) report of a run folder, a probabilistic "
+                                      "analysis or a scenario",
                        description="Write one self-contained HTML file (plots as inline SVG, no network needed) or "
                                    "a PDF of the same report. RUN_DIR: a folder written by 'hazardtrace run' (its "
-                                   "tables as recorded, curves re-estimated from its event log). SCENARIO: the "
+                                   "tables as recorded, curves re-estimated from its event log). PSA_DIR: a folder "
+                                   "written by 'hazardtrace psa' (its uncertain inputs and uncertainty results). "
+                                   "SCENARIO: the "
                                    "scenario is run in memory at its settings first; only the report is written.")
-    p.add_argument("source", metavar="RUN_DIR|SCENARIO", help="run folder (or its metadata.json), or scenario file")
+    p.add_argument("source", metavar="RUN_DIR|PSA_DIR|SCENARIO",
+                   help="run folder (or its metadata.json), probabilistic analysis folder, or scenario file")
     p.add_argument("--output", help="report file, .html or .pdf (default RUN_DIR/report.html, or "
                                     "<scenario name>_report.html here)")
     p.add_argument("--force", action="store_true", help="replace an existing report file")
@@ -81,4 +106,12 @@ def register(sub: argparse._SubParsersAction) -> None:
                         "matrix-exponential at 1 year, or the longest cycle length of the scenario)")
     p.add_argument("--patients", type=int, help="SCENARIO only: patients per strategy (default run.patients)")
     p.add_argument("--seed", type=int, help="SCENARIO only: random seed (default run.seed)")
+    p.add_argument("--population", type=float, metavar="N",
+                   help="PSA_DIR only: patients per year who benefit from the decision (population EVPI; with --years)")
+    p.add_argument("--years", type=int, metavar="T",
+                   help="PSA_DIR only: years the decision holds (population EVPI, discounted at the scenario's cost "
+                        "discount rate; first year undiscounted)")
+    p.add_argument("--evppi", action="append", metavar="KEYS",
+                   help="PSA_DIR only: EVPPI of a parameter group, its keys separated by commas, e.g. "
+                        "'valuation.utilities.well, valuation.utilities.mild' (repeatable)")
     p.set_defaults(func=_report, needs_scenario=False)

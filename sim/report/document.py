@@ -13,6 +13,8 @@ from html import escape
 
 import pandas as pd
 
+from ..io import Scenario
+from ..psa.apply import describe_uncertainty  # not the package: its __init__ names the Dask runner
 from .cautions import CAUTION
 from .describe import describe_lines
 from .diagram import model_svg
@@ -20,6 +22,7 @@ from .inputs import ReportInputs
 from .numbers import significant
 from .plots import TraceRequest, curve_figures, cycle_words, trace_occupancy
 from .tables import decision_change_table, increment_table, outcome_table, safe_cycle_table, study_error_table
+from .uncertainty import uncertainty_body
 
 __all__ = ["report_html", "uncertainty_section", "default_traces", "STYLE"]
 
@@ -81,24 +84,33 @@ def default_traces(inputs: ReportInputs) -> list[TraceRequest]:
     return [TraceRequest("per-transition", h), TraceRequest("matrix-exponential", h)]
 
 
-def uncertainty_section(psa_tables: Mapping[str, pd.DataFrame] | None) -> str:
-    """Hook for the uncertainty results of a probabilistic analysis (to come): empty without tables;
-    with tables, each as a titled HTML table of its values (a placeholder layout until the analysis
-    defines its own)."""
+def _figure(svg: str, caption: str) -> str:
+    return f"<figure>{svg}<figcaption>{escape(caption)}</figcaption></figure>"
+
+
+def uncertainty_section(psa_tables: Mapping[str, pd.DataFrame] | None, scenario: Scenario | None = None,
+                        metadata: Mapping | None = None) -> str:
+    """The results of a probabilistic analysis (:mod:`sim.report.uncertainty`): empty without tables.
+
+    Parameters
+    ----------
+    psa_tables : tables by name, as :func:`sim.psa.psa_summaries` names them, with ``inputs``,
+        ``population_evpi`` and ``evppi`` where computed; other names are shown as titled tables.
+    scenario : the analysed scenario (currency, willingness to pay).
+    metadata : the analysis's ``metadata.json`` (draws, patients, seed, parameters).
+    """
     if not psa_tables:
         return ""
-    parts = []
-    for title, table in psa_tables.items():
-        from .numbers import formatted_frame
-        shown = formatted_frame(table)
-        parts.append(f"<h3>{escape(title)}</h3>" + _table(shown, [c for c in table.columns
-                                                               if pd.api.types.is_numeric_dtype(table[c].dtype)]))
-    return _section("Uncertainty", "".join(parts), "uncertainty")
+    body = uncertainty_body(psa_tables, scenario, metadata or {}, _table, _keep, _p, _figure)
+    return _section("Uncertainty", body, "uncertainty")
 
 
 def _scenario_section(inputs: ReportInputs) -> str:
     items = []
     for line in describe_lines(inputs.scenario, conversions=False)[2:]:
+        sub = line.startswith("  ")
+        items.append(f'<li{" class=" + chr(34) + "sub" + chr(34) if sub else ""}>{escape(line.strip())}</li>')
+    for line in describe_uncertainty(inputs.scenario):  # the [[uncertainty]] entries, where there are any
         sub = line.startswith("  ")
         items.append(f'<li{" class=" + chr(34) + "sub" + chr(34) if sub else ""}>{escape(line.strip())}</li>')
     m = inputs.scenario.model
@@ -216,7 +228,11 @@ def _metadata_section(inputs: ReportInputs) -> str:
 
     add("HazardTrace version", "tool_version")
     add("seed", "seed")
-    add("patients per strategy", "patients", lambda n: f"{int(n):,}")
+    if m.get("draws") is not None:
+        add("parameter draws", "draws", lambda n: f"{int(n):,}")
+        add("patients per draw and strategy", "patients", lambda n: f"{int(n):,}")
+    else:
+        add("patients per strategy", "patients", lambda n: f"{int(n):,}")
     add("threads", "threads")
     add("patients per chunk", "chunk_size", lambda n: f"{int(n):,}")
     add("events simulated", "events", lambda n: f"{int(n):,}")
@@ -230,6 +246,7 @@ def _metadata_section(inputs: ReportInputs) -> str:
     for f in m.get("input_files") or []:
         rows.append((f"input file {f.get('key')}", f"{f.get('path')} — SHA-256 {f.get('sha256') or 'not readable'}"))
     add("event log SHA-256 (content)", "event_log_sha256")
+    add("per-draw table SHA-256 (content)", "draws_table_sha256")
     add("patient table SHA-256 (content)", "patients_sha256")
     shown = pd.DataFrame(rows, columns=["item", "value"])
     body = _table(shown, cls="metadata")
@@ -249,7 +266,7 @@ def report_html(inputs: ReportInputs, traces: Sequence[TraceRequest] | None = No
     inputs : what to show (:class:`ReportInputs`).
     traces : cycle-based traces to draw beside the simulated and exact curves (default
         :func:`default_traces`).
-    psa_tables : results of a probabilistic analysis, for :func:`uncertainty_section` (to come).
+    psa_tables : results of a probabilistic analysis, for :func:`uncertainty_section`.
     title : the document's title (default: "HazardTrace report: <model name>").
     """
     m = inputs.scenario.model
@@ -259,7 +276,8 @@ def report_html(inputs: ReportInputs, traces: Sequence[TraceRequest] | None = No
     when = inputs.metadata.get("date_utc")
     lead = _p(f"Made from {inputs.source}" + (f"; run on {when} (UTC)" if when else "") + ".", "note")
     sections = [_scenario_section(inputs), _outcomes_section(inputs), _curves_section(inputs, traces),
-                _study_section(inputs), uncertainty_section(psa_tables), _conversions_section(inputs),
+                _study_section(inputs),
+                uncertainty_section(psa_tables, inputs.scenario, inputs.metadata), _conversions_section(inputs),
                 _metadata_section(inputs), _section("Cautions", _p(CAUTION), "cautions")]
     return ("<!DOCTYPE html>\n"
             f'<html xmlns="http://www.w3.org/1999/xhtml" lang="en"><head><meta charset="utf-8"/>'

@@ -20,12 +20,47 @@ from ..model import Model
 from ..reference import cohort_trace
 from ..reference.study import MAX_TUNNEL_STATES
 
-__all__ = ["TraceRequest", "cycle_words", "trace_occupancy", "curve_figures", "Z95"]
+__all__ = ["TraceRequest", "cycle_words", "trace_occupancy", "curve_figures", "Z95", "METHOD_COLOURS",
+           "method_style", "method_words"]
 
 Z95 = 1.959963984540054  # standard normal 97.5% quantile (scipy.stats.norm.ppf(0.975))
 STEP_POINTS = 400  # a simulated step curve is drawn on this many even times (far below print resolution)
 COLOURS = ("#1b6ca8", "#c0392b", "#2e8b57", "#8e44ad", "#d68910", "#16a085", "#7f8c8d", "#34495e")
 TRACE_STYLES = ((0, (1, 1.5)), (0, (4, 1.5, 1, 1.5)), (0, (6, 2)), (0, (2, 2)))
+#: One colour per method wherever the report draws methods side by side (survival curves, the
+#: probabilistic analysis's plots): the Okabe-Ito palette (Okabe & Ito 2008, Color Universal Design),
+#: as the window's plots (simulated blue, exact vermillion, one colour per conversion method).
+METHOD_COLOURS = {"simulated": "#0072B2", "exact": "#D55E00", "per-transition": "#009E73",
+                  "competing-exit": "#E69F00", "matrix-exponential": "#CC79A7"}
+SPARE_COLOURS = ("#56B4E9", "#000000", "#7f8c8d")
+#: one line style per within-cycle correction (simulated solid, exact dashed)
+CORRECTION_STYLES = {"start": (0, (4, 1.5, 1, 1.5)), "end": (0, (6, 2)), "half-cycle": (0, (1, 1.5)),
+                     "simpson": (0, (2, 2))}
+
+
+def method_style(method: str) -> tuple[str, object]:
+    """Colour and matplotlib line style of a method: ``"simulated"`` (solid), ``"exact"`` (dashed) or
+    a cycle-based label ``"conversion|cycle length|correction"`` (the conversion's colour, the
+    correction's line style)."""
+    if method == "simulated":
+        return METHOD_COLOURS["simulated"], "-"
+    if method == "exact":
+        return METHOD_COLOURS["exact"], "--"
+    conversion, _, rest = method.partition("|")
+    correction = rest.partition("|")[2]
+    colour = METHOD_COLOURS.get(conversion, SPARE_COLOURS[sum(conversion.encode()) % len(SPARE_COLOURS)])
+    return colour, CORRECTION_STYLES.get(correction, (0, (3, 1, 1, 1, 1, 1)))
+
+
+def method_words(method: str) -> str:
+    """A method in words: ``simulated``, ``exact`` or ``matrix-exponential, 1 year, half-cycle``."""
+    parts = method.split("|")
+    if len(parts) != 3:
+        return method
+    try:
+        return f"{parts[0]}, {cycle_words(float(parts[1]))}, {parts[2]}"
+    except ValueError:
+        return method
 
 
 @dataclass(frozen=True)
@@ -114,21 +149,23 @@ def curve_figures(model: Model, survival: pd.DataFrame | None, occupancy: pd.Dat
             if len(km):
                 t, s, se = (km[c].to_numpy(float) for c in ("time", "survival", "std_error"))
                 y, e = _step_on_grid(t, s, grid), np.nan_to_num(_step_on_grid(t, se, grid))
-                ax_s.fill_between(grid, np.clip(y - Z95 * e, 0, 1), np.clip(y + Z95 * e, 0, 1), color="#1b6ca8",
+                blue = METHOD_COLOURS["simulated"]
+                ax_s.fill_between(grid, np.clip(y - Z95 * e, 0, 1), np.clip(y + Z95 * e, 0, 1), color=blue,
                                   alpha=0.18, linewidth=0, step="post")
-                ax_s.step(grid, y, where="post", color="#1b6ca8", linewidth=1.4, label="simulated")
+                ax_s.step(grid, y, where="post", color=blue, linewidth=1.4, label="simulated")
                 drawn = True
         if exact_occupancy is not None:
             ex = exact_occupancy[exact_occupancy["strategy"] == strategy]
             if len(ex):
                 t, a = _alive(ex, model)
-                ax_s.plot(t, a, color="black", linestyle="--", linewidth=1.1, label="exact")
+                ax_s.plot(t, a, color=METHOD_COLOURS["exact"], linestyle="--", linewidth=1.1, label="exact")
         for j, req in enumerate(requests):
             tab = traces.get((strategy, req))
             if tab is None:
                 continue
             t, a = _alive(tab, model)
-            ax_s.plot(t, a, color="#555555", linestyle=TRACE_STYLES[j % len(TRACE_STYLES)], linewidth=1.1,
+            ax_s.plot(t, a, color=method_style(req.method)[0], linestyle=TRACE_STYLES[j % len(TRACE_STYLES)],
+                      linewidth=1.1,
                       label=f"{req.method}, {cycle_words(req.cycle_length)}")
         ax_s.set(title=f"Alive — {strategy}", xlabel="years since entry", ylabel="probability",
                  xlim=(0, t_end), ylim=(0, 1.02))
