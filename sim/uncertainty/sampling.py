@@ -36,6 +36,16 @@ the same seed."""
 _BLOCK = 4  # uniforms per Philox4x64 counter
 
 
+def _hashable(value: Any) -> Any:
+    """``value`` with its lists, arrays and mappings turned into tuples (a fit's inputs such as an
+    ``interval = [lo, hi]`` or a correlation matrix), so that an input can be hashed."""
+    if isinstance(value, Mapping):
+        return tuple((k, _hashable(v)) for k, v in value.items())
+    if isinstance(value, (list, tuple, np.ndarray)):
+        return tuple(_hashable(v) for v in value)
+    return value
+
+
 @dataclass(frozen=True)
 class UncertainInput:
     """One uncertain parameter, or a group drawn together, with its distribution.
@@ -70,7 +80,7 @@ class UncertainInput:
         object.__setattr__(self, "fitted_from", dict(self.fitted_from))
 
     def __hash__(self) -> int:
-        return hash((self.keys, self.distribution, tuple(self.fitted_from.items()), self.description))
+        return hash((self.keys, self.distribution, _hashable(self.fitted_from), self.description))
 
     @property
     def univariate(self) -> bool:

@@ -18,7 +18,7 @@ from sim.io.scenario import (ScenarioError, document_from_model, load_scenario, 
                              scenario_text)
 from sim.io.scenario.uncertain import parse_key
 from sim.problems import format_key
-from sim.psa import point_values, uncertain_parameters
+from sim.psa import model_for_draw, point_values, uncertain_parameters
 from sim.uncertainty import Beta, Dirichlet, Gamma, LogNormal, MultivariateNormal, Normal, draw_table
 
 DEMO = SCENARIO_DIR / "quorrel_psa.toml"
@@ -210,6 +210,11 @@ interval = [0.55, 0.89]
     assert hr.interval() == pytest.approx((0.55, 0.89), rel=1e-12)
     again = parse_scenario(scenario_text(document_from_model(s.model, s.run, uncertainty=s.uncertainty)))
     assert again.uncertainty == s.uncertainty
+    # inputs fitted from lists (an interval, a correlation matrix) can be hashed: a draw applies
+    assert len({*s.uncertainty}) == 2
+    values = draw_table(s.uncertainty, 1, seed=3).iloc[0].to_dict()
+    drawn = model_for_draw(s, values)
+    assert drawn.strategies[1].hazard_ratios["onset"] == values["strategies[1].hazard_ratios.onset"]
     with pytest.raises(ScenarioError) as err:
         parse_scenario(text.replace("[-0.3, 1.0]]", "[-0.3, 0.9]]"), "scen.toml")
     assert err.value.problem.path == ("uncertainty", 0, "correlation", 1, 1)
