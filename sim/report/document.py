@@ -46,6 +46,11 @@ figure svg { max-width: 100%; height: auto; } figcaption { font-size: 8.5pt; col
         word-break: break-all; }
 ul.words li.sub { list-style: none; margin-left: 1.2rem; }
 .keep { break-inside: avoid; page-break-inside: avoid; }
+table.psa-inputs { width: 100%; break-inside: auto; page-break-inside: auto; }
+table.psa-inputs tr { break-inside: avoid; page-break-inside: avoid; } table.psa-inputs td { overflow-wrap: anywhere; }
+table.psa-inputs td:nth-child(4), table.psa-inputs td:nth-child(5) { white-space: nowrap; }
+table.psa-inputs th:nth-child(1) { width: 21%; } table.psa-inputs th:nth-child(2) { width: 27%; }
+table.psa-inputs th:nth-child(3) { width: 20%; }
 """
 
 

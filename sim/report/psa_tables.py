@@ -37,12 +37,18 @@ def inputs_shown(inputs: pd.DataFrame) -> pd.DataFrame:
     """One row per uncertain parameter (:func:`sim.psa.inputs_table`): key, distribution with its
     parameters, how it was fitted, mean, 95% interval and the deterministic run's value."""
     rows = []
+    previous = None
     for r in inputs.itertuples(index=False):
+        same_group = r.group == previous
+        previous = r.group
         given = {part.split(" ")[0] for part in str(r.fitted_from).split(", ")} if r.fitted_from else set()
         fitted = (f"method of moments from {r.fitted_from}" if given and given <= {"mean", "se", "sample_size"}
                   else f"from {r.fitted_from}" if r.fitted_from else "parameters given")
         point = significant(r.point_value, 4) + ("" if r.point_from_file else " (the mean: not in the file)")
-        rows.append({"parameter": r.parameter, "distribution": r.parameters, "how fitted": fitted,
+        if same_group:
+            fitted = "as above"
+        rows.append({"parameter": r.parameter, "distribution": "the group above" if same_group else r.parameters,
+                     "how fitted": fitted,
                      "mean": significant(r.mean, 4),
                      "95% interval": f"{significant(r.low_95, 4)} to {significant(r.high_95, 4)}",
                      "deterministic value": point})

@@ -81,8 +81,8 @@ def uncertainty_body(tables: Mapping[str, pd.DataFrame], scenario: Scenario | No
         shown = inputs_shown(tables["inputs"])
         parts.append(keep("<h3>Uncertain inputs</h3>" + p(
             "Each uncertain parameter's distribution (native parameters; a multivariate or Dirichlet group is "
-            "listed once per member), how it was fitted, its mean and central 95% interval, and the value the "
-            "deterministic run uses.") + table(shown, ["mean"], cls="psa-inputs")))
+            "stated at its first member), how it was fitted, its mean and central 95% interval, and the value the "
+            "deterministic run uses.")) + table(shown, ["mean"], cls="psa-inputs"))
     if "incremental" in tables:
         shown = incremental_shown(tables["incremental"], int(draws or 1), currency)
         parts.append(keep("<h3>Incremental results</h3>" + p(
