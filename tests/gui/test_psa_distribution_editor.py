@@ -14,7 +14,7 @@ import numpy as np
 import pytest
 import tomllib
 from PySide6.QtCore import QSettings, Qt
-from PySide6.QtWidgets import QLineEdit
+from PySide6.QtWidgets import QLabel, QLineEdit
 from scipy import stats
 
 from gui.document import ScenarioDocument
@@ -167,6 +167,7 @@ def test_existing_entry_edited_in_place_and_removed(qtbot, window: MainWindow) -
     assert button.state == "set" and "gamma(" in button.action.toolTip()
     editor = open_editor(qtbot, window, button)
     assert editor.family.currentData() == "gamma"
+    assert "hazard table's unit: years" in editor.findChild(QLabel).text()
     assert editor.inputs["mean"].text() == "0.08" and editor.inputs["se"].text() == "0.012"
     qtbot.waitUntil(lambda: editor.preview.distribution is not None, timeout=3000)
     # gamma by moments: shape = m^2/se^2, scale = se^2/m
