@@ -522,7 +522,7 @@ class EvidenceWindow(QMainWindow):
         shift = age if bg.clock.value == "age" else 0.0
         curves = []
         with np.errstate(all="ignore"):
-            for hz in bg.hazards.values():
+            for hz in bg.scaled_hazards.values():  # times the multiplier (SMR)
                 curves.append((t_pos, np.asarray(hz.hazard(t_pos * unit_years + shift)) * unit_years))
         below, note = [], ""
         if chosen is not None and chosen.converged:

@@ -87,7 +87,7 @@ def below_background(fitted: Any, background: Hazard | BackgroundMortality, *, e
     Stretches shorter than the grid spacing between two scan points may be missed.
     """
     if isinstance(background, BackgroundMortality):
-        hazards: Mapping[str, Hazard] = background.hazards
+        hazards: Mapping[str, Hazard] = background.scaled_hazards  # times the multiplier (SMR)
         on_age = background.clock == Clock.AGE
     else:
         hazards, on_age = {"all": background}, True

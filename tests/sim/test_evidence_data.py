@@ -167,6 +167,15 @@ def test_below_background_per_sex_and_never():
     assert never.intervals == () and never.first is None
 
 
+def test_below_background_uses_the_background_multiplier():
+    # A standardised mortality ratio m scales the Gompertz rate: the crossing moves to
+    # ln(r / (m b)) / g - a0 (same closed form as above, with m b in place of b).
+    m = 2.5
+    bg = BackgroundMortality("dead", {"all": Gompertz(rate=3e-5, shape=0.09)}, multiplier=m)
+    (res,) = below_background(Exponential(rate=0.05), bg, entry_age=50.0, horizon=40.0)
+    assert res.first == pytest.approx(math.log(0.05 / (m * 3e-5)) / 0.09 - 50.0, abs=1e-8)
+
+
 def test_cli_fit_shows_where_fits_fall_below_background(tmp_path, capsys):
     """Exponential data (invented: rate 0.02 a year) against the lanthic demo's Gompertz background
     (female 3e-5 e^{0.085 a}, male 5e-5 e^{0.085 a}): below from t* = ln(r / b) / 0.085 - 60 with r the
