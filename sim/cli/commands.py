@@ -31,6 +31,8 @@ from ..io.export import ExportError, RunWriter, metadata_for, write_tidy_csv
 from ..engine import SimulationError
 from ..pipeline import RunPlan, StreamSink, failure_text, run_plan
 from ..reference import TUNNEL_ENTRY_WORDS, discretization_study, orders_of
+from ..report import CAUTION  # one caution text for the command line, the report and the window
+from . import fit, psa, report, rerun
 from .describe import describe
 from .progress import ProgressBar, StageProgress
 
@@ -39,17 +41,14 @@ __all__ = ["main", "describe"]
 # Verbs that live in modules of their own. Each module has ``register(sub)`` which adds its parser
 # with ``set_defaults(func=...)``; with ``needs_scenario=False`` the function is called as
 # ``func(args, out)`` (else ``func(scenario, args, out)`` with the scenario loaded and validated).
-# Add one line per verb module; errors follow ``main``'s exit codes.
-VERB_MODULES: tuple = ()
-from .fit import register as _register_fit; VERB_MODULES += (_register_fit,)  # noqa: E402,E702  hazardtrace fit
-from .psa import register as _register_psa; VERB_MODULES += (_register_psa,)  # noqa: E402,E702  hazardtrace psa
-from .report import register as _register_report; VERB_MODULES += (_register_report,)  # noqa: E402,E702  hazardtrace report
-from .rerun import register as _register_rerun; VERB_MODULES += (_register_rerun,)  # noqa: E402,E702  hazardtrace rerun
+# Errors follow ``main``'s exit codes.
+VERB_MODULES = (fit.register,     # hazardtrace fit DATA: survival fits from trial evidence
+                psa.register,     # hazardtrace psa SCENARIO: the probabilistic analysis
+                report.register,  # hazardtrace report RUN_DIR|PSA_DIR|SCENARIO: HTML or PDF
+                rerun.register)   # hazardtrace rerun RUN_DIR: reproduce a run, compare hashes
 
 SHOWN = ("life_years", "qalys_discounted", "costs_discounted")
 DEBUG_VARIABLE = "HAZARDTRACE_DEBUG"
-CAUTION = ("HazardTrace is a modelling aid, not for clinical decisions about individual patients; results "
-           "depend on the inputs. Follow local HTA guidance and have models reviewed by qualified people.")
 
 
 def _flipping_corrections(decisions: pd.DataFrame) -> pd.Series:
