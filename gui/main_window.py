@@ -172,8 +172,8 @@ class MainWindow(QMainWindow):
         self.save_as_action = file_menu.addAction("Save &as…", QKeySequence.StandardKey.SaveAs, self.save_as)
         file_menu.addSeparator()
         self.report_action = file_menu.addAction("Write &report…", self.write_report)
-        self.report_action.setToolTip("An HTML or PDF report of the results on screen (and of the probabilistic "
-                                      "analysis of the same scenario, when one is shown)")
+        self.report_action.setToolTip("An HTML or PDF report of what is on screen: the run's results, or the "
+                                      "probabilistic analysis on its tab")
         self.report_action.setEnabled(False)
         file_menu.addSeparator()
         self.quit_action = file_menu.addAction("&Quit", QKeySequence.StandardKey.Quit, self.close)
@@ -221,6 +221,8 @@ class MainWindow(QMainWindow):
         self.run_panel.results_ready.connect(self._on_results_ready)
         self.results_panel.results_shown.connect(self.results_shown)
         self.results_panel.report_written.connect(lambda p: self.statusBar().showMessage(f"Report written: {p}", 15000))
+        self.psa_page.written.connect(lambda p: self.statusBar().showMessage(f"Written: {p}", 15000))
+        self.psa_page.results_shown.connect(self._update_report_action)
         self.results_panel.results_shown.connect(self.run_panel.mark_shown)  # time from Run to results shown
 
     # ------------------------------------------------------------------ slots
@@ -316,7 +318,7 @@ class MainWindow(QMainWindow):
         self._run_pending = False
         self._last_run_text = self.run_panel.last_run.text()
         self.results_panel.show_results(results)
-        self.report_action.setEnabled(True)
+        self._update_report_action()
         self.tabs.setCurrentWidget(self.results_page)
         self._update_results_state()
 
@@ -501,18 +503,26 @@ class MainWindow(QMainWindow):
         return self.evidence_window
 
     def write_report(self) -> bool:
-        """File -> Write report: the report of the run on screen (sim.report), with the probabilistic
-        analysis' tables when the analysis shown is of the same scenario; written off the GUI thread."""
+        """File -> Write report: the report of what is on screen (sim.report): the probabilistic
+        analysis when its tab is shown and it has one, else the run's results; written off the GUI
+        thread."""
+        psa = self.tabs.currentWidget() is self.psa_page and self.psa_page.outcome is not None
         results = self.results_panel.results
-        if results is None:
+        if not psa and results is None:
             return False
-        stem = results.scenario.path.stem if results.scenario.path else "hazardtrace"
+        scenario = self.psa_page.outcome.scenario if psa else results.scenario
+        stem = (scenario.path.stem if scenario.path else "hazardtrace") + ("_psa" if psa else "")
         answer = ask_save_path(self, "Write report", str(Path(self.document.dialog_folder()) / f"{stem}_report.html"),
                                {"html": "HTML report (*.html)", "pdf": "PDF report (*.pdf)"})
         if answer is None:
             return False
         self.document.remember_folder(answer[0].parent)
-        return self.results_panel.write_report(str(answer[0]), self.psa_page.report_tables(results.scenario))
+        if psa:
+            return self.psa_page.write_report(str(answer[0]))
+        return self.results_panel.write_report(str(answer[0]))
+
+    def _update_report_action(self) -> None:
+        self.report_action.setEnabled(self.results_panel.results is not None or self.psa_page.outcome is not None)
 
     def show_about(self) -> AboutDialog:
         dialog = AboutDialog(self)

@@ -10,7 +10,6 @@ import html
 import os
 from pathlib import Path
 
-import pandas as pd
 from PySide6.QtCore import QCoreApplication, Qt, Signal, Slot
 from PySide6.QtWidgets import (QCheckBox, QComboBox, QFileDialog, QFormLayout, QGroupBox, QHBoxLayout, QLabel,
                                QMessageBox, QProgressBar, QPushButton, QSpinBox, QSplitter, QStackedWidget, QTabWidget,
@@ -23,32 +22,51 @@ from gui.worker import FunctionWorker, Job
 from sim.cli.psa import DEFAULT_DRAWS, DEFAULT_PATIENTS
 from sim.io import Scenario
 from sim.io.export import metadata_for
-from sim.psa import CycleMethod, write_psa
+from sim.psa import CycleMethod, inputs_table, reference_method, write_psa
 from sim.reference import Conversion, Correction
-from sim.report import cycle_words
+from sim.report import ReportInputs, cycle_words, write_report
 
 from .views import AcceptabilityView, CePlaneView, ConvergenceView, EvpiView, PsaTablesView
 from .worker import PsaJob, PsaOutcome, PsaRequest, PsaWorker, eta_text
 
-__all__ = ["PsaPage", "PsaRunControls", "CANCELLING_TEXT", "write_analysis_folder"]
+__all__ = ["PsaPage", "PsaRunControls", "CANCELLING_TEXT", "write_analysis_folder", "write_analysis_report",
+           "analysis_metadata"]
 
 CANCELLING_TEXT = "Cancelling… (after the block of draws running now)"
 MAX_DRAWS = 1_000_000
 MAX_PATIENTS = 100_000_000
 
 
+def analysis_metadata(outcome: PsaOutcome) -> dict:
+    """The analysis' provenance as ``hazardtrace psa`` records it in ``metadata.json``."""
+    s, r = outcome.scenario, outcome.result
+    return metadata_for(s.text, r.settings["seed"], outcome.request.patients, extra={
+        "command": "psa", "scenario_file": str(s.path) if s.path else None,
+        "draws": outcome.request.draws, "workers": outcome.request.workers, "scheduler": None,
+        "block_draws": r.settings["block_draws"], "cycle_methods": r.settings["cycle_methods"],
+        "parameters": r.settings["parameters"], "notes": list(r.notes), "seconds": round(r.seconds, 3)})
+
+
 def write_analysis_folder(outcome: PsaOutcome, folder: str) -> str:
     """The analysis as ``hazardtrace psa`` writes it (:func:`sim.psa.write_psa`: per-draw table and
     parameter draws as Parquet and CSV, every summary table as CSV, ``metadata.json``), atomically,
     replacing ``folder`` (the window asked first); returns the folder."""
-    s, r = outcome.scenario, outcome.result
-    meta = metadata_for(s.text, r.settings["seed"], outcome.request.patients, extra={
-        "command": "psa (window)", "scenario_file": str(s.path) if s.path else None,
-        "draws": outcome.request.draws, "workers": outcome.request.workers, "scheduler": None,
-        "block_draws": r.settings["block_draws"], "cycle_methods": r.settings["cycle_methods"],
-        "parameters": r.settings["parameters"], "notes": list(r.notes), "seconds": round(r.seconds, 3)})
-    write_psa(folder, r.table, r.values, meta, outcome.summaries, force=True)
+    r = outcome.result
+    write_psa(folder, r.table, r.values, analysis_metadata(outcome), outcome.summaries, force=True)
     return str(folder)
+
+
+def write_analysis_report(outcome: PsaOutcome, path: str, extra_tables: dict | None = None) -> str:
+    """The report of the analysis on screen (:func:`sim.report.write_report`, HTML or PDF by the
+    suffix), as ``hazardtrace report`` writes it for the analysis' folder: the scenario with its
+    uncertain inputs (:func:`sim.psa.inputs_table`) and the summary tables, with the analysis'
+    metadata; ``extra_tables`` adds what the views show besides (the population EVPI)."""
+    meta = analysis_metadata(outcome)
+    meta["threads"] = meta.get("workers")
+    meta["run_seconds"] = meta.pop("seconds")
+    tables = {"inputs": inputs_table(outcome.scenario), **outcome.summaries, **(extra_tables or {})}
+    inputs = ReportInputs(scenario=outcome.scenario, metadata=meta, source="a probabilistic analysis in the window")
+    return str(write_report(inputs, path, force=True, psa_tables=tables))
 
 
 class PsaRunControls(QWidget):
@@ -257,9 +275,13 @@ class PsaRunControls(QWidget):
 
 
 class PsaPage(QWidget):
-    """The run controls beside the views; follows ``document`` (the scenario validated last)."""
+    """The run controls beside the views; follows ``document`` (the scenario validated last).
+
+    Signals: ``results_shown()`` once a finished analysis is drawn; ``written(path)`` after a report or
+    folder was written."""
 
     results_shown = Signal()
+    written = Signal(str)
 
     def __init__(self, document: ScenarioDocument, parent: QWidget | None = None) -> None:
         super().__init__(parent)
@@ -368,14 +390,26 @@ class PsaPage(QWidget):
         self._update_stale()
         self.results_shown.emit()
 
-    def report_tables(self, scenario: Scenario | None) -> dict[str, pd.DataFrame] | None:
-        """The analysis' summary tables, named as :func:`sim.psa.psa_summaries` names them, for the
-        report of a run of ``scenario`` (sim.report lays them out); None when the analysis shown is
-        of another scenario text, or there is none."""
-        o = self.outcome
-        if o is None or scenario is None or o.scenario.text != scenario.text or not o.summaries:
-            return None
-        return dict(o.summaries)
+    def write_report(self, path: str) -> bool:
+        """Write the report of the analysis on screen (with the population EVPI when the EVPI view
+        shows one) to ``path`` in a worker thread; ``report_written(path)`` follows."""
+        if self.outcome is None:
+            return False
+        extra = {}
+        if self.evpi.population.value() and self.evpi.frames:
+            reference = reference_method(self.outcome.result.table)
+            extra["population_evpi"] = self.evpi.frames.get(reference)
+        self._start(write_analysis_report, self.outcome, str(path), {k: v for k, v in extra.items() if v is not None})
+        self.status.setText(f"Writing the report to {path}…")
+        return True
+
+    def _start(self, fn, *args) -> None:
+        job = Job(FunctionWorker(fn, *args))
+        job.finished.connect(lambda written: (self._on_saved(str(written)), self.written.emit(str(written))))
+        job.failed.connect(self._on_failed)
+        job.done.connect(lambda: setattr(self, "_jobs", [j for j in self._jobs if j.is_running()]))
+        self._jobs.append(job)
+        job.start()
 
     def ask_save_folder(self) -> bool:
         """Ask for a folder name and write the analysis there (asks before replacing a folder)."""
@@ -401,13 +435,8 @@ class PsaPage(QWidget):
         if self.outcome is None:
             return False
         self.exporter.directory = str(Path(path).parent)
-        job = Job(FunctionWorker(write_analysis_folder, self.outcome, path))
-        job.finished.connect(lambda folder: self._on_saved(str(folder)))
-        job.failed.connect(self._on_failed)
-        job.done.connect(lambda: setattr(self, "_jobs", [j for j in self._jobs if j.is_running()]))
-        self._jobs.append(job)
+        self._start(write_analysis_folder, self.outcome, path)
         self.status.setText(f"Writing {path}…")
-        job.start()
         return True
 
     def shutdown(self) -> None:
