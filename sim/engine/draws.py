@@ -9,6 +9,8 @@ Per competing exit, the draws' hazards are compared once (:class:`DrawExit`):
 
 - the same hazard in every draw: one evaluation for all lanes, as in a plain run;
 - constant hazards whose rate varies: ``T = e / rate`` with the rate as a per-lane array;
+- Gompertz hazards with one slope whose rate varies (background mortality by draw and sex): the
+  family's own conditional time with a per-lane log-rate (:func:`sim.hazards.gompertz_times`);
 - a hazard ratio that varies on a shared base hazard, or on constant hazards: ``e / hr`` per lane
   then the base's conditional time (Bender, Augustin & Blettner 2005, Stat Med 24(11):1713-1723);
 - anything else (e.g. a Weibull shape that varies): lanes grouped by their draw's hazard, one
@@ -26,11 +28,13 @@ from __future__ import annotations
 from dataclasses import dataclass
 from collections.abc import Sequence
 
+import math
+
 import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
-from ..hazards import Exponential, Hazard, ProportionalHazards
+from ..hazards import Exponential, Gompertz, Hazard, ProportionalHazards, gompertz_times
 from ..model.multistate import Clock, Model, ResolvedExit
 from .histories import _assemble, _code_dtype, _PatientTable, _simulate_chunk, _validate_run
 from .rng import key_from_seed
@@ -46,7 +50,7 @@ class DrawExit:
 
     ``unique`` holds the distinct hazards, ``code`` (draws, sexes) which one each draw and sex code
     uses; ``kind`` is how lanes are evaluated (see the module docstring): ``"one"``, ``"rate"``,
-    ``"ratio"`` (hazard ratio per lane on a shared base) or ``"group"``.
+    ``"gompertz"``, ``"ratio"`` (hazard ratio per lane on a shared base) or ``"group"``.
     """
 
     index: int
@@ -64,6 +68,7 @@ class DrawExit:
     rate: NDArray[np.float64] | None = None  # per unique hazard: its constant rate ("rate", "ratio" on rates)
     ratio: NDArray[np.float64] | None = None  # per unique hazard: its hazard ratio ("ratio")
     base: Hazard | None = None  # the shared base hazard ("ratio" on a shared base)
+    shape: float | None = None  # the shared Gompertz slope ("gompertz"; ``rate`` then holds log-rates)
 
     @classmethod
     def of(cls, exits: Sequence[ResolvedExit]) -> "DrawExit":
@@ -91,6 +96,9 @@ class DrawExit:
             return cls(kind="one", **fields)
         if all(type(h) is Exponential for h in unique):
             return cls(kind="rate", rate=np.array([h.rate for h in unique]), **fields)
+        if all(type(h) is Gompertz for h in unique) and len({h.shape for h in unique}) == 1:
+            return cls(kind="gompertz", rate=np.array([math.log(h.rate) for h in unique]), shape=unique[0].shape,
+                       **fields)
         if all(type(h) is ProportionalHazards and h.hr > 0.0 for h in unique):
             ratio = np.array([h.hr for h in unique])
             if all(type(h.base) is Exponential for h in unique):
@@ -109,6 +117,8 @@ class DrawExit:
         if self.kind == "rate":  # Exponential: e / rate, +inf for a zero rate
             r = self.rate[codes]
             return np.where(r > 0.0, e / r, np.inf)
+        if self.kind == "gompertz":  # one slope, a log-rate per lane (Gompertz._conditional_time's arithmetic)
+            return gompertz_times(self.rate[codes], self.shape, x, e)
         if self.kind == "ratio":  # ProportionalHazards: the base's time for e / hr
             y = e / self.ratio[codes]
             if self.base is None:

@@ -8,7 +8,7 @@ from .dimensions import Dimension, from_year_units, to_year_units
 from .exponential import Exponential
 from .floor import AtLeastHazard, Crossing, ShiftedClock
 from .gamma import Gamma
-from .gompertz import Gompertz, GompertzMakeham
+from .gompertz import Gompertz, GompertzMakeham, gompertz_times
 from .level_match import FamilyStart, matched_start
 from .lognormal import LogNormal
 from .piecewise import PiecewiseConstant
@@ -20,7 +20,7 @@ from .units import (DAYS_PER_YEAR, MONTHS_PER_YEAR, UNIT_IN_YEARS, RateConversio
                     rate_from_risk, rate_per_year, rescale_risk, risk_from_rate, to_years)
 
 __all__ = ["FAMILY_DIMENSIONS", "Dimension", "from_year_units", "to_year_units", "FAMILIES", "KERNEL_ERRSTATE",
-           "FamilyStart", "matched_start", "Exponential", "Gamma", "Gompertz", "GompertzMakeham", "Hazard", "HazardParameterError", "LogLogistic", "LogNormal", "PiecewiseConstant", "ProportionalHazards",
+           "FamilyStart", "matched_start", "Exponential", "Gamma", "Gompertz", "GompertzMakeham", "gompertz_times", "Hazard", "HazardParameterError", "LogLogistic", "LogNormal", "PiecewiseConstant", "ProportionalHazards",
            "Weibull", "make_hazard", "DAYS_PER_YEAR", "MONTHS_PER_YEAR", "UNIT_IN_YEARS", "RateConversion",
            "UnitError", "from_years", "rate_from_risk", "rate_per_year", "rescale_risk", "risk_from_rate",
            "to_years", "AtLeastHazard", "Crossing", "ShiftedClock", "WANING_SCALES", "WaningHazardRatio",

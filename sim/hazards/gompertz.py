@@ -24,7 +24,7 @@ from ._numerics import FloatArray, _log1prel, _log_expm1, _log_exprel, _softplus
 from .base import Hazard, _param
 from .dimensions import Dimension
 
-__all__ = ["Gompertz", "GompertzMakeham"]
+__all__ = ["Gompertz", "GompertzMakeham", "gompertz_times"]
 
 
 def _gompertz_cumhazard(b: float, g: float, t: FloatArray) -> FloatArray:
@@ -101,6 +101,16 @@ def _log_form(log_b: FloatArray, g: float, t: FloatArray, edge: FloatArray, bem1
             np.where(edge, np.exp(lb + np.where(edge, gt, 0.0)), gomp))
 
 
+def gompertz_times(log_rate: FloatArray | float, shape: float, x: FloatArray, e: FloatArray) -> FloatArray:
+    """Conditional event times of Gompertz hazards sharing ``shape`` g, with a log-rate that may
+    differ from lane to lane (one value per patient: ``math.log(rate)`` of each lane's hazard):
+    :math:`T = \\log(1 + g e / (b e^{g x})) / g` through ``_gompertz_time`` with
+    :math:`\\log B = \\log b + g x`. :meth:`Gompertz._conditional_time` is this function with its own
+    scalar log-rate, so a lane gets the bits of its own hazard (the engine evaluates a block of
+    parameter draws in one call with it: :func:`sim.engine.simulate_draws`)."""
+    return _gompertz_time(log_rate + shape * x, shape, e)
+
+
 @dataclass(frozen=True)
 class Gompertz(Hazard):
     """Gompertz hazard, exponential in the clock (human adult mortality on attained age).
@@ -153,7 +163,7 @@ class Gompertz(Hazard):
         return _gompertz_time(math.log(self.rate), self.shape, y)
 
     def _conditional_time(self, x: FloatArray, e: FloatArray) -> FloatArray:
-        return _gompertz_time(math.log(self.rate) + self.shape * x, self.shape, e)
+        return gompertz_times(math.log(self.rate), self.shape, x, e)
 
     def _conditional_time_large_ratio(self, x: FloatArray, e: FloatArray, hr: float) -> FloatArray:
         """Under ``hr * H``: the Gompertz time with ``log B = log hr + log b + g x`` (no ``b hr``

@@ -76,3 +76,19 @@ def test_arguments_are_checked():
     with pytest.raises(ValueError, match="at least one model"):
         simulate_draws([], 1, 10)
     assert np.array_equal(DrawSet([markov_model()] * 3, 10, 2).draw_of(25, 41), (np.arange(25, 41) - 20) // 10)
+
+
+def test_a_varying_gompertz_background_uses_per_lane_rates():
+    # the background's rate differs per draw and per sex (one shape): evaluated as one array of
+    # log-rates (sim.hazards.gompertz_times), the same bits as each draw's own run
+    from sim.hazards import Gompertz
+    from sim.model import BackgroundMortality
+
+    base = markov_model()
+    pop = Population(UniformAge(50.0, 70.0), "healthy", {"female": 0.5, "male": 0.5})
+    models = [dataclasses.replace(base, population=pop, background=BackgroundMortality(
+        "dead", {"female": Gompertz(2e-5 * (1 + 0.1 * i), 0.09), "male": Gompertz(3e-5 * (1 + 0.05 * i), 0.09)}))
+        for i in range(5)]
+    kinds = {ex.kind for exits in DrawSet(models, 30, 0).plan("usual") for ex in exits if ex.is_background}
+    assert kinds == {"gompertz"}
+    _check_identical(models, 30, seed=6, first_draw=2)
