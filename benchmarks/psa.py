@@ -99,19 +99,23 @@ def cluster_scaling(draws: int, patients: int, rounds: int) -> None:
     values = draw_table(uncertain_parameters(scenario), draws, scenario.run.seed)
     jobs = psa_jobs(scenario, values, model_for_draw, patients, scenario.run.seed,
                     block_draws=block_draws_for(patients, draws, 2), exact=False)
-    print(f"\n2. Dask LocalCluster, worker processes: {draws:,} draws x {patients:,} patients (simulated rows), "
+    print(f"\n2. Dask LocalCluster: {draws:,} draws x {patients:,} patients (simulated rows), "
           f"{len(jobs)} blocks")
     times = {}
-    for n in (1, 2):
+    for n, processes in ((1, True), (2, True), (2, False)):
         t0 = time.perf_counter()
-        cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=True, host="127.0.0.1",
-                               dashboard_address=None, worker_dashboard_address=None, silence_logs=logging.ERROR)
+        where = {"host": "127.0.0.1"} if processes else {}
+        cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=processes, dashboard_address=None,
+                               worker_dashboard_address=None, silence_logs=logging.ERROR, **where)
         start = time.perf_counter() - t0
         try:
-            times[n] = best_of(lambda: run_jobs(jobs, scheduler=cluster.scheduler_address), rounds)
+            times[n, processes] = best_of(lambda: run_jobs(jobs, scheduler=cluster.scheduler_address), rounds)
         finally:
             cluster.close()
-        print(f"   {n} worker(s): {times[n]:6.2f} s (cluster start-up {start:.1f} s, not included)")
+        kind = "processes" if processes else "threads"
+        print(f"   {n} worker {kind}: {times[n, processes]:6.2f} s (cluster start-up {start:.1f} s, not included)")
+    times[1], times[2] = times[1, True], times[2, True]
+    print(f"   2 worker threads vs 1 worker process: {times[1] / times[2, False]:.2f}x")
     print(f"   speed-up 2 vs 1: {times[1] / times[2]:.2f}x")
 
 
