@@ -303,7 +303,9 @@ class Hazard(abc.ABC):
     def _increment(self, x: FloatArray, t: FloatArray) -> FloatArray:
         """H(x + t) - H(x) by Gauss-Legendre quadrature of h (for short intervals, t <= x)."""
         s = x[:, None] + t[:, None] * _GL_NODES
-        return t * (self._hazard(s) @ _GL_WEIGHTS)
+        # an elementwise product and a row sum, not a matrix-vector product: BLAS may round a lane
+        # differently depending on how many lanes share the call (bit-identity across chunkings)
+        return t * (self._hazard(s) * _GL_WEIGHTS).sum(axis=1)
 
     def _polish(self, x: FloatArray, e: FloatArray, t0: FloatArray) -> FloatArray:
         """Newton on ``increment(x, T) = e`` from ``t0`` (1-D arrays); keeps ``t0`` where it fails
@@ -312,12 +314,16 @@ class Hazard(abc.ABC):
         ``[x, x + T]``, e.g. a log-normal with a tiny sigma, that the quadrature cannot follow)."""
         first = e / self._hazard(x)  # first-order solution
         t = np.where((t0 > 0.5 * first) & (t0 < 2.0 * first), t0, first)
+        # Each lane stops on its own: its iterations (hence its bits) never depend on which other
+        # lanes share the call, so results are the same for any chunking.
+        done = np.zeros(t.shape, dtype=bool)
         for _ in range(30):
             with np.errstate(invalid="ignore"):
                 step = (self._increment(x, t) - e) / self._hazard(x + t)
                 new = np.clip(t - step, 0.5 * t, 2.0 * t)
-            done = ~(np.abs(step) > 1e-10 * t)  # quadratic convergence: the next iterate is final
-            t = np.where(np.isfinite(new), new, t)
+            converged = ~(np.abs(step) > 1e-10 * t)  # quadratic convergence: the next iterate is final
+            t = np.where(~done & np.isfinite(new), new, t)
+            done |= converged
             if np.all(done):
                 break
         good = np.isfinite(t) & (t >= 0.0) & done

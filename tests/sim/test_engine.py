@@ -72,11 +72,6 @@ def test_bit_identical_for_any_chunking_and_threads(two_strategy_model, chunk_si
     pd.testing.assert_frame_equal(run.patients, ref.patients, check_exact=True)
 
 
-@pytest.mark.xfail(strict=True, reason="known bug, not in the engine: sim.hazards.base.Hazard._increment sums its "
-                   "Gauss-Legendre terms with a matrix-vector product (BLAS gemv), whose rounding of a lane depends "
-                   "on how many lanes share the call, so the Newton polish of families without a closed-form "
-                   "inverse (e.g. LogNormal) differs in the last bits between chunkings; an elementwise product "
-                   "and a row sum (as the waning quadrature does since fcaa481) would fix it")
 def test_bit_identical_for_any_chunking_with_a_newton_polished_family():
     # A log-normal hazard on attained age (median 20 years, so H(age) is large at entry and many draws
     # take the Newton polish of Hazard._conditional_time, whose quadrature runs over each call's lanes).
