@@ -53,9 +53,11 @@ def models_for_draws(source: Any, values: pd.DataFrame, apply: ApplyDraw | None)
 def _rows(models: Sequence[Model], draws: np.ndarray, events: pd.DataFrame, patients: pd.DataFrame, first: int,
           n: int, strategies: tuple[str, ...]) -> list[pd.DataFrame]:
     out = []
+    comparator = None  # the first strategy's per-patient outcomes: the paired MCSE of the others' increments
     for s in strategies:
         values = block_outcomes(models[0], s, events, patients, first, n, Valuations.of(list(models), s))
-        out.append(draw_frame(draws, s, SIMULATED, draw_means(values, n), n))
+        comparator = values if comparator is None else comparator
+        out.append(draw_frame(draws, s, SIMULATED, draw_means(values, n, comparator), n))
     return out
 
 

@@ -153,16 +153,32 @@ def block_outcomes(model: Model, strategy: str, events: pd.DataFrame, patients: 
             "costs": weighted(y, kost) + one_off, "costs_discounted": weighted(y_c, kost) + one_off_d}
 
 
-def draw_means(values: dict[str, NDArray[np.float64]], n_per_draw: int) -> dict[str, NDArray[np.float64]]:
+def draw_means(values: dict[str, NDArray[np.float64]], n_per_draw: int,
+               comparator: dict[str, NDArray[np.float64]] | None = None) -> dict[str, NDArray[np.float64]]:
     """Per draw: the mean of each outcome and its Monte Carlo standard error s / sqrt(n) (NaN for
-    n = 1) (docs/methods.md, 'Estimators'), as ``<outcome>`` and ``<outcome>_mcse`` arrays (D,)."""
+    n = 1) (docs/methods.md, 'Estimators'), as ``<outcome>`` and ``<outcome>_mcse`` arrays (D,).
+
+    With ``comparator`` (the same patients' outcomes under the comparator strategy, common random
+    numbers) also ``<outcome>_mcse_paired``: the MCSE of the mean difference from the comparator,
+    from the per-patient differences within the draw, ``s_d / sqrt(n)`` with
+    ``s_d² = Σ (x_i - y_i - (x̄ - ȳ))² / (n - 1)`` (the paired-sample standard error; with
+    positively correlated outcomes it is below the independent ``sqrt(se_x² + se_y²)``: Stout &
+    Goldie 2008, Health Care Manag Sci 11:399-406). 0 for the comparator itself, NaN for n = 1.
+    """
     out: dict[str, NDArray[np.float64]] = {}
     for name in OUTCOMES:
         x = values[name].reshape(-1, n_per_draw)
         mean = x.mean(axis=1)
         out[name] = mean
-        if n_per_draw > 1:
-            out[f"{name}_mcse"] = np.sqrt(((x - mean[:, None]) ** 2).sum(axis=1) / (n_per_draw - 1)) / np.sqrt(n_per_draw)
-        else:
-            out[f"{name}_mcse"] = np.full(mean.size, np.nan)
+        out[f"{name}_mcse"] = _mcse(x, mean, n_per_draw)
+        if comparator is not None:
+            d = x - comparator[name].reshape(-1, n_per_draw)
+            out[f"{name}_mcse_paired"] = _mcse(d, d.mean(axis=1), n_per_draw)
     return out
+
+
+def _mcse(x: NDArray[np.float64], mean: NDArray[np.float64], n_per_draw: int) -> NDArray[np.float64]:
+    """Row by row: the sample standard deviation over sqrt(n) (NaN for n = 1)."""
+    if n_per_draw > 1:
+        return np.sqrt(((x - mean[:, None]) ** 2).sum(axis=1) / (n_per_draw - 1)) / np.sqrt(n_per_draw)
+    return np.full(mean.size, np.nan)

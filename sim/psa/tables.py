@@ -8,8 +8,11 @@ label ``"<conversion>|<cycle length in years>|<correction>"``), then each outcom
 :data:`sim.analysis.OUTCOMES` (``life_years``, ``life_years_discounted``, ``qalys``,
 ``qalys_discounted``, ``costs``, ``costs_discounted``: means over the draw's patients, or the exact /
 cycle-based value), ``<outcome>_mcse`` (the inner-loop Monte Carlo standard error s / sqrt(n); 0 for
-the deterministic methods, which have no patient-level noise) and ``patients`` (simulated patients
-per strategy in the draw; 0 for the deterministic methods).
+the deterministic methods, which have no patient-level noise), ``<outcome>_mcse_paired`` (the MCSE of
+the strategy's mean difference from the comparator, the first strategy, from per-patient differences
+within the draw: strategies share random numbers per patient; 0 for the comparator and the
+deterministic methods) and ``patients`` (simulated patients per strategy in the draw; 0 for the
+deterministic methods).
 """
 
 from __future__ import annotations
@@ -26,7 +29,7 @@ __all__ = ["SIMULATED", "EXACT", "DRAW_COLUMNS", "cycle_label", "draw_frame", "s
 SIMULATED = "simulated"
 EXACT = "exact"
 DRAW_COLUMNS = (("draw", "strategy", "method") + OUTCOMES + tuple(f"{o}_mcse" for o in OUTCOMES)
-                + ("patients",))
+                + tuple(f"{o}_mcse_paired" for o in OUTCOMES) + ("patients",))
 
 
 def cycle_label(conversion: str, cycle_length: float, correction: str) -> str:
@@ -38,7 +41,7 @@ def cycle_label(conversion: str, cycle_length: float, correction: str) -> str:
 def draw_frame(draws: np.ndarray, strategy: str, method: str, values: dict[str, np.ndarray],
                patients: int) -> pd.DataFrame:
     """Rows of one strategy and method for ``draws`` from per-draw arrays ``values`` (every outcome;
-    ``<outcome>_mcse`` defaults to 0 for deterministic methods)."""
+    ``<outcome>_mcse`` and ``<outcome>_mcse_paired`` default to 0 for deterministic methods)."""
     draws = np.asarray(draws, dtype=np.int64)
     data: dict[str, object] = {"draw": draws, "strategy": np.full(draws.size, strategy, dtype=object),
                                "method": np.full(draws.size, method, dtype=object)}
@@ -46,6 +49,8 @@ def draw_frame(draws: np.ndarray, strategy: str, method: str, values: dict[str, 
         data[o] = np.asarray(values[o], dtype=float)
     for o in OUTCOMES:
         data[f"{o}_mcse"] = np.asarray(values.get(f"{o}_mcse", np.zeros(draws.size)), dtype=float)
+    for o in OUTCOMES:
+        data[f"{o}_mcse_paired"] = np.asarray(values.get(f"{o}_mcse_paired", np.zeros(draws.size)), dtype=float)
     data["patients"] = np.full(draws.size, int(patients), dtype=np.int64)
     return pd.DataFrame(data, columns=list(DRAW_COLUMNS))
 
