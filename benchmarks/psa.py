@@ -35,8 +35,9 @@ from sim.hazards import Exponential  # noqa: E402
 from sim.io import load_scenario  # noqa: E402
 from sim.model import (Clock, FixedAge, Horizon, Model, Population, State, Strategy, Transition,  # noqa: E402
                        Valuation)
+from sim.distributed import run_jobs  # noqa: E402
 from sim.psa import (block_draws_for, exact_per_draw, model_for_draw, models_for_draws, psa_jobs,  # noqa: E402
-                     run_jobs, simulated_per_draw, simulated_vectorised, uncertain_parameters)
+                     simulated_per_draw, simulated_vectorised, uncertain_parameters)
 from sim.psa.patient_values import Valuations, block_outcomes  # noqa: E402
 from sim.uncertainty import draw_table  # noqa: E402
 

@@ -1,4 +1,4 @@
-"""The probabilistic analysis off the GUI thread: :class:`PsaWorker` runs :func:`sim.psa.run_psa` and
+"""The probabilistic analysis off the GUI thread: :class:`PsaWorker` runs :func:`sim.distributed.run_psa` and
 :func:`sim.psa.psa_summaries` (the same calls as ``hazardtrace psa``) in a ``QThread`` through
 :class:`PsaJob`, the window's :class:`gui.worker.Job` with the analysis' progress (draws done, draws
 in all, seconds left) and its cancel flag. Never ``processEvents()``.
@@ -17,7 +17,8 @@ from PySide6.QtCore import QCoreApplication, QObject, Signal, Slot
 from gui.worker import Job, error_message
 from sim.engine import SimulationCancelled
 from sim.io import Scenario
-from sim.psa import CycleMethod, PsaResult, psa_summaries, run_psa
+from sim.distributed import PsaResult, run_psa
+from sim.psa import CycleMethod, psa_summaries
 
 __all__ = ["PsaRequest", "PsaOutcome", "PsaWorker", "PsaJob", "NO_ESTIMATE", "eta_text"]
 

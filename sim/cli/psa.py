@@ -24,7 +24,8 @@ from ..engine import SimulationCancelled
 from ..io import Scenario
 from ..io.export import metadata_for
 from ..problems import ValidationError
-from ..psa import CycleMethod, psa_summaries, reference_method, run_psa, wtp_grid_for, write_psa
+from ..distributed import run_psa
+from ..psa import CycleMethod, psa_summaries, reference_method, wtp_grid_for, write_psa
 
 __all__ = ["register", "psa_command"]
 

@@ -21,7 +21,8 @@ from sim.hazards import Dimension, Exponential, Gompertz, PiecewiseConstant, Pro
 from sim.io.demo import DEMOS, SCENARIO_DIR
 from sim.io.scenario import ScenarioError, document_from_model, parameters, parse_scenario, scenario_text
 from sim.model import BackgroundMortality, Clock, FixedAge, Horizon, Model, ModelError, Population, State, Transition
-from sim.psa import model_for_draw, point_values, run_psa, uncertain_parameters
+from sim.distributed import run_psa
+from sim.psa import model_for_draw, point_values, uncertain_parameters
 import sim.reference.exact as exact_module
 from sim.reference.exact import occupancy_for_entry, solve_exact
 from sim.reference.factored import background_target

@@ -11,7 +11,8 @@ import pytest
 
 import sim.io as sim_io
 from sim.cli.commands import main
-from sim.psa import dask_runner, table_hash
+from sim.distributed import cluster as dask_runner  # CONNECT_TIMEOUT
+from sim.psa import table_hash
 
 SCENARIO = """\
 # Invented test scenario for the probabilistic analysis.

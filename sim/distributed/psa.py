@@ -1,7 +1,7 @@
-"""Running a probabilistic analysis on Dask: the only module of HazardTrace that imports Dask.
+"""Running a probabilistic analysis on Dask (:mod:`sim.distributed.cluster` connects and waits).
 
-:func:`run_psa` splits the draws into blocks (:func:`sim.psa.blocks.psa_jobs`) and runs the pure
-block function :func:`sim.psa.blocks.run_block` on them:
+:func:`run_psa` splits the draws into blocks (:func:`sim.psa.psa_jobs`) and runs the pure
+block function :func:`sim.psa.run_block` on them:
 
 - ``scheduler=None`` and one worker: inline, in this thread (no cluster to start);
 - ``scheduler=None`` and several workers: a Dask ``LocalCluster`` on the loopback interface, started
@@ -18,7 +18,6 @@ finished and raises, leaving nothing behind (the caller writes output only from 
 
 from __future__ import annotations
 
-import logging
 import time
 import uuid
 from collections.abc import Callable, Sequence
@@ -26,24 +25,17 @@ from dataclasses import dataclass, field
 
 import pandas as pd
 
-from ..engine import CancelToken, SimulationCancelled, cancel_requested
+from ..engine import CancelToken
 from ..io import Scenario
 from ..problems import ValidationError
+from ..psa import (BlockResult, CycleMethod, PsaJob, block_draws_for, join_blocks, model_for_draw, psa_jobs,
+                   run_block, run_inline, uncertain_parameters)
+from ..psa.blocks import Eta, PsaProgress
+from ..psa.draws_run import ApplyDraw
 from ..uncertainty import draw_table
-from .blocks import BlockResult, Eta, PsaJob, PsaProgress, block_draws_for, join_blocks, psa_jobs, run_block, run_inline
-from .cohort_draws import CycleMethod
-from .apply import model_for_draw, uncertain_parameters
-from .draws_run import ApplyDraw
+from .cluster import cancel_futures, completed, connect
 
-__all__ = ["PsaResult", "SchedulerError", "run_psa", "run_jobs"]
-
-POLL_SECONDS = 0.2
-CONNECT_TIMEOUT = "10s"
-
-
-class SchedulerError(ValidationError):
-    """The Dask scheduler address cannot be used (unreachable, refused, not a scheduler)."""
-
+__all__ = ["PsaResult", "run_psa", "run_jobs"]
 
 @dataclass(frozen=True)
 class PsaResult:
@@ -63,66 +55,26 @@ class PsaResult:
     seconds: float = 0.0
 
 
-def _connect(scheduler: str | None, workers: int, processes: bool):
-    """(client, cluster or None) for the address, or for a new loopback LocalCluster."""
-    from dask.distributed import Client, LocalCluster
-
-    if scheduler is None:
-        # worker processes listen on the loopback interface only; threads talk in-process
-        where = {"host": "127.0.0.1"} if processes else {}
-        cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=processes, dashboard_address=None,
-                               worker_dashboard_address=None,
-                               silence_logs=logging.ERROR, **where)
-        try:
-            return Client(cluster), cluster
-        except BaseException:
-            cluster.close()
-            raise
-    if not isinstance(scheduler, str) or "://" not in scheduler:
-        raise SchedulerError(("scheduler",), "must be a Dask scheduler address such as tcp://host:8786", scheduler)
-    try:
-        return Client(scheduler, timeout=CONNECT_TIMEOUT), None
-    except (OSError, TimeoutError, ValueError) as err:
-        raise SchedulerError(("scheduler",), f"must be the address of a running Dask scheduler (cannot connect: "
-                             f"{type(err).__name__}: {err})", scheduler) from None
-
-
 def run_jobs(jobs: Sequence[PsaJob], *, workers: int = 1, scheduler: str | None = None, processes: bool = True,
              progress: PsaProgress | None = None,
              cancel: CancelToken | Callable[[], bool] | None = None) -> list[BlockResult]:
     """Run the jobs inline (one worker, no scheduler) or on Dask; the results in job order."""
     if scheduler is None and workers == 1:
         return run_inline(jobs, progress, cancel)
-    from dask.distributed import wait
-
-    client, cluster = _connect(scheduler, workers, processes)
+    client, cluster = connect(scheduler, workers, processes)
     futures = []
     try:
         eta = Eta(sum(len(j.values) for j in jobs), progress)
         token = uuid.uuid4().hex[:12]
         futures = [client.submit(run_block, job, key=f"hazardtrace-psa-{token}-{i}", pure=False)
                    for i, job in enumerate(jobs)]
-        index = {f.key: i for i, f in enumerate(futures)}
         results: list[BlockResult | None] = [None] * len(jobs)
-        pending = set(futures)
-        while pending:
-            if cancel_requested(cancel):
-                raise SimulationCancelled("probabilistic analysis cancelled")
-            try:
-                done, pending = wait(pending, timeout=POLL_SECONDS, return_when="FIRST_COMPLETED")
-            except TimeoutError:  # nothing finished within the poll interval
-                continue
-            for f in done:
-                result = f.result()  # raises the task's error here
-                results[index[f.key]] = result
-                eta.add(len(result.draws))
+        for i, result in completed(futures, cancel, "probabilistic analysis"):
+            results[i] = result
+            eta.add(len(result.draws))
         return [r for r in results if r is not None]
     except BaseException:
-        if futures:
-            try:
-                client.cancel(futures)
-            except Exception:  # noqa: BLE001 - the client may already be gone
-                pass
+        cancel_futures(client, futures)
         raise
     finally:
         client.close()
@@ -159,7 +111,7 @@ def run_psa(scenario: Scenario, draws: int, patients: int, workers: int | None =
 
     Raises
     ------
-    SchedulerError : the scheduler address cannot be used.
+    sim.distributed.SchedulerError : the scheduler address cannot be used.
     sim.problems.ValidationError : a bad number of draws, patients or workers.
     """
     for key, value, low in (("draws", draws, 1), ("patients", patients, 0)):

@@ -1,0 +1,12 @@
+"""Running HazardTrace on Dask: the only sub-package that imports Dask (import-linter contract in
+pyproject.toml), and only inside its functions.
+
+- :mod:`.cluster`: a loopback ``LocalCluster`` or an existing scheduler (``tcp://host:port``),
+  :class:`SchedulerError`, futures as they complete with cancel.
+- :mod:`.psa`: the probabilistic analysis' block jobs on a cluster (:func:`run_psa`, :func:`run_jobs`).
+"""
+
+from .cluster import SchedulerError, connect
+from .psa import PsaResult, run_jobs, run_psa
+
+__all__ = ["SchedulerError", "connect", "PsaResult", "run_jobs", "run_psa"]

@@ -1,0 +1,84 @@
+"""Connecting to Dask: a ``LocalCluster`` on this machine's loopback interface, or an existing
+scheduler at ``tcp://host:port``; and waiting on futures with progress and cancel.
+
+``sim.distributed`` is the only sub-package of HazardTrace that imports Dask (import-linter contract
+in pyproject.toml); Dask is imported inside the functions, so importing the package does not.
+"""
+
+from __future__ import annotations
+
+import logging
+from collections.abc import Callable, Iterator, Sequence
+from typing import Any
+
+from ..engine import CancelToken, SimulationCancelled, cancel_requested
+from ..problems import ValidationError
+
+__all__ = ["SchedulerError", "connect", "completed", "cancel_futures", "POLL_SECONDS", "CONNECT_TIMEOUT"]
+
+POLL_SECONDS = 0.2
+CONNECT_TIMEOUT = "10s"
+
+
+class SchedulerError(ValidationError):
+    """The Dask scheduler address cannot be used (unreachable, refused, not a scheduler)."""
+
+
+def connect(scheduler: str | None, workers: int, processes: bool = True):
+    """(client, cluster or None) for the scheduler address, or for a new loopback ``LocalCluster`` of
+    ``workers`` single-threaded workers (processes, or threads of this process); the caller closes
+    both.
+
+    Raises
+    ------
+    SchedulerError : the address is not a ``tcp://...`` address or no scheduler answers there
+        within :data:`CONNECT_TIMEOUT`.
+    """
+    from dask.distributed import Client, LocalCluster
+
+    if scheduler is None:
+        # worker processes listen on the loopback interface only; threads talk in-process
+        where = {"host": "127.0.0.1"} if processes else {}
+        cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=processes, dashboard_address=None,
+                               worker_dashboard_address=None, silence_logs=logging.ERROR, **where)
+        try:
+            return Client(cluster), cluster
+        except BaseException:
+            cluster.close()
+            raise
+    if not isinstance(scheduler, str) or "://" not in scheduler:
+        raise SchedulerError(("scheduler",), "must be a Dask scheduler address such as tcp://host:8786", scheduler)
+    try:
+        return Client(scheduler, timeout=CONNECT_TIMEOUT), None
+    except (OSError, TimeoutError, ValueError) as err:
+        raise SchedulerError(("scheduler",), f"must be the address of a running Dask scheduler (cannot connect: "
+                             f"{type(err).__name__}: {err})", scheduler) from None
+
+
+def completed(futures: Sequence[Any], cancel: CancelToken | Callable[[], bool] | None = None,
+              what: str = "run") -> Iterator[tuple[int, Any]]:
+    """``(index, result)`` of each future as it completes (any order), checking the cancel request
+    every :data:`POLL_SECONDS`; a task's error is raised here, a cancel request raises
+    :class:`sim.engine.SimulationCancelled`. The caller cancels the futures left (:func:`cancel_futures`)."""
+    from dask.distributed import wait
+
+    index = {f.key: i for i, f in enumerate(futures)}
+    pending = set(futures)
+    while pending:
+        if cancel_requested(cancel):
+            raise SimulationCancelled(f"{what} cancelled")
+        try:
+            done, pending = wait(pending, timeout=POLL_SECONDS, return_when="FIRST_COMPLETED")
+        except TimeoutError:  # nothing finished within the poll interval
+            continue
+        for f in done:
+            yield index[f.key], f.result()  # raises the task's error here
+
+
+def cancel_futures(client: Any, futures: Sequence[Any]) -> None:
+    """Cancel the futures (those finished are unaffected); the client may already be gone."""
+    if futures:
+        try:
+            client.cancel(list(futures))
+        except Exception:  # noqa: BLE001 - the client may already be closed
+            pass
