@@ -300,6 +300,20 @@ class Hazard(abc.ABC):
         can stay finite there override it."""
         return None
 
+    #: whether the family defines :meth:`_log_cumhazard_lt` and :meth:`_log_hazard_lt`
+    _log_forms: ClassVar[bool] = False
+
+    def _log_cumhazard_lt(self, lt: FloatArray) -> FloatArray:
+        """:math:`\\log H` at :math:`t = e^{lt}` (any finite ``lt``), accurate where ``H``
+        underflows, for families with :attr:`_log_forms`. With :meth:`_log_hazard_lt` it lets
+        :class:`ProportionalHazards` solve for the time where ``e / hr`` underflows (a huge hazard
+        ratio; :mod:`._log_space`)."""
+        raise NotImplementedError
+
+    def _log_hazard_lt(self, lt: FloatArray) -> FloatArray:
+        """:math:`\\log h` at :math:`t = e^{lt}`, for families with :attr:`_log_forms`."""
+        raise NotImplementedError
+
     def _increment(self, x: FloatArray, t: FloatArray) -> FloatArray:
         """H(x + t) - H(x) by Gauss-Legendre quadrature of h (for short intervals, t <= x)."""
         s = x[:, None] + t[:, None] * _GL_NODES

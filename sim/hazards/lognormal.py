@@ -140,6 +140,28 @@ class LogNormal(Hazard):
         t = np.where(far, self._grown(x, self.sigma * step, w_end), self._late(x, w_end))
         return np.where(root2y < np.inf, t, np.inf)  # sqrt(2 y) itself beyond the double range
 
+    _log_forms: ClassVar[bool] = True
+
+    def _log_cumhazard_lt(self, lt: FloatArray) -> FloatArray:
+        """log H at t = exp(lt): ``log Phi(w)`` where ``Phi(w) < e^-40`` (there
+        ``H = -log(1 - Phi(w)) = Phi(w)(1 + Phi(w)/2 + ...)``, the correction below the rounding),
+        ``2 log w - log 2`` for ``w > 1e8`` (``H = w^2/2 + log(w sqrt(2 pi)) + O(w^-2)``, Mills
+        ratio, DLMF 7.12.1; the second term below ``1e-14`` relative), else ``log(-log Phi(-w))``."""
+        with np.errstate(divide="ignore", over="ignore", invalid="ignore"):
+            w = (lt - self.mu) / self.sigma
+            lower = sc.log_ndtr(w)
+            mid = np.log(-sc.log_ndtr(-w))
+            far = 2.0 * np.log(np.maximum(w, 1e8)) - math.log(2.0)
+        return np.where(lower < -40.0, lower, np.where(w > 1e8, far, mid))
+
+    def _log_hazard_lt(self, lt: FloatArray) -> FloatArray:
+        """log h at t = exp(lt), the two forms of :meth:`_hazard` in log space."""
+        with np.errstate(divide="ignore", over="ignore", invalid="ignore"):
+            w = (lt - self.mu) / self.sigma
+            lower = -0.5 * w * w - 0.5 * math.log(2.0 * math.pi) - sc.log_ndtr(-w)
+            upper = 0.5 * math.log(2.0 / math.pi) - np.log(sc.erfcx(np.maximum(w, 0.0) / math.sqrt(2.0)))
+            return np.where(w >= 0.0, upper, lower) - math.log(self.sigma) - lt
+
     @staticmethod
     def _edge_step(w: FloatArray, log_sf: FloatArray, y: FloatArray) -> FloatArray:
         """The Newton step of ``_inv_cumhazard`` where its usual form fails: ``y`` beyond ~1e16,

@@ -8,6 +8,7 @@ from typing import Any, ClassVar
 
 import numpy as np
 
+from ._log_space import conditional_time_log_space
 from ._numerics import FloatArray
 from .base import Hazard, _invalid, _param
 
@@ -89,6 +90,13 @@ class ProportionalHazards(Hazard):
                     if fix is not None:
                         t = np.array(t, dtype=np.float64)
                         t[over] = fix
+                under = (y < _TINY_NORMAL) & (e > 0.0) & (e < np.inf)
+                if np.any(under) and self.base._log_forms:  # e / hr subnormal or 0: on the log scale
+                    t = np.array(t, dtype=np.float64)
+                    xu = x[under]
+                    upper = self.base._conditional_time(xu, np.full(xu.shape, _TINY_NORMAL))
+                    t[under] = conditional_time_log_space(self.base._log_cumhazard_lt, self.base._log_hazard_lt,
+                                                          xu, e[under], self.hr, upper)
         return t
 
     def _same_family(self) -> Hazard | None:

@@ -175,6 +175,21 @@ class LogLogistic(_ShapeScale):
         t = _overflowed_end(t, log_end, z, e)
         return np.where(e > 0.0, np.where(e < np.inf, t, np.inf), 0.0)
 
+    _log_forms: ClassVar[bool] = True
+
+    def _log_cumhazard_lt(self, lt: FloatArray) -> FloatArray:
+        """log H at t = exp(lt): ``log log1p(a)`` with ``log a = k (lt - log scale)``, as ``log a``
+        itself where ``a < e^-37`` (``log1p(a) = a (1 - a/2 + ...)``, the correction below the
+        rounding)."""
+        la = self.shape * (lt - math.log(self.scale))
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return np.where(la < -37.0, la, np.log(_softplus(la)))
+
+    def _log_hazard_lt(self, lt: FloatArray) -> FloatArray:
+        """log h at t = exp(lt): ``log k - lt - softplus(-log a)``."""
+        la = self.shape * (lt - math.log(self.scale))
+        return math.log(self.shape) - lt - _softplus(-la)
+
     def _conditional_time_large_ratio(self, x: FloatArray, e: FloatArray, hr: float) -> FloatArray:
         """Conditional time under ``hr * H`` where ``y = e / hr`` overflows: the formulas of
         ``_conditional_time`` with ``log(expm1(y)) = y`` (exact in double precision for

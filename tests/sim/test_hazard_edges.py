@@ -284,6 +284,34 @@ def test_huge_draw_over_a_tiny_hazard_ratio_stays_finite_where_the_time_is() -> 
                 _assert_all(base.scaled(hr), x)
 
 
+def test_huge_hazard_ratio_with_a_small_draw_gives_the_time_not_zero() -> None:
+    # e / hr underflows (5.6e-609 for e = 1e-300, hr = the largest double; was T = 0, or a subnormal
+    # e / hr with 3 digits left, 1e-4 off); the root, from 50-digit arithmetic at x = 0:
+    # log-logistic H^-1(y) = scale expm1(y)^(1/k), gamma P(a, T/scale) = y, log-normal Phi(w) = y
+    with mp.workdps(50):
+        y = mp.mpf(1e-300) / mp.mpf(BIG)
+        loglogistic = 5 * mp.sqrt(mp.expm1(y))
+        z = mp.findroot(lambda u: mp.log(mp.gammainc(2, 0, mp.exp(u), regularized=True)) - mp.log(y),
+                        mp.log(mp.sqrt(2 * y)))
+        gamma = 3 * mp.exp(z)
+        w = mp.findroot(lambda v: log_half_erfc(-v / mp.sqrt(2)) - mp.log(y), -mp.sqrt(2 * -mp.log(y)))
+        lognormal = mp.exp(1 + w / 2)
+    for base, expected in ((LogLogistic(2.0, 5.0), loglogistic), (Gamma(2.0, 3.0), gamma), (LogNormal(1.0, 0.5), lognormal)):
+        t = _times(base.scaled(BIG), 0.0, [1e-300])[0]
+        assert t == pytest.approx(float(expected), rel=1e-12), base
+    # times on either side of the underflow of T itself: a subnormal, and 0 where the root is below
+    # 2^-1075 (log-logistic of shape 2: T = 5 sqrt(y), y = e / hr)
+    h = LogLogistic(2.0, 5.0).scaled(BIG)
+    t = _times(h, 0.0, [1e-200, 1e-300])
+    assert t[0] == pytest.approx(5.0 * math.sqrt(1e-200 / BIG), rel=1e-12)
+    assert 0.0 < t[1] < 2.0 ** -1000
+    assert _times(LogLogistic(4.0, 1e-300).scaled(BIG), 0.0, [TINY])[0] == 0.0  # 1e-300 (5e-324 / BIG)^(1/4)
+    # clocks above 0, draws down to the smallest double, per family, checked against mpmath
+    for base, x in ((LogNormal(1.0, 0.5), 1e-12), (Gamma(0.5, 1.0), 1.0), (LogLogistic(0.5, 1.0), TINY),
+                    (LogNormal(1.0, 1e-300), TINY)):
+        _assert_all(base.scaled(BIG), x, [TINY, 1e-300, 1e-12, 0.7])
+
+
 def test_piecewise_rates_near_the_largest_double_are_quiet() -> None:
     # the band totals (rate x width) overflow: no RuntimeWarning at construction (was one), the
     # time is spent band by band, H^-1(inf) is inf (was NaN)
@@ -315,6 +343,8 @@ DRAW = st.sampled_from(DRAWS)
 SUBNORMAL = st.sampled_from([TINY, 1e-320, 1e-310])
 # Hazard ratios down to the smallest double: e / hr overflows for every draw above ~1e-16
 RATIO = st.sampled_from([TINY, 1e-310, 1e-300, 1e-12, 1e-3, 1e3, 1e12])
+# Hazard ratios up to the largest double: e / hr subnormal or 0 for every draw below ~1e-8
+HUGE_RATIO = st.sampled_from([1e300, 1e305, BIG / 2, BIG])
 
 
 def _check_one(h, x: float, e: float) -> None:
@@ -346,12 +376,23 @@ FAMILY_STRATEGIES = {
                                                LogNormal(1.0, 1e-300), LogNormal(-50.0, 1e-160), Gamma(2.0, 1e-6),
                                                Gamma(0.5, 1e-300), LogLogistic(1e306, 5.0)]),
                               RATIO),
+    # e / hr underflows: bases whose hazard is tiny near 0, so that the time is not (gamma, log-normal,
+    # log-logistic, solved on the log scale), and those rescaled into their own family
+    "proportional_huge": st.builds(lambda b, hr: b.scaled(hr),
+                                   st.sampled_from([Exponential(1.0), Weibull(1.5, 10.0), Gompertz(1e-4, 0.09),
+                                                    LogNormal(1.0, 0.5), LogNormal(1.0, 1e-300), LogNormal(-50.0, 1e-160),
+                                                    LogLogistic(2.0, 5.0), LogLogistic(0.5, 1.0), LogLogistic(1e306, 5.0),
+                                                    Gamma(2.0, 3.0), Gamma(0.5, 1.0), Gamma(10.0, 1e6), Gamma(2.0, 1e-6),
+                                                    PiecewiseConstant([0.0, 1.0, 50.0], [0.0, 1e-300, 2.0])]),
+                                   HUGE_RATIO),
 }
 
 
 @pytest.mark.parametrize("family", sorted(FAMILY_STRATEGIES))
 def test_conditional_time_against_high_precision(family: str) -> None:
-    @settings(max_examples=25 if family != "proportional" else 60, derandomize=True, deadline=None, database=None)
+    examples = {"proportional": 60, "proportional_huge": 25}.get(family, 25)
+
+    @settings(max_examples=examples, derandomize=True, deadline=None, database=None)
     @given(h=FAMILY_STRATEGIES[family], x=CLOCK, e=DRAW)
     def run(h, x, e):
         _check_one(h, x, e)
