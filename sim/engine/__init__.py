@@ -6,9 +6,9 @@ table that are identical for any chunking or number of workers."""
 from .histories import (CancelToken, SimulationCancelled, SimulationError, SimulationResult, cancel_requested,
                         chunk_size_for, simulate, simulate_chunks, simulate_range)
 from .draws import DrawExit, DrawSet, simulate_draws
-from .rng import ATTRIBUTE_STREAM, exponentials, key_from_seed, philox4x64, uniforms
+from .rng import ATTRIBUTE_STREAM, STREAM_LAYOUT, exponentials, key_from_seed, philox4x64, uniforms
 
 __all__ = ["CancelToken", "SimulationCancelled", "SimulationError", "SimulationResult", "cancel_requested",
            "chunk_size_for", "simulate", "simulate_chunks", "simulate_range", "DrawExit", "DrawSet", "simulate_draws",
-           "ATTRIBUTE_STREAM", "exponentials", "key_from_seed",
+           "ATTRIBUTE_STREAM", "STREAM_LAYOUT", "exponentials", "key_from_seed",
            "philox4x64", "uniforms"]

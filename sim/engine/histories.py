@@ -5,9 +5,11 @@ Algorithm (per chunk of patients, per strategy):
 1. Draw entry age, sex and (for a mix of initial states) the initial state from the patient's
    attribute stream, common to every strategy.
 2. In rounds, for every patient still at risk, group by current state ``s``. For each competing exit
-   ``k`` of ``s`` draw E_k ~ Exp(1) from the counter ``(patient, 1 + s, occurrence, block)`` and turn
-   it into a latent time by conditional inverse cumulative hazard sampling,
-   T_k = H_k^-1(H_k(x_k) + E_k) - x_k, where x_k is the exit's clock at entry into ``s`` (attained
+   ``k`` of ``s`` draw E_k ~ Exp(1) from the patient's word ``k`` in stream ``1 + s`` at its
+   occurrence (the stream layout of :mod:`sim.engine.rng`: consecutive patients' words are
+   consecutive words of one Philox counter sequence, every word used) and turn it into a latent
+   time by conditional inverse cumulative hazard sampling, T_k = H_k^-1(H_k(x_k) + E_k) - x_k,
+   where x_k is the exit's clock at entry into ``s`` (attained
    age, time since entry, or 0 for the time-in-state clock) (Bender, Augustin & Blettner 2005, Stat
    Med 24:1713-1723). The earliest latent time wins: for cause-specific hazards the minimum of
    independent latent times has the correct joint law of (time, cause) (Beyersmann et al. 2009,
@@ -33,7 +35,7 @@ from numpy.typing import NDArray
 
 from ..hazards import KERNEL_ERRSTATE
 from ..model.multistate import Clock, Model, ResolvedExit
-from .rng import ATTRIBUTE_STREAM, _BulkWords, _sorted_draws, key_from_seed
+from .rng import ATTRIBUTE_STREAM, STREAM_LAYOUT, _BulkWords, _sorted_draws, key_from_seed
 
 __all__ = ["simulate", "simulate_chunks", "simulate_range", "SimulationResult", "SimulationCancelled", "SimulationError", "CancelToken",
            "cancel_requested", "chunk_size_for"]
@@ -293,17 +295,19 @@ def _run_strategy(model: Model, resolved: list[list[ResolvedExit]], bulk: _BulkW
         return out
 
     ev_patient = np.empty(dest.size, dtype=np.int64)
-    ev_patient[dest] = ev_idx
-    ev_patient += start
+    ev_patient[dest] = ev_idx  # chunk-local for now
     del ev_idx
     ev_from = np.empty(dest.size, dtype=state_code)
     ev_from[dest] = np.repeat(np.array(rec_from, dtype=state_code), sizes)
     ev_time = place(rec_time, np.float64)
+    ev_age = entry_age.take(ev_patient)
+    ev_age += ev_time  # attained age: entry age + time
+    ev_patient += start
     np.logical_not(absorbed, out=reason.view(np.bool_))  # 0 "absorbed", 1 "censored"
     return {
         "ev_patient": ev_patient,
         "ev_time": ev_time,
-        "ev_age": entry_age[ev_patient - start] + ev_time,  # attained age: entry age + time
+        "ev_age": ev_age,
         "ev_from": ev_from,
         "ev_to": place(rec_to, state_code),
         "ev_exit": place(rec_exit, exit_code),
@@ -318,10 +322,11 @@ def _simulate_chunk(model: Model, plans: list[list[list[ResolvedExit]]], key: tu
     bulk = _BulkWords(key)
     segments = [(start, stop, model)] if draws is None else draws.segments(start, stop)
     single = all(m.population.single_initial_state for _, _, m in segments)
-    # attribute words: entry age, sex and (for a mix of initial states only, so that a single initial
-    # state draws exactly what it always did) the initial state
-    u = _sorted_draws(bulk, np.arange(start, stop, dtype=np.int64), ATTRIBUTE_STREAM, 0, 2 if single else 3,
-                      exponential=False)
+    # attribute words: entry age and sex (occurrence 0); the initial state of a mix from occurrence 1,
+    # drawn only when some segment has a mix, so that entry ages and sexes never depend on it
+    ids = np.arange(start, stop, dtype=np.int64)
+    u = _sorted_draws(bulk, ids, ATTRIBUTE_STREAM, 0, 2, exponential=False)
+    u_initial = None if single else _sorted_draws(bulk, ids, ATTRIBUTE_STREAM, 1, 1, exponential=False)[:, 0]
     rows = table.rows(0, start, stop)
     entry_age, sex, initial = table.entry_age[rows], table.sex[rows], table.initial[rows]
     limit = np.empty(stop - start)
@@ -331,9 +336,9 @@ def _simulate_chunk(model: Model, plans: list[list[list[ResolvedExit]]], key: tu
         # with a single sex every patient has code 0 (what sex_codes returns for any u in (0, 1])
         sex[part] = 0 if len(pop.sexes) == 1 else pop.sex_codes(u[part, 1])
         one = pop.single_initial_state
-        initial[part] = m.state_index(one) if one else pop.initial_codes(u[part, 2], sex[part], m.state_names)
+        initial[part] = m.state_index(one) if one else pop.initial_codes(u_initial[part], sex[part], m.state_names)
         limit[part] = m.horizon.time_limit(entry_age[part])
-    del u
+    del u, u_initial
     draw_of = None if draws is None else draws.draw_of(start, stop)
     per = []
     for k, plan in enumerate(plans):
@@ -551,4 +556,5 @@ def simulate(model: Model, n_patients: int, seed: int, *, strategies: tuple[str,
     events, patients = _assemble(model, names, outs, table)
     return SimulationResult(model=model, seed=int(seed), n_patients=int(n_patients), events=events,
                             patients=patients, chunk_size=int(chunk_size), workers=int(workers),
-                            metadata={"strategies": names, "generator": "Philox4x64-10 counter-based"})
+                            metadata={"strategies": names, "generator": "Philox4x64-10 counter-based",
+                                      "stream_layout": STREAM_LAYOUT})

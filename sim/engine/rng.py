@@ -9,24 +9,38 @@ as 1, 2, 3", Proc. SC'11), written here with numpy array arithmetic so that one 
 bijection for a whole vector of counters. Its output is checked bit for bit against
 ``numpy.random.Philox`` in ``tests/sim/test_rng.py``.
 
-Counter layout used by the engine (four 64-bit words)::
+Stream layout (version :data:`STREAM_LAYOUT`, recorded in run metadata). A request for ``k`` draws
+per patient in ``(stream, occurrence)`` reads the words of the counters::
 
-    (patient id, stream, occurrence, block)
+    (c, stream, occurrence, 0),  c = 0, 1, 2, ...
 
-stream 0 holds patient attributes (entry age, sex, the initial state of a mix); stream 1 + s holds
-the latent times for the exits of state ``s``; occurrence is the number of earlier entries of the
-patient into that state; block ``b`` holds exits ``4 b .. 4 b + 3`` of the state (one Philox call
-gives four 64-bit words).
+as one sequence, four 64-bit words per counter: draw ``j`` of patient ``p`` is word
+``w = p k + j``, that is word ``w mod 4`` of counter ``c = floor(w / 4)``. Every word of every
+Philox call is used, and the draws of consecutive patients are consecutive in memory, so a dense
+range of patients is one call to numpy's C Philox and a reshape, with no gather.
+
+stream 0 holds patient attributes (occurrence 0: entry age and sex, ``k = 2``; occurrence 1: the
+initial state of a mix, ``k = 1``); stream 1 + s holds the latent times for the exits of state
+``s`` (``k`` = the state's number of exits); occurrence is the number of earlier entries of the
+patient into that state.
+
+Layout 1 (before issue 16) used one counter ``(patient, stream, occurrence, block)`` per patient
+and block of four draws, so that a state with two exits used half of each call's words.
 """
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-__all__ = ["philox4x64", "key_from_seed", "uniforms", "exponentials", "ATTRIBUTE_STREAM"]
+__all__ = ["philox4x64", "key_from_seed", "uniforms", "exponentials", "ATTRIBUTE_STREAM", "STREAM_LAYOUT"]
 
 ATTRIBUTE_STREAM = 0
+#: Version of the layout of draws on Philox counters (see the module docstring); recorded in run
+#: metadata because it fixes the exact draws of a seed.
+STREAM_LAYOUT = 2
 
 # Philox4x64 round multipliers and Weyl key increments (Salmon et al. 2011, Table 2 / Random123).
 _M0 = np.uint64(0xD2E7470EE14C6C93)
@@ -173,62 +187,81 @@ def _bulk_words(key: tuple[int, int], first: int, count: int, stream: int, occur
     return _BulkWords(key)(first, count, stream, occurrence, block)
 
 
-def _dense(lo: int, hi: int, size: int) -> bool:
-    """Whether to draw the whole id range ``lo..hi`` in bulk rather than run :func:`philox4x64` on
-    the ``size`` ids alone. Measured costs: the C generator ~15 ns per counter of the range; the
-    vectorised bijection ~100 ns per id plus ~0.3 ms of fixed cost (some 170 numpy calls)."""
-    return hi - lo + 1 <= 8 * size + 16384
+def _dense(lo: int, hi: int, size: int, k: int) -> bool:
+    """Whether to draw the words of the whole id range ``lo..hi`` in bulk rather than run
+    :func:`philox4x64` on the counters of the ``size`` ids alone. Measured costs (numpy 2.4, this
+    project's VM): the C generator ~3.6 ns per word of the range; the vectorised bijection ~65 ns
+    per counter plus ~110 us of fixed cost (some 170 numpy calls)."""
+    return (hi - lo + 1) * k <= 18 * size * _span(k) + 30_000
 
 
-def _fill_uniforms(out: NDArray[np.float64], key: tuple[int, int], patient: NDArray[np.int64], lo: int,
-                   hi: int, contiguous: bool, stream: int, occurrence: int,
-                   bulk: _BulkWords | None = None) -> None:
-    """Write the uniforms of :func:`uniforms` into ``out`` (shape ``(len(patient), n)``), given the
-    patients' smallest and largest id and whether they are exactly ``lo, lo + 1, ..., hi``."""
-    n = out.shape[1]
-    count = hi - lo + 1
-    dense = _dense(lo, hi, patient.size)
-    rows = None if contiguous or not dense else patient - lo
-    if dense and bulk is None:
-        bulk = _BulkWords(key)
-    for block in range((n + 3) // 4):
-        width = min(4, n - 4 * block)
-        target = out[:, 4 * block:4 * block + width]
-        # Column by column: numpy loops over (m, 2)-shaped operands two elements at a time, which
-        # costs several times more than whole columns. The arithmetic is exact, so the layout
-        # cannot change a bit.
-        if dense:
-            raw = bulk(lo, count, int(stream), int(occurrence), block)
-            if rows is None:
-                _unit_into(raw, raw.view(np.float64))  # the whole (count, 4) block, contiguous
-                for w in range(width):
-                    target[:, w] = raw[:, w].view(np.float64)
-            else:
-                for w in range(width):
-                    _unit_into(raw[:, w].take(rows), target[:, w])
-        else:
-            words = philox4x64((patient.astype(np.uint64), stream, occurrence, block), key)
-            for w in range(width):
-                _unit_into(words[w], target[:, w])
+def _span(k: int) -> int:
+    """Most counters that the ``k`` words of one patient touch: they start at word ``p k mod 4``,
+    a multiple of gcd(k, 4), so at offset 4 - gcd(k, 4) at the latest."""
+    return (4 - math.gcd(k, 4) + k + 3) // 4
+
+
+def _bulk_range(bulk: _BulkWords, lo: int, count: int, stream: int, occurrence: int, k: int) -> NDArray[np.uint64]:
+    """Words of patients ``lo .. lo + count - 1`` (``k`` each) as a C-contiguous ``(count, k)`` view of
+    the C Philox's output: words ``lo k .. (lo + count) k - 1`` of the sequence of (stream, occurrence)."""
+    w0 = lo * k
+    c0 = w0 >> 2
+    c1 = (w0 + count * k + 3) >> 2
+    raw = bulk(c0, c1 - c0, int(stream), int(occurrence), 0).reshape(-1)
+    off = w0 - 4 * c0
+    return raw[off:off + count * k].reshape(count, k)
+
+
+def _sparse_words(key: tuple[int, int], patient: NDArray[np.int64], stream: int, occurrence: int,
+                  k: int) -> NDArray[np.uint64]:
+    """Words ``(len(patient), k)`` of arbitrary ids from :func:`philox4x64` on just the counters they
+    touch (a fresh C-contiguous array)."""
+    w0 = patient.astype(np.uint64) * np.uint64(k)
+    ncols = _span(k)
+    counters = (w0 >> np.uint64(2))[:, None] + np.arange(ncols, dtype=np.uint64)
+    words = philox4x64((counters.reshape(-1), stream, occurrence, 0), key)
+    stacked = np.stack(words, axis=-1).reshape(patient.size, 4 * ncols)
+    cols = (w0 & np.uint64(3)).astype(np.int64)[:, None] + np.arange(k)
+    return np.ascontiguousarray(np.take_along_axis(stacked, cols, axis=1))
+
+
+def _words_of(key: tuple[int, int], bulk: _BulkWords | None, patient: NDArray[np.int64], lo: int, hi: int,
+              contiguous: bool, stream: int, occurrence: int, k: int) -> NDArray[np.uint64]:
+    """Words ``(len(patient), k)`` of the given ids (C-contiguous, writable, not shared), given their
+    smallest and largest id and whether they are exactly ``lo, lo + 1, ..., hi`` in order."""
+    m = patient.size
+    if not _dense(lo, hi, m, k):
+        return _sparse_words(key, patient, stream, occurrence, k)
+    block = _bulk_range(bulk if bulk is not None else _BulkWords(key), lo, hi - lo + 1, stream, occurrence, k)
+    return block if contiguous else block.take(patient - lo, axis=0)
+
+
+def _check_ids(patient: NDArray[np.int64], k: int) -> None:
+    if patient.size and (int(patient.min()) < 0 or (int(patient.max()) + 1) * k > 2**63):
+        raise ValueError(f"patient ids must be >= 0 and below 2^63 / {k}")
 
 
 def uniforms(key: tuple[int, int], patient: ArrayLike, stream: int, occurrence: int,
              n: int) -> NDArray[np.float64]:
     """Uniforms on (0, 1] for each patient: array of shape ``(len(patient), n)``.
 
-    Column ``j`` comes from block ``j // 4``, word ``j % 4`` of the counter
-    ``(patient, stream, occurrence, block)``. When the patients are dense in their id range the
-    words come in bulk from numpy's C Philox over that range (fast); otherwise from
-    :func:`philox4x64` on just those counters. Both give the same bits.
+    Entry ``(i, j)`` comes from word ``w = patient[i] n + j`` of the sequence of
+    ``(stream, occurrence)`` (layout :data:`STREAM_LAYOUT`, module docstring), mapped by
+    u = 1 - floor(w / 2^12) / 2^52. When the patients are dense in their id range the words come in
+    bulk from numpy's C Philox over that range (fast); otherwise from :func:`philox4x64` on just
+    the counters they touch. Both give the same bits.
     """
-    patient = np.asarray(patient, dtype=np.int64)
-    out = np.empty((patient.shape[0], n), dtype=np.float64)
-    if patient.size == 0:
-        return out
+    patient = np.asarray(patient, dtype=np.int64).reshape(-1)
+    n = int(n)
+    if patient.size == 0 or n == 0:
+        return np.empty((patient.size, n), dtype=np.float64)
+    _check_ids(patient, n)
     lo, hi = int(patient.min()), int(patient.max())
     contiguous = (hi - lo + 1 == patient.size and int(patient[0]) == lo
                   and (patient.size < 3 or bool(np.all(np.diff(patient) == 1))))
-    _fill_uniforms(out, key, patient, lo, hi, contiguous, stream, occurrence)
+    words = _words_of(key, None, patient, lo, hi, contiguous, stream, occurrence, n)
+    out = words.view(np.float64)
+    _unit_into(words, out)
     return out
 
 
@@ -245,27 +278,19 @@ def _sorted_draws(bulk: _BulkWords, patient: NDArray[np.int64], stream: int, occ
     """The engine's draws: :func:`exponentials` (or :func:`uniforms` if not ``exponential``) for ids
     known to be strictly increasing, with the same bits.
 
-    The id range and contiguity are read off the ends. With at most four columns and dense ids the
-    result is a view of a (len(patient), 4) block that was transformed whole: one gather of
-    32-byte rows and five in-place passes over contiguous memory instead of work per column. The
-    logarithm then runs over contiguous memory exactly as in :func:`exponentials`, so every
-    element goes through the same kernel.
+    The id range and contiguity are read off the ends. For dense ids the words are one C Philox
+    call over the range, viewed as ``(count, n)`` rows (gathered only when some ids of the range are
+    absent), then converted and logged in place over contiguous memory: each element goes through
+    the same kernels as in :func:`exponentials`.
     """
     m = patient.shape[0]
     if m == 0:
         return np.empty((0, n))
     lo, hi = int(patient[0]), int(patient[-1])
-    contiguous = hi - lo + 1 == m
-    if n <= 4 and _dense(lo, hi, m):
-        raw = bulk(lo, hi - lo + 1, int(stream), int(occurrence), 0)
-        block = raw if contiguous else raw.take(patient - lo, axis=0)
-        f = block.view(np.float64)
-        _unit_into(block, f)
-        out = f
-    else:
-        out = np.empty((m, n))
-        _fill_uniforms(out, bulk.pair, patient, lo, hi, contiguous, stream, occurrence, bulk)
+    words = _words_of(bulk.pair, bulk, patient, lo, hi, hi - lo + 1 == m, stream, occurrence, n)
+    out = words.view(np.float64)
+    _unit_into(words, out)
     if exponential:
         np.log(out, out=out)
         np.negative(out, out=out)
-    return out[:, :n]
+    return out

@@ -19,6 +19,7 @@ import pandas as pd
 import pyarrow as pa
 
 from ... import __version__
+from ...engine import STREAM_LAYOUT
 from .errors import ExportError
 
 __all__ = ["metadata_for", "input_files", "file_sha256", "TableHash"]
@@ -184,7 +185,8 @@ def metadata_for(scenario_text: str, seed: int, n_patients: int, extra: Mapping[
     Returns
     -------
     dict
-        ``tool`` ("HazardTrace"), ``tool_version`` (``sim.__version__``), ``scenario_sha256``,
+        ``tool`` ("HazardTrace"), ``tool_version`` (``sim.__version__``), ``stream_layout``
+        (``sim.engine.STREAM_LAYOUT``), ``scenario_sha256``,
         ``scenario``, ``seed``, ``patients``, ``date_utc`` (ISO 8601, seconds, UTC), ``python``,
         ``numpy``, ``pandas``, ``pyarrow`` (versions), ``input_files`` (:func:`input_files`: each
         file the scenario reads with its SHA-256), then ``extra``.
@@ -207,6 +209,7 @@ def metadata_for(scenario_text: str, seed: int, n_patients: int, extra: Mapping[
     meta: dict[str, Any] = {
         "tool": "HazardTrace",
         "tool_version": __version__,
+        "stream_layout": STREAM_LAYOUT,  # how draws sit on the generator's counters (sim.engine.rng)
         "scenario_sha256": hashlib.sha256(scenario_text.encode("utf-8")).hexdigest(),
         "scenario": scenario_text,
         "seed": int(seed),
