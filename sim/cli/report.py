@@ -2,8 +2,9 @@
 
 The folder's kind comes from its ``metadata.json``: a probabilistic analysis's folder (written by
 ``hazardtrace psa``) gives the scenario in words with its uncertain inputs and the uncertainty
-section (with ``--population`` and ``--years`` the population EVPI, with ``--evppi`` the EVPPI of
-parameter groups, computed from the recorded draws). From a run folder (written by ``hazardtrace run``)
+section (the folder's tables as recorded; with ``--population`` and ``--years`` the population EVPI,
+with ``--evppi`` the EVPPI of parameter groups, computed from the recorded draws by the functions
+``hazardtrace psa`` uses, :mod:`sim.psa.summaries`). From a run folder (written by ``hazardtrace run``)
 the report shows the recorded tables and re-estimates the curves from the recorded event log. From a
 scenario file the scenario is first run in memory at its own settings (``--patients`` and ``--seed``
 override them), with nothing written but the report.
@@ -22,6 +23,7 @@ from ..pipeline import run_scenario
 from ..report import (TraceRequest, folder_kind, inputs_from_results, load_psa_folder, load_run_folder,
                       metadata_path, write_report)
 from .progress import StageProgress
+from .psa import parameter_group
 
 __all__ = ["register"]
 
@@ -41,11 +43,6 @@ def _trace(text: str) -> TraceRequest:
     return TraceRequest(method, h)
 
 
-def _group(text: str) -> list[str]:
-    """``--evppi "key, key"``: a parameter group, keys separated by commas."""
-    return [k.strip() for k in text.split(",") if k.strip()]
-
-
 def _report(args: argparse.Namespace, out: TextIO) -> int:
     source = Path(args.source)
     is_run = source.is_dir() or source.name == "metadata.json"
@@ -53,7 +50,7 @@ def _report(args: argparse.Namespace, out: TextIO) -> int:
     psa_only = (args.population is not None or args.years is not None or args.evppi)
     if is_run and folder_kind(source) == "psa":
         inputs, tables = load_psa_folder(source, population=args.population, years=args.years,
-                                         evppi_groups=[_group(g) for g in args.evppi or ()])
+                                         evppi_groups=[parameter_group(g) for g in args.evppi or ()])
         default = metadata_path(source).parent / "report.html"
         what = f"the probabilistic analysis {metadata_path(source).parent}"
     elif psa_only:

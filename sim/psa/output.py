@@ -2,7 +2,9 @@
 
 Files: ``draws.parquet`` and ``draws.csv`` (the per-draw table, :mod:`sim.psa.tables`),
 ``parameters.parquet`` and ``parameters.csv`` (each draw's parameter values: ``draw`` then one column
-per parameter), any summary tables given (``<name>.csv``) and ``metadata.json`` (the run's
+per parameter), ``inputs.csv`` (the uncertain inputs, :func:`sim.psa.inputs_table`, when given: the
+folder then describes its own distributions without the scenario file), any summary tables given
+(``<name>.csv``) and ``metadata.json`` (the run's
 provenance, :func:`sim.io.export.metadata_for`, with the table's SHA-256).
 
 Everything is written into a hidden sibling folder ``.<name>.tmp-<12 hex digits>`` that is renamed to
@@ -39,7 +41,7 @@ def _json_default(value: Any) -> Any:
 
 def write_psa(folder: str | os.PathLike[str], table: pd.DataFrame, values: pd.DataFrame,
               metadata: Mapping[str, Any], summaries: Mapping[str, pd.DataFrame] | None = None,
-              force: bool = False) -> dict[str, Path]:
+              force: bool = False, inputs: pd.DataFrame | None = None) -> dict[str, Path]:
     """Write the analysis to ``folder`` atomically; returns the final path of every file by name.
 
     Raises :class:`sim.io.ExportError` when ``folder`` exists and ``force`` is False (before
@@ -66,6 +68,9 @@ def write_psa(folder: str | os.PathLike[str], table: pd.DataFrame, values: pd.Da
             for fmt in ("parquet", "csv"):
                 write_table(df, tmp / f"{stem}.{fmt}", fmt=fmt)
                 names[f"{stem}_{fmt}"] = f"{stem}.{fmt}"
+        if inputs is not None:
+            write_tidy_csv(inputs, tmp / "inputs.csv")
+            names["inputs"] = "inputs.csv"
         for stem, df in (summaries or {}).items():
             write_tidy_csv(df, tmp / f"{stem}.csv")
             names[stem] = f"{stem}.csv"

@@ -17,7 +17,7 @@ from .document import default_traces, report_html, uncertainty_section
 from .inputs import ReportInputs, inputs_from_results, inputs_from_study
 from .numbers import formatted_frame, significant
 from .pdf import pdf_bytes
-from .psa_folder import PSA_TABLES, folder_kind, load_psa_folder
+from .psa_folder import PSA_TABLES, folder_kind, inputs_from_psa, load_psa_folder, read_inputs_csv
 from .plots import METHOD_COLOURS, TraceRequest, cycle_words, method_style, method_words
 from .rerun import RerunResult, rerun
 from .run_folder import load_run_folder, metadata_path, read_metadata, scenario_of
@@ -28,4 +28,5 @@ __all__ = ["CAUTION", "CLOCK_WORDS", "describe", "describe_lines", "model_svg", 
            "uncertainty_section", "ReportInputs", "inputs_from_results", "inputs_from_study", "formatted_frame",
            "significant", "pdf_bytes", "TraceRequest", "cycle_words", "RerunResult", "rerun", "load_run_folder",
            "metadata_path", "read_metadata", "scenario_of", "outcome_table", "write_report", "PSA_TABLES",
-           "folder_kind", "load_psa_folder", "METHOD_COLOURS", "method_style", "method_words"]
+           "folder_kind", "load_psa_folder", "inputs_from_psa", "read_inputs_csv", "METHOD_COLOURS", "method_style",
+           "method_words"]

@@ -1,36 +1,38 @@
-"""Reading a probabilistic analysis's folder (written by ``hazardtrace psa``) back for a report.
+"""Reading a probabilistic analysis's folder (written by ``hazardtrace psa``) back for a report, and
+the report's inputs of an analysis held in memory (the window's).
 
-The folder's ``metadata.json`` says what it is (``"command": "psa"``); its summary tables are shown
-as recorded. What the folder does not hold is computed here from its recorded per-draw table and
-parameter draws, with the functions of :mod:`sim.uncertainty`: the uncertain inputs' table
-(:func:`sim.psa.inputs_table` of the recorded scenario), the population EVPI when a population and
-years are given (:func:`sim.uncertainty.population_evpi`, discounted at the scenario's cost discount
-rate) and the EVPPI of the parameter groups asked for (:func:`sim.uncertainty.evppi`, reference
-method, at the willingness-to-pay values of the report's EVPI table).
+The folder's ``metadata.json`` says what it is (``"command": "psa"``); its tables are shown as
+recorded: the summary tables, the uncertain inputs (``inputs.csv``; from the recorded scenario,
+:func:`sim.psa.inputs_table`, for a folder written before the file existed), the population EVPI
+(``population_evpi.csv``) and the EVPPI (``evppi.csv``) where ``hazardtrace psa`` computed them.
+Only what is asked is computed here, from the recorded per-draw table and parameter draws, by the
+same functions as ``hazardtrace psa`` (:func:`sim.psa.summaries.population_evpi_table` with a
+population and years, :func:`sim.psa.summaries.evppi_table` for parameter groups), replacing the
+recorded table of the same name.
 """
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 import pandas as pd
 
+from ..io import Scenario
 from ..io.export import ExportError
-from ..psa.apply import inputs_table  # not the package: its __init__ names the Dask runner
-from ..psa.summaries import reference_method
-from ..uncertainty import evppi, population_evpi
+from ..psa import inputs_table
+from ..psa.summaries import check_population, evppi_table, population_evpi_table, reference_method, wtp_points
 from .inputs import ReportInputs
-from .psa_tables import wtp_points
 from .run_folder import metadata_path, read_metadata, scenario_of
 
-__all__ = ["folder_kind", "load_psa_folder", "PSA_TABLES"]
+__all__ = ["folder_kind", "load_psa_folder", "inputs_from_psa", "read_inputs_csv", "PSA_TABLES"]
 
 #: the summary tables ``hazardtrace psa`` writes (those present are read)
 PSA_TABLES = ("incremental", "ce_plane", "ceac", "acceptability_frontier", "evpi", "noise_share", "convergence",
-              "acceptability_by_method", "evpi_by_method")
+              "acceptability_by_method", "evpi_by_method", "population_evpi", "evppi")
+_TEXT = ("parameter", "distribution", "parameters", "fitted_from", "description")
 
 
 def folder_kind(where: str | Path) -> str:
@@ -39,6 +41,31 @@ def folder_kind(where: str | Path) -> str:
     :class:`sim.io.export.ExportError` if it is neither)."""
     meta = read_metadata(where)
     return "psa" if meta.get("command") == "psa" else "run"
+
+
+def read_inputs_csv(path: str | Path) -> pd.DataFrame:
+    """``inputs.csv`` as :func:`sim.psa.inputs_table` gives it (empty text cells as ``""``)."""
+    table = pd.read_csv(path, keep_default_na=True)
+    for name in _TEXT:
+        if name in table.columns:
+            table[name] = table[name].fillna("").astype(str)
+    return table
+
+
+def inputs_from_psa(scenario: Scenario, metadata: Mapping[str, Any], tables: Mapping[str, pd.DataFrame],
+                    source: str) -> tuple[ReportInputs, dict[str, pd.DataFrame]]:
+    """The report's inputs of an analysis (scenario and the analysis' metadata as ``hazardtrace psa``
+    records it; no run outcomes or curves) and its uncertainty tables: ``tables`` with the uncertain
+    inputs (:func:`sim.psa.inputs_table`) where they lack them. Used for a folder
+    (:func:`load_psa_folder`) and for an analysis in the window."""
+    shown: dict[str, pd.DataFrame] = dict(tables)
+    if "inputs" not in shown:
+        shown = {"inputs": inputs_table(scenario), **shown}
+    meta: dict[str, Any] = dict(metadata)
+    meta.setdefault("threads", meta.get("workers"))
+    if isinstance(meta.get("seconds"), (int, float)):
+        meta["run_seconds"] = meta.pop("seconds")
+    return ReportInputs(scenario=scenario, metadata=meta, source=source), shown
 
 
 def load_psa_folder(folder: str | Path, *, population: float | None = None, years: int | None = None,
@@ -59,7 +86,9 @@ def load_psa_folder(folder: str | Path, *, population: float | None = None, year
         raise ExportError(f"{root}: not a probabilistic analysis's folder (its metadata has no \"command\": "
                           f"\"psa\")", file=root, rule="must be a folder written by 'hazardtrace psa'")
     scenario = scenario_of(meta, root)
-    tables: dict[str, pd.DataFrame] = {"inputs": inputs_table(scenario)}
+    tables: dict[str, pd.DataFrame] = {}
+    if (root / "inputs.csv").exists():
+        tables["inputs"] = read_inputs_csv(root / "inputs.csv")
     for name in PSA_TABLES:
         path = root / f"{name}.csv"
         if path.exists():
@@ -68,26 +97,15 @@ def load_psa_folder(folder: str | Path, *, population: float | None = None, year
     if (population is not None or years is not None or evppi_groups) and not draws_path.exists():
         raise ExportError(f"{root}: no draws.parquet; population EVPI and EVPPI need the per-draw table",
                           file=draws_path, rule="a finished analysis's folder has draws.parquet")
-    if (population is None) != (years is None):
-        raise ExportError("the population EVPI needs both the patients per year (--population) and the years "
-                          "(--years)", key=("--population" if population is None else "--years",),
-                          rule="give both or neither")
+    check_population(population, years)
+    model = scenario.model
     if population is not None and "evpi" in tables:
         ref = reference_method(pd.read_parquet(draws_path, columns=["method"]))
-        rows = tables["evpi"][tables["evpi"]["method"] == ref]
-        tables["population_evpi"] = population_evpi(rows, population, int(years),
-                                                    scenario.model.valuation.discount_costs)
+        tables["population_evpi"] = population_evpi_table(tables["evpi"], ref, model, population, int(years))
     if evppi_groups:
         table = pd.read_parquet(draws_path)
         params = pd.read_parquet(root / "parameters.parquet")
-        ref = reference_method(table)
-        wtp = float(scenario.model.valuation.willingness_to_pay)
+        wtp = float(model.valuation.willingness_to_pay)
         grid = wtp_points(tables["evpi"]["wtp"].to_numpy(float), wtp) if "evpi" in tables else np.array([wtp])
-        tables["evppi"] = pd.concat([evppi(table[table["method"] == ref], params, list(group), grid)
-                                     for group in evppi_groups], ignore_index=True)
-    source = f"the probabilistic analysis folder {root}"
-    meta_shown: dict[str, Any] = dict(meta)
-    meta_shown.setdefault("threads", meta.get("workers"))
-    if isinstance(meta.get("seconds"), (int, float)):
-        meta_shown["run_seconds"] = meta_shown.pop("seconds")
-    return ReportInputs(scenario=scenario, metadata=meta_shown, source=source), tables
+        tables["evppi"] = evppi_table(table, params, model, evppi_groups, grid)
+    return inputs_from_psa(scenario, meta, tables, f"the probabilistic analysis folder {root}")

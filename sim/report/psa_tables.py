@@ -16,11 +16,12 @@ import numpy as np
 import pandas as pd
 
 from ..analysis import column_decimals, decimals_from_mcse, format_fixed
+from ..psa.summaries import wtp_points
 from .numbers import significant
 from .plots import method_words
 
-__all__ = ["estimate_text", "inputs_shown", "incremental_shown", "wtp_points", "ceac_shown", "evpi_shown",
-           "evpi_methods_shown", "noise_shown", "evppi_shown", "ranges_shown"]
+__all__ = ["estimate_text", "means_shown", "inputs_shown", "incremental_shown", "wtp_points", "ceac_shown",
+           "evpi_shown", "evpi_methods_shown", "noise_shown", "evppi_shown", "ranges_shown"]
 
 
 def estimate_text(values, mcse) -> list[str]:
@@ -56,6 +57,20 @@ def inputs_shown(inputs: pd.DataFrame) -> pd.DataFrame:
                                        "deterministic value"])
 
 
+def means_shown(table: pd.DataFrame, currency: str) -> pd.DataFrame:
+    """Per method and strategy of the per-draw table: the mean discounted costs and QALYs over the
+    draws, each to the decimal place of its MCSE over the draws (SD / sqrt(N), independent draws)."""
+    groups = table.groupby(["method", "strategy"], sort=False)[["costs_discounted", "qalys_discounted"]]
+    mean, sd, n = groups.mean(), groups.std(ddof=1), groups.size().to_numpy(float)
+    rows = {"method": [method_words(str(m)) for m, _ in mean.index], "strategy": [s for _, s in mean.index]}
+    for col, name in (("costs_discounted", f"costs ({currency})"), ("qalys_discounted", "QALYs")):
+        with np.errstate(invalid="ignore", divide="ignore"):
+            mcse = sd[col].to_numpy(float) / np.sqrt(n)
+        rows[name] = estimate_text(mean[col], mcse)
+        rows[f"{name} MCSE"] = estimate_text(mcse, mcse)
+    return pd.DataFrame(rows)
+
+
 def incremental_shown(incremental: pd.DataFrame, draws: int, currency: str) -> pd.DataFrame:
     """Per method and strategy: mean incremental costs and QALYs with their MCSE over the draws
     (SD / sqrt(N)) and SD (parameter uncertainty) at the mean's decimals, the ICER of the means in
@@ -73,15 +88,6 @@ def incremental_shown(incremental: pd.DataFrame, draws: int, currency: str) -> p
     rows[f"ICER ({currency}/QALY)"] = [significant(x, 3) for x in incremental["icer"]]
     rows["quadrant"] = list(incremental["quadrant"])
     return pd.DataFrame(rows)
-
-
-def wtp_points(grid: np.ndarray, wtp: float, rows: int = 10) -> np.ndarray:
-    """About ``rows`` evenly spaced values of the willingness-to-pay grid, with the grid value nearest
-    the scenario's willingness to pay."""
-    grid = np.unique(np.asarray(grid, dtype=float))
-    step = max(1, int(np.ceil((len(grid) - 1) / rows)))
-    idx = set(range(0, len(grid), step)) | {len(grid) - 1, int(np.abs(grid - wtp).argmin())}
-    return grid[sorted(idx)]
 
 
 def ceac_shown(ceac: pd.DataFrame, frontier: pd.DataFrame, at: float) -> pd.DataFrame:
