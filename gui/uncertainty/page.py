@@ -24,7 +24,7 @@ from sim.io import Scenario
 from sim.io.export import metadata_for
 from sim.psa import CycleMethod, inputs_table, reference_method, write_psa
 from sim.reference import Conversion, Correction
-from sim.report import ReportInputs, cycle_words, write_report
+from sim.report import cycle_words, inputs_from_psa, write_report
 
 from .views import AcceptabilityView, CePlaneView, ConvergenceView, EvpiView, PsaTablesView
 from .worker import PsaJob, PsaOutcome, PsaRequest, PsaWorker, eta_text
@@ -49,23 +49,24 @@ def analysis_metadata(outcome: PsaOutcome) -> dict:
 
 def write_analysis_folder(outcome: PsaOutcome, folder: str) -> str:
     """The analysis as ``hazardtrace psa`` writes it (:func:`sim.psa.write_psa`: per-draw table and
-    parameter draws as Parquet and CSV, every summary table as CSV, ``metadata.json``), atomically,
+    parameter draws as Parquet and CSV, the uncertain inputs and every summary table as CSV,
+    ``metadata.json``), atomically,
     replacing ``folder`` (the window asked first); returns the folder."""
     r = outcome.result
-    write_psa(folder, r.table, r.values, analysis_metadata(outcome), outcome.summaries, force=True)
+    write_psa(folder, r.table, r.values, analysis_metadata(outcome), outcome.summaries, force=True,
+              inputs=inputs_table(outcome.scenario))
     return str(folder)
 
 
 def write_analysis_report(outcome: PsaOutcome, path: str, extra_tables: dict | None = None) -> str:
     """The report of the analysis on screen (:func:`sim.report.write_report`, HTML or PDF by the
-    suffix), as ``hazardtrace report`` writes it for the analysis' folder: the scenario with its
-    uncertain inputs (:func:`sim.psa.inputs_table`) and the summary tables, with the analysis'
-    metadata; ``extra_tables`` adds what the views show besides (the population EVPI)."""
-    meta = analysis_metadata(outcome)
-    meta["threads"] = meta.get("workers")
-    meta["run_seconds"] = meta.pop("seconds")
-    tables = {"inputs": inputs_table(outcome.scenario), **outcome.summaries, **(extra_tables or {})}
-    inputs = ReportInputs(scenario=outcome.scenario, metadata=meta, source="a probabilistic analysis in the window")
+    suffix), as ``hazardtrace report`` writes it for the analysis' folder
+    (:func:`sim.report.inputs_from_psa`: the scenario with its uncertain inputs and the summary
+    tables, with the analysis' metadata); ``extra_tables`` adds what the views show besides (the
+    population EVPI)."""
+    inputs, tables = inputs_from_psa(outcome.scenario, analysis_metadata(outcome),
+                                     {**outcome.summaries, **(extra_tables or {})},
+                                     "a probabilistic analysis in the window")
     return str(write_report(inputs, path, force=True, psa_tables=tables))
 
 
