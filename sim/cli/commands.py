@@ -30,6 +30,7 @@ from ..io import Scenario, ScenarioError, demo_path, load_scenario
 from ..io.export import ExportError, RunWriter, metadata_for, write_tidy_csv
 from ..engine import SimulationError
 from ..pipeline import RunPlan, StreamSink, failure_text, run_plan
+from ..problems import ValidationError
 from ..reference import TUNNEL_ENTRY_WORDS, discretization_study, orders_of
 from ..report import CAUTION  # one caution text for the command line, the report and the window
 from . import fit, psa, report, rerun
@@ -104,7 +105,9 @@ def _run(scenario: Scenario, args: argparse.Namespace, out: TextIO) -> int:
     """Simulate through the run pipeline, streaming every chunk to the output folder (memory bounded
     by the chunks in flight), then print the summary, increments and error-study tables."""
     model = scenario.model
-    plan = RunPlan.from_scenario(scenario, patients=args.patients, seed=args.seed, workers=args.threads)
+    on_dask = getattr(args, "scheduler", None) is not None or (getattr(args, "workers", None) or 1) > 1
+    plan = RunPlan.from_scenario(scenario, patients=args.patients, seed=args.seed,
+                                 workers=args.workers if on_dask else args.threads)
     n, seed, workers = plan.patients, plan.seed, plan.workers
     folder = Path(args.output) if args.output else Path("out") / (scenario.path.stem if scenario.path else "run")
     comparator = model.strategy_names[0]
@@ -113,16 +116,20 @@ def _run(scenario: Scenario, args: argparse.Namespace, out: TextIO) -> int:
         "chunk_size": plan.chunk_size, "format": args.format, "conversions": list(scenario.conversions),
         "command": "run"})
     try:
-        writer = RunWriter(folder, fmt=args.format, force=args.force, metadata=meta,
-                           long_format_model=model if args.long_format else None)
-        results = run_plan(scenario, plan, sinks=(StreamSink(writer),), study=not args.no_study,
-                           progress=StageProgress())
+        if on_dask:  # chunks as Dask tasks, each written by its worker as a Parquet partition
+            results = _run_on_dask(scenario, plan, folder, args, meta)
+        else:
+            writer = RunWriter(folder, fmt=args.format, force=args.force, metadata=meta,
+                               long_format_model=model if args.long_format else None)
+            results = run_plan(scenario, plan, sinks=(StreamSink(writer),), study=not args.no_study,
+                               progress=StageProgress())
     except OSError as err:  # read-only folder, full disk, ...: the writer removed its temporary folder
         raise _output_error(folder, err) from None
     summary, increments, exact_note, study = results.outcomes, results.increments, results.exact_note, results.study
     events, seconds = results.n_events, results.seconds["simulation"]
-    out.write(f"{model.name}: {n:,} simulated patients per strategy (seed {seed}, {workers} threads), "
-              f"{events:,} events in {seconds:.1f} s\nOutput: {folder}/ ({args.format})\n")
+    out.write(f"{model.name}: {n:,} simulated patients per strategy (seed {seed}, {workers} "
+              f"{'Dask workers' if on_dask else 'threads'}), {events:,} events in {seconds:.1f} s\n"
+              f"Output: {folder}/ ({'partitioned parquet' if on_dask else args.format})\n")
     v = model.valuation
     out.write(f"Horizon: {model.horizon.value:g} {'years' if model.horizon.scale == 'time' else '(attained age)'}. "
               f"Discounting {100 * v.discount_costs:g}% costs, {100 * v.discount_effects:g}% effects. "
@@ -152,6 +159,19 @@ def _run(scenario: Scenario, args: argparse.Namespace, out: TextIO) -> int:
                          f"please report it with the scenario file\n")
         return 1
     return 0
+
+
+def _run_on_dask(scenario: Scenario, plan: RunPlan, folder: Path, args: argparse.Namespace, meta: dict):
+    """``run --workers N`` / ``--scheduler ADDRESS``: :func:`sim.distributed.run_distributed`."""
+    from ..distributed import PARTITIONED_FORMAT, run_distributed
+
+    for flag, given in (("--format", args.format != "parquet"), ("--long-format", args.long_format)):
+        if given:
+            raise ValidationError((flag,), "is not available with --workers/--scheduler (the output is partitioned "
+                                  "Parquet)", True)
+    meta = {**meta, "format": PARTITIONED_FORMAT, "workers": plan.workers, "scheduler": args.scheduler}
+    return run_distributed(scenario, plan, folder, scheduler=args.scheduler, force=args.force,
+                           study=not args.no_study, metadata=meta, progress=StageProgress())
 
 
 def _compare(scenario: Scenario, args: argparse.Namespace, out: TextIO) -> int:
@@ -197,6 +217,10 @@ def _parser() -> argparse.ArgumentParser:
         p.add_argument("--long-format", action="store_true",
                        help="also write the multi-state long format (one row per patient per transition at risk)")
         p.add_argument("--no-study", action="store_true", help="skip the discretization-error study")
+        p.add_argument("--workers", type=int, help="N > 1: run the chunks on a local Dask cluster of N worker "
+                       "processes and write partitioned Parquet (events/part-NNNNN.parquet, patients/...)")
+        p.add_argument("--scheduler", help="tcp://host:port of a Dask scheduler: run the chunks on its workers "
+                       "(the output folder on a file system they share); partitioned Parquet as --workers")
 
     run = sub.add_parser("run", help="simulate a scenario and write the event log, patient table and summary")
     run.add_argument("scenario", help="scenario file (.toml)")

@@ -8,5 +8,8 @@ pyproject.toml), and only inside its functions.
 
 from .cluster import SchedulerError, connect
 from .psa import PsaResult, run_jobs, run_psa
+from .run import PARTITIONED_FORMAT, read_partitioned, run_distributed
+from .sums import RunSums, chunk_sums
 
-__all__ = ["SchedulerError", "connect", "PsaResult", "run_jobs", "run_psa"]
+__all__ = ["SchedulerError", "connect", "PsaResult", "run_jobs", "run_psa", "PARTITIONED_FORMAT", "read_partitioned",
+           "run_distributed", "RunSums", "chunk_sums"]
