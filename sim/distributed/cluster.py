@@ -8,6 +8,7 @@ in pyproject.toml); Dask is imported inside the functions, so importing the pack
 from __future__ import annotations
 
 import logging
+import time
 from collections.abc import Callable, Iterator, Sequence
 from typing import Any
 
@@ -59,20 +60,27 @@ def completed(futures: Sequence[Any], cancel: CancelToken | Callable[[], bool] |
               what: str = "run") -> Iterator[tuple[int, Any]]:
     """``(index, result)`` of each future as it completes (any order), checking the cancel request
     every :data:`POLL_SECONDS`; a task's error is raised here, a cancel request raises
-    :class:`sim.engine.SimulationCancelled`. The caller cancels the futures left (:func:`cancel_futures`)."""
-    from dask.distributed import wait
+    :class:`sim.engine.SimulationCancelled`. The caller cancels the futures left (:func:`cancel_futures`).
+
+    Uses ``distributed.as_completed`` polled without blocking (``distributed.wait`` with a timeout,
+    called again and again, made the client log "deque mutated during iteration" in a 100-chunk run).
+    """
+    from dask.distributed import as_completed
 
     index = {f.key: i for i, f in enumerate(futures)}
-    pending = set(futures)
-    while pending:
-        if cancel_requested(cancel):
-            raise SimulationCancelled(f"{what} cancelled")
-        try:
-            done, pending = wait(pending, timeout=POLL_SECONDS, return_when="FIRST_COMPLETED")
-        except TimeoutError:  # nothing finished within the poll interval
-            continue
-        for f in done:
-            yield index[f.key], f.result()  # raises the task's error here
+    ready = as_completed(futures)
+    try:
+        while not ready.is_empty():
+            if cancel_requested(cancel):
+                raise SimulationCancelled(f"{what} cancelled")
+            batch = ready.next_batch(block=False)
+            if not batch:
+                time.sleep(POLL_SECONDS)
+                continue
+            for f in batch:
+                yield index[f.key], f.result()  # raises the task's error here
+    finally:
+        ready.clear()
 
 
 def cancel_futures(client: Any, futures: Sequence[Any]) -> None:

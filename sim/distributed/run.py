@@ -108,7 +108,10 @@ def _commit(tmp: Path, out: Path, force: bool) -> None:
         except BaseException:
             os.rename(backup, out)
             raise
-        shutil.rmtree(backup, ignore_errors=True) if backup.is_dir() else backup.unlink(missing_ok=True)
+        if backup.is_dir() and not backup.is_symlink():
+            shutil.rmtree(backup, ignore_errors=True)
+        else:
+            backup.unlink(missing_ok=True)
     else:
         os.rename(tmp, out)
     fsync_folder(out.parent)
