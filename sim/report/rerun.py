@@ -19,6 +19,7 @@ import pandas as pd
 import pyarrow as pa
 
 from .. import __version__
+from ..engine import STREAM_LAYOUT
 from ..analysis import OutcomeAccumulator, patient_outcomes
 from ..engine import SimulationResult
 from ..io.export import TableHash, input_files
@@ -99,6 +100,10 @@ def _differences(meta: dict[str, Any], scenario_text: str, base: Path) -> list[s
     for key, (name, now) in versions.items():
         if meta.get(key) is not None and str(meta[key]) != now:
             out.append(f"{name} version: recorded {meta[key]}, now {now}")
+    layout = meta.get("stream_layout", 1)  # runs from before the layout was recorded used layout 1
+    if layout != STREAM_LAYOUT:
+        out.append(f"random-number stream layout: recorded {layout}, now {STREAM_LAYOUT} (the same seed "
+                   f"gives other draws)")
     recorded = {f["key"]: f for f in meta.get("input_files") or []}
     for f in input_files(scenario_text, base):
         old = recorded.get(f["key"])
