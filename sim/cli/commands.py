@@ -105,6 +105,8 @@ def _run(scenario: Scenario, args: argparse.Namespace, out: TextIO) -> int:
     """Simulate through the run pipeline, streaming every chunk to the output folder (memory bounded
     by the chunks in flight), then print the summary, increments and error-study tables."""
     model = scenario.model
+    if getattr(args, "workers", None) is not None and args.workers < 1:
+        raise ValidationError(("--workers",), "must be a positive integer", args.workers)
     on_dask = getattr(args, "scheduler", None) is not None or (getattr(args, "workers", None) or 1) > 1
     plan = RunPlan.from_scenario(scenario, patients=args.patients, seed=args.seed,
                                  workers=args.workers if on_dask else args.threads)

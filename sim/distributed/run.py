@@ -151,6 +151,7 @@ def run_distributed(scenario: Scenario, plan: RunPlan, out_dir: str | os.PathLik
     model = plan.model
     jobs = chunk_jobs(model, plan.patients, plan.seed, plan.chunk_size, plan.strategies)
     t0 = time.perf_counter()
+    made = [p for p in reversed(out.parents) if not p.exists()]  # removed again if the run fails
     out.parent.mkdir(parents=True, exist_ok=True)
     remove_leftovers(out)
     tmp = temporary_folder_for(out)
@@ -205,6 +206,11 @@ def run_distributed(scenario: Scenario, plan: RunPlan, out_dir: str | os.PathLik
         if client is not None:
             cancel_futures(client, [f for f in futures if f is not None])
         shutil.rmtree(tmp, ignore_errors=True)
+        for folder in reversed(made):
+            try:
+                folder.rmdir()  # only if still empty
+            except OSError:
+                break
         raise
     finally:
         if client is not None:

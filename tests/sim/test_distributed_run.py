@@ -108,10 +108,21 @@ def test_cancel_leaves_nothing(lanthic, address, tmp_path):
 def test_cli_unreachable_scheduler_exits_2_and_leaves_nothing(tmp_path, monkeypatch, capsys):
     monkeypatch.setattr(cluster_module, "CONNECT_TIMEOUT", "1s")
     code = main(["run", str(SCENARIO_DIR / "lanthic_syndrome.toml"), "--patients", "2000", "--no-study",
-                 "--scheduler", "tcp://127.0.0.1:9", "--output", str(tmp_path / "run")])
+                 "--scheduler", "tcp://127.0.0.1:9", "--output", str(tmp_path / "out" / "run")])
     assert code == 2
     err = capsys.readouterr().err
     assert "scheduler" in err and "tcp://127.0.0.1:9" in err and len(err.strip().splitlines()) == 1
+    assert list(tmp_path.iterdir()) == []
+
+
+@pytest.mark.parametrize("extra, named", [(["--workers", "0"], "--workers"),
+                                           (["--workers", "2", "--format", "csv"], "--format"),
+                                           (["--workers", "2", "--long-format"], "--long-format")])
+def test_cli_options_the_partitioned_run_cannot_take_exit_2(tmp_path, capsys, extra, named):
+    code = main(["run", str(SCENARIO_DIR / "lanthic_syndrome.toml"), "--patients", "2000", "--no-study",
+                 "--output", str(tmp_path / "out" / "run"), *extra])
+    assert code == 2
+    assert named in capsys.readouterr().err
     assert list(tmp_path.iterdir()) == []
 
 
