@@ -250,16 +250,35 @@ class OutcomeAccumulator:
             v_de = (acc[6] - n * mb * mb) / (n - 1)
             cov = (acc[7] - n * ma * mb) / (n - 1)
             _, var_s, _ = self._mean_var(s)
-            v_dc_u, v_de_u = var_s[ic] + var_b[ic], var_s[ie] + var_b[ie]
-            icer = m_dc / m_de if m_de != 0 else np.nan
-            se_icer = np.sqrt(max(v_dc - 2 * icer * cov + icer**2 * v_de, 0.0) / n) / abs(m_de) if m_de else np.nan
-            se_icer_u = np.sqrt(max(v_dc_u + icer**2 * v_de_u, 0.0) / n) / abs(m_de) if m_de else np.nan
-            v_nmb = self.wtp**2 * v_de + v_dc - 2 * self.wtp * cov
-            rows += [
-                (s, self.comparator, "delta_costs", m_dc, np.sqrt(v_dc / n), np.sqrt(v_dc_u / n)),
-                (s, self.comparator, "delta_effects", m_de, np.sqrt(v_de / n), np.sqrt(v_de_u / n)),
-                (s, self.comparator, "icer", icer, se_icer, se_icer_u),
-                (s, self.comparator, "nmb", self.wtp * m_de - m_dc, np.sqrt(max(v_nmb, 0.0) / n),
-                 np.sqrt((self.wtp**2 * v_de_u + v_dc_u) / n)),
-            ]
-        return pd.DataFrame(rows, columns=["strategy", "comparator", "quantity", "value", "mcse", "mcse_unpaired"])
+            rows += incremental_rows(s, self.comparator, self.wtp, n, (m_dc, m_de), (v_dc, v_de, cov),
+                                     (var_s[ic] + var_b[ic], var_s[ie] + var_b[ie]))
+        return pd.DataFrame(rows, columns=INCREMENTAL_COLUMNS)
+
+
+INCREMENTAL_COLUMNS = ["strategy", "comparator", "quantity", "value", "mcse", "mcse_unpaired"]
+
+
+def incremental_rows(strategy: str, comparator: str, wtp: float, n: int, means: tuple[float, float],
+                     paired: tuple[float, float, float], unpaired: tuple[float, float]) -> list[tuple]:
+    """Rows of delta costs, delta effects, ICER and NMB with paired and unpaired MCSE (see :func:`incremental`).
+
+    ``means`` are the mean differences (dC, dE) over ``n`` patients, ``paired`` the sample variances of
+    the per-patient differences and their covariance (var dC, var dE, cov), ``unpaired`` the sums of
+    the two strategies' variances (var C_s + var C_b, var E_s + var E_b). ICER = dC/dE with its MCSE
+    by the delta method, SE = sqrt((var dC - 2 ICER cov + ICER^2 var dE) / n) / |dE| (common practice,
+    no source); NMB = wtp dE - dC. Shared by :class:`OutcomeAccumulator` and the Dask run's sums.
+    """
+    m_dc, m_de = means
+    v_dc, v_de, cov = paired
+    v_dc_u, v_de_u = unpaired
+    icer = m_dc / m_de if m_de != 0 else np.nan
+    se_icer = np.sqrt(max(v_dc - 2 * icer * cov + icer**2 * v_de, 0.0) / n) / abs(m_de) if m_de else np.nan
+    se_icer_u = np.sqrt(max(v_dc_u + icer**2 * v_de_u, 0.0) / n) / abs(m_de) if m_de else np.nan
+    v_nmb = wtp**2 * v_de + v_dc - 2 * wtp * cov
+    return [
+        (strategy, comparator, "delta_costs", m_dc, np.sqrt(v_dc / n), np.sqrt(v_dc_u / n)),
+        (strategy, comparator, "delta_effects", m_de, np.sqrt(v_de / n), np.sqrt(v_de_u / n)),
+        (strategy, comparator, "icer", icer, se_icer, se_icer_u),
+        (strategy, comparator, "nmb", wtp * m_de - m_dc, np.sqrt(max(v_nmb, 0.0) / n),
+         np.sqrt((wtp**2 * v_de_u + v_dc_u) / n)),
+    ]

@@ -22,6 +22,8 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
+from ..analysis.outcomes import INCREMENTAL_COLUMNS, incremental_rows
+
 __all__ = ["Moments", "ChunkSums", "chunk_sums", "RunSums"]
 
 
@@ -122,16 +124,6 @@ class RunSums:
             m_dc, m_de = p.mean
             v_dc, v_de, cov = p.m2[0, 0] / (n - 1), p.m2[1, 1] / (n - 1), p.m2[0, 1] / (n - 1)
             var_s = self.outcomes[s].variance()
-            v_dc_u, v_de_u = var_s[ic] + var_b[ic], var_s[ie] + var_b[ie]
-            icer = m_dc / m_de if m_de != 0 else np.nan
-            se_icer = np.sqrt(max(v_dc - 2 * icer * cov + icer**2 * v_de, 0.0) / n) / abs(m_de) if m_de else np.nan
-            se_icer_u = np.sqrt(max(v_dc_u + icer**2 * v_de_u, 0.0) / n) / abs(m_de) if m_de else np.nan
-            v_nmb = self.wtp**2 * v_de + v_dc - 2 * self.wtp * cov
-            rows += [
-                (s, self.comparator, "delta_costs", m_dc, np.sqrt(v_dc / n), np.sqrt(v_dc_u / n)),
-                (s, self.comparator, "delta_effects", m_de, np.sqrt(v_de / n), np.sqrt(v_de_u / n)),
-                (s, self.comparator, "icer", icer, se_icer, se_icer_u),
-                (s, self.comparator, "nmb", self.wtp * m_de - m_dc, np.sqrt(max(v_nmb, 0.0) / n),
-                 np.sqrt((self.wtp**2 * v_de_u + v_dc_u) / n)),
-            ]
-        return pd.DataFrame(rows, columns=["strategy", "comparator", "quantity", "value", "mcse", "mcse_unpaired"])
+            rows += incremental_rows(s, self.comparator, self.wtp, n, (m_dc, m_de), (v_dc, v_de, cov),
+                                     (var_s[ic] + var_b[ic], var_s[ie] + var_b[ie]))
+        return pd.DataFrame(rows, columns=INCREMENTAL_COLUMNS)
