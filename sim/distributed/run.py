@@ -38,7 +38,7 @@ import pyarrow.parquet as pq
 from ..analysis import patient_outcomes
 from ..engine import CancelToken
 from ..io import Scenario
-from ..io.atomic import fsync_folder
+from ..io.atomic import replace_folder
 from ..io.export import ExportError, TableHash, write_tidy_csv
 from ..io.export.leftovers import remove_leftovers, remove_owner, temporary_folder_for, write_owner
 from ..io.export.metadata import metadata_for
@@ -101,20 +101,7 @@ def _commit(tmp: Path, out: Path, force: bool) -> None:
         if not force:
             rule = "exists (created while the run was being written); pass --force to overwrite"
             raise ExportError(f"{out} {rule}", file=out, rule=rule)
-        backup = out.parent / f".{out.name}.old-{uuid.uuid4().hex[:12]}"
-        os.rename(out, backup)
-        try:
-            os.rename(tmp, out)
-        except BaseException:
-            os.rename(backup, out)
-            raise
-        if backup.is_dir() and not backup.is_symlink():
-            shutil.rmtree(backup, ignore_errors=True)
-        else:
-            backup.unlink(missing_ok=True)
-    else:
-        os.rename(tmp, out)
-    fsync_folder(out.parent)
+    replace_folder(tmp, out)
 
 
 def run_distributed(scenario: Scenario, plan: RunPlan, out_dir: str | os.PathLike[str], *,

@@ -31,6 +31,7 @@ from __future__ import annotations
 
 import errno
 import os
+import shutil
 import uuid
 from collections.abc import Callable
 from pathlib import Path
@@ -81,6 +82,31 @@ def fsync_folder(folder: str | os.PathLike[str]) -> None:
         pass
     finally:
         os.close(fd)
+
+
+def replace_folder(tmp: str | os.PathLike[str], out: str | os.PathLike[str]) -> None:
+    """Rename the finished folder ``tmp`` to ``out``, replacing whatever ``out`` is (checked by the caller).
+
+    An existing ``out`` is first renamed to a hidden backup sibling, then ``tmp`` takes its name and
+    the backup is removed; if the second rename fails the backup is renamed back, so ``out`` is never
+    lost. The parent folder is synced so that the rename survives a crash.
+    """
+    tmp, out = Path(tmp), Path(out)
+    if out.exists() or out.is_symlink():
+        backup = out.parent / f".{out.name}.old-{uuid.uuid4().hex[:12]}"
+        os.rename(out, backup)
+        try:
+            os.rename(tmp, out)
+        except BaseException:
+            os.rename(backup, out)
+            raise
+        if backup.is_dir() and not backup.is_symlink():
+            shutil.rmtree(backup, ignore_errors=True)
+        else:
+            backup.unlink(missing_ok=True)
+    else:
+        os.rename(tmp, out)
+    fsync_folder(out.parent)
 
 
 def _exists(path: Path) -> AtomicWriteError:

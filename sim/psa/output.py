@@ -26,6 +26,7 @@ import numpy as np
 import pandas as pd
 
 from ..io import ExportError, write_table, write_text_atomic, write_tidy_csv
+from ..io.atomic import replace_folder
 from .tables import table_hash
 
 __all__ = ["write_psa"]
@@ -80,17 +81,7 @@ def write_psa(folder: str | os.PathLike[str], table: pd.DataFrame, values: pd.Da
         text = json.dumps(meta, indent=2, ensure_ascii=False, allow_nan=False, default=_json_default) + "\n"
         write_text_atomic(tmp / "metadata.json", text)
         names["metadata"] = "metadata.json"
-        if out.exists() or out.is_symlink():
-            backup = out.parent / f".{out.name}.old-{uuid.uuid4().hex[:12]}"
-            os.rename(out, backup)
-            try:
-                os.rename(tmp, out)
-            except BaseException:
-                os.rename(backup, out)
-                raise
-            shutil.rmtree(backup, ignore_errors=True)
-        else:
-            os.rename(tmp, out)
+        replace_folder(tmp, out)
         tmp = None
     except BaseException:
         if tmp is not None:
