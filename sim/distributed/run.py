@@ -43,7 +43,7 @@ from ..io.export import ExportError, TableHash, write_tidy_csv
 from ..io.export.leftovers import remove_leftovers, remove_owner, temporary_folder_for, write_owner
 from ..io.export.metadata import metadata_for
 from ..pipeline import STAGES, ChunkJob, RunPlan, RunResults, RunState, SerialExecutor, chunk_jobs, run_stages, simulate_chunk
-from ..pipeline.sinks import chunk_result
+from ..pipeline.sinks import chunk_result, result_tables
 from .cluster import cancel_futures, completed, connect
 from .sums import ChunkSums, RunSums, chunk_sums
 
@@ -219,14 +219,7 @@ def _results(state: RunState) -> RunResults:
 
 def _write_results(folder: Path, results: RunResults) -> None:
     """The result tables as CSV, as :class:`sim.io.export.RunWriter` adds them to a streamed run."""
-    tables = [("summary", results.outcomes), ("increments", results.increments)]
-    study = results.study
-    if study is not None:
-        tables += [("error_study", study.table), ("error_study_orders", study.orders),
-                   ("error_study_largest_cycle", study.largest_cycle)]
-        if len(study.decisions):
-            tables.append(("error_study_decisions", study.decisions))
-    for name, table in tables:
+    for name, table in result_tables(results):  # survival and occupancy are None here (not computed)
         write_tidy_csv(table, folder / f"{name}.csv")
 
 

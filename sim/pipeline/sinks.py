@@ -34,9 +34,11 @@ from .chunks import ChunkTables
 from .plan import RunPlan
 
 if TYPE_CHECKING:  # pragma: no cover
+    import pandas as pd
+
     from .results import RunResults
 
-__all__ = ["ChunkSink", "MemorySink", "StreamSink", "chunk_result"]
+__all__ = ["ChunkSink", "MemorySink", "StreamSink", "chunk_result", "result_tables"]
 
 GENERATOR = "Philox4x64-10 counter-based"
 
@@ -139,18 +141,27 @@ class StreamSink(ChunkSink):
         return self._acc
 
     def close(self, results: "RunResults") -> None:
-        tables = [("summary", results.outcomes), ("increments", results.increments)]
-        if results.survival is not None and results.occupancy is not None:
-            tables += [("survival", results.survival), ("occupancy", results.occupancy)]
-        study = results.study
-        if study is not None:
-            tables += [("error_study", study.table), ("error_study_orders", study.orders),
-                       ("error_study_largest_cycle", study.largest_cycle)]
-            if len(study.decisions):
-                tables.append(("error_study_decisions", study.decisions))
-        for name, table in tables:
+        for name, table in result_tables(results):
             self.writer.add_table(name, table)
         self.paths = self.writer.close()
 
     def abort(self) -> None:
         self.writer.abort()
+
+
+def result_tables(results: "RunResults") -> list[tuple[str, pd.DataFrame]]:
+    """The result tables a written run holds beside its streamed ones, as (file stem, table).
+
+    Summary and increments; survival and occupancy when computed; the error study's tables when
+    it ran (its decisions only when there are any).
+    """
+    tables = [("summary", results.outcomes), ("increments", results.increments)]
+    if results.survival is not None and results.occupancy is not None:
+        tables += [("survival", results.survival), ("occupancy", results.occupancy)]
+    study = results.study
+    if study is not None:
+        tables += [("error_study", study.table), ("error_study_orders", study.orders),
+                   ("error_study_largest_cycle", study.largest_cycle)]
+        if len(study.decisions):
+            tables.append(("error_study_decisions", study.decisions))
+    return tables
