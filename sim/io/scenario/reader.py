@@ -27,8 +27,8 @@ from .errors import ScenarioError
 from .hazard_reading import read_hazard, read_life_table_hazards
 from .limits import MAX_FILE_BYTES, document_problems, run_problems, size_problems
 from .positions import KeyLines
-from .schema import ENTRY_AGES, FORMAT_VERSION, SCHEMA, Items, Ref, Table, Text, Variant
-from .uncertain import read_uncertainty, with_values
+from .schema import ENTRY_AGES, FORMAT_VERSION, SCHEMA, Items, Ref, Table, Variant
+from .uncertain import read_uncertainty, read_variant, with_values
 
 __all__ = ["Scenario", "parse_scenario", "load_scenario"]
 
@@ -169,12 +169,7 @@ class _Reading:
         path = ("population", "entry_age")
         if ea is None:
             raise Invalid  # reported as a missing key of the population
-        if not isinstance(ea, Mapping):
-            ck.fail(path, "must be a table with a 'distribution'", ea)
-        if node.tag not in ea:
-            ck.fail(path, f"missing required key {node.tag!r}")
-        dist = ck.value(Text(choices=tuple(node.variants)), ea[node.tag], (*path, node.tag))
-        v = ck.table(ea, path, node.variants[dist], extra=(node.tag,))
+        dist, v = read_variant(ck, ea, path, node)
         return ck.guarded(ENTRY_AGES[dist], *[v[k] for k in node.variants[dist]])
 
     def background(self, raw: Any, sexes: tuple[str, ...]) -> BackgroundMortality:

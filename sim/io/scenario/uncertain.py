@@ -35,10 +35,10 @@ from ...uncertainty import (MOMENT_FITS, Beta, Dirichlet, Gamma, LogNormal, Mult
 from .checking import Checker, Invalid
 from .errors import ScenarioError
 from .schema import (EXPONENTIAL_FORMS, SCHEMA, UNCERTAINTY_FORMS, HazardTable, Number, Ref, StateOrShares, Text,
-                     node_at)
+                     Variant, node_at)
 
 __all__ = ["parse_key", "read_uncertainty", "distribution_of", "SHARE_TABLES", "NOT_UNCERTAIN",
-           "renamed_parameter"]
+           "renamed_parameter", "read_variant"]
 
 SHARE_TABLES = (("population", "sex_mix"), ("population", "initial_state"))
 """Tables of shares that sum to 1 (``initial_state`` also per sex, one level down)."""
@@ -281,15 +281,19 @@ def _listed(value: Any) -> Any:
     return [_listed(x) for x in value] if isinstance(value, (tuple, list)) else value
 
 
+def read_variant(ck: Checker, raw: Any, path: KeyPath, node: Variant) -> tuple[str, dict[str, Any]]:
+    """A table whose tag key (``distribution``) picks its variant: the variant and its checked keys."""
+    if not isinstance(raw, Mapping):
+        ck.fail(path, "must be a table with a 'distribution'", raw)
+    if node.tag not in raw:
+        ck.fail(path, f"missing required key {node.tag!r}")
+    dist = ck.value(Text(choices=tuple(node.variants)), raw[node.tag], (*path, node.tag))
+    return dist, ck.table(raw, path, node.variants[dist], extra=(node.tag,))
+
+
 def _entry(ck: Checker, doc: Mapping, i: int, raw: Any) -> UncertainInput:
     p = ("uncertainty", i)
-    node = SCHEMA.keys["uncertainty"].item
-    if not isinstance(raw, Mapping):
-        ck.fail(p, "must be a table with a 'distribution'", raw)
-    if node.tag not in raw:
-        ck.fail(p, f"missing required key {node.tag!r}")
-    dist = ck.value(Text(choices=tuple(node.variants)), raw[node.tag], (*p, node.tag))
-    v = ck.table(raw, p, node.variants[dist], extra=(node.tag,))
+    dist, v = read_variant(ck, raw, p, SCHEMA.keys["uncertainty"].item)
     d, fitted = _distribution(ck, dist, v, p, raw)
     where = (*p, "parameter") if "parameter" in v else (*p, "parameters")
     names = (v["parameter"],) if "parameter" in v else v["parameters"]
