@@ -27,6 +27,13 @@ def _finish(fig, axes) -> None:
     fig.tight_layout()
 
 
+def _legend_svg(fig, ax, prefix: str) -> str:
+    """A one-panel figure finished: its legend, grid and layout, then the SVG text."""
+    ax.legend(fontsize=7, frameon=False, loc="best")
+    _finish(fig, [ax])
+    return _svg(fig, prefix)
+
+
 def _money(ax, axis: str) -> None:
     from matplotlib.ticker import FuncFormatter
 
@@ -65,9 +72,7 @@ def ce_plane_svg(plane: pd.DataFrame, wtp: float, currency: str, prefix: str) ->
     ax.set(xlabel="incremental QALYs (discounted)", ylabel=f"incremental costs ({currency}, discounted)",
            title=f"Cost-effectiveness plane against {plane['comparator'].iloc[0]}")
     _money(ax, "y")
-    ax.legend(fontsize=7, frameon=False, loc="best")
-    _finish(fig, [ax])
-    return _svg(fig, prefix)
+    return _legend_svg(fig, ax, prefix)
 
 
 def acceptability_svg(ceac: pd.DataFrame, frontier: pd.DataFrame, wtp: float, currency: str, prefix: str) -> str:
@@ -134,9 +139,7 @@ def evpi_svg(evpi: pd.DataFrame, wtp: float, currency: str, prefix: str, populat
         sec.set_ylabel(f"population EVPI ({currency})")
         _money(sec, "y")
         sec.tick_params(labelsize=8)
-    ax.legend(fontsize=7, frameon=False, loc="best")
-    _finish(fig, [ax])
-    return _svg(fig, prefix)
+    return _legend_svg(fig, ax, prefix)
 
 
 def convergence_svg(conv: pd.DataFrame, currency: str, prefix: str) -> str:
@@ -158,6 +161,4 @@ def convergence_svg(conv: pd.DataFrame, currency: str, prefix: str) -> str:
     ax.set(xlabel="parameter draws", ylabel=f"incremental net benefit ({currency})",
            title=f"Running mean of the incremental net benefit at {wtp:,.0f} {currency}/QALY")
     _money(ax, "y")
-    ax.legend(fontsize=7, frameon=False, loc="best")
-    _finish(fig, [ax])
-    return _svg(fig, prefix)
+    return _legend_svg(fig, ax, prefix)
