@@ -18,6 +18,7 @@ from PySide6.QtWidgets import (QCheckBox, QFormLayout, QHBoxLayout, QLabel, QLin
 
 from sim.io.scenario import RunSettings, Scenario
 
+from .job_controls import ask_cancel, set_running, show_done, show_idle, start_job, stop_job
 from .worker import Job, RunWorker
 
 __all__ = ["RunPanel", "STAGE_TEXT", "settings_text", "timing_text", "CANCELLING_TEXT"]
@@ -162,15 +163,12 @@ class RunPanel(QWidget):
                            study=self.study.isChecked())
         job = Job(worker)
         job.progress.connect(self._on_progress)
-        job.finished.connect(self._on_finished)
-        job.failed.connect(self._on_failed)
-        job.cancelled.connect(self._on_cancelled)
+        start_job(job, self.progress, self.stage, finished=self._on_finished, failed=self._on_failed,
+                  cancelled=self._on_cancelled)
         self._job = job
         self._started = time.monotonic()
         self._finished_after: float | None = None
         self._results_seconds: dict = {}
-        self.progress.setRange(0, 0)
-        self.stage.setText("Starting…")
         self._update_enabled()
         self.run_started.emit()
         job.start()
@@ -178,16 +176,13 @@ class RunPanel(QWidget):
     @Slot()
     def cancel_run(self) -> None:
         if self._job is not None:
-            self._job.cancel()
-            self.cancel_button.setEnabled(False)
-            self.stage.setText(CANCELLING_TEXT)
+            ask_cancel(self._job, self.cancel_button, self.stage, CANCELLING_TEXT)
             self.stage.setToolTip("The run stops at its next check, between chunks of patients or stages")
 
     @Slot()
     def shutdown(self) -> None:
         """Cancel a running run and wait for its thread (call before the window closes)."""
-        if self._job is not None:
-            self._job.stop()
+        if stop_job(self._job):
             self._job = None
             self._to_idle("Cancelled")
 
@@ -203,16 +198,11 @@ class RunPanel(QWidget):
         self._applied = run
 
     def _update_enabled(self) -> None:
-        running = self._job is not None
-        self.run_button.setEnabled(not running and self._scenario is not None)
-        self.cancel_button.setEnabled(running)
-        for w in (self.patients, self.seed, self.threads, self.study):
-            w.setEnabled(not running)
+        set_running(self._job is not None, self._scenario is not None, self.run_button, self.cancel_button,
+                    (self.patients, self.seed, self.threads, self.study))
 
     def _to_idle(self, text: str) -> None:
-        self.progress.setRange(0, 1)
-        self.progress.setValue(0)
-        self.stage.setText(text)
+        show_idle(self.progress, self.stage, text)
         self._update_enabled()
 
     @Slot(str, int, int)
@@ -233,8 +223,7 @@ class RunPanel(QWidget):
     @Slot(object)
     def _on_finished(self, results: object) -> None:
         self._job = None
-        self.progress.setRange(0, 1)
-        self.progress.setValue(1)
+        show_done(self.progress)
         # a later stage that failed is reported; the simulation's results are shown all the same
         self.stage.setText("; ".join(["Done", *results.failure_lines()]))
         self._update_enabled()

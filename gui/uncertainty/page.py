@@ -16,6 +16,7 @@ from PySide6.QtWidgets import (QCheckBox, QComboBox, QFileDialog, QFormLayout, Q
                                QVBoxLayout, QWidget)
 
 from gui.document import ScenarioDocument
+from gui.job_controls import ask_cancel, set_running, show_done, show_idle, start_job, stop_job
 from gui.palette import OKABE_ITO
 from gui.results.exports import Exporter
 from gui.worker import FunctionWorker, Job
@@ -206,43 +207,32 @@ class PsaRunControls(QWidget):
             return
         job = PsaJob(PsaWorker(self.scenario, self.request()))
         job.draws.connect(self._on_draws)
-        job.finished.connect(self._on_finished)
-        job.failed.connect(self._on_failed)
-        job.cancelled.connect(self._on_cancelled)
+        start_job(job, self.progress, self.status, finished=self._on_finished, failed=self._on_failed,
+                  cancelled=self._on_cancelled)
         self.job = job
-        self.progress.setRange(0, 0)
-        self.status.setText("Starting…")
         self._update_enabled()
         self.started.emit()
         job.start()
 
     @Slot()
     def cancel(self) -> None:
-        if self.job is not None:
-            self.job.cancel()
-            self.cancel_button.setEnabled(False)
-            self.status.setText(CANCELLING_TEXT)
+        ask_cancel(self.job, self.cancel_button, self.status, CANCELLING_TEXT)
 
     @Slot()
     def shutdown(self) -> None:
         """Cancel a running analysis and wait for its thread (before the window closes)."""
-        if self.job is not None:
-            self.job.stop()
+        if stop_job(self.job):
             self.job = None
             self._idle("Cancelled")
 
     def _update_enabled(self) -> None:
         running = self.job is not None
-        self.run_button.setEnabled(not running and self.scenario is not None)
-        self.cancel_button.setEnabled(running)
-        for w in (self.draws, self.patients, self.workers):
-            w.setEnabled(not running)
+        set_running(running, self.scenario is not None, self.run_button, self.cancel_button,
+                    (self.draws, self.patients, self.workers))
         self.approx.setEnabled(not running and self.scenario is not None and self.scenario.model.is_markov)
 
     def _idle(self, text: str) -> None:
-        self.progress.setRange(0, 1)
-        self.progress.setValue(0)
-        self.status.setText(text)
+        show_idle(self.progress, self.status, text)
         self._update_enabled()
 
     @Slot(int, int, float)
@@ -256,8 +246,7 @@ class PsaRunControls(QWidget):
     @Slot(object)
     def _on_finished(self, outcome: PsaOutcome) -> None:
         self.job = None
-        self.progress.setRange(0, 1)
-        self.progress.setValue(1)
+        show_done(self.progress)
         r = outcome.request
         self.status.setText(f"Done: {r.draws:,} draws × {r.patients:,} patients per draw in {outcome.seconds:.1f} s"
                             + "".join(f"\nNote: {n}" for n in outcome.result.notes))
