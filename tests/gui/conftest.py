@@ -13,3 +13,62 @@ def _collect_in_the_gui_thread(qapp):
     yield
     qapp.sendPostedEvents(None, QEvent.Type.DeferredDelete)
     gc.collect()
+
+
+@pytest.fixture
+def isolated_document(tmp_path):
+    """A factory of scenario documents whose settings and recovery files live in ``tmp_path`` (never
+    the user's): ``isolated_document(path)`` opens ``path`` and checks it is a valid scenario;
+    ``isolated_document()`` opens nothing."""
+    from PySide6.QtCore import QSettings
+
+    from gui.document import ScenarioDocument
+
+    def make(path=None) -> ScenarioDocument:
+        settings = QSettings(str(tmp_path / "settings.ini"), QSettings.Format.IniFormat)
+        doc = ScenarioDocument(recovery_dir=tmp_path / "recovery", settings=settings, autosave_ms=0)
+        if path is not None:
+            doc.open(path)
+            assert doc.scenario is not None, doc.errors
+        return doc
+
+    return make
+
+
+@pytest.fixture
+def shown(qtbot):
+    """``shown(widget)``: the widget, owned by qtbot (closed after the test), shown and exposed."""
+    def show(widget):
+        qtbot.addWidget(widget)
+        widget.show()
+        qtbot.waitExposed(widget)
+        return widget
+
+    return show
+
+
+@pytest.fixture
+def main_window(qtbot, isolated_document):
+    """``main_window(path, size=None)``: the main window started on the scenario at ``path``, shown
+    (resized to ``size`` if given). After the test its probabilistic analysis is stopped and it closes
+    without asking about unsaved edits."""
+    from gui.main_window import MainWindow
+
+    made = []
+
+    def make(path, size=None):
+        w = MainWindow(isolated_document())
+        made.append(w)
+        w.start(path)
+        if size is not None:
+            w.resize(*size)
+        w.show()
+        qtbot.waitExposed(w)
+        return w
+
+    yield make
+    for w in made:
+        w.psa_page.shutdown()
+        w.document.undo_stack.setClean()
+        w.close()
+        w.deleteLater()

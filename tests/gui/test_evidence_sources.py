@@ -11,7 +11,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from PySide6.QtCore import QSettings, Qt
+from PySide6.QtCore import Qt
 
 import gui.evidence.window as evidence_window
 from gui.document import ScenarioDocument
@@ -25,20 +25,13 @@ DATA = Path(__file__).resolve().parents[1] / "data" / "evidence"
 
 
 @pytest.fixture
-def doc(qtbot, tmp_path: Path) -> ScenarioDocument:
-    settings = QSettings(str(tmp_path / "settings.ini"), QSettings.Format.IniFormat)
-    d = ScenarioDocument(recovery_dir=tmp_path / "recovery", settings=settings, autosave_ms=0)
-    d.open(DATA / "scenario.toml")
-    return d
+def doc(isolated_document) -> ScenarioDocument:
+    return isolated_document(DATA / "scenario.toml")  # checks the scenario is valid
 
 
 @pytest.fixture
-def window(qtbot, doc: ScenarioDocument) -> EvidenceWindow:
-    w = EvidenceWindow(doc)
-    qtbot.addWidget(w)
-    w.show()
-    qtbot.waitExposed(w)
-    return w
+def window(doc: ScenarioDocument, shown) -> EvidenceWindow:
+    return shown(EvidenceWindow(doc))
 
 
 def test_bad_file_names_line_column_value_and_rule(qtbot, window: EvidenceWindow) -> None:

@@ -12,7 +12,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 import tomlkit
-from PySide6.QtCore import QPoint, QSettings, Qt
+from PySide6.QtCore import QPoint, Qt
 
 from gui.document import ScenarioDocument
 from gui.evidence import EvidenceWindow
@@ -33,21 +33,13 @@ def shots(tmp_path: Path) -> Path:
 
 
 @pytest.fixture
-def doc(qtbot, tmp_path: Path) -> ScenarioDocument:
-    settings = QSettings(str(tmp_path / "settings.ini"), QSettings.Format.IniFormat)
-    d = ScenarioDocument(recovery_dir=tmp_path / "recovery", settings=settings, autosave_ms=0)
-    d.open(SCENARIO)
-    assert d.scenario is not None, d.errors
-    return d
+def doc(isolated_document) -> ScenarioDocument:
+    return isolated_document(SCENARIO)  # checks the scenario is valid
 
 
 @pytest.fixture
-def window(qtbot, doc: ScenarioDocument) -> EvidenceWindow:
-    w = EvidenceWindow(doc)
-    qtbot.addWidget(w)
-    w.show()
-    qtbot.waitExposed(w)
-    return w
+def window(doc: ScenarioDocument, shown) -> EvidenceWindow:
+    return shown(EvidenceWindow(doc))
 
 
 def read_and_fit(qtbot, w: EvidenceWindow, group: bool = True, families=FAMILIES) -> None:

@@ -12,10 +12,9 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
-from PySide6.QtCore import QSettings, Qt
+from PySide6.QtCore import Qt
 from PySide6.QtWidgets import QFileDialog
 
-from gui.document import ScenarioDocument
 from gui.main_window import MainWindow
 from gui.uncertainty.page import CANCELLING_TEXT
 from gui.uncertainty.views import Z95
@@ -34,19 +33,8 @@ def shots(tmp_path: Path) -> Path:
 
 
 @pytest.fixture
-def window(qtbot, tmp_path: Path) -> MainWindow:
-    settings = QSettings(str(tmp_path / "settings.ini"), QSettings.Format.IniFormat)
-    doc = ScenarioDocument(recovery_dir=tmp_path / "recovery", settings=settings, autosave_ms=0)
-    w = MainWindow(doc)
-    w.start(QUORREL)
-    w.resize(1500, 950)
-    w.show()
-    qtbot.waitExposed(w)
-    yield w
-    w.psa_page.shutdown()
-    w.document.undo_stack.setClean()
-    w.close()
-    w.deleteLater()
+def window(main_window) -> MainWindow:
+    return main_window(QUORREL, size=(1500, 950))
 
 
 def set_spin(qtbot, spin, value: int) -> None:

@@ -9,10 +9,9 @@ import re
 from pathlib import Path
 
 import pytest
-from PySide6.QtCore import QSettings, Qt
+from PySide6.QtCore import Qt
 from PySide6.QtWidgets import QFileDialog
 
-from gui.document import ScenarioDocument
 from gui.main_window import MainWindow
 from sim.report import inputs_from_results, report_html, significant
 from sim.uncertainty import population_factor
@@ -22,18 +21,8 @@ QUORREL = ROOT / "scenarios" / "quorrel_psa.toml"
 
 
 @pytest.fixture
-def window(qtbot, tmp_path: Path) -> MainWindow:
-    settings = QSettings(str(tmp_path / "settings.ini"), QSettings.Format.IniFormat)
-    doc = ScenarioDocument(recovery_dir=tmp_path / "recovery", settings=settings, autosave_ms=0)
-    w = MainWindow(doc)
-    w.start(QUORREL)
-    w.show()
-    qtbot.waitExposed(w)
-    yield w
-    w.psa_page.shutdown()
-    w.document.undo_stack.setClean()
-    w.close()
-    w.deleteLater()
+def window(main_window) -> MainWindow:
+    return main_window(QUORREL)
 
 
 def set_spin(qtbot, spin, value: int) -> None:
