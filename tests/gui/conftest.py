@@ -72,3 +72,30 @@ def main_window(qtbot, isolated_document):
         w.document.undo_stack.setClean()
         w.close()
         w.deleteLater()
+
+
+@pytest.fixture
+def screenshots(tmp_path):
+    """The folder for the tests' screenshots: ``$HAZARDTRACE_SCREENSHOTS`` (to look at them) or
+    ``tmp_path``."""
+    import os
+    from pathlib import Path
+
+    folder = Path(os.environ.get("HAZARDTRACE_SCREENSHOTS", tmp_path))
+    folder.mkdir(parents=True, exist_ok=True)
+    return folder
+
+
+@pytest.fixture
+def set_spin(qtbot):
+    """``set_spin(spin, value)``: type a value into a spin box as a user would, then leave it."""
+    from PySide6.QtCore import Qt
+
+    def type_value(spin, value: int) -> None:
+        spin.setFocus()
+        spin.selectAll()
+        qtbot.keyClicks(spin, str(value))
+        qtbot.keyClick(spin, Qt.Key.Key_Tab)
+        assert spin.value() == value
+
+    return type_value

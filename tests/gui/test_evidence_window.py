@@ -6,7 +6,6 @@ own table (the widget must not compute) and the covariance group against lifelin
 from __future__ import annotations
 
 import math
-import os
 from pathlib import Path
 
 import numpy as np
@@ -24,12 +23,6 @@ DATA = Path(__file__).resolve().parents[1] / "data" / "evidence"
 TRIAL = DATA / "two_arm_trial.csv"  # invented (tests/data/evidence/README.md)
 SCENARIO = DATA / "scenario.toml"  # invented
 FAMILIES = ("exponential", "weibull", "gompertz", "loglogistic", "lognormal", "gamma", "gengamma")
-
-
-def shots(tmp_path: Path) -> Path:
-    folder = Path(os.environ.get("HAZARDTRACE_SCREENSHOTS", tmp_path))
-    folder.mkdir(parents=True, exist_ok=True)
-    return folder
 
 
 @pytest.fixture
@@ -75,7 +68,7 @@ def shown_table(w: EvidenceWindow) -> dict[str, dict[str, object]]:
     return rows
 
 
-def test_the_table_is_sim_evidence_fit_table(qtbot, window: EvidenceWindow, tmp_path: Path) -> None:
+def test_the_table_is_sim_evidence_fit_table(qtbot, window: EvidenceWindow, screenshots: Path) -> None:
     read_and_fit(qtbot, window)
     data = read_survival_data(TRIAL, time="months", event="death", group="arm", unit="months")
     expected = fit_table(fit_families(data, FAMILIES))
@@ -102,14 +95,14 @@ def test_the_table_is_sim_evidence_fit_table(qtbot, window: EvidenceWindow, tmp_
         assert len(drawn(plot.fits.items)) == 2 * len(FAMILIES)
     assert window.survival_plot.plot.titleLabel.text.startswith("fits: solid control, dashed treated")
     qtbot.wait(100)  # let the plots lay out (legend under the axes) before the picture
-    assert window.grab().save(str(shots(tmp_path) / "evidence_survival.png"))
+    assert window.grab().save(str(screenshots / "evidence_survival.png"))
     window.plot_tabs.setCurrentIndex(2)
     qtbot.wait(100)  # let the plots lay out (legend under the axes) before the picture
-    assert window.grab().save(str(shots(tmp_path) / "evidence_log_cumhazard.png"))
+    assert window.grab().save(str(screenshots / "evidence_log_cumhazard.png"))
 
 
 def test_apply_fit_to_transition_then_undo(qtbot, window: EvidenceWindow, doc: ScenarioDocument,
-                                           tmp_path: Path) -> None:
+                                           screenshots: Path) -> None:
     read_and_fit(qtbot, window, group=False, families=("exponential", "weibull", "loglogistic"))
     before = doc.text
     window.select_fit("weibull")
@@ -144,7 +137,7 @@ def test_apply_fit_to_transition_then_undo(qtbot, window: EvidenceWindow, doc: S
     np.testing.assert_allclose(group["mean"], np.log(v), rtol=1e-5)
     np.testing.assert_allclose(np.array(group["covariance"]), V / np.outer(v, v), rtol=2e-3)
     qtbot.wait(100)  # let the plots lay out (legend under the axes) before the picture
-    assert window.grab().save(str(shots(tmp_path) / "evidence_applied.png"))
+    assert window.grab().save(str(screenshots / "evidence_applied.png"))
     # undo from the window's own Edit menu restores the text exactly; redo brings the fit back
     window.undo_action.trigger()
     assert doc.text == before
@@ -153,7 +146,7 @@ def test_apply_fit_to_transition_then_undo(qtbot, window: EvidenceWindow, doc: S
 
 
 def test_below_background_shown_and_offered(qtbot, window: EvidenceWindow, doc: ScenarioDocument,
-                                             tmp_path: Path) -> None:
+                                             screenshots: Path) -> None:
     read_and_fit(qtbot, window, group=False, families=("weibull", "loglogistic"))
     window.select_fit("loglogistic")
     assert window.entry_age.value() == 60.0  # the scenario's entry age
@@ -170,7 +163,7 @@ def test_below_background_shown_and_offered(qtbot, window: EvidenceWindow, doc: 
     window.plot_tabs.setCurrentIndex(1)
     window.view.setCurrentText("whole horizon")
     qtbot.wait(100)  # let the plots lay out (legend under the axes) before the picture
-    assert window.grab().save(str(shots(tmp_path) / "evidence_hazard_background.png"))
+    assert window.grab().save(str(screenshots / "evidence_hazard_background.png"))
     window.transition.setCurrentText("disease death")
     qtbot.mouseClick(window.floor, Qt.MouseButton.LeftButton)
     assert window.floor.isChecked()

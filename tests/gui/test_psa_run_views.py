@@ -6,7 +6,6 @@ sim.uncertainty's functions on the analysis' table must equal the plotted data),
 from __future__ import annotations
 
 import json
-import os
 from pathlib import Path
 
 import numpy as np
@@ -26,24 +25,9 @@ ROOT = Path(__file__).resolve().parents[2]
 QUORREL = ROOT / "scenarios" / "quorrel_psa.toml"
 
 
-def shots(tmp_path: Path) -> Path:
-    folder = Path(os.environ.get("HAZARDTRACE_SCREENSHOTS", tmp_path))
-    folder.mkdir(parents=True, exist_ok=True)
-    return folder
-
-
 @pytest.fixture
 def window(main_window) -> MainWindow:
     return main_window(QUORREL, size=(1500, 950))
-
-
-def set_spin(qtbot, spin, value: int) -> None:
-    """Type a value into a spin box as a user would."""
-    spin.setFocus()
-    spin.selectAll()
-    qtbot.keyClicks(spin, str(value))
-    qtbot.keyClick(spin, Qt.Key.Key_Tab)
-    assert spin.value() == value
 
 
 def open_page(qtbot, window: MainWindow):
@@ -53,12 +37,12 @@ def open_page(qtbot, window: MainWindow):
     return page
 
 
-def test_cancel_leaves_the_window_responsive_and_keeps_nothing(qtbot, window: MainWindow) -> None:
+def test_cancel_leaves_the_window_responsive_and_keeps_nothing(qtbot, window: MainWindow, set_spin) -> None:
     page = open_page(qtbot, window)
     c = page.controls
-    set_spin(qtbot, c.draws, 400)
-    set_spin(qtbot, c.patients, 2000)
-    set_spin(qtbot, c.workers, 1)
+    set_spin(c.draws, 400)
+    set_spin(c.patients, 2000)
+    set_spin(c.workers, 1)
     qtbot.mouseClick(c.run_button, Qt.MouseButton.LeftButton)
     assert c.is_running() and c.job.worker.thread() != window.thread()  # off the GUI thread
     assert not c.run_button.isEnabled() and c.cancel_button.isEnabled() and not c.draws.isEnabled()
@@ -74,12 +58,13 @@ def test_cancel_leaves_the_window_responsive_and_keeps_nothing(qtbot, window: Ma
     assert c.run_button.isEnabled()
 
 
-def test_finished_analysis_plots_what_sim_computes(qtbot, window: MainWindow, tmp_path: Path, monkeypatch) -> None:
+def test_finished_analysis_plots_what_sim_computes(qtbot, window: MainWindow, tmp_path: Path, monkeypatch, set_spin,
+                                                   screenshots: Path) -> None:
     page = open_page(qtbot, window)
     c = page.controls
-    set_spin(qtbot, c.draws, 20)
-    set_spin(qtbot, c.patients, 200)
-    set_spin(qtbot, c.workers, 1)
+    set_spin(c.draws, 20)
+    set_spin(c.patients, 200)
+    set_spin(c.workers, 1)
     box = c.conversions["competing-exit"]  # two of the three approximations
     box.setFocus()
     qtbot.keyClick(box, Qt.Key.Key_Space)
@@ -122,7 +107,7 @@ def test_finished_analysis_plots_what_sim_computes(qtbot, window: MainWindow, tm
         ev = evpi(table[table["method"] == method], grid)
         np.testing.assert_array_equal(item.getOriginalDataset()[1], ev["evpi"].to_numpy())
     assert set(page.evpi.curves) == set(methods)
-    set_spin(qtbot, page.evpi.population, 5000)  # for a population: 5,000 patients a year over 10 years
+    set_spin(page.evpi.population, 5000)  # for a population: 5,000 patients a year over 10 years
     for method, item in page.evpi.curves.items():
         ev = population_evpi(evpi(table[table["method"] == method], grid), 5000, 10, model.valuation.discount_costs)
         np.testing.assert_array_equal(item.getOriginalDataset()[1], ev["population_evpi"].to_numpy())
@@ -146,7 +131,7 @@ def test_finished_analysis_plots_what_sim_computes(qtbot, window: MainWindow, tm
     for i, name in enumerate(["ce_plane", "acceptability", "evpi_population", "convergence"]):
         page.tabs.setCurrentIndex(i)
         qtbot.wait(100)  # laid out as the user sees it
-        assert window.grab().save(str(shots(tmp_path) / f"psa_{name}.png"))
+        assert window.grab().save(str(screenshots / f"psa_{name}.png"))
 
     # exports: the plot as SVG through its save bar, a table as CSV
     svg = tmp_path / "ceac.svg"

@@ -25,14 +25,6 @@ def window(main_window) -> MainWindow:
     return main_window(QUORREL)
 
 
-def set_spin(qtbot, spin, value: int) -> None:
-    spin.setFocus()
-    spin.selectAll()
-    qtbot.keyClicks(spin, str(value))
-    qtbot.keyClick(spin, Qt.Key.Key_Tab)
-    assert spin.value() == value
-
-
 def write_report_to(qtbot, window: MainWindow, monkeypatch, path: Path, signal) -> str:
     monkeypatch.setattr(QFileDialog, "getSaveFileName", lambda *a, **k: (str(path), "HTML report (*.html)"))
     with qtbot.waitSignal(signal, timeout=60000) as blocker:
@@ -41,21 +33,21 @@ def write_report_to(qtbot, window: MainWindow, monkeypatch, path: Path, signal) 
     return path.read_text(encoding="utf-8")
 
 
-def test_write_report_of_what_is_on_screen(qtbot, window: MainWindow, tmp_path: Path, monkeypatch) -> None:
+def test_write_report_of_what_is_on_screen(qtbot, window: MainWindow, tmp_path: Path, monkeypatch, set_spin) -> None:
     assert not window.report_action.isEnabled()  # nothing on screen yet
     assert "Write &report…" in [a.text() for a in window.menuBar().actions()[0].menu().actions()]
 
     # the analysis on its tab: its own report (as `hazardtrace report PSA_DIR` writes it)
     page = window.psa_page
     window.tabs.setCurrentWidget(page)
-    set_spin(qtbot, page.controls.draws, 20)
-    set_spin(qtbot, page.controls.patients, 100)
-    set_spin(qtbot, page.controls.workers, 1)
+    set_spin(page.controls.draws, 20)
+    set_spin(page.controls.patients, 100)
+    set_spin(page.controls.workers, 1)
     with qtbot.waitSignal(page.results_shown, timeout=60000):
         qtbot.mouseClick(page.controls.run_button, Qt.MouseButton.LeftButton)
     assert window.report_action.isEnabled()
-    set_spin(qtbot, page.evpi.population, 1000)  # the EVPI view shows a population: so does the report
-    set_spin(qtbot, page.evpi.years, 5)
+    set_spin(page.evpi.population, 1000)  # the EVPI view shows a population: so does the report
+    set_spin(page.evpi.years, 5)
     text = write_report_to(qtbot, window, monkeypatch, tmp_path / "psa.html", page.written)
     assert window.statusBar().currentMessage() == f"Written: {tmp_path / 'psa.html'}"
     assert 'id="uncertainty"' in text
@@ -76,7 +68,7 @@ def test_write_report_of_what_is_on_screen(qtbot, window: MainWindow, tmp_path: 
 
     # the run's results on the Results tab: the run's report, without the analysis
     run = window.run_panel
-    set_spin(qtbot, run.patients, 400)
+    set_spin(run.patients, 400)
     run.study.setChecked(False)
     with qtbot.waitSignal(window.results_shown, timeout=60000):
         qtbot.mouseClick(run.run_button, Qt.MouseButton.LeftButton)
