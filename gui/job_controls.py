@@ -9,18 +9,20 @@ The panels keep their own texts and signals; these functions only set the widget
   job answers);
 - :func:`stop_job` cancels and waits for the thread (before the window closes);
 - :func:`show_idle`, :func:`show_done` and :func:`set_running` set the bar, the status and which
-  controls are enabled.
+  controls are enabled;
+- :func:`run_cancel_row` and :func:`idle_bar` build the buttons and the bar.
 """
 
 from __future__ import annotations
 
 from typing import Callable, Iterable
 
-from PySide6.QtWidgets import QAbstractButton, QLabel, QProgressBar, QWidget
+from PySide6.QtWidgets import QAbstractButton, QHBoxLayout, QLabel, QProgressBar, QPushButton, QWidget
 
 from .worker import Job
 
-__all__ = ["start_job", "ask_cancel", "stop_job", "show_idle", "show_done", "set_running"]
+__all__ = ["start_job", "ask_cancel", "stop_job", "show_idle", "show_done", "set_running", "run_cancel_row",
+           "idle_bar"]
 
 
 def start_job(job: Job, progress: QProgressBar, status: QLabel, *, finished: Callable, failed: Callable,
@@ -70,3 +72,23 @@ def set_running(running: bool, can_run: bool, run_button: QAbstractButton, cance
     cancel_button.setEnabled(running)
     for w in fields:
         w.setEnabled(not running)
+
+
+def run_cancel_row(run_text: str) -> tuple[QPushButton, QPushButton, QHBoxLayout]:
+    """A Run button labelled ``run_text`` and a disabled Cancel button, left-aligned in a row."""
+    run_button = QPushButton(run_text)
+    cancel_button = QPushButton("Cancel")
+    cancel_button.setEnabled(False)
+    row = QHBoxLayout()
+    row.addWidget(run_button)
+    row.addWidget(cancel_button)
+    row.addStretch(1)
+    return run_button, cancel_button, row
+
+
+def idle_bar() -> QProgressBar:
+    """An empty progress bar (range 0-1), as before the first run."""
+    bar = QProgressBar()
+    bar.setRange(0, 1)
+    bar.setValue(0)
+    return bar

@@ -13,12 +13,12 @@ import time
 
 from PySide6.QtCore import QCoreApplication, QRegularExpression, Signal, Slot
 from PySide6.QtGui import QCloseEvent, QRegularExpressionValidator
-from PySide6.QtWidgets import (QCheckBox, QFormLayout, QHBoxLayout, QLabel, QLineEdit, QProgressBar, QPushButton,
-                               QSpinBox, QVBoxLayout, QWidget)
+from PySide6.QtWidgets import QCheckBox, QFormLayout, QLabel, QLineEdit, QSpinBox, QVBoxLayout, QWidget
 
 from sim.io.scenario import RunSettings, Scenario
 
-from .job_controls import ask_cancel, set_running, show_done, show_idle, start_job, stop_job
+from .job_controls import (ask_cancel, idle_bar, run_cancel_row, set_running, show_done, show_idle, start_job,
+                           stop_job)
 from .worker import Job, RunWorker
 
 __all__ = ["RunPanel", "STAGE_TEXT", "settings_text", "timing_text", "CANCELLING_TEXT"]
@@ -102,18 +102,10 @@ class RunPanel(QWidget):
         form.addRow("Threads", self.threads)
         form.addRow("", self.study)
 
-        self.run_button = QPushButton("Run")
+        self.run_button, self.cancel_button, buttons = run_cancel_row("Run")
         self.run_button.setDefault(True)
-        self.cancel_button = QPushButton("Cancel")
-        self.cancel_button.setEnabled(False)
-        buttons = QHBoxLayout()
-        buttons.addWidget(self.run_button)
-        buttons.addWidget(self.cancel_button)
-        buttons.addStretch(1)
 
-        self.progress = QProgressBar()
-        self.progress.setRange(0, 1)
-        self.progress.setValue(0)
+        self.progress = idle_bar()
         self.progress.setTextVisible(True)
         self.stage = QLabel("Idle")
         self.stage.setWordWrap(True)  # long stage texts wrap in the narrow panel instead of being cut

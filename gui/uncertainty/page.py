@@ -12,11 +12,12 @@ from pathlib import Path
 
 from PySide6.QtCore import QCoreApplication, Qt, Signal, Slot
 from PySide6.QtWidgets import (QCheckBox, QComboBox, QFileDialog, QFormLayout, QGroupBox, QHBoxLayout, QLabel,
-                               QMessageBox, QProgressBar, QPushButton, QSpinBox, QSplitter, QStackedWidget, QTabWidget,
+                               QMessageBox, QPushButton, QSpinBox, QSplitter, QStackedWidget, QTabWidget,
                                QVBoxLayout, QWidget)
 
 from gui.document import ScenarioDocument
-from gui.job_controls import ask_cancel, set_running, show_done, show_idle, start_job, stop_job
+from gui.job_controls import (ask_cancel, idle_bar, run_cancel_row, set_running, show_done, show_idle, start_job,
+                              stop_job)
 from gui.palette import OKABE_ITO
 from gui.results.exports import Exporter
 from gui.worker import FunctionWorker, Job
@@ -128,18 +129,10 @@ class PsaRunControls(QWidget):
         self.approx_note.setWordWrap(True)
         box.addWidget(self.approx_note)
 
-        self.run_button = QPushButton("Run analysis")
+        self.run_button, self.cancel_button, buttons = run_cancel_row("Run analysis")
         self.run_button.setObjectName("psa_run")
-        self.cancel_button = QPushButton("Cancel")
         self.cancel_button.setObjectName("psa_cancel")
-        self.cancel_button.setEnabled(False)
-        buttons = QHBoxLayout()
-        buttons.addWidget(self.run_button)
-        buttons.addWidget(self.cancel_button)
-        buttons.addStretch(1)
-        self.progress = QProgressBar()
-        self.progress.setRange(0, 1)
-        self.progress.setValue(0)
+        self.progress = idle_bar()
         self.status = QLabel("Idle")
         self.status.setObjectName("psa_status")
         self.status.setWordWrap(True)
