@@ -45,6 +45,28 @@ def single_exit(hazard, clock=Clock.ENTRY, age: float = 50.0, horizon: float = 4
     )
 
 
+def two_state_text(death_keys: str) -> str:
+    """Scenario text of the alive -> dead model (everyone entering alive at 50, 10 years), the death
+    transition's hazard keys given as ``death_keys``; without ``format_version`` and strategies, for
+    the caller to put around it."""
+    return f"""[[states]]
+name = "alive"
+[[states]]
+name = "dead"
+absorbing = true
+[[transitions]]
+name = "death"
+from = "alive"
+to = "dead"
+{death_keys}
+[population]
+initial_state = "alive"
+entry_age = {{ distribution = "fixed", age = 50 }}
+[horizon]
+value = 10
+"""
+
+
 def occupancy_from_log(events: pd.DataFrame, patients: pd.DataFrame, states, t: float) -> np.ndarray:
     """Share of patients in each state at time ``t`` (everyone followed to ``t``), read directly from
     the event log: the target of each patient's last move at or before ``t``, else the initial state."""

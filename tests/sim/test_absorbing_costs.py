@@ -16,26 +16,12 @@ from sim.engine import simulate
 from sim.io.scenario import ScenarioError, parse_scenario
 from sim.reference import cohort_trace, exact_outcomes, trace_outcomes, with_exact
 
+from .conftest import two_state_text
+
 TEXT = """
 format_version = 1
 name = "constant hazard (invented)"
-[[states]]
-name = "alive"
-[[states]]
-name = "dead"
-absorbing = true
-[[transitions]]
-name = "death"
-from = "alive"
-to = "dead"
-family = "exponential"
-rate = 0.1
-[population]
-initial_state = "alive"
-entry_age = { distribution = "fixed", age = 50 }
-[horizon]
-value = 10
-[[strategies]]
+""" + two_state_text('family = "exponential"\nrate = 0.1') + """[[strategies]]
 name = "usual"
 {strategy_costs}
 [valuation]

@@ -29,6 +29,8 @@ from sim.evidence import (SurvivalData, family_spec, fit_families, fit_family, f
 from sim.hazards import Gompertz, make_hazard  # noqa: E402
 from sim.problems import ValidationError  # noqa: E402
 
+from .conftest import two_state_text  # noqa: E402
+
 RTOL = 1e-4  # the issue's agreement for estimates and log-likelihoods
 
 
@@ -248,23 +250,7 @@ def _load_pasted_fragment(tmp_path, hazard_keys: str, more_tables: str = ""):
     dead, everyone entering at 50, 10 years), with ``more_tables`` after it: the scenario as read back."""
     from sim.io import load_scenario
 
-    text = f"""format_version = 1
-[[states]]
-name = "alive"
-[[states]]
-name = "dead"
-absorbing = true
-[[transitions]]
-name = "death"
-from = "alive"
-to = "dead"
-{hazard_keys}
-[population]
-initial_state = "alive"
-entry_age = {{ distribution = "fixed", age = 50 }}
-[horizon]
-value = 10
-{more_tables}"""
+    text = f"format_version = 1\n{two_state_text(hazard_keys)}{more_tables}"
     path = tmp_path / "s.toml"
     path.write_text(text)
     return load_scenario(path)
