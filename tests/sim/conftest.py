@@ -79,6 +79,22 @@ def occupancy_from_log(events: pd.DataFrame, patients: pd.DataFrame, states, t: 
     return np.array([counts.get(s, 0) for s in states], dtype=float) / n
 
 
+def simulate_within_4_mcse(model: Model, n: int, seed: int, times: np.ndarray):
+    """Simulate ``n`` patients of ``model`` and check that the share in every state at each of ``times``
+    is within 4 binomial Monte Carlo standard errors, 4 sqrt(p (1 - p) / n), of the exact solver's
+    probability p; returns the run for further checks."""
+    from sim.engine import simulate
+    from sim.reference.exact import solve_exact
+
+    exact = solve_exact(model, times).occupancy.pivot(index="time", columns="state", values="probability")
+    run = simulate(model, n, seed=seed)
+    for t in times:
+        p_hat = occupancy_from_log(run.events, run.patients, model.state_names, t)
+        p = exact.loc[t, list(model.state_names)].to_numpy()
+        assert np.all(np.abs(p_hat - p) <= 4 * np.sqrt(p * (1 - p) / n)), (t, p_hat, p)
+    return run
+
+
 @pytest.fixture
 def rng():
     return np.random.default_rng(12345)

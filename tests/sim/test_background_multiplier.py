@@ -30,7 +30,7 @@ from sim.reference.forward import band_edges
 from sim.report.describe import describe_lines
 from sim.uncertainty import draw_table
 
-from .conftest import occupancy_from_log
+from .conftest import occupancy_from_log, simulate_within_4_mcse
 
 LANTHIC = SCENARIO_DIR / DEMOS["lanthic"]  # Gompertz background per sex
 FERROVIAN = SCENARIO_DIR / DEMOS["ferrovian"]  # life-table background per sex
@@ -152,12 +152,7 @@ def test_engine_matches_the_exact_solver_within_4_mcse(background):
         assert isinstance(model.background.hazard_for("all"), ProportionalHazards)
     n = 20_000
     times = np.array([3.0, 10.0, 20.0, 29.0])
-    exact = solve_exact(model, times).occupancy.pivot(index="time", columns="state", values="probability")
-    run = simulate(model, n, seed=2026)
-    for t in times:
-        p_hat = occupancy_from_log(run.events, run.patients, model.state_names, t)
-        p = exact.loc[t, list(model.state_names)].to_numpy()
-        assert np.all(np.abs(p_hat - p) <= 4 * np.sqrt(p * (1 - p) / n)), (t, p_hat, p)
+    run = simulate_within_4_mcse(model, n, 2026, times)
     # and the run sees the multiplier: its share dead is beyond 4 MCSE of the exact share with m = 1
     plain = solve_exact(_illness_death(background, age=60.0), times).occupancy
     dead_plain = plain[plain["state"] == "dead"]["probability"].to_numpy()

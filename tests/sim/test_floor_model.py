@@ -15,13 +15,12 @@ import math
 import numpy as np
 from scipy import integrate
 
-from sim.engine import simulate
 from sim.hazards import AtLeastHazard, Gompertz
 from sim.model import (BackgroundMortality, Clock, Horizon, Model, Population, State, Transition, UniformAge,
                        transition_effect_words)
-from sim.reference.exact import occupancy_for_entry, solve_exact
+from sim.reference.exact import occupancy_for_entry
 
-from .conftest import occupancy_from_log
+from .conftest import simulate_within_4_mcse
 
 # invented numbers: a flat disease-death law against a Gompertz background by sex (slope near the
 # 0.085/year of adult human mortality, Finch, Pike & Witten 1990, Science 249:902-905)
@@ -62,13 +61,7 @@ def test_exact_solver_matches_quadrature_for_one_entry_age_and_sex():
 def test_engine_matches_exact_solver_within_4_mcse():
     m = model()
     n = 30_000
-    times = np.array([5.0, 12.0, 20.0, 29.0])
-    exact = solve_exact(m, times).occupancy.pivot(index="time", columns="state", values="probability")
-    run = simulate(m, n, seed=99)
-    for t in times:
-        p_hat = occupancy_from_log(run.events, run.patients, m.state_names, t)
-        p = exact.loc[t, list(m.state_names)].to_numpy()
-        assert np.all(np.abs(p_hat - p) <= 4 * np.sqrt(p * (1 - p) / n)), (t, p_hat, p)
+    simulate_within_4_mcse(m, n, 99, np.array([5.0, 12.0, 20.0, 29.0]))
 
 
 def test_check_words_per_sex():
