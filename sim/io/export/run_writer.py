@@ -12,7 +12,6 @@ import io
 import os
 import shutil
 import time
-import uuid
 from collections.abc import Callable, Iterable, Mapping
 from pathlib import Path
 from types import TracebackType
@@ -24,7 +23,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 
 from ...model.multistate import Model
-from ..atomic import fsync_folder
+from ..atomic import fsync_folder, replace_folder
 from .errors import ExportError
 from .leftovers import remove_leftovers, remove_owner, temporary_folder_for, write_owner
 from .long_format import long_format
@@ -368,26 +367,11 @@ class RunWriter:
     def _commit(self) -> None:
         assert self._tmp is not None
         out = self.out_dir
-        if out.exists() or out.is_symlink():
-            if not self.force:
-                rule = "exists (created while the run was being written); pass force=True (--force) to overwrite"
-                raise ExportError(f"{out} {rule}", file=out, rule=rule)
-            backup = out.parent / f".{out.name}.old-{uuid.uuid4().hex[:12]}"
-            os.rename(out, backup)
-            try:
-                os.rename(self._tmp, out)
-            except BaseException:
-                os.rename(backup, out)
-                raise
-            self._tmp = None
-            if backup.is_dir() and not backup.is_symlink():
-                shutil.rmtree(backup, ignore_errors=True)
-            else:
-                backup.unlink(missing_ok=True)
-        else:
-            os.rename(self._tmp, out)
-            self._tmp = None
-        fsync_folder(out.parent)
+        if (out.exists() or out.is_symlink()) and not self.force:
+            rule = "exists (created while the run was being written); pass force=True (--force) to overwrite"
+            raise ExportError(f"{out} {rule}", file=out, rule=rule)
+        replace_folder(self._tmp, out)  # never loses an existing ``out``; syncs the parent folder
+        self._tmp = None
 
     def abort(self) -> None:
         """Discard everything written so far; ``out_dir`` is left untouched. Safe to call twice."""
