@@ -5,6 +5,7 @@ population EVPI its view shows), or the run's results."""
 from __future__ import annotations
 
 import html
+import subprocess
 import re
 from pathlib import Path
 
@@ -81,3 +82,13 @@ def test_write_report_of_what_is_on_screen(qtbot, window: MainWindow, tmp_path: 
     expected = report_html(inputs_from_results(results))
     ids = re.compile(r'(id|href|clip-path)="[^"]*"|url\(#[^)]*\)')
     assert ids.sub("", text) == ids.sub("", expected)
+
+    # the same report as PDF (by the file's suffix), written by WeasyPrint off the GUI thread
+    pdf = tmp_path / "run.pdf"
+    monkeypatch.setattr(QFileDialog, "getSaveFileName", lambda *a, **k: (str(pdf), "PDF report (*.pdf)"))
+    with qtbot.waitSignal(window.results_panel.report_written, timeout=120000) as blocker:
+        window.report_action.trigger()
+    assert blocker.args == [str(pdf)]
+    assert pdf.read_bytes().startswith(b"%PDF-")
+    words = subprocess.run(["pdftotext", str(pdf), "-"], capture_output=True, text=True, check=True).stdout
+    assert "Quorrel" in words and "not for clinical decisions" in words  # the scenario name, the caution
