@@ -10,9 +10,9 @@ earlier intervals is assumed, or the censorings are adjusted to match a reported
 Events are placed at the digitised times and censorings at the midpoints between digitised points;
 the patients still at risk at the end are censored at the last digitised time.
 
-This is a transcription of the published algorithm (the authors' R code, as reproduced in the
-supplement of the paper and in R packages that adapt it) with guards the original lacks: no division by an empty risk set, events never negative nor above the risk set,
-and a bound on the adjustment loops (:data:`MAX_ADJUSTMENTS`).
+It follows the published algorithm step by step (the authors' R code in the paper's supplement),
+with guards the original lacks: no division by an empty risk set, events never negative nor above
+the risk set, and a bound on the adjustment loops (:data:`MAX_ADJUSTMENTS`).
 """
 
 from __future__ import annotations
