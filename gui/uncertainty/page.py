@@ -1,5 +1,6 @@
-"""The "Probabilistic analysis" page: run settings (draws, patients per draw, local workers, the
-cycle-based approximations to compare), Run and Cancel with progress and the estimated time left,
+"""The "Probabilistic analysis" page: run settings (draws, patients per draw, workers, the Dask
+scheduler to run on (empty: this machine), the cycle-based approximations to compare), the
+correlated groups of parameters (:mod:`gui.uncertainty.groups`, opened from here), Run and Cancel with progress and the estimated time left,
 and the views of the finished analysis (:mod:`gui.uncertainty.views`). The analysis runs in a worker
 thread (:class:`gui.uncertainty.worker.PsaJob`); the window never waits for it.
 """
@@ -12,10 +13,11 @@ from pathlib import Path
 
 from PySide6.QtCore import QCoreApplication, Qt, Signal, Slot
 from PySide6.QtWidgets import (QCheckBox, QComboBox, QFileDialog, QFormLayout, QGroupBox, QHBoxLayout, QLabel,
-                               QMessageBox, QPushButton, QSpinBox, QSplitter, QStackedWidget, QTabWidget,
+                               QLineEdit, QMessageBox, QPushButton, QSpinBox, QSplitter, QStackedWidget, QTabWidget,
                                QVBoxLayout, QWidget)
 
-from gui.document import ScenarioDocument
+from gui.document import FieldError, ScenarioDocument
+from gui.editors.fields import mark_invalid
 from gui.job_controls import (ask_cancel, idle_bar, run_cancel_row, set_running, show_done, show_idle, start_job,
                               stop_job)
 from gui.palette import OKABE_ITO
@@ -44,7 +46,7 @@ def analysis_metadata(outcome: PsaOutcome) -> dict:
     s, r = outcome.scenario, outcome.result
     return metadata_for(s.text, r.settings["seed"], outcome.request.patients, extra={
         "command": "psa", "scenario_file": str(s.path) if s.path else None,
-        "draws": outcome.request.draws, "workers": outcome.request.workers, "scheduler": None,
+        "draws": outcome.request.draws, "workers": outcome.request.workers, "scheduler": outcome.request.scheduler,
         "block_draws": r.settings["block_draws"], "cycle_methods": r.settings["cycle_methods"],
         "parameters": r.settings["parameters"], "notes": list(r.notes), "seconds": round(r.seconds, 3)})
 
@@ -98,12 +100,23 @@ class PsaRunControls(QWidget):
         self.workers = QSpinBox()
         self.workers.setObjectName("psa_workers")
         self.workers.setRange(1, max(64, os.cpu_count() or 1))
-        self.workers.setToolTip("1 runs in this program; more start a local Dask cluster of worker processes "
-                                "(a few seconds to start). The results do not depend on this number.")
+        self.workers.setToolTip("On this machine: 1 runs in this program; more start a local Dask cluster of "
+                                "worker processes (a few seconds to start). With a scheduler: how many workers "
+                                "to plan the blocks of draws for. The results do not depend on this number.")
+        self.scheduler = QLineEdit()
+        self.scheduler.setObjectName("psa_scheduler")
+        self.scheduler.setPlaceholderText("empty: this machine")
+        self.scheduler.setClearButtonEnabled(True)
+        help_text = ("The address of a running Dask scheduler (tcp://host:8786) to run the analysis on its "
+                     "workers; leave empty to run on this machine. The results are the same either way.")
+        self.scheduler.setProperty("help", help_text)
+        self.scheduler.setToolTip(help_text)
+        self.scheduler.textEdited.connect(lambda _t: mark_invalid(self.scheduler, []))
         form = QFormLayout()
         form.addRow("Parameter draws", self.draws)
         form.addRow("Patients per draw", self.patients)
-        form.addRow("Workers (this machine)", self.workers)
+        form.addRow("Workers", self.workers)
+        form.addRow("Dask scheduler", self.scheduler)
 
         self.approx = QGroupBox("Cycle-based approximations on the same draws")
         self.conversions: dict[str, QCheckBox] = {}
@@ -188,7 +201,8 @@ class PsaRunControls(QWidget):
         if self.scenario is not None and self.scenario.model.is_markov and h is not None:
             methods = tuple(CycleMethod(c, float(h), self.correction.currentData())
                             for c, cb in self.conversions.items() if cb.isChecked())
-        return PsaRequest(self.draws.value(), self.patients.value(), self.workers.value(), methods)
+        return PsaRequest(self.draws.value(), self.patients.value(), self.workers.value(), methods,
+                          self.scheduler.text().strip() or None)
 
     # ------------------------------------------------------------------ run
     def is_running(self) -> bool:
@@ -198,10 +212,14 @@ class PsaRunControls(QWidget):
     def start(self) -> None:
         if self.job is not None or self.scenario is None:
             return
-        job = PsaJob(PsaWorker(self.scenario, self.request()))
+        request = self.request()
+        mark_invalid(self.scheduler, [])
+        job = PsaJob(PsaWorker(self.scenario, request))
         job.draws.connect(self._on_draws)
         start_job(job, self.progress, self.status, finished=self._on_finished, failed=self._on_failed,
                   cancelled=self._on_cancelled)
+        if request.scheduler:
+            self.status.setText(f"Connecting to the scheduler at {request.scheduler}…")
         self.job = job
         self._update_enabled()
         self.started.emit()
@@ -221,7 +239,7 @@ class PsaRunControls(QWidget):
     def _update_enabled(self) -> None:
         running = self.job is not None
         set_running(running, self.scenario is not None, self.run_button, self.cancel_button,
-                    (self.draws, self.patients, self.workers))
+                    (self.draws, self.patients, self.workers, self.scheduler))
         self.approx.setEnabled(not running and self.scenario is not None and self.scenario.model.is_markov)
 
     def _idle(self, text: str) -> None:
@@ -248,8 +266,12 @@ class PsaRunControls(QWidget):
 
     @Slot(str)
     def _on_failed(self, message: str) -> None:
+        error = self.job.worker.error if self.job is not None else None
         self.job = None
         self._idle("Failed: " + message)
+        problems = getattr(error, "problems", ())
+        words = [FieldError.from_problem(p).text for p in problems if tuple(p.path[:1]) == ("scheduler",)]
+        mark_invalid(self.scheduler, words)  # the address the analysis could not use, with sim's reason
 
     @Slot()
     def _on_cancelled(self) -> None:

@@ -18,6 +18,7 @@ from gui.worker import Job, error_message
 from sim.engine import SimulationCancelled
 from sim.io import Scenario
 from sim.distributed import PsaResult, run_psa
+from sim.problems import ValidationError
 from sim.psa import CycleMethod, psa_summaries
 
 __all__ = ["PsaRequest", "PsaOutcome", "PsaWorker", "PsaJob", "NO_ESTIMATE", "eta_text"]
@@ -28,13 +29,14 @@ NO_ESTIMATE = -1.0  # seconds left: not known yet
 
 @dataclass(frozen=True)
 class PsaRequest:
-    """What the user asked for: draws, patients per draw and strategy, local workers, and the
-    cycle-based approximations to run on every draw."""
+    """What the user asked for: draws, patients per draw and strategy, workers, the cycle-based
+    approximations to run on every draw, and the Dask scheduler's address (None: this machine)."""
 
     draws: int
     patients: int
     workers: int
     cycle_methods: tuple[CycleMethod, ...] = ()
+    scheduler: str | None = None
 
 
 @dataclass(frozen=True)
@@ -58,7 +60,10 @@ class PsaWorker(QObject):
 
     Signals: ``progress(done, total, seconds_left)`` (``NO_ESTIMATE`` while unknown), at most every
     ``min_interval`` seconds except the last; ``finished(PsaOutcome)``; ``failed(message)``;
-    ``cancelled()``.
+    ``cancelled()``. After ``failed``, :attr:`error` holds the exception (a
+    :class:`sim.problems.ValidationError` names the key it concerns, e.g. ``scheduler``). A cancel
+    asked for while the scheduler is still being reached ends as ``cancelled`` once the attempt
+    returns (Dask's connection cannot be interrupted; the window does not wait for it).
     """
 
     progress = Signal(int, int, float)
@@ -73,6 +78,7 @@ class PsaWorker(QObject):
         self._cancel = threading.Event()
         self._min_interval = float(min_interval)
         self._last = 0.0
+        self.error: BaseException | None = None
 
     def cancel(self) -> None:
         """Ask the analysis to stop at its next check (between blocks of draws). Thread-safe."""
@@ -94,14 +100,19 @@ class PsaWorker(QObject):
         r = self._request
         t0 = time.perf_counter()
         try:
-            result = run_psa(self._scenario, r.draws, r.patients, workers=r.workers, progress=self._report,
-                             cancel=self._cancel, cycle_methods=r.cycle_methods)
+            result = run_psa(self._scenario, r.draws, r.patients, workers=r.workers, scheduler=r.scheduler,
+                             progress=self._report, cancel=self._cancel, cycle_methods=r.cycle_methods)
             summaries = psa_summaries(result.table, self._scenario.model)
         except SimulationCancelled:
             self.cancelled.emit()
         except Exception as err:  # every failure reaches the user as a message
-            log.exception("probabilistic analysis failed")
-            self.failed.emit(error_message(err))
+            if self._cancel.is_set():  # e.g. the scheduler could not be reached after Cancel was pressed
+                self.cancelled.emit()
+            else:
+                if not isinstance(err, ValidationError):
+                    log.exception("probabilistic analysis failed")
+                self.error = err
+                self.failed.emit(error_message(err))
         else:
             self.finished.emit(PsaOutcome(self._scenario, r, result, summaries, time.perf_counter() - t0))
         app = QCoreApplication.instance()  # back to the GUI thread, to be destroyed there
