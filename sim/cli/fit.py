@@ -1,10 +1,15 @@
 """``hazardtrace fit``: parametric survival fits to patient-level data or to published Kaplan-Meier
 curves (reconstructed by the algorithm of Guyot et al. 2012), printed as an AIC/BIC table and written
-as a scenario fragment (docs/methods.md, 'Survival fits from trial evidence').
+as a scenario fragment (docs/methods.md, 'Survival fits from trial evidence'). With two arms the
+fragment also holds the compared arm's entry for its strategy (the hazard ratio, or for an
+accelerated-failure-time family the compared arm's own hazard as a replacement) and the compared-arm
+covariance group (:func:`sim.evidence.compared_arm`, :func:`sim.evidence.compared_arm_group`).
 
 Examples::
 
     hazardtrace fit trial.csv --time months --event death --group arm --unit months --output fits.toml
+    hazardtrace fit trial.csv --arm-column arm --reference control --transition "disease death" \
+        --transition-index 0 --strategy-index 1 --unit months --output fits.toml
     hazardtrace fit --curves km.csv --at-risk risk.csv --unit months --total-events control=120
 """
 
@@ -19,8 +24,9 @@ from ..hazards import UNIT_IN_YEARS
 from ..io.atomic import write_text_atomic
 from ..problems import ValidationError
 from ..io import load_scenario
-from ..evidence import (FAMILY_NAMES, below_background, choose_fit, fit_families, fit_table, parse_total_events,
-                        read_at_risk, read_curves, read_survival_data, reconstruct, write_fragment)
+from ..evidence import (FAMILY_NAMES, below_background, choose_fit, compared_arm, fit_families, fit_table,
+                        follow_up_years, parse_total_events, read_at_risk, read_curves, read_survival_data, reconstruct,
+                        reference_first, write_fragment)
 
 __all__ = ["register"]
 
@@ -32,6 +38,13 @@ def _sheet(sheet: str | None) -> str | int:
     if sheet is None:
         return 0
     return int(sheet) if sheet.isdigit() else sheet
+
+
+def _index(text: str) -> int:
+    """A position in an array of tables: a whole number >= 0."""
+    if not text.strip().isdigit():
+        raise argparse.ArgumentTypeError(f"must be a whole number >= 0 (a position from 0), not {text!r}")
+    return int(text)
 
 
 def _fit(args: argparse.Namespace, out: TextIO) -> int:
@@ -76,6 +89,7 @@ def _fit(args: argparse.Namespace, out: TextIO) -> int:
         source = args.data
     else:
         raise ValidationError(("DATA",), "give a patient-level data file or --curves and --at-risk")
+    data = reference_first(data, args.reference, key="--reference")
     arms = (f", arm {data.groups[1]!r} against the reference arm {data.groups[0]!r}" if len(data.groups) == 2
             else "")
     out.write(f"{source}: {data.n} patients, {data.n_events} events, time in {data.unit}"
@@ -92,13 +106,17 @@ def _fit(args: argparse.Namespace, out: TextIO) -> int:
     if chosen is not None:
         out.write(f"\nLowest {args.criterion.upper()} among scenario families: {chosen.family} "
                   f"({', '.join(f'{k} = {v}' for k, v in chosen.parameters.items())}; unit {chosen.unit})\n")
+    if chosen is not None and chosen.effect is not None:
+        arm = compared_arm(chosen, transition=args.transition, strategy=args.strategy_index)
+        out.write(f"Compared arm: {arm.note}.\n")
     if args.background:
         _background_report(fits, args, out)
     if args.output:
         if chosen is None:
             raise ValidationError(("--families",), f"no fit of a scenario hazard family converged; nothing was "
                                   f"written to {args.output}", families)
-        write_fragment(args.output, fits, source=source, criterion=args.criterion, force=args.force)
+        write_fragment(args.output, fits, source=source, criterion=args.criterion, force=args.force,
+                       transition=args.transition_index, transition_name=args.transition, strategy=args.strategy_index)
         out.write(f"Scenario fragment written to {args.output}\n")
     return 0
 
@@ -114,7 +132,7 @@ def _background_report(fits: list, args: argparse.Namespace, out: TextIO) -> Non
         raise ValidationError(("--background",), "the scenario has no [background] mortality", args.background)
     horizon = args.horizon
     if horizon is None:
-        horizon = model.horizon.value - (args.entry_age if model.horizon.scale == "age" else 0.0)
+        horizon = follow_up_years(model.horizon, args.entry_age)
     if not horizon > 0:
         raise ValidationError(("--horizon",), "must be > 0 years (give --horizon, or an entry age below the "
                               "scenario's horizon age)", horizon)
@@ -137,7 +155,10 @@ def register(sub: argparse._SubParsersAction) -> None:
     p.add_argument("--time", default="time", help="exit time column (default 'time')")
     p.add_argument("--event", default="event", help="event indicator column, 1 event / 0 censored (default 'event')")
     p.add_argument("--entry", help="delayed-entry time column (left truncation)")
-    p.add_argument("--group", help="arm column (two arms: a hazard ratio or acceleration factor)")
+    p.add_argument("--group", "--arm-column", dest="group", metavar="COLUMN",
+                   help="arm column (two arms: a hazard ratio or acceleration factor)")
+    p.add_argument("--reference", metavar="ARM", help="the reference arm of two (default: the first in sorted "
+                   "order): its hazard is fitted, the other arm's effect is against it")
     p.add_argument("--sheet", help="worksheet of an .xlsx file (name, or position from 0; default the first)")
     p.add_argument("--unit", default="years", choices=tuple(UNIT_IN_YEARS), help="time unit of the data")
     p.add_argument("--families", nargs="+", default=list(DEFAULT_FAMILIES), choices=FAMILY_NAMES, metavar="FAMILY",
@@ -155,5 +176,11 @@ def register(sub: argparse._SubParsersAction) -> None:
                    "scenario's horizon)")
     p.add_argument("--criterion", choices=("aic", "bic"), default="aic", help="how [chosen] is chosen")
     p.add_argument("--output", metavar="FRAGMENT.toml", help="write the fits as a scenario fragment")
+    p.add_argument("--transition", default="death", metavar="NAME", help="two arms: the transition the fit goes "
+                   "into, as named in the fragment's strategy keys and covariance group (default 'death')")
+    p.add_argument("--transition-index", type=_index, default=0, metavar="I", help="two arms: its position among "
+                   "the scenario's [[transitions]], from 0 (default 0)")
+    p.add_argument("--strategy-index", type=_index, default=1, metavar="K", help="two arms: the position of the "
+                   "compared arm's [[strategies]] table, from 0 (default 1, the first after the comparator)")
     p.add_argument("--force", action="store_true", help="replace an existing fragment file")
     p.set_defaults(func=_fit, needs_scenario=False)
