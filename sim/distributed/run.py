@@ -4,8 +4,10 @@
 The run is cut into the same chunks as :mod:`sim.pipeline` (:func:`sim.pipeline.chunk_jobs` with the
 plan's ``chunk_size``), each a task calling the pure :func:`sim.pipeline.simulate_chunk` on a worker,
 which writes the chunk as ``events/part-NNNNN.parquet`` and ``patients/part-NNNNN.parquet`` (NNNNN
-the chunk's number) and sends back only its partial sums (:mod:`sim.distributed.sums`) and row
-counts. Memory on the client is bounded whatever the number of patients. The event log is the local
+the chunk's number) and sends back only row counts and the chunk's :class:`sim.analysis.OutcomeAccumulator`
+(exact sums, a few kilobytes), which the client merges in partition order. Memory on the client is
+bounded whatever the number of patients. The sums being exact, the summary and increments are the
+local run's bit for bit (streamed or in memory), for any number of workers and either scheduler. The event log is the local
 run's, bit for bit, cut by chunk: partition k holds patients ``k * chunk_size ..`` of every strategy
 (strategy, then patient); :func:`read_partitioned` joins them back in the local run's row order.
 
@@ -15,7 +17,8 @@ result tables (CSV, as :class:`sim.io.export.RunWriter` adds them) and ``metadat
 written; on an error, a cancel request or Ctrl-C the futures are cancelled and the temporary folder
 is removed, leaving the output folder as it was. The stages after the simulation are the pipeline's
 (:data:`sim.pipeline.STAGES`: outcomes from the merged sums, the exact solution, the error study;
-the survival and occupancy estimates need the whole log and are skipped, as in a streamed run).
+the survival and occupancy estimates need the whole log and are skipped, as in a streamed run;
+``hazardtrace report`` computes them on a grid from the partitions, :func:`sim.analysis.curve_counts`).
 """
 
 from __future__ import annotations
@@ -35,7 +38,7 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
 
-from ..analysis import patient_outcomes
+from ..analysis import OutcomeAccumulator, patient_outcomes
 from ..engine import CancelToken
 from ..io import Scenario
 from ..io.atomic import replace_folder
@@ -45,10 +48,9 @@ from ..io.export.metadata import metadata_for
 from ..pipeline import STAGES, ChunkJob, RunPlan, RunResults, RunState, SerialExecutor, chunk_jobs, run_stages, simulate_chunk
 from ..pipeline.sinks import chunk_result, result_tables
 from .cluster import cancel_futures, completed, connect
-from .sums import ChunkSums, RunSums, chunk_sums
 
 __all__ = ["PartitionTask", "PartitionReport", "write_partition", "run_distributed", "read_partitioned",
-           "PARTITIONED_FORMAT"]
+           "partition_paths", "PARTITIONED_FORMAT"]
 
 PARTITIONED_FORMAT = "parquet-partitioned"
 Progress = Callable[[str, int, int], None]
@@ -66,7 +68,7 @@ class PartitionTask:
 
 @dataclass(frozen=True)
 class PartitionReport:
-    """What a worker sends back for one chunk: rows written, content hashes, partial sums."""
+    """What a worker sends back for one chunk: rows written, content hashes, the chunk's exact sums."""
 
     index: int
     patients: int
@@ -74,7 +76,7 @@ class PartitionReport:
     patients_rows: int
     events_sha256: str
     patients_sha256: str
-    sums: ChunkSums
+    sums: OutcomeAccumulator | None
 
 
 def part_name(index: int) -> str:
@@ -88,11 +90,11 @@ def write_partition(task: PartitionTask) -> PartitionReport:
     for table, df in (("events", chunk.events), ("patients", chunk.patients)):
         pq.write_table(pa.Table.from_pandas(df, preserve_index=False),
                        os.path.join(task.folder, table, part_name(task.index)), row_group_size=max(len(df), 1))
-    per = patient_outcomes(chunk_result(task.plan, chunk))
     model = task.plan.model
+    sums = OutcomeAccumulator(model.strategy_names[0], model.valuation.willingness_to_pay)
+    sums.add(patient_outcomes(chunk_result(task.plan, chunk)))  # as StreamSink.add for the local run
     return PartitionReport(task.index, chunk.n_patients, len(chunk.events), len(chunk.patients),
-                           TableHash.of([chunk.events]), TableHash.of([chunk.patients]),
-                           chunk_sums(per, model.strategy_names[0]))
+                           TableHash.of([chunk.events]), TableHash.of([chunk.patients]), sums)
 
 
 def _commit(tmp: Path, out: Path, force: bool) -> None:
@@ -153,7 +155,7 @@ def run_distributed(scenario: Scenario, plan: RunPlan, out_dir: str | os.PathLik
         token = uuid.uuid4().hex[:12]
         futures = [client.submit(write_partition, PartitionTask(job, i, str(tmp), plan),
                                  key=f"hazardtrace-run-{token}-{i}", pure=False) for i, job in enumerate(jobs)]
-        sums = RunSums(model.strategy_names[0], model.valuation.willingness_to_pay)
+        sums = OutcomeAccumulator(model.strategy_names[0], model.valuation.willingness_to_pay)
         reports: dict[int, PartitionReport] = {}
         merged = done = 0
         report("simulating", 0, plan.patients)
@@ -161,8 +163,10 @@ def run_distributed(scenario: Scenario, plan: RunPlan, out_dir: str | os.PathLik
             reports[i] = part
             futures[i] = None  # the result is here; let the cluster forget it
             done += part.patients
-            while merged in reports:  # merge in chunk order, whatever order they finish in
-                sums.add(reports[merged].sums)
+            while merged in reports:  # merge in partition order (exact sums: any order gives the same bits)
+                part_sums = reports[merged].sums
+                assert part_sums is not None
+                sums.merge(part_sums)
                 reports[merged] = replace(reports[merged], sums=None)
                 merged += 1
             report("simulating", done, plan.patients)
@@ -236,11 +240,17 @@ def _write_metadata(path: Path, meta: Mapping[str, Any]) -> None:
                     encoding="utf-8")
 
 
+def partition_paths(folder: str | os.PathLike[str], table: str = "events") -> list[Path]:
+    """The partition files of one table (``events`` or ``patients``) of a partitioned run folder, in
+    partition order (partition k holds patients ``k * chunk_size ..`` of every strategy)."""
+    return sorted((Path(folder) / table).glob("part-*.parquet"), key=lambda p: int(p.stem.split("-")[1]))
+
+
 def read_partitioned(folder: str | os.PathLike[str], table: str = "events") -> pd.DataFrame:
     """One table of a partitioned run folder in the local run's row order (strategy, then patient):
-    for runs that fit in memory. Larger ones: ``pyarrow.dataset.dataset(folder / table)``."""
-    parts = sorted((Path(folder) / table).glob("part-*.parquet"), key=lambda p: int(p.stem.split("-")[1]))
-    frames = [pd.read_parquet(p) for p in parts]
+    for runs that fit in memory. Larger ones: one partition at a time (:func:`partition_paths`) or
+    ``pyarrow.dataset.dataset(folder / table)``."""
+    frames = [pd.read_parquet(p) for p in partition_paths(folder, table)]
     df = pd.concat(frames, ignore_index=True)
     codes = df["strategy"].cat.codes if isinstance(df["strategy"].dtype, pd.CategoricalDtype) else None
     if codes is None:
