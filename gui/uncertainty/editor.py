@@ -19,8 +19,10 @@ from PySide6.QtWidgets import (QComboBox, QDialog, QDialogButtonBox, QFormLayout
 from gui.document import FieldError, KeyPath, ScenarioDocument
 from gui.editors.fields import INVALID_COLOUR, TYPING_PAUSE_MS, mark_invalid, parse_typed
 from gui.toml_edit import to_plain
+from sim.io.scenario.uncertain import SHARE_TABLES
 
 from .density import DensityPreview, number_text
+from .groups import GroupEditor
 from .entry import (FAMILIES, FAMILY_LABELS, FORM_LABELS, KEY_LABELS, OPTIONAL_KEYS, EntryCheck, check_draft,
                     draft_text, find_entry, forms_of, parameter_name, removed_text)
 
@@ -92,6 +94,13 @@ class DistributionEditor(QDialog):
         self.buttons.accepted.connect(self.apply)
         self.buttons.rejected.connect(self.reject)
         self.remove_button.clicked.connect(self.remove)
+        self.group_button = QPushButton("Part of a correlated group…")
+        self.group_button.setObjectName("to_group")
+        self.group_button.setToolTip("Draw this parameter together with others: a correlated group (multivariate "
+                                     "normal) or, for a share, the shares of its table (Dirichlet)")
+        self.buttons.addButton(self.group_button, QDialogButtonBox.ButtonRole.ActionRole)
+        self.group_button.clicked.connect(self.open_group)
+        self.group_editor = None
 
         layout = QVBoxLayout(self)
         layout.addWidget(head)
@@ -119,13 +128,16 @@ class DistributionEditor(QDialog):
         self.group_note.setVisible(group)
         if group:
             self.group_note.setText(f"{self.name} is drawn together with other parameters in uncertainty[{index}] "
-                                    f"(a {entry.get('distribution')} distribution): edit the group in the "
-                                    "Scenario text view.")
+                                    f"(a {entry.get('distribution')} distribution): edit the group with "
+                                    "“Edit the group…”.")
+            self.group_button.setText("Edit the group…")
             for w in (self.family, self.form, self.apply_button, self.remove_button):
                 w.setEnabled(False)
             self.preview.show_distribution(None, "")
             return
         self.remove_button.setEnabled(index is not None)
+        if any(self.key[:len(t)] == t for t in SHARE_TABLES):
+            self.group_button.setText("Drawn with the other shares…")
         values = entry if isinstance(entry, dict) else {}
         family = values.get("distribution")
         if family in FAMILIES:
@@ -255,6 +267,20 @@ class DistributionEditor(QDialog):
         if text != self.document.text:
             self.document.set_text(text, f"Remove the distribution of {self.name}")
         self.accept()
+
+    def open_group(self) -> None:
+        """Open the group editor on the parameter's group, or on a new group starting with it (for a
+        share: with every share of its table, which a Dirichlet draws together); this editor closes."""
+        index, group = find_entry(self.document.data, self.key)
+        family, start = "multivariate_normal", [self.name]
+        if not group and any(self.key[:len(t)] == t for t in SHARE_TABLES):
+            table = self.document.table(self.key[:-1])
+            family = "dirichlet"
+            start = [parameter_name((*self.key[:-1], k)) for k, v in table.items()
+                     if isinstance(v, (int, float)) and not isinstance(v, bool)]
+        self.group_editor = GroupEditor(self.document, index if group else None, family, start, self.parentWidget())
+        self.group_editor.open()
+        self.reject()
 
     def keyPressEvent(self, event) -> None:  # noqa: N802 - Qt API
         """Enter in a field applies only when the draft is valid (checked first)."""

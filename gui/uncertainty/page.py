@@ -30,6 +30,7 @@ from sim.psa import CycleMethod, inputs_table, reference_method, write_psa
 from sim.reference import Conversion, Correction
 from sim.report import cycle_words, inputs_from_psa, write_report
 
+from .group_list import GroupList
 from .views import AcceptabilityView, CePlaneView, ConvergenceView, EvpiView, PsaTablesView
 from .worker import PsaJob, PsaOutcome, PsaRequest, PsaWorker, eta_text
 
@@ -293,6 +294,7 @@ class PsaPage(QWidget):
         self.document = document
         self.outcome: PsaOutcome | None = None
         self.controls = PsaRunControls()
+        self.groups = GroupList(document)
         self.exporter = Exporter(self)
         self.title = QLabel()
         self.title.setWordWrap(True)
@@ -344,6 +346,7 @@ class PsaPage(QWidget):
         lv = QVBoxLayout(left)
         lv.addWidget(QLabel("<b>Probabilistic analysis</b>"))
         lv.addWidget(self.controls, 1)
+        lv.addWidget(self.groups)
         left.setMinimumWidth(330)
         left.setMaximumWidth(420)
         split = QSplitter(Qt.Orientation.Horizontal)
