@@ -11,6 +11,7 @@ from .crude import crude_rate, crude_risk
 from .kaplan_meier import kaplan_meier
 from .own_horizon import occupancy_to_own_horizon, survival_to_own_horizon
 from .time_in_state import per_patient_time_in_states, restricted_mean_survival, time_in_states
+from .curve_counts import CurveCounts, curve_counts
 from .outcomes import (OUTCOMES, OutcomeAccumulator, combine_outcomes, incremental, increments_from_values,
                        outcome_names, patient_outcomes, summarise)
 
@@ -19,4 +20,4 @@ __all__ = ["column_decimals", "decimals_from_mcse", "format_fixed", "label_codes
            "cumulative_incidence", "kaplan_meier", "occupancy_to_own_horizon", "survival_to_own_horizon",
            "per_patient_time_in_states", "restricted_mean_survival",
            "state_occupancy", "time_in_states", "OUTCOMES", "OutcomeAccumulator", "combine_outcomes", "incremental",
-           "increments_from_values", "outcome_names", "patient_outcomes", "summarise"]
+           "increments_from_values", "outcome_names", "patient_outcomes", "summarise", "CurveCounts", "curve_counts"]

@@ -20,7 +20,7 @@ from ..model import Model
 from ..reference import cohort_trace
 from ..reference.study import MAX_TUNNEL_STATES
 
-__all__ = ["TraceRequest", "cycle_words", "trace_occupancy", "curve_figures", "Z95", "METHOD_COLOURS",
+__all__ = ["step_times", "TraceRequest", "cycle_words", "trace_occupancy", "curve_figures", "Z95", "METHOD_COLOURS",
            "method_style", "method_words"]
 
 Z95 = 1.959963984540054  # standard normal 97.5% quantile (scipy.stats.norm.ppf(0.975))
@@ -107,6 +107,12 @@ def _alive(table: pd.DataFrame, model: Model) -> tuple[np.ndarray, np.ndarray]:
     return dead.index.to_numpy(dtype=float), 1.0 - dead.to_numpy(dtype=float)
 
 
+def step_times(t_end: float) -> np.ndarray:
+    """The :data:`STEP_POINTS` even times from 0 to ``t_end`` at which a simulated step curve is drawn
+    (a survival curve known only at these times is drawn exactly as the whole step function)."""
+    return np.linspace(0.0, t_end, STEP_POINTS)
+
+
 def _step_on_grid(t: np.ndarray, y: np.ndarray, grid: np.ndarray) -> np.ndarray:
     """A right-continuous step function with value y[i] from t[i], read at ``grid``."""
     idx = np.searchsorted(t, grid, side="right") - 1
@@ -139,7 +145,7 @@ def curve_figures(model: Model, survival: pd.DataFrame | None, occupancy: pd.Dat
     colour = {s: COLOURS[i % len(COLOURS)] for i, s in enumerate(states)}
     requests = list(dict.fromkeys(r for _, r in traces))
     out = []
-    grid = np.linspace(0.0, t_end, STEP_POINTS)
+    grid = step_times(t_end)
     for k, strategy in enumerate(model.strategy_names):
         fig = Figure(figsize=(9.0, 3.4))
         ax_s, ax_o = fig.subplots(1, 2)

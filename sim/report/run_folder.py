@@ -6,25 +6,36 @@ The result tables are shown as recorded; the survival and occupancy curves, whic
 not store, are estimated again from the recorded event log with the same functions the run uses
 (:func:`sim.analysis.survival_to_own_horizon`, :func:`sim.analysis.occupancy_to_own_horizon`) and,
 for a Markov model, the exact occupancy is solved again (:func:`sim.reference.exact_outcomes_and_occupancy`).
+
+A partitioned run folder (``hazardtrace run --workers N`` or ``--scheduler``; its metadata lists the
+partitions) is read one partition at a time: each gives its counts on the time grid
+(:func:`sim.analysis.curve_counts`), added across partitions, so the curves of 10^8 patients never
+need their rows in memory. They are the same curves, on the grid; survival is read at the times the
+report draws it (:func:`sim.report.plots.step_times`), so the figure is the one the whole log gives.
 """
 
 from __future__ import annotations
 
 import json
+import re
 from pathlib import Path
 from typing import Any
 
 import pandas as pd
 
-from ..analysis import occupancy_to_own_horizon, survival_to_own_horizon
+from ..analysis import curve_counts, occupancy_to_own_horizon, survival_to_own_horizon
 from ..io import Scenario, parse_scenario
 from ..io.export import ExportError
 from ..pipeline import time_grid
 from ..reference import NoExactSolution, StudyResult, exact_outcomes_and_occupancy
 from .inputs import ReportInputs
+from .plots import step_times
 
 __all__ = ["read_metadata", "scenario_of", "load_run_folder", "metadata_path"]
 
+PARTITIONED_FORMAT = "parquet-partitioned"  # sim.distributed.PARTITIONED_FORMAT (report may not import Dask's package)
+EVENT_COLUMNS = ["strategy", "patient", "time", "from_state", "to_state", "transition"]
+PATIENT_COLUMNS = ["strategy", "patient", "initial_state", "exit_time", "final_state", "exit_reason"]
 CATEGORIES = ("strategy", "from_state", "to_state", "transition", "sex", "initial_state", "final_state",
               "exit_reason")
 
@@ -114,6 +125,31 @@ def _curves(scenario: Scenario, events: pd.DataFrame, patients: pd.DataFrame, gr
     return pd.concat(surv, ignore_index=True), pd.concat(occ, ignore_index=True)
 
 
+def _partitioned_curves(folder: Path, scenario: Scenario, meta: dict[str, Any], grid
+                        ) -> tuple[pd.DataFrame, pd.DataFrame, str] | None:
+    """Survival and occupancy of a partitioned run from its partitions' counts (None when a partition
+    is missing), and a note saying how they were computed."""
+    model = scenario.model
+    names = [str(p.get("name")) for p in meta.get("partitions", []) if isinstance(p, dict)]
+    paths = [(folder / "events" / n, folder / "patients" / n) for n in names]
+    if (not paths or not all(re.fullmatch(r"part-\d+\.parquet", n) for n in names)
+            or not all(e.is_file() and p.is_file() for e, p in paths)):
+        return None
+    counts = None
+    times = step_times(float(grid[-1]))
+    for events_path, patients_path in paths:  # one partition in memory at a time
+        events = pd.read_parquet(events_path, columns=EVENT_COLUMNS)
+        patients = pd.read_parquet(patients_path, columns=PATIENT_COLUMNS)
+        present = set(patients["strategy"].astype(str))
+        part = curve_counts(events, patients, model.state_names, grid, times,
+                            strategies=[s for s in model.strategy_names if s in present])
+        counts = part if counts is None else counts.merge(part)
+    assert counts is not None
+    note = (f"simulated curves from the {len(paths)} partitions of the event log (counts added across partitions); "
+            f"survival at {len(times)} even times")
+    return counts.survival(), counts.occupancy(), note
+
+
 def load_run_folder(folder: str | Path) -> ReportInputs:
     """The report's inputs from a run folder (see the module docstring).
 
@@ -136,11 +172,19 @@ def load_run_folder(folder: str | Path) -> ReportInputs:
     grid = time_grid(scenario)
     notes: list[str] = []
     survival = occupancy = None
-    events, patients = _log(folder, "events", meta), _log(folder, "patients", meta)
-    if events is not None and patients is not None:
-        survival, occupancy = _curves(scenario, events, patients, grid)
+    if meta.get("format") == PARTITIONED_FORMAT:
+        curves = _partitioned_curves(folder, scenario, meta, grid)
+        if curves is None:
+            notes.append("a partition of the event log is not in the run folder: no simulated curves")
+        else:
+            survival, occupancy, note = curves
+            notes.append(note)
     else:
-        notes.append("the event log is not in the run folder: no simulated curves")
+        events, patients = _log(folder, "events", meta), _log(folder, "patients", meta)
+        if events is not None and patients is not None:
+            survival, occupancy = _curves(scenario, events, patients, grid)
+        else:
+            notes.append("the event log is not in the run folder: no simulated curves")
     exact_occupancy, exact_note = None, ""
     if scenario.model.is_markov:
         try:
