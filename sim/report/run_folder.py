@@ -145,8 +145,9 @@ def _partitioned_curves(folder: Path, scenario: Scenario, meta: dict[str, Any], 
                             strategies=[s for s in model.strategy_names if s in present])
         counts = part if counts is None else counts.merge(part)
     assert counts is not None
-    note = (f"simulated curves from the {len(paths)} partitions of the event log (counts added across partitions); "
-            f"survival at {len(times)} even times")
+    parts = f"{len(paths)} partitions" if len(paths) != 1 else "one partition"
+    note = f"simulated curves from the {parts} of the event log (counts added across partitions); survival at " \
+           f"{len(times)} even times"
     return counts.survival(), counts.occupancy(), note
 
 
