@@ -1,11 +1,14 @@
 """The "Fit from data" window: survival evidence in (patient-level data or a published curve), fits
 by maximum likelihood off the GUI thread, the plots and the AIC/BIC table, and one action that puts
-the chosen fit into a transition of the open scenario (undoable, comments kept).
+the chosen fit into a transition of the open scenario (undoable, comments kept) and, for two arms,
+optionally the other arm's hazard ratio into a strategy with the joint covariance group.
 
-The window composes :class:`~gui.evidence.source_panel.SourcePanel`, the fit controls, the table
-and the plots (:mod:`gui.evidence.plots`); everything it shows comes from ``sim.evidence``
-(:func:`~sim.evidence.fit_family`, :func:`~sim.evidence.fit_table`,
-:func:`~sim.evidence.below_background`) and ``sim.analysis`` (Kaplan-Meier).
+The window composes :class:`~gui.evidence.source_panel.SourcePanel`, the fit controls, the table,
+:class:`~gui.evidence.apply_panel.ApplyPanel` and the plots (:mod:`gui.evidence.plots`); everything
+it shows comes from ``sim.evidence`` (:func:`~sim.evidence.fit_family`,
+:func:`~sim.evidence.fit_table`, :func:`~sim.evidence.below_background`,
+:func:`~sim.evidence.background_on_fit_clock`, :func:`~sim.evidence.follow_up_years`,
+:func:`~sim.evidence.compared_arm`) and ``sim.analysis`` (Kaplan-Meier).
 """
 
 from __future__ import annotations
@@ -14,18 +17,20 @@ import numpy as np
 import pandas as pd
 from PySide6.QtCore import QSortFilterProxyModel, Qt, Signal
 from PySide6.QtGui import QKeySequence
-from PySide6.QtWidgets import (QAbstractItemView, QCheckBox, QComboBox, QDoubleSpinBox, QFormLayout, QGroupBox,
-                               QHBoxLayout, QLabel, QMainWindow, QProgressBar, QPushButton,
-                               QScrollArea, QSplitter, QTableView, QTabWidget, QVBoxLayout, QWidget)
+from PySide6.QtWidgets import (QAbstractItemView, QComboBox, QDoubleSpinBox, QGroupBox, QHBoxLayout, QLabel,
+                               QMainWindow, QProgressBar, QPushButton, QScrollArea, QSplitter, QTableView, QTabWidget,
+                               QVBoxLayout, QWidget)
 
 from gui.document import ScenarioDocument
 from gui.palette import OKABE_ITO
 from gui.results.table_model import RAW_ROLE, DataFrameModel
 from gui.worker import Job
-from sim.evidence import Fit, KaplanMeier, below_background, fit_table, kaplan_meier_by_arm, numbers_at_risk
-from sim.hazards import UNIT_IN_YEARS
+from sim.evidence import (Fit, KaplanMeier, background_on_fit_clock, below_background, fit_table, follow_up_years,
+                          kaplan_meier_by_arm, numbers_at_risk)
+from sim.hazards import from_years, to_years
 from sim.problems import ValidationError
 
+from .apply_panel import ApplyPanel
 from .families_panel import FamiliesPanel
 from .fit_worker import FitOutcome, FitRequest, FitWorker
 from .plots import DiagnosticPlot, HazardPlot, SurvivalPlot, nice_ticks
@@ -114,45 +119,19 @@ class EvidenceWindow(QMainWindow):
         self.table.setMinimumHeight(170)
         QVBoxLayout(table_box).addWidget(self.table)
 
-        apply_box = QGroupBox("4. Into the scenario")
-        form = QFormLayout(apply_box)
-        self.transition = QComboBox()
-        self.transition.setToolTip("The transition whose hazard the fit replaces (its clock, hazard ratio and waning "
-                                   "stay)")
+        apply_box = self.apply_panel = ApplyPanel(self.document)
+        (self.transition, self.arm, self.covariance, self.ratio, self.strategy, self.ratio_note, self.floor,
+         self.floor_note, self.entry_age, self.apply_button, self.apply_message) = (
+            apply_box.transition, apply_box.arm, apply_box.covariance, apply_box.ratio, apply_box.strategy,
+            apply_box.ratio_note, apply_box.floor, apply_box.floor_note, apply_box.entry_age, apply_box.apply_button,
+            apply_box.apply_message)
         self.transition.currentIndexChanged.connect(self._on_transition)
-        self.arm = QComboBox()
-        self.arm.setToolTip("Two arms: the reference arm's hazard, or the compared arm's in the same family")
         self.arm.currentIndexChanged.connect(lambda _i: self._on_arm())
-        self.covariance = QCheckBox("Add its covariance as a correlated parameter group ([[uncertainty]])")
-        self.covariance.setChecked(True)
-        self.covariance.setToolTip("A multivariate normal on the fit's estimation scale (log of positive "
-                                   "parameters) for the probabilistic analysis; replaces groups on the old hazard")
-        self.floor = QCheckBox("At least the background hazard (at_least_background = true)")
-        self.floor.setToolTip("The transition's hazard becomes the larger of the fit and the background hazard; "
-                              "reported by hazardtrace check")
-        self.floor_note = QLabel()
-        self.floor_note.setObjectName("floor_note")
-        self.floor_note.setWordWrap(True)
-        self.entry_age = QDoubleSpinBox()
-        self.entry_age.setRange(0.0, 130.0)
-        self.entry_age.setDecimals(1)
-        self.entry_age.setSuffix(" years")
-        self.entry_age.setToolTip("Attained age at time 0 of the data, to read the background hazard")
+        for box in (self.covariance, self.ratio):
+            box.toggled.connect(lambda _on: self._on_arm())
+        self.strategy.currentIndexChanged.connect(lambda _i: self._on_arm())
         self.entry_age.valueChanged.connect(lambda _v: self._redraw())
-        self.apply_button = QPushButton("Put the selected fit into the transition")
-        self.apply_button.setEnabled(False)
         self.apply_button.clicked.connect(self.apply_fit)
-        self.apply_message = QLabel()
-        self.apply_message.setObjectName("apply_message")
-        self.apply_message.setWordWrap(True)
-        form.addRow("Transition", self.transition)
-        form.addRow("Arm", self.arm)
-        form.addRow(self.covariance)
-        form.addRow("Entry age", self.entry_age)
-        form.addRow(self.floor)
-        form.addRow(self.floor_note)
-        form.addRow(self.apply_button)
-        form.addRow(self.apply_message)
 
         left = QWidget()
         lv = QVBoxLayout(left)
@@ -237,6 +216,7 @@ class EvidenceWindow(QMainWindow):
         else:
             self.arm.addItem("the data's only arm" if data.group is None else "(fit arms one by one)", "reference")
         self.arm.blockSignals(False)
+        self.apply_panel.fill_strategies(self.evidence.data if self.evidence is not None else None)
         self._set_horizon()
         self._redraw()
 
@@ -246,7 +226,7 @@ class EvidenceWindow(QMainWindow):
             return
         data = self.evidence.data
         years = self._horizon_years()
-        value = years / UNIT_IN_YEARS[data.unit] if years else 3.0 * float(np.max(data.time))
+        value = float(from_years(years, data.unit)) if years and years > 0 else 3.0 * float(np.max(data.time))
         self.horizon.blockSignals(True)
         self.horizon.setValue(value)
         self.horizon.blockSignals(False)
@@ -255,8 +235,7 @@ class EvidenceWindow(QMainWindow):
         scenario = self.document.scenario
         if scenario is None:
             return None
-        h = scenario.model.horizon
-        return h.value - self.entry_age.value() if h.scale == "age" else h.value
+        return follow_up_years(scenario.model.horizon, self.entry_age.value())
 
     # ------------------------------------------------------------------ fitting
     def request(self) -> FitRequest:
@@ -365,11 +344,7 @@ class EvidenceWindow(QMainWindow):
         self._redraw()
 
     def _on_arm(self) -> None:
-        fit = self.selected_fit()
-        compared = self.arm.currentData() == "compared"
-        ok = fit is not None and fit.covariance is not None and not compared
-        self.covariance.setEnabled(ok)
-        self.covariance.setToolTip("" if ok else "Only for the reference arm's hazard of a fit with a covariance")
+        self.apply_panel.update_for(self.selected_fit())
         self._redraw()
 
     # ------------------------------------------------------------------ the scenario
@@ -392,6 +367,7 @@ class EvidenceWindow(QMainWindow):
                 self.entry_age.blockSignals(False)
         has_bg = scenario is not None and scenario.model.background is not None
         self.floor.setEnabled(has_bg)
+        self.apply_panel.fill_strategies(self.evidence.data if self.evidence is not None else None)
         self._on_transition()
 
     def _on_document_loaded(self) -> None:
@@ -417,9 +393,10 @@ class EvidenceWindow(QMainWindow):
         if fit is None or i is None:
             self._message("Choose a fit in the table and a transition first.", error=True)
             return False
+        strategy, new_strategy = self.apply_panel.strategy_choice()
         choice = FitChoice(i, self.arm.currentData() or "reference",
                            self.covariance.isChecked() and self.covariance.isEnabled(),
-                           self.floor.isChecked() and self.floor.isEnabled())
+                           self.floor.isChecked() and self.floor.isEnabled(), strategy, new_strategy)
         try:
             change, label = fit_edit(fit, choice, self.transition.currentText())
             label += waning_note(self.document.table(("transitions", i)), fit)
@@ -517,22 +494,19 @@ class EvidenceWindow(QMainWindow):
                                     else "Open a valid scenario to compare with its background mortality.")
             return
         bg = scenario.model.background
-        unit_years = UNIT_IN_YEARS[ev.data.unit]
         age = self.entry_age.value()
-        shift = age if bg.clock.value == "age" else 0.0
-        curves = []
-        with np.errstate(all="ignore"):
-            for hz in bg.scaled_hazards.values():  # times the multiplier (SMR)
-                curves.append((t_pos, np.asarray(hz.hazard(t_pos * unit_years + shift)) * unit_years))
+        with np.errstate(all="ignore"):  # per sex, times the multiplier (SMR), on the fit's clock
+            curves = [(t_pos, on_fit.hazard(t_pos)) for on_fit in background_on_fit_clock(bg, unit=ev.data.unit,
+                                                                                          entry_age=age)]
         below, note = [], ""
         if chosen is not None and chosen.converged:
             hazards = chosen.arm_hazards()
             arm = 1 if self.arm.currentData() == "compared" and len(hazards) == 2 else 0
             fitted = list(hazards.values())[arm]
-            found = below_background(fitted, bg, entry_age=age, horizon=float(t_pos[-1]) * unit_years,
+            found = below_background(fitted, bg, entry_age=age, horizon=float(to_years(float(t_pos[-1]), ev.data.unit)),
                                      unit=ev.data.unit)
             for f in found:
-                below += [(a / unit_years, b / unit_years) for a, b in f.intervals]
+                below += list(f.intervals_in(ev.data.unit))
             falls = [f for f in found if f.intervals]
             note = "; ".join(f.describe() for f in falls)
             self.floor_note.setText((f"{chosen.label}: " + note + ". Tick the option above to use the larger of the two "
