@@ -106,7 +106,8 @@ class ApplyPanel(QGroupBox):
         names = [t.get("name") for t in self.document.tables("strategies")]
         items = [(name if isinstance(name, str) and name else f"strategies[{k}]", k) for k, name in enumerate(names)]
         if other is not None and other not in names:
-            items.append((f"new strategy {other!r}", ("new", other)))
+            first = f"new strategies {data.groups[0]!r} (comparator) and " if not names else "new strategy "
+            items.append((f"{first}{other!r}", ("new", other)))
         old = [(self.strategy.itemText(j), self.strategy.itemData(j)) for j in range(self.strategy.count())]
         current = self.strategy.currentIndex()
         self.strategy.blockSignals(True)
@@ -127,8 +128,8 @@ class ApplyPanel(QGroupBox):
         if not (self.ratio.isChecked() and self.ratio.isEnabled()):
             return None, None
         data = self.strategy.currentData()
-        if isinstance(data, tuple):
-            return len(self.document.tables("strategies")), data[1]
+        if isinstance(data, tuple):  # appended; after a comparator when there is no strategy yet
+            return max(len(self.document.tables("strategies")), 1), data[1]
         return data, None
 
     def _show_ratio_note(self, fit: Fit | None) -> None:

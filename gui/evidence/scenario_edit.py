@@ -48,7 +48,9 @@ class FitChoice:
     """Two arms, reference arm only: the ``[[strategies]]`` index that takes the compared arm (its hazard
     ratio, or its replacement hazard for an accelerated-failure-time family); None writes nothing there."""
     new_strategy: str | None = None
-    """A name: ``[[strategies]]`` table ``strategy`` is appended first, with this name."""
+    """A name: ``[[strategies]]`` table ``strategy`` is appended first, with this name (after a
+    comparator strategy named after the reference arm when the scenario has no strategies: the model's
+    single implicit strategy would otherwise become the compared arm)."""
 
 
 def _names_hazard_of(entry: Any, transition: int) -> bool:
@@ -112,6 +114,9 @@ def _write_compared_arm(doc: Any, fit: Fit, choice: FitChoice) -> tuple[int, str
     k = choice.strategy
     assert k is not None
     if choice.new_strategy is not None:
+        existing = get_item(doc, ("strategies",))
+        if (existing is None or len(existing) == 0) and fit.effect is not None:
+            append_table(doc, ("strategies",), {"name": fit.effect.reference})
         k = append_table(doc, ("strategies",), {"name": choice.new_strategy})
         if k != choice.strategy:
             raise ValueError(f"the new strategy would be strategies[{k}], not strategies[{choice.strategy}]")

@@ -153,3 +153,25 @@ se = 0.1
     t = np.array([0.5, 2.0, 10.0])  # years: S_1(t) = S_0(t / AF)
     np.testing.assert_allclose(model.strategies[1].replacements["disease death"].cumhazard(t),
                                model.transitions[0].hazard.cumhazard(t / fit.effect.estimate), rtol=1e-10)
+
+
+def test_a_scenario_without_strategies_gets_a_comparator_first() -> None:
+    """No [[strategies]] means one implicit strategy: the other arm's strategy comes after a comparator
+    named after the reference arm, so the base case stays the reference arm's (scenario_edit, no Qt)."""
+    from sim.evidence import fit_family
+    from sim.io.scenario import parse_scenario
+
+    from gui.evidence.scenario_edit import FitChoice, fit_edit
+
+    text = SCENARIO.read_text().replace('[[strategies]]\nname = "usual care"\n', "")
+    doc = tomlkit.parse(text)
+    assert "strategies" not in doc
+    data = read_survival_data(TRIAL, time="months", event="death", group="arm", unit="months")
+    fit = fit_family(data, "weibull")
+    change, label = fit_edit(fit, FitChoice(0, covariance=True, strategy=1, new_strategy="treated"), "disease death")
+    change(doc)
+    scenario = parse_scenario(tomlkit.dumps(doc), file="edited.toml")
+    assert [s.name for s in scenario.model.strategies] == ["control", "treated"]
+    assert dict(scenario.model.strategies[0].hazard_ratios) == {}
+    assert scenario.model.strategies[1].hazard_ratios["disease death"] == float(np.exp(fit.theta[-1]))
+    assert scenario.uncertainty[0].keys[-1] == 'strategies[1].hazard_ratios."disease death"'
