@@ -6,7 +6,8 @@ Modules: :mod:`.data` (reading and checking patient-level data, a file's columns
 :mod:`.kaplan_meier` (Kaplan-Meier with delayed entry, its interval, numbers at risk), :mod:`.curves`
 (digitised curves and numbers at risk, cleaning, reported total events) and :mod:`.guyot` (the
 reconstruction algorithm of Guyot et al. 2012),
-:mod:`.arms` (the reference arm), :mod:`.families` and :mod:`.fitting` (maximum likelihood, covariance, AIC/BIC, two-arm effects),
+:mod:`.arms` (the reference arm), :mod:`.families` and :mod:`.fitting` (maximum likelihood,
+covariance, AIC/BIC, two-arm effects),
 :mod:`.gengamma` and :mod:`.spline` (fitting-only families), :mod:`.fragment` (fits as a scenario
 fragment), :mod:`.background` (background mortality on a fit's clock; where a fitted hazard falls below it).
 """
