@@ -8,18 +8,23 @@ inside the engine, so 1,000 draws x 1,000 patients are one vectorised simulation
 Per competing exit, the draws' hazards are compared once (:class:`DrawExit`):
 
 - the same hazard in every draw: one evaluation for all lanes, as in a plain run;
-- constant hazards whose rate varies: ``T = e / rate`` with the rate as a per-lane array;
-- Gompertz hazards with one slope whose rate varies (background mortality by draw and sex): the
-  family's own conditional time with a per-lane log-rate (:func:`sim.hazards.gompertz_times`);
-- a hazard ratio that varies on a shared base hazard, or on constant hazards: ``e / hr`` per lane
-  then the base's conditional time (Bender, Augustin & Blettner 2005, Stat Med 24(11):1713-1723);
-- anything else (e.g. a Weibull shape that varies): lanes grouped by their draw's hazard, one
+- hazards of one family whose numbers differ (exponential, Weibull, log-logistic, log-normal,
+  gamma, Gompertz with one slope, piecewise-constant with shared band starts), each optionally times
+  a hazard ratio that may differ too, or a ratio that differs on one shared base of any family:
+  one call of the family's kernel in which every lane carries its draw's numbers
+  (:class:`sim.hazards.LaneHazards`; hazard ratios as ``e / hr`` per lane, Bender, Augustin &
+  Blettner 2005, Stat Med 24(11):1713-1723). Lanes whose ``e / hr`` over- or underflowed go
+  through their own hazard (its edge handling);
+- anything else (a Gompertz slope or piecewise band starts that differ, Gompertz-Makeham, waning
+  hazard ratios, hazards with a floor, mixed families): lanes grouped by their draw's hazard, one
   evaluation per distinct hazard.
 
-Every lane goes through exactly the arithmetic of its draw's own hazard (the same IEEE operations
-on the same operands; only the grouping of lanes into arrays differs), and the random numbers are
-keyed on (seed, patient, stream, occurrence) as always, so draw ``d``'s histories are bit-identical
-to :func:`sim.engine.simulate_range` of its own model over its own patients (tested). Populations
+Every lane goes through exactly the arithmetic of its draw's own hazard (each family's own
+conditional time is its per-lane kernel with its own numbers: the same IEEE operations on the same
+operands, iterations that stop lane by lane; only the grouping of lanes into arrays differs), and
+the random numbers are keyed on (seed, patient, stream, occurrence) as always, so draw ``d``'s
+histories are bit-identical to :func:`sim.engine.simulate_range` of its own model over its own
+patients (tested). Populations
 and horizons that differ between draws are drawn per draw from the same attribute words.
 """
 
@@ -28,20 +33,16 @@ from __future__ import annotations
 from dataclasses import dataclass
 from collections.abc import Sequence
 
-import math
-
 import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
-from ..hazards import Exponential, Gompertz, Hazard, ProportionalHazards, gompertz_times
+from ..hazards import Hazard, LaneHazards
 from ..model.multistate import Clock, Model, ResolvedExit
 from .histories import _assemble, _code_dtype, _PatientTable, _simulate_chunk, _validate_run
 from .rng import key_from_seed
 
 __all__ = ["DrawExit", "DrawSet", "simulate_draws"]
-
-_TINY_NORMAL = float(np.finfo(np.float64).tiny)
 
 
 @dataclass(frozen=True)
@@ -49,8 +50,8 @@ class DrawExit:
     """One competing exit of a state whose hazard may differ between the draws of a block.
 
     ``unique`` holds the distinct hazards, ``code`` (draws, sexes) which one each draw and sex code
-    uses; ``kind`` is how lanes are evaluated (see the module docstring): ``"one"``, ``"rate"``,
-    ``"gompertz"``, ``"ratio"`` (hazard ratio per lane on a shared base) or ``"group"``.
+    uses; ``kind`` is how lanes are evaluated (see the module docstring): ``"one"`` (one hazard),
+    ``"lanes"`` (per-lane numbers, ``lanes``) or ``"group"`` (one evaluation per distinct hazard).
     """
 
     index: int
@@ -65,10 +66,7 @@ class DrawExit:
     unique: tuple[Hazard, ...]
     code: NDArray[np.int64]
     kind: str
-    rate: NDArray[np.float64] | None = None  # per unique hazard: its constant rate ("rate", "ratio" on rates)
-    ratio: NDArray[np.float64] | None = None  # per unique hazard: its hazard ratio ("ratio")
-    base: Hazard | None = None  # the shared base hazard ("ratio" on a shared base)
-    shape: float | None = None  # the shared Gompertz slope ("gompertz"; ``rate`` then holds log-rates)
+    lanes: LaneHazards | None = None  # the unique hazards as one per-lane evaluation ("lanes")
 
     @classmethod
     def of(cls, exits: Sequence[ResolvedExit]) -> "DrawExit":
@@ -94,17 +92,9 @@ class DrawExit:
                       sex_specific=sex_specific, unique=tuple(unique), code=code)
         if len(unique) == 1:
             return cls(kind="one", **fields)
-        if all(type(h) is Exponential for h in unique):
-            return cls(kind="rate", rate=np.array([h.rate for h in unique]), **fields)
-        if all(type(h) is Gompertz for h in unique) and len({h.shape for h in unique}) == 1:
-            return cls(kind="gompertz", rate=np.array([math.log(h.rate) for h in unique]), shape=unique[0].shape,
-                       **fields)
-        if all(type(h) is ProportionalHazards and h.hr > 0.0 for h in unique):
-            ratio = np.array([h.hr for h in unique])
-            if all(type(h.base) is Exponential for h in unique):
-                return cls(kind="ratio", ratio=ratio, rate=np.array([h.base.rate for h in unique]), **fields)
-            if all(h.base == unique[0].base for h in unique):
-                return cls(kind="ratio", ratio=ratio, base=unique[0].base, **fields)
+        lanes = LaneHazards.of(unique)
+        if lanes is not None:
+            return cls(kind="lanes", lanes=lanes, **fields)
         return cls(kind="group", **fields)
 
     def latent(self, x: NDArray[np.float64], e: NDArray[np.float64], sex: NDArray[np.int8] | None,
@@ -114,20 +104,10 @@ class DrawExit:
         if self.kind == "one":
             return self.unique[0]._conditional_time(x, e)
         codes = self.code[draw, 0] if sex is None else self.code[draw, sex]
-        if self.kind == "rate":  # Exponential: e / rate, +inf for a zero rate
-            r = self.rate[codes]
-            return np.where(r > 0.0, e / r, np.inf)
-        if self.kind == "gompertz":  # one slope, a log-rate per lane (Gompertz._conditional_time's arithmetic)
-            return gompertz_times(self.rate[codes], self.shape, x, e)
-        if self.kind == "ratio":  # ProportionalHazards: the base's time for e / hr
-            y = e / self.ratio[codes]
-            if self.base is None:
-                r = self.rate[codes]
-                t = np.where(r > 0.0, y / r, np.inf)
-            else:
-                t = self.base._conditional_time(x, y)
-            lost = ((y == np.inf) & (e < np.inf)) | ((y < _TINY_NORMAL) & (e > 0.0))
-            if np.any(lost):  # e / hr over- or underflowed: the hazard's own edge handling
+        if self.lanes is not None:
+            t, lost = self.lanes.times(codes, x, e)
+            if lost is not None and np.any(lost):  # e / hr over- or underflowed: the hazard's own edge handling
+                t = np.array(t, dtype=np.float64)
                 t[lost] = self._grouped(x[lost], e[lost], codes[lost])
             return t
         return self._grouped(x, e, codes)

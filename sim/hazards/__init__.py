@@ -10,11 +10,12 @@ from .floor import AtLeastHazard, Crossing, ShiftedClock
 from .gamma import Gamma
 from .gompertz import Gompertz, GompertzMakeham, gompertz_times
 from .level_match import FamilyStart, matched_start
+from .lanes import LaneHazards
 from .lognormal import LogNormal
 from .piecewise import PiecewiseConstant
 from .proportional import ProportionalHazards
 from .registry import FAMILIES, FAMILY_DIMENSIONS, make_hazard
-from .shape_scale import LogLogistic, Weibull
+from .shape_scale import LogLogistic, Weibull, loglogistic_times, weibull_times
 from .waning import WANING_SCALES, WaningHazardRatio, rough_points, waning_ratio
 from .units import (DAYS_PER_YEAR, MONTHS_PER_YEAR, UNIT_IN_YEARS, RateConversion, UnitError, from_years,
                     rate_from_risk, rate_per_year, rescale_risk, risk_from_rate, to_years)
@@ -24,4 +25,4 @@ __all__ = ["FAMILY_DIMENSIONS", "Dimension", "from_year_units", "to_year_units",
            "Weibull", "make_hazard", "DAYS_PER_YEAR", "MONTHS_PER_YEAR", "UNIT_IN_YEARS", "RateConversion",
            "UnitError", "from_years", "rate_from_risk", "rate_per_year", "rescale_risk", "risk_from_rate",
            "to_years", "AtLeastHazard", "Crossing", "ShiftedClock", "WANING_SCALES", "WaningHazardRatio",
-           "rough_points", "waning_ratio"]
+           "rough_points", "waning_ratio", "LaneHazards", "loglogistic_times", "weibull_times"]

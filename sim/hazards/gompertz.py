@@ -68,8 +68,13 @@ def _gompertz_time(log_b: FloatArray | float, g: float, e: FloatArray) -> FloatA
         with np.errstate(over="ignore", under="ignore", invalid="ignore"):
             g_over_b = np.exp(math.log(g) - np.asarray(log_b, dtype=np.float64))
             v = e * g_over_b
-        if v.size and np.all((v >= 1e-300) & (v < 1e300) & (g_over_b >= _TINY_NORMAL)):
+        short = (v >= 1e-300) & (v < 1e300) & (g_over_b >= _TINY_NORMAL)
+        if v.size and np.all(short):
             return np.log1p(v) / g
+        if np.any(short):  # lane by lane: a lane's form must not depend on the lanes sharing the call
+            long = _gompertz_time(log_b, g, np.where(short, np.inf, e))
+            with np.errstate(invalid="ignore"):  # NaN v in the long form's lanes, not used
+                return np.where(short, np.log1p(v) / g, long)
     log_e = np.log(e)
     # Lanes where log B is infinite (g x overflowed: B = inf for g > 0, B = 0 for g < 0) together
     # with e = 0 or e = inf make inf - inf here; the wheres below give them T = 0 (e = 0) and

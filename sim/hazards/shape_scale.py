@@ -20,7 +20,7 @@ from ._numerics import FloatArray, _log_expm1, _power_or_log, _softplus
 from .base import Hazard, _param
 from .dimensions import Dimension
 
-__all__ = ["Weibull", "LogLogistic"]
+__all__ = ["Weibull", "LogLogistic", "weibull_times", "loglogistic_times"]
 
 
 def _overflowed_end(t: FloatArray, log_end: FloatArray, z: FloatArray, e: FloatArray) -> FloatArray:
@@ -43,6 +43,44 @@ def _late_end(log_end: FloatArray, la: FloatArray, x: FloatArray, z: FloatArray)
     if not np.any(edge):
         return log_end
     return np.where(edge, np.log(x) + z, log_end)
+
+
+Shape = FloatArray | float
+
+
+def weibull_times(k: Shape, log_lam: Shape, x: FloatArray, e: FloatArray) -> FloatArray:
+    """Conditional event times of Weibull hazards whose shape ``k`` and log-scale ``log_lam`` may
+    differ from lane to lane (arrays aligned with ``x`` and ``e``, or numbers):
+    :meth:`Weibull._conditional_time` is this function with its own numbers, so a lane gets the bits
+    of its own hazard whichever lanes share the call (see :class:`Weibull`'s notes for the formula)."""
+    if not x.any():
+        # every clock at 0 (a first visit on the entry clock, any visit on the time-in-state
+        # clock): T = lambda e^(1/k). The general form below reduces to exactly these
+        # operations there (logaddexp(-inf, a) = a, expm1(-inf) = -1), so the bits agree.
+        return np.exp(log_lam + np.log(e) / k)
+    log_hx = k * (np.log(x) - log_lam)  # -inf at x = 0
+    log_e = np.log(e)
+    with np.errstate(invalid="ignore"):  # x = 0 and e = 0 together: fixed by the where below
+        z = _softplus(log_e - log_hx) / k  # log((x + T) / x)
+        log_end = log_lam + np.logaddexp(log_hx, log_e) / k  # log(x + T)
+        t = np.exp(log_end) * -np.expm1(-z)
+    t = _overflowed_end(t, log_end, z, e)
+    return np.where(e > 0.0, t, 0.0)
+
+
+def loglogistic_times(k: Shape, log_lam: Shape, x: FloatArray, e: FloatArray) -> FloatArray:
+    """Conditional event times of log-logistic hazards whose shape ``k`` and log-scale ``log_lam``
+    may differ from lane to lane (as :func:`weibull_times`; the formula in :class:`LogLogistic`'s
+    notes)."""
+    la = k * (np.log(x) - log_lam)  # log a(x), -inf at x = 0
+    lem1 = _log_expm1(e)  # log(expm1(e)), -inf at e = 0
+    with np.errstate(invalid="ignore"):  # e = 0 or e = inf lanes, replaced below
+        z = _softplus(lem1 + _softplus(-la)) / k  # log((x + T) / x)
+        log_end = log_lam + np.logaddexp(la + e, lem1) / k  # log(x + T)
+        log_end = _late_end(log_end, la, x, z)
+        t = np.exp(log_end) * -np.expm1(-z)
+    t = _overflowed_end(t, log_end, z, e)
+    return np.where(e > 0.0, np.where(e < np.inf, t, np.inf), 0.0)
 
 
 @dataclass(frozen=True)
@@ -103,20 +141,11 @@ class Weibull(_ShapeScale):
         return _power_or_log(self.scale, y, 1.0 / self.shape, np.log(y))
 
     def _conditional_time(self, x: FloatArray, e: FloatArray) -> FloatArray:
-        k, log_lam = self.shape, math.log(self.scale)
-        if not x.any():
-            # every clock at 0 (a first visit on the entry clock, any visit on the time-in-state
-            # clock): T = lambda e^(1/k). The general form below reduces to exactly these
-            # operations there (logaddexp(-inf, a) = a, expm1(-inf) = -1), so the bits agree.
-            return np.exp(log_lam + np.log(e) / k)
-        log_hx = k * (np.log(x) - log_lam)  # -inf at x = 0
-        log_e = np.log(e)
-        with np.errstate(invalid="ignore"):  # x = 0 and e = 0 together: fixed by the where below
-            z = _softplus(log_e - log_hx) / k  # log((x + T) / x)
-            log_end = log_lam + np.logaddexp(log_hx, log_e) / k  # log(x + T)
-            t = np.exp(log_end) * -np.expm1(-z)
-        t = _overflowed_end(t, log_end, z, e)
-        return np.where(e > 0.0, t, 0.0)
+        return weibull_times(self.shape, math.log(self.scale), x, e)
+
+    def _lane_params(self) -> tuple[float, float]:
+        """The numbers :func:`weibull_times` takes: ``(shape, log(scale))``."""
+        return self.shape, math.log(self.scale)
 
 
 
@@ -164,16 +193,11 @@ class LogLogistic(_ShapeScale):
         return _power_or_log(lam, np.expm1(y), 1.0 / k, _log_expm1(y))
 
     def _conditional_time(self, x: FloatArray, e: FloatArray) -> FloatArray:
-        k, log_lam = self.shape, math.log(self.scale)
-        la = k * (np.log(x) - log_lam)  # log a(x), -inf at x = 0
-        lem1 = _log_expm1(e)  # log(expm1(e)), -inf at e = 0
-        with np.errstate(invalid="ignore"):  # e = 0 or e = inf lanes, replaced below
-            z = _softplus(lem1 + _softplus(-la)) / k  # log((x + T) / x)
-            log_end = log_lam + np.logaddexp(la + e, lem1) / k  # log(x + T)
-            log_end = _late_end(log_end, la, x, z)
-            t = np.exp(log_end) * -np.expm1(-z)
-        t = _overflowed_end(t, log_end, z, e)
-        return np.where(e > 0.0, np.where(e < np.inf, t, np.inf), 0.0)
+        return loglogistic_times(self.shape, math.log(self.scale), x, e)
+
+    def _lane_params(self) -> tuple[float, float]:
+        """The numbers :func:`loglogistic_times` takes: ``(shape, log(scale))``."""
+        return self.shape, math.log(self.scale)
 
     _log_forms: ClassVar[bool] = True
 
