@@ -1,7 +1,8 @@
 """Edits of a tomlkit document at key paths, keeping the user's comments, order and formatting:
 reading (:func:`get_item`, :func:`to_plain`, :func:`display_value`), setting and removing values
-(:func:`set_value`, :func:`remove_value`) and elements of arrays of tables (:func:`append_table`,
-:func:`remove_table`). No Qt here.
+(:func:`set_value`, :func:`remove_value`), elements of arrays of tables (:func:`append_table`,
+:func:`remove_table`) and of arrays of values (:func:`set_item`, :func:`append_item`,
+:func:`remove_item`). No Qt here.
 
 Key paths are tuples of table keys and array indices, e.g. ``("transitions", 0, "rate")``.
 """
@@ -18,7 +19,7 @@ from tomlkit.toml_document import TOMLDocument
 from sim.problems import format_key
 
 __all__ = ["KeyPath", "INLINE_KEYS", "get_item", "to_plain", "display_value", "set_value", "remove_value",
-           "append_table", "remove_table"]
+           "append_table", "remove_table", "set_item", "append_item", "remove_item"]
 
 KeyPath = tuple[Any, ...]
 
@@ -119,6 +120,9 @@ def set_value(doc: Any, path: KeyPath, value: Any) -> None:
     if value is None:
         remove_value(doc, path)
         return
+    if path and isinstance(path[-1], int) and isinstance(get_item(doc, path[:-1]), (Array, list)):
+        set_item(doc, path, value)
+        return
     parent = _container(doc, path[:-1], create=True)
     key = path[-1]
     new_key = _child(parent, key) is None
@@ -194,3 +198,36 @@ def remove_table(doc: Any, path: KeyPath, index: int) -> None:
     del aot[index]
     if tail:
         aot[index - 1].value.body.extend(tail)
+
+
+def _array(doc: Any, path: KeyPath) -> Any:
+    array = get_item(doc, path)
+    if not isinstance(array, (Array, list)):
+        raise KeyError(format_key(path))
+    return array
+
+
+def set_item(doc: Any, path: KeyPath, value: Any) -> None:
+    """Set element ``path[-1]`` of the array of values at ``path[:-1]`` (the array keeps its
+    comments and layout; ``breaks = [0.0, 5.0]  # years`` stays one line with its comment); the
+    index just past the end appends."""
+    array = _array(doc, path[:-1])
+    if path[-1] == len(array):  # the element after the last: appended (a list shorter than its partner)
+        array.append(value)
+        return
+    if not 0 <= path[-1] < len(array):
+        raise KeyError(format_key(path))
+    array[path[-1]] = value
+
+
+def append_item(doc: Any, path: KeyPath, value: Any) -> None:
+    """Append ``value`` to the array of values at ``path``."""
+    _array(doc, path).append(value)
+
+
+def remove_item(doc: Any, path: KeyPath) -> None:
+    """Remove element ``path[-1]`` of the array of values at ``path[:-1]`` (the later ones move up)."""
+    array = _array(doc, path[:-1])
+    if not 0 <= path[-1] < len(array):
+        raise KeyError(format_key(path))
+    del array[path[-1]]

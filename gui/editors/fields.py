@@ -94,7 +94,8 @@ class FieldSet:
     # ------------------------------------------------------------------ widgets
     def line(self, key: KeyPath, kind: str = "value", help: str = "", placeholder: str = "",
              commit: Callable[[Any], None] | None = None) -> QLineEdit:
-        """A line edit for a number or text (``kind`` "value", "text" or "list")."""
+        """A line edit for a number or text (``kind`` "value", "text", "list", or "item": one number of
+        a list, which an emptied field keeps in place as an empty text for the loader to report)."""
         w = QLineEdit()
         w.setObjectName(format_key(key))
         w.setPlaceholderText(placeholder)
@@ -109,7 +110,7 @@ class FieldSet:
             timer.timeout.connect(lambda b=b: self._line_finished(b))
             w.textEdited.connect(timer.start)
             w.editingFinished.connect(timer.stop)
-        if kind == "value" and commit is None:  # a model parameter gets its "±" distribution button
+        if kind in ("value", "item") and commit is None:  # a model parameter gets its "±" distribution button
             button = DistributionButton.attach(self.document, w, tuple(key))
             if button is not None:
                 self.distribution_buttons.append(button)
@@ -192,6 +193,9 @@ class FieldSet:
             return text if text.strip() else None
         if b.kind == "list":
             return parse_list(text)
+        if b.kind == "item":
+            value = parse_typed(text)
+            return "" if value is None else value
         return parse_typed(text)
 
     def _line_finished(self, b: Binding) -> None:

@@ -1,5 +1,7 @@
 """The parameters of one hazard: family, time unit, the family's parameters and, for a constant
-hazard, how it is given (a rate, events per person-time, or a risk over a period).
+hazard, how it is given (a rate, events per person-time, or a risk over a period); a
+piecewise-constant hazard's break points and rates in a two-column table with a row per band
+(:class:`PiecewiseBands`), each rate and break with its "±" distribution button.
 
 The converted rate per year and the assumption behind it come from :mod:`sim.hazards.units`; the
 parameters the model actually uses (in years) come from the validated model.
@@ -9,17 +11,20 @@ from __future__ import annotations
 
 from typing import Any, Mapping
 
-from PySide6.QtWidgets import QComboBox, QFormLayout, QLabel, QWidget
+from PySide6.QtWidgets import (QComboBox, QFormLayout, QHBoxLayout, QHeaderView, QLabel, QPushButton, QSizePolicy,
+                               QTableWidget, QToolButton, QVBoxLayout, QWidget)
 
 from gui.document import KeyPath, ScenarioDocument, format_key, remove_value, set_value
+from gui.toml_edit import append_item, get_item, remove_item, to_plain
+from gui.uncertainty.entry import band_groups, forget_band
 from sim.hazards import matched_start
 from gui.editors.fields import FieldSet
 from sim.hazards import (FAMILIES, FAMILY_DIMENSIONS, Dimension, Hazard, UnitError, rate_from_risk, rate_per_year,
                          risk_from_rate)
 from sim.io.scenario import TIME_UNITS
 
-__all__ = ["HazardForm", "family_params", "exponential_mode", "FAMILY_LABELS", "DEFAULTS", "MODES",
-           "equivalent_form"]
+__all__ = ["HazardForm", "PiecewiseBands", "family_params", "exponential_mode", "FAMILY_LABELS", "DEFAULTS", "MODES",
+           "equivalent_form", "band_count"]
 
 FAMILY_LABELS = {
     "exponential": "exponential (constant hazard)",
@@ -137,6 +142,11 @@ class HazardForm(QWidget):
         else:
             names = family_params(self.family)
         self.param_fields = {}
+        self.bands: PiecewiseBands | None = None
+        if self.family == "piecewise" and band_count(values) is not None:
+            self.bands = PiecewiseBands(document, fields, self.base, unit)
+            form.addRow(self.bands)
+            names = []
         for name in names:
             fam_for_units = self.family if self.family != "exponential" or name == "rate" else ""
             kind = "list" if self.family == "piecewise" else "value"
@@ -164,7 +174,8 @@ class HazardForm(QWidget):
         """What decides the form's rows: rebuild when it changes."""
         values = document.table(tuple(base))
         family = values.get("family")
-        return (family, exponential_mode(values) if family == "exponential" else "", values.get("unit", "years"))
+        return (family, exponential_mode(values) if family == "exponential" else "", values.get("unit", "years"),
+                band_count(values) if family == "piecewise" else None)
 
     # ------------------------------------------------------------------ edits
     def _set_family(self, family: Any) -> None:
@@ -265,3 +276,105 @@ class HazardForm(QWidget):
             parts.append(f"{k} = " + (", ".join(f"{x:.6g}" for x in v) if isinstance(v, tuple) else f"{v:.6g}"))
         self.resolved.setText("Used by the model (time in years): " + "; ".join(parts))
         self.resolved.show()
+
+
+def band_count(values: Mapping[str, Any]) -> int | None:
+    """The number of bands a piecewise hazard's table shows (the longer of ``breaks`` and ``rates``),
+    or None when either is not a list (then they are edited as text, and the loader says why)."""
+    breaks, rates = values.get("breaks", []), values.get("rates", [])
+    if not (isinstance(breaks, list) and isinstance(rates, list)):
+        return None
+    return max(len(breaks), len(rates))
+
+
+_BAND_HELP = {"breaks": "Where the band starts on the hazard's clock; the first band starts at 0 and each "
+                         "later one after the one before.",
+              "rates": "The constant hazard within the band."}
+
+
+class PiecewiseBands(QWidget):
+    """A piecewise-constant hazard's bands: a row per band with where it starts and its rate (both
+    in the hazard table's unit; each a model parameter with its "±" button), "Add band" and a remove
+    button per row. Cells are fields of ``fields`` (written as the other fields, undoable); adding or
+    removing a band is one undoable edit of both lists, which also keeps the ``[[uncertainty]]``
+    names of the later bands pointing at the same bands."""
+
+    def __init__(self, document: ScenarioDocument, fields: FieldSet, base: KeyPath, unit: str,
+                 parent: QWidget | None = None) -> None:
+        super().__init__(parent)
+        self.document, self.base = document, tuple(base)
+        n = band_count(document.table(self.base)) or 0
+        self.table = QTableWidget(n, 3)
+        self.table.setObjectName("piecewise_bands")
+        self.table.setHorizontalHeaderLabels([f"Band starts at ({unit})", f"Rate (per {unit[:-1]})", ""])
+        self.table.setVerticalHeaderLabels([str(j + 1) for j in range(n)])
+        header = self.table.horizontalHeader()
+        header.setSectionResizeMode(0, QHeaderView.ResizeMode.Stretch)
+        header.setSectionResizeMode(1, QHeaderView.ResizeMode.Stretch)
+        header.setSectionResizeMode(2, QHeaderView.ResizeMode.ResizeToContents)
+        self.table.setSelectionMode(QTableWidget.SelectionMode.NoSelection)
+        for key in ("breaks", "rates"):  # problems of a whole list (order, lengths) mark the table
+            fields.group((*self.base, key), self.table)
+        self.cells: dict[tuple[str, int], Any] = {}
+        for j in range(n):
+            for c, key in enumerate(("breaks", "rates")):
+                w = fields.line((*self.base, key, j), kind="item", help=_BAND_HELP[key])
+                w.setFrame(False)
+                self.cells[(key, j)] = w
+                self.table.setCellWidget(j, c, w)
+            remove = QToolButton()
+            remove.setText("✕")
+            remove.setObjectName(f"remove_band[{j}]")
+            remove.setToolTip("Remove this band (its start and rate)")
+            remove.setEnabled(n > 1)
+            remove.clicked.connect(lambda _c=False, j=j: self.remove_band(j))
+            self.table.setCellWidget(j, 2, remove)
+        self.table.resizeRowsToContents()
+        height = self.table.horizontalHeader().sizeHint().height() + self.table.verticalHeader().length() + 4
+        self.table.setFixedHeight(min(height, 320))  # the rows, no empty space below them (scrolls beyond)
+        self.table.setMinimumWidth(220)
+        self.table.setSizePolicy(QSizePolicy.Policy.Ignored, QSizePolicy.Policy.Fixed)
+        self.add_button = QPushButton("Add band")
+        self.add_button.setObjectName("add_band")
+        self.add_button.setToolTip("A band after the last one, starting one unit later at the same rate")
+        self.add_button.clicked.connect(self.add_band)
+        row = QHBoxLayout()
+        row.addWidget(self.add_button)
+        row.addStretch(1)
+        layout = QVBoxLayout(self)
+        layout.setContentsMargins(0, 0, 0, 0)
+        layout.addWidget(QLabel("Bands (a band lasts until the next one starts; the first starts at 0):"))
+        layout.addWidget(self.table)
+        layout.addLayout(row)
+
+    def _label(self) -> str:
+        name = self.document.get((*self.base, "name"))
+        return repr(name) if isinstance(name, str) else format_key(self.base)
+
+    def add_band(self) -> None:
+        """Append a band starting one unit after the last start, at the last band's rate (edited next)."""
+        values = self.document.table(self.base)
+        breaks, rates = values.get("breaks", []), values.get("rates", [])
+        last = breaks[-1] if breaks and isinstance(breaks[-1], (int, float)) else -1.0
+        rate = rates[-1] if rates and isinstance(rates[-1], (int, float)) else DEFAULTS["exponential"]["rate"]
+
+        def change(doc: Any) -> None:
+            append_item(doc, (*self.base, "breaks"), float(last) + 1.0)
+            append_item(doc, (*self.base, "rates"), rate)
+        self.document.edit(f"Add a band to {self._label()}", change)
+
+    def remove_band(self, band: int) -> None:
+        """Remove band ``band``: its start and rate, and their single-parameter distributions; refused
+        (with a notice) while a group of ``[[uncertainty]]`` names it."""
+        held = band_groups(self.document.data, self.base, band)
+        if held:
+            self.document.notice.emit(f"{self._label()}: band {band + 1} is drawn in a group (uncertainty[{held[0]}]); "
+                                      "take it out of the group first.")
+            return
+
+        def change(doc: Any) -> None:
+            for key in ("breaks", "rates"):
+                if band < len(to_plain(get_item(doc, (*self.base, key))) or []):
+                    remove_item(doc, (*self.base, key, band))
+            forget_band(doc, self.base, band)
+        self.document.edit(f"Remove band {band + 1} of {self._label()}", change)

@@ -55,7 +55,7 @@ class DistributionEditor(QDialog):
         point = document.display(self.key)
         head = QLabel(f"<b>{self.name}</b> — " + (f"point value {point}" if point else
                                                   "no point value in the file: the distribution's mean is used"))
-        parent = document.table(self.key[:-1])
+        parent = document.table(self.key[:-2] if isinstance(self.key[-1], int) else self.key[:-1])  # a list's table
         if "family" in parent:  # a hazard parameter: drawn in its table's unit, as the file writes it
             head.setText(head.text() + f" (values in the hazard table's unit: {parent.get('unit', 'years')})")
         head.setWordWrap(True)

@@ -13,7 +13,7 @@ from typing import Any, Mapping
 
 import tomlkit
 
-from gui.toml_edit import KeyPath, append_table, get_item, remove_value, set_value, to_plain
+from gui.toml_edit import KeyPath, append_table, get_item, remove_table, remove_value, set_item, set_value, to_plain
 from sim.io.scenario import ScenarioError, parse_scenario
 from sim.io.scenario.schema import UNCERTAINTY_FORMS, Number, node_at
 from sim.io.scenario.uncertain import NOT_UNCERTAIN, parse_key
@@ -22,7 +22,7 @@ from sim.uncertainty import UncertainInput, Univariate
 
 __all__ = ["FAMILIES", "FAMILY_LABELS", "FORM_LABELS", "KEY_LABELS", "OPTIONAL_KEYS", "parameter_name",
            "is_uncertain_parameter", "find_entry", "EntryCheck", "draft_text", "check_draft", "forms_of",
-           "removed_text", "spec_for"]
+           "removed_text", "spec_for", "BAND_LISTS", "band_groups", "forget_band"]
 
 #: Families offered for one parameter (groups, Dirichlet and multivariate normal, are edited in the
 #: scenario text), in the order of docs/scenario-format.md.
@@ -117,9 +117,53 @@ def removed_text(text: str, key: KeyPath) -> str:
     if len(aot) == 1:
         remove_value(doc, ("uncertainty",))
     else:
-        from gui.toml_edit import remove_table
         remove_table(doc, ("uncertainty",), index)
     return tomlkit.dumps(doc)
+
+
+#: The lists of a piecewise-constant hazard whose elements are parameters, one element per band.
+BAND_LISTS = ("breaks", "rates")
+
+
+def _band_of(name: Any, base: KeyPath) -> int | None:
+    """The band whose break or rate of the hazard at ``base`` the parameter ``name`` is, else None."""
+    path = parse_key(name) if isinstance(name, str) else None
+    if path is None or len(path) != len(base) + 2 or path[:len(base)] != tuple(base) or path[-2] not in BAND_LISTS:
+        return None
+    return path[-1]
+
+
+def band_groups(data: Mapping | None, base: KeyPath, band: int) -> list[int]:
+    """The indices of the ``[[uncertainty]]`` groups that name band ``band`` of the piecewise hazard at
+    ``base`` (such a band cannot be removed without changing what the group means)."""
+    entries = to_plain(get_item(data, ("uncertainty",))) if data is not None else None
+    return [i for i, e in enumerate(entries if isinstance(entries, list) else ())
+            if isinstance(e, dict) and isinstance(e.get("parameters"), list)
+            and any(_band_of(n, base) == band for n in e["parameters"])]
+
+
+def forget_band(doc: Any, base: KeyPath, band: int) -> None:
+    """After band ``band`` of the piecewise hazard at ``base`` was removed from ``doc``: remove the
+    single-parameter entries of its break and rate, and renumber the names of the later bands."""
+    aot = get_item(doc, ("uncertainty",))
+    for i in reversed(range(len(aot) if aot is not None else 0)):
+        entry = to_plain(aot[i])
+        if not isinstance(entry, dict):
+            continue
+        if _band_of(entry.get("parameter"), base) == band:
+            if len(aot) == 1:
+                remove_value(doc, ("uncertainty",))
+            else:
+                remove_table(doc, ("uncertainty",), i)
+            continue
+        where = [(("uncertainty", i, "parameter"), entry.get("parameter"))]
+        if isinstance(entry.get("parameters"), list):
+            where = [(("uncertainty", i, "parameters", j), n) for j, n in enumerate(entry["parameters"])]
+        for path, name in where:
+            k = _band_of(name, base)
+            if k is not None and k > band:
+                new = parameter_name((*parse_key(name)[:-1], k - 1))
+                (set_item if isinstance(path[-1], int) else set_value)(doc, path, new)
 
 
 def spec_for(uncertainty: Any, key: KeyPath) -> UncertainInput | None:
