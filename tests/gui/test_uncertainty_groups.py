@@ -195,3 +195,37 @@ def test_shares_group_created_checked_removed_and_undone(qtbot, window: MainWind
     assert doc.text.rstrip() == before.rstrip() and page.groups.list.count() == 2
     window.undo_action.trigger()  # the removal undone: the group is back
     assert tomllib.loads(doc.text)["uncertainty"][-1] == entry and page.groups.list.count() == 3
+
+
+def test_a_share_starts_a_dirichlet_on_its_whole_table_given_by_mean_shares(qtbot, window: MainWindow) -> None:
+    from gui.editors import PopulationEditor
+
+    doc = window.document
+    population = window.editor(PopulationEditor)
+    window.show_editor(population)
+    button = next(b for b in population.rows.distribution_buttons if b.key == ("population", "sex_mix", "female"))
+    button.open_editor()
+    qtbot.waitUntil(lambda: button.editor is not None and button.editor.isVisible(), timeout=3000)
+    assert button.editor.group_button.text() == "Drawn with the other shares…"
+    qtbot.mouseClick(button.editor.group_button, Qt.MouseButton.LeftButton)
+    editor = button.editor.group_editor
+    qtbot.waitUntil(editor.isVisible, timeout=3000)
+    assert editor.family.currentData() == "dirichlet"
+    assert [editor.cells[("parameters", j)].currentText() for j in range(2)] == ["population.sex_mix.female",
+                                                                                 "population.sex_mix.male"]
+    choose(editor.form, ("mean", "sample_size"))
+    assert editor.sample_size.isVisible()
+    type_into(qtbot, editor.cells[("mean", 0)], "0.55")
+    type_into(qtbot, editor.cells[("mean", 1)], "0.5")  # the shares sum to 1.05
+    type_into(qtbot, editor.sample_size, "200")
+    qtbot.waitUntil(lambda: is_marked(editor.params), timeout=3000)
+    assert "must sum to 1" in editor.params.toolTip() and "1.05" in editor.params.toolTip()
+    type_into(qtbot, editor.cells[("mean", 1)], "0.45")
+    qtbot.waitUntil(lambda: editor.check.spec is not None, timeout=3000)
+    editor.apply()
+    entry = tomllib.loads(doc.text)["uncertainty"][-1]
+    assert entry == {"parameters": ["population.sex_mix.female", "population.sex_mix.male"],
+                     "distribution": "dirichlet", "mean": [0.55, 0.45], "sample_size": 200}
+    # alpha = mean x sample size (docs/scenario-format.md)
+    d = spec_of(doc, entry["parameters"]).distribution
+    np.testing.assert_allclose(d.alpha, [110.0, 90.0], rtol=1e-15)
