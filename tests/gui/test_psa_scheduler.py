@@ -102,8 +102,9 @@ def test_a_run_on_a_loopback_scheduler_equals_sims_inline_run(qtbot, window: Mai
     set_spin(c.patients, 40)
     set_spin(c.workers, 2)
     c.conversions["competing-exit"].setChecked(False)
+    # loopback only; the scheduler's HTTP server on a free port (the default 8787 may be taken)
     with LocalCluster(n_workers=2, threads_per_worker=1, processes=False, protocol="tcp", host="127.0.0.1",
-                      dashboard_address=None, worker_dashboard_address=None) as cluster:
+                      dashboard_address="127.0.0.1:0", worker_dashboard_address=None) as cluster:
         type_address(qtbot, c.scheduler, cluster.scheduler_address)
         request = c.request()
         assert request.scheduler == cluster.scheduler_address and request.workers == 2
