@@ -51,12 +51,10 @@ from .gamma import Gamma, GammaLanes
 from .gompertz import Gompertz, gompertz_times
 from .lognormal import LogNormal, LogNormalLanes
 from .piecewise import Bands, PiecewiseConstant
-from .proportional import ProportionalHazards
+from .proportional import ProportionalHazards, ratio_draws
 from .shape_scale import LogLogistic, Weibull, loglogistic_times, weibull_times
 
 __all__ = ["LaneHazards"]
-
-_TINY_NORMAL = float(np.finfo(np.float64).tiny)
 
 Codes = NDArray[np.int64]
 Tables = tuple[NDArray[np.float64], ...]
@@ -173,10 +171,8 @@ class LaneHazards:
             return self._times(self._shared, self._tables, codes, x, e), None
         hr = self.hr[codes]
         zero = hr == 0.0 if self._zero else None
-        y = e / (hr if zero is None else np.where(zero, 1.0, hr))
+        y, lost = ratio_draws(e, hr if zero is None else np.where(zero, 1.0, hr))  # as ProportionalHazards
         t = self._times(self._shared, self._tables, codes, x, y)
-        # as ProportionalHazards._conditional_time: e / hr overflowed or underflowed
-        lost = ((y == np.inf) & (e < np.inf)) | ((y < _TINY_NORMAL) & (e > 0.0))
         if zero is not None:  # hr = 0: the event never happens
             t = np.where(zero, np.inf, t)
             lost &= ~zero

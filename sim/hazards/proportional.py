@@ -12,9 +12,18 @@ from ._log_space import conditional_time_log_space
 from ._numerics import FloatArray
 from .base import Hazard, _invalid, _param
 
-__all__ = ["ProportionalHazards"]
+__all__ = ["ProportionalHazards", "ratio_draws"]
 
 _TINY_NORMAL = float(np.finfo(np.float64).tiny)  # smallest normal double
+
+
+def ratio_draws(e: FloatArray, hr: FloatArray | float) -> tuple[FloatArray, FloatArray]:
+    """``(y, lost)``: the draw ``y = e / hr`` for the base hazard under a hazard ratio ``hr > 0``
+    (a number or one per lane), and the lanes where it overflowed (a tiny ``hr``: the event time
+    may be finite) or underflowed to a subnormal or 0 (a large ``hr``: the event time may be far
+    above the smallest double), which need the hazard's own edge handling."""
+    y = e / hr
+    return y, ((y == np.inf) & (e < np.inf)) | ((y < _TINY_NORMAL) & (e > 0.0))
 
 
 @dataclass(frozen=True)
@@ -73,11 +82,8 @@ class ProportionalHazards(Hazard):
     def _conditional_time(self, x: FloatArray, e: FloatArray) -> FloatArray:
         if self.hr == 0.0:
             return np.full(e.shape, np.inf)
-        y = e / self.hr
+        y, lost = ratio_draws(e, self.hr)
         t = self.base._conditional_time(x, y)
-        # e / hr overflowed (a tiny hr: the event time may be finite) or underflowed to a subnormal
-        # or 0 (a large hr: the event time may be far above the smallest double)
-        lost = ((y == np.inf) & (e < np.inf)) | ((y < _TINY_NORMAL) & (e > 0.0))
         if np.any(lost):
             same = self._same_family()
             if same is not None:
