@@ -3,7 +3,8 @@ the "Dask scheduler" field (empty: this machine) and the workers count go to
 sim.distributed.run_psa; an address that is not one, or where no scheduler answers, is marked on the
 field with sim's own rule while the window stays responsive; Cancel while the scheduler is being
 reached ends as cancelled; a run on a scheduler started inside the test (loopback only) gives the
-same per-draw table, bit for bit, as the same analysis run inline by sim."""
+same per-draw table, bit for bit, as the same analysis run inline by sim, and a longer one on it is
+cancelled while it runs."""
 
 from __future__ import annotations
 
@@ -110,7 +111,16 @@ def test_a_run_on_a_loopback_scheduler_equals_sims_inline_run(qtbot, window: Mai
         assert request.scheduler == cluster.scheduler_address and request.workers == 2
         with qtbot.waitSignal(page.results_shown, timeout=60000):
             qtbot.mouseClick(c.run_button, Qt.MouseButton.LeftButton)
-    outcome = page.outcome
+        outcome = page.outcome
+
+        set_spin(c.draws, 400)  # a longer analysis on the same scheduler, cancelled while it runs
+        set_spin(c.patients, 2000)
+        qtbot.mouseClick(c.run_button, Qt.MouseButton.LeftButton)
+        qtbot.waitUntil(lambda: "of 400 draws" in c.status.text(), timeout=20000)
+        qtbot.mouseClick(c.cancel_button, Qt.MouseButton.LeftButton)
+        qtbot.waitUntil(lambda: not c.is_running(), timeout=30000)
+        assert c.status.text().startswith("Cancelled") and page.outcome is outcome  # the finished one stays
+        assert c.run_button.isEnabled()
     assert outcome.request.scheduler == cluster.scheduler_address
     assert outcome.result.settings["scheduler"] == cluster.scheduler_address
     inline = run_psa(window.document.scenario, 6, 40, workers=1, cycle_methods=request.cycle_methods)
