@@ -233,6 +233,7 @@ class GroupEditor(QDialog):
                           " — parameters drawn together. Choose them from the model's parameters (or type a name "
                           "as `hazardtrace check` lists it).")
         cols = self._columns(family, form)
+        self.add_button.setText("Add parameter" if family == "multivariate_normal" else "Add share")
         self.params.clear()
         self.params.setColumnCount(len(cols))
         self.params.setRowCount(len(names))
