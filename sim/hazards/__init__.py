@@ -6,7 +6,7 @@ conversions between rates, risks over a period and time units. See docs/methods.
 from .base import KERNEL_ERRSTATE, Hazard, HazardParameterError
 from .dimensions import Dimension, from_year_units, to_year_units
 from .exponential import Exponential
-from .floor import AtLeastHazard, Crossing, ShiftedClock
+from .floor import AtLeastHazard, Crossing, EntryAgeFloor, ShiftedClock, by_entry_age, entry_age_times
 from .gamma import Gamma
 from .gompertz import Gompertz, GompertzMakeham, gompertz_times
 from .level_match import FamilyStart, matched_start
@@ -24,5 +24,5 @@ __all__ = ["FAMILY_DIMENSIONS", "Dimension", "from_year_units", "to_year_units",
            "FamilyStart", "matched_start", "Exponential", "Gamma", "Gompertz", "GompertzMakeham", "gompertz_times", "Hazard", "HazardParameterError", "LogLogistic", "LogNormal", "PiecewiseConstant", "ProportionalHazards",
            "Weibull", "make_hazard", "DAYS_PER_YEAR", "MONTHS_PER_YEAR", "UNIT_IN_YEARS", "RateConversion",
            "UnitError", "from_years", "rate_from_risk", "rate_per_year", "rescale_risk", "risk_from_rate",
-           "to_years", "AtLeastHazard", "Crossing", "ShiftedClock", "WANING_SCALES", "WaningHazardRatio",
+           "to_years", "AtLeastHazard", "Crossing", "ShiftedClock", "EntryAgeFloor", "by_entry_age", "entry_age_times", "WANING_SCALES", "WaningHazardRatio",
            "rough_points", "waning_ratio", "LaneHazards", "loglogistic_times", "weibull_times"]

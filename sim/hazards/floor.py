@@ -23,7 +23,8 @@ from ._numerics import FloatArray
 from .base import Hazard, _invalid, _param
 from .waning import rough_points
 
-__all__ = ["CROSSING_TOL", "GRID_CELLS", "AtLeastHazard", "ShiftedClock", "Crossing"]
+__all__ = ["CROSSING_TOL", "GRID_CELLS", "STRIP_CELLS", "MAX_STRIPS", "AtLeastHazard", "ShiftedClock", "Crossing",
+           "EntryAgeFloor", "entry_age_times", "by_entry_age"]
 
 CROSSING_TOL = 1e-10
 """Crossings are located to ``CROSSING_TOL * max(1, clock)`` years by bisection."""
@@ -253,3 +254,287 @@ class AtLeastHazard(Hazard):
             t = t.copy()
             t[b] = (start - xb) + tj
         return t.reshape(shape)
+
+
+STRIP_CELLS = 8
+"""Entry-age strips of :class:`EntryAgeFloor` are about ``STRIP_CELLS`` search-grid cells wide."""
+
+MAX_STRIPS = 512
+"""At most ``MAX_STRIPS`` entry-age strips (the side table holds ``(MAX_STRIPS + 1) x (GRID_CELLS + 1)``
+cells)."""
+
+
+@dataclass(frozen=True)
+class _SideTable:
+    """Which hazard is the larger on the (entry age, time since entry) grid, and per entry-age strip
+    the time cells where the side may change for some entry age in the strip."""
+
+    t: FloatArray  # time-since-entry grid nodes
+    width: float  # strip width (years of entry age)
+    cells: np.ndarray  # (strips, K) candidate cell indices per strip, ascending, -1 padded
+    count: np.ndarray  # (strips,) candidates per strip
+
+
+@dataclass(frozen=True)
+class EntryAgeFloor(Hazard):
+    """On the time-since-entry clock ``t``, for a patient who entered at age ``a``, the larger of a
+    fitted hazard and a background hazard on attained age: :math:`h_a(t) = \\max(h_{fit}(t),
+    h_{bg}(a + t))` (docs/methods.md, 'The larger of a fit and the background hazard').
+
+    Parameters
+    ----------
+    fit : Hazard
+        The hazard as fitted, on time since entry.
+    background : Hazard
+        The floor, on attained age.
+    until : float
+        The longest follow-up (years, ``> 0``): the range of ``t`` searched for crossings.
+    low, high : float
+        The youngest and oldest entry ages (``0 <= low <= high``).
+    ages : tuple of float
+        The population's entry ages when they are few and discrete (e.g. an empirical distribution):
+        patients are then grouped by entry age and each group reads :meth:`at` (the hazard of one
+        entry age, exactly what a fixed entry age gives). Empty for a continuous distribution: each
+        patient's pieces are found from a side table (see Notes).
+
+    Notes
+    -----
+    :meth:`at` ``(a)`` is :class:`AtLeastHazard` ``(fit, ShiftedClock(background, a), until)``:
+    crossings on a grid of :data:`GRID_CELLS` cells in ``t``, refined by bisection. For a continuous
+    entry-age distribution the patient-level kernel :meth:`_conditional_time_at_entry` finds each
+    patient's own crossings, vectorised over patients: the sides ``h_fit(t) > h_bg(a + t)`` are
+    tabulated once on the same ``t`` grid times a grid of entry ages (strips about
+    :data:`STRIP_CELLS` cells wide, at most :data:`MAX_STRIPS`); a patient in a strip is evaluated only
+    in the time cells where the side differs between corners of the strip's cells, each sign change
+    located by bisection to :data:`CROSSING_TOL` (patient by patient, so that a patient's time does not
+    depend on the other patients of the call). The pieces between the patient's crossings are sampled
+    piece by piece as in :class:`AtLeastHazard` (inverse cumulative hazard sampling, Bender, Augustin &
+    Blettner 2005). Two crossings within one cell in ``t``, or a side change inside a cell whose four
+    corners agree, may be missed (the grid assumption of :class:`AtLeastHazard`, on two axes); unlike
+    :meth:`at`, whose grid holds the background's jumps, this includes a sliver where a life table
+    jumps above the fit and the fit overtakes it again within one cell: on it the cumulative hazard is
+    off by at most the cell's width times the jump (with 1-year bands, event times agree with
+    :meth:`at`'s to about 3e-8 relative; tests/sim/test_floor_entry_ages.py).
+
+    Read without an entry age (the plain :class:`Hazard` methods, e.g. in range checks) it is the
+    hazard of a patient entering at the oldest age, ``at(high)``.
+    """
+
+    fit: Hazard
+    background: Hazard
+    until: float
+    low: float
+    high: float
+    ages: tuple[float, ...] = ()
+    family: ClassVar[str] = "at_least_from_entry_age"
+    reads_entry_age: ClassVar[bool] = True
+    _memo: dict = field(init=False, repr=False, compare=False)
+
+    def __post_init__(self) -> None:
+        for name in ("fit", "background"):
+            if not isinstance(getattr(self, name), Hazard):
+                raise _invalid(self.family, (name,), "must be a Hazard", getattr(self, name))
+        object.__setattr__(self, "until", _param(self.family, "until", self.until, "positive"))
+        low = _param(self.family, "low", self.low, "nonnegative")
+        high = _param(self.family, "high", self.high, "nonnegative")
+        if not high >= low:
+            raise _invalid(self.family, ("high",), f"must be >= low ({low!r})", high)
+        ages = tuple(_param(self.family, ("ages", i), a, "nonnegative") for i, a in enumerate(self.ages))
+        for name, value in (("low", low), ("high", high), ("ages", ages), ("_memo", {})):
+            object.__setattr__(self, name, value)
+
+    def at(self, age: float) -> AtLeastHazard:
+        """The hazard of a patient who entered at ``age`` (built once per age)."""
+        key = float(age)
+        h = self._memo.get(key)
+        if h is None:
+            h = self._memo.setdefault(key, AtLeastHazard(self.fit, ShiftedClock(self.background, key), self.until))
+        return h
+
+    # ---- the Hazard interface: a patient entering at the oldest age ----------------------------
+    @property
+    def cumhazard_limit(self) -> float:
+        return self.at(self.high).cumhazard_limit
+
+    def params(self) -> dict[str, Any]:
+        out: dict[str, Any] = {"until": self.until, "low": self.low, "high": self.high,
+                               "fit.family": self.fit.family, "background.family": self.background.family}
+        out.update({f"fit.{k}": v for k, v in self.fit.params().items()})
+        out.update({f"background.{k}": v for k, v in self.background.params().items()})
+        return out
+
+    def _rough_points(self) -> tuple[float, ...]:
+        return self.at(self.high)._rough_points()
+
+    def _hazard(self, t: FloatArray) -> FloatArray:
+        return self.at(self.high)._hazard(t)
+
+    def _cumhazard(self, t: FloatArray) -> FloatArray:
+        return self.at(self.high)._cumhazard(t)
+
+    def _inv_cumhazard(self, y: FloatArray) -> FloatArray:
+        return self.at(self.high)._inv_cumhazard(y)
+
+    def _conditional_time(self, x: FloatArray, e: FloatArray) -> FloatArray:
+        return self.at(self.high)._conditional_time(x, e)
+
+    # ---- per patient ---------------------------------------------------------------------------
+    def _floor_larger(self, t: FloatArray, age: FloatArray) -> np.ndarray:
+        return ~(self.fit._hazard(t) > self.background._hazard(t + age))  # ties: the floor, as AtLeastHazard
+
+    def _hazard_at_entry(self, t: FloatArray, age: FloatArray) -> FloatArray:
+        """:math:`\\max(h_{fit}(t), h_{bg}(age + t))` per row (arrays of one shape): the hazard itself,
+        for solvers that integrate it (the forward equations)."""
+        f, g = self.fit._hazard(t), self.background._hazard(t + age)
+        return np.where(f > g, f, g)
+
+    def _table(self) -> _SideTable:
+        table = self._memo.get("table")
+        if table is not None:
+            return table
+        with np.errstate(over="ignore", under="ignore", divide="ignore", invalid="ignore"):
+            grid = set(np.linspace(0.0, self.until, GRID_CELLS + 1).tolist())
+            grid.update(p for p in rough_points(self.fit) if 0.0 < p < self.until)
+            t = np.array(sorted(grid))
+            cell = self.until / GRID_CELLS
+            strips = int(min(MAX_STRIPS, max(1, math.ceil((self.high - self.low) / (STRIP_CELLS * cell)))))
+            a = np.linspace(self.low, self.high, strips + 1)
+            side = self._floor_larger(t[None, :], a[:, None])
+        c = side[:-1, :-1]
+        mixed = (side[:-1, 1:] != c) | (side[1:, :-1] != c) | (side[1:, 1:] != c)
+        count = mixed.sum(axis=1)
+        k = max(int(count.max(initial=0)), 1)
+        cells = np.argsort(~mixed, axis=1, kind="stable")[:, :k]  # the mixed cells first, ascending
+        cells = np.where(np.arange(k)[None, :] < count[:, None], cells, -1)
+        for arr in (t, cells, count):
+            arr.setflags(write=False)
+        table = _SideTable(t, (self.high - self.low) / strips, cells, count)
+        return self._memo.setdefault("table", table)
+
+    def _side_time(self, use_floor: np.ndarray, x: FloatArray, e: FloatArray, age: FloatArray) -> FloatArray:
+        out = np.empty(x.shape)
+        f = use_floor
+        if np.any(~f):
+            out[~f] = self.fit._conditional_time(x[~f], e[~f])
+        if np.any(f):
+            out[f] = self.background._conditional_time(x[f] + age[f], e[f])
+        return out
+
+    def _side_cum(self, use_floor: np.ndarray, lo: FloatArray, hi: FloatArray, age: FloatArray) -> FloatArray:
+        out = np.empty(lo.shape)
+        f = use_floor
+        with np.errstate(invalid="ignore"):
+            if np.any(~f):
+                out[~f] = self.fit._cumhazard(hi[~f]) - self.fit._cumhazard(lo[~f])
+            if np.any(f):
+                out[f] = self.background._cumhazard(hi[f] + age[f]) - self.background._cumhazard(lo[f] + age[f])
+        return np.where(np.isnan(out), np.inf, np.maximum(out, 0.0))
+
+    def _lane_pieces(self, age: FloatArray) -> tuple[FloatArray, np.ndarray, FloatArray]:
+        """Per patient (rows): piece starts (0 first, ``inf`` padded), whether the floor is the larger
+        on each piece, and the cumulative hazard at each piece's start (``inf`` padded)."""
+        tab = self._table()
+        n = age.size
+        strip = (np.floor((age - self.low) / tab.width) if tab.width > 0 else np.zeros(n))
+        strip = np.clip(strip, 0, tab.count.size - 1).astype(np.intp)
+        k = int(tab.count[strip].max(initial=0))
+        cells = tab.cells[strip, :k]
+        lane, col = np.nonzero(cells >= 0)  # lane-major, cells ascending within a lane
+        c = cells[lane, col]
+        a = age[lane]
+        lo, hi = tab.t[c], tab.t[c + 1]
+        s_lo = self._floor_larger(lo, a)
+        flip = s_lo != self._floor_larger(hi, a)
+        lane, a, s_lo, lo, hi = lane[flip], a[flip], s_lo[flip], lo[flip], hi[flip]
+        for _ in range(200):  # bisection, each crossing on its own: [lo, hi) holds the change of side
+            act = np.flatnonzero(hi - lo > CROSSING_TOL * np.maximum(1.0, hi))
+            if act.size == 0:
+                break
+            mid = 0.5 * (lo[act] + hi[act])
+            same = self._floor_larger(mid, a[act]) == s_lo[act]
+            lo[act] = np.where(same, mid, lo[act])
+            hi[act] = np.where(same, hi[act], mid)
+        per_lane = np.bincount(lane, minlength=n)
+        rank = np.arange(lane.size) - (np.cumsum(per_lane) - per_lane)[lane]
+        starts = np.full((n, int(per_lane.max(initial=0)) + 1), np.inf)
+        starts[:, 0] = 0.0
+        starts[lane, 1 + rank] = hi
+        with np.errstate(invalid="ignore"):  # inf - inf between padded entries
+            dup = np.concatenate((np.zeros((n, 1), dtype=bool), np.diff(starts, axis=1) <= 0.0), axis=1)
+        if np.any(dup & np.isfinite(starts)):
+            starts = np.sort(np.where(dup, np.inf, starts), axis=1)
+        valid = np.isfinite(starts)
+        nxt = np.concatenate((starts[:, 1:], np.full((n, 1), np.inf)), axis=1)
+        ends = np.where(np.isfinite(nxt), nxt, np.maximum(self.until, starts))
+        ages = np.broadcast_to(age[:, None], starts.shape)
+        with np.errstate(invalid="ignore"):
+            probe = np.where(valid & (ends > starts), 0.5 * (starts + ends), np.where(valid, starts, 0.0))
+        use_floor = self._floor_larger(probe, ages)
+        inner = np.isfinite(nxt)  # pieces with a successor: their increments
+        inc = np.zeros(starts.shape)
+        inc[inner] = self._side_cum(use_floor[inner], starts[inner], nxt[inner], ages[inner])
+        cum = np.concatenate((np.zeros((n, 1)), np.cumsum(inc[:, :-1], axis=1)), axis=1)
+        return starts, use_floor, np.where(valid, cum, np.inf)
+
+    def _conditional_time_at_entry(self, x: FloatArray, e: FloatArray, age: FloatArray) -> FloatArray:
+        """Conditional event time from time since entry ``x`` with draw ``e`` for patients who entered
+        at ``age`` (the kernel: valid arguments, no checks)."""
+        x, e, age = (np.asarray(v, dtype=np.float64) for v in np.broadcast_arrays(x, e, age))
+        shape = x.shape
+        x, e, age = x.ravel(), e.ravel(), age.ravel()
+        if self.ages:  # a few discrete entry ages: each group reads its own AtLeastHazard
+            out = np.empty(x.shape)
+            values, which = np.unique(age, return_inverse=True)
+            for k, a in enumerate(values.tolist()):
+                m = which == k
+                out[m] = self.at(a)._conditional_time(x[m], e[m])
+            return out.reshape(shape)
+        starts, use_floor, cum = self._lane_pieces(age)
+        rows = np.arange(x.size)
+        last = np.isfinite(starts).sum(axis=1) - 1
+        i = (starts <= x[:, None]).sum(axis=1) - 1
+        t = self._side_time(use_floor[rows, i], x, e, age)
+        end = np.where(i < last, starts[rows, np.minimum(i + 1, last)], np.inf)
+        beyond = (x + t > end) & (i < last)
+        if np.any(beyond):
+            b = np.flatnonzero(beyond)
+            ib, xb, eb, ab = i[b], x[b], e[b], age[b]
+            u = self._side_cum(use_floor[b, ib], xb, end[b], ab)
+            y = cum[b, ib + 1] + np.maximum(eb - u, 0.0)
+            jb = np.clip((cum[b] <= y[:, None]).sum(axis=1) - 1, ib + 1, last[b])
+            start = starts[b, jb]
+            with np.errstate(invalid="ignore"):
+                rest = np.maximum(y - cum[b, jb], 0.0)
+            rest = np.where(np.isnan(rest), np.inf, rest)
+            t[b] = (start - xb) + self._side_time(use_floor[b, jb], start, rest, ab)
+        return t.reshape(shape)
+
+
+def entry_age_times(hazards: tuple[Hazard, ...], codes: np.ndarray | None, x: FloatArray, e: FloatArray,
+                    age: FloatArray) -> FloatArray:
+    """Conditional event times of patients (lanes) whose hazard is ``hazards[codes]`` (``codes`` None:
+    the first), each read at the patient's entry ``age`` when it depends on it (:class:`EntryAgeFloor`)
+    and as a plain hazard otherwise; the engine's kernel call (valid arguments)."""
+    def one(h: Hazard, m: np.ndarray | slice) -> FloatArray:
+        if getattr(h, "reads_entry_age", False):
+            return h._conditional_time_at_entry(x[m], e[m], age[m])
+        return h._conditional_time(x[m], e[m])
+
+    if codes is None or len(hazards) == 1:
+        return one(hazards[0], slice(None))
+    out = np.empty(np.shape(x))
+    for c, h in enumerate(hazards):
+        m = codes == c
+        if np.any(m):
+            out[m] = one(h, m)
+    return out
+
+
+def by_entry_age(h: Hazard, ages: FloatArray, rows: np.ndarray) -> list[tuple[Hazard, np.ndarray]]:
+    """``rows`` (indices into ``ages``, the rows' entry ages) grouped by the hazard each reads: ``h``
+    for all of them, or for an :class:`EntryAgeFloor` the hazard of each distinct entry age
+    (:meth:`EntryAgeFloor.at`); for solvers that integrate per (entry age, sex) row."""
+    if not getattr(h, "reads_entry_age", False) or rows.size == 0:
+        return [(h, rows)]
+    values, which = np.unique(np.asarray(ages, dtype=np.float64)[rows], return_inverse=True)
+    return [(h.at(a), rows[which == k]) for k, a in enumerate(values.tolist())]
