@@ -33,7 +33,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
-from ..hazards import KERNEL_ERRSTATE
+from ..hazards import KERNEL_ERRSTATE, entry_age_times
 from ..model.multistate import Clock, Model, ResolvedExit
 from .rng import ATTRIBUTE_STREAM, STREAM_LAYOUT, _BulkWords, _sorted_draws, key_from_seed
 
@@ -132,16 +132,22 @@ def _clock_value(ex: ResolvedExit, t: NDArray[np.float64], age: NDArray[np.float
 
 
 def _latent_times(ex: ResolvedExit, x: NDArray[np.float64], e: NDArray[np.float64],
-                  sex: NDArray[np.int8], draw: NDArray[np.int64] | None = None) -> NDArray[np.float64]:
+                  sex: NDArray[np.int8], draw: NDArray[np.int64] | None = None,
+                  entry: NDArray[np.float64] | None = None) -> NDArray[np.float64]:
     # An exit whose hazard differs between parameter draws (sim.engine.draws.DrawExit) evaluates
-    # each lane with its draw's hazard.
+    # each lane with its draw's hazard. ``entry``: the lanes' entry ages, given for an exit whose
+    # hazards read them (``reads_entry_age``, e.g. sim.hazards.EntryAgeFloor).
     # The engine's clocks are finite and >= 0 and its draws are >= 0 by construction, so the
     # arguments need not be re-validated on every call: evaluate the family's conditional time
     # directly under the floating-point error state of Hazard.conditional_time (the values are the
     # same; only a -0.0 could differ, and t + (-0.0) == t + 0.0 for the engine's t >= +0.0).
     first = ex.hazards[0]
     with np.errstate(**KERNEL_ERRSTATE):
-        if draw is not None and hasattr(ex, "latent"):
+        if entry is not None:
+            by_draw = draw is not None and hasattr(ex, "unique")
+            codes = ex.code[draw, 0 if sex is None else sex] if by_draw else sex
+            out = entry_age_times(ex.unique if by_draw else ex.hazards, codes, x, e, entry)
+        elif draw is not None and hasattr(ex, "latent"):
             out = ex.latent(x, e, sex, draw)
         elif all(h is first for h in ex.hazards):
             out = first._conditional_time(x, e)
@@ -181,6 +187,7 @@ def _run_strategy(model: Model, resolved: list[list[ResolvedExit]], bulk: _BulkW
     exit_index = [np.array([e.index for e in ex], dtype=exit_code) for ex in resolved]
     targets = [np.array([e.target for e in ex], dtype=state_code) for ex in resolved]
     uses_age = [any(e.clock is Clock.AGE for e in ex) for ex in resolved]
+    reads_entry = [[any(getattr(h, "reads_entry_age", False) for h in e.hazards) for e in ex] for ex in resolved]
     by_sex = [any(getattr(e, "sex_specific", None) or any(h is not e.hazards[0] for h in e.hazards) for e in ex)
               for ex in resolved]
     # one record per (round, state): chunk-local patient index, time, from, to, exit, round
@@ -237,11 +244,14 @@ def _run_strategy(model: Model, resolved: list[list[ResolvedExit]], bulk: _BulkW
             age = (entry_age + ts if whole else entry_age[sel] + ts) if uses_age[s] else None
             sx = (sex if whole else sex[sel]) if by_sex[s] else None
             dr = None if draw_of is None else (draw_of if whole else draw_of[sel])
+            a0 = (entry_age if whole else entry_age[sel]) if any(reads_entry[s]) else None
             # earliest latent time (the first exit wins ties, as with numpy.argmin)
-            best = _latent_times(exits[0], _clock_value(exits[0], ts, age), e[:, 0], sx, dr)
+            best = _latent_times(exits[0], _clock_value(exits[0], ts, age), e[:, 0], sx, dr,
+                                 a0 if reads_entry[s][0] else None)
             win = None
             for j in range(1, k):
-                dt_j = _latent_times(exits[j], _clock_value(exits[j], ts, age), e[:, j], sx, dr)
+                dt_j = _latent_times(exits[j], _clock_value(exits[j], ts, age), e[:, j], sx, dr,
+                                     a0 if reads_entry[s][j] else None)
                 better = dt_j < best
                 best = np.where(better, dt_j, best)
                 win = np.where(better, j, 0 if win is None else win)
