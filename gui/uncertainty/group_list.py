@@ -5,9 +5,11 @@ chosen (:class:`gui.uncertainty.groups.GroupEditor`). Follows the document after
 from __future__ import annotations
 
 from PySide6.QtCore import Qt
+from PySide6.QtGui import QColor
 from PySide6.QtWidgets import QGroupBox, QHBoxLayout, QListWidget, QListWidgetItem, QPushButton, QVBoxLayout, QWidget
 
 from gui.document import ScenarioDocument
+from gui.editors.fields import INVALID_COLOUR
 
 from .group_entry import group_summary, groups, removed_group_text
 from .groups import GroupEditor
@@ -68,7 +70,7 @@ class GroupList(QGroupBox):
             problems = [e.text for e in self.document.errors if e.concerns(("uncertainty", i))]
             item.setToolTip("\n".join(problems) or group_summary(entry))
             if problems:
-                item.setForeground(Qt.GlobalColor.red)
+                item.setForeground(QColor(INVALID_COLOUR))
             self.list.addItem(item)
         self.list.setCurrentRow(min(row, self.list.count() - 1) if row >= 0 else -1)
         self.new_correlated.setEnabled(self.document.data is not None)

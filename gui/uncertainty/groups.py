@@ -171,7 +171,7 @@ class GroupEditor(QDialog):
             r = _row(str(name), scale=str(scales[j]) if j < len(scales) else "identity")
             for k in ("mean", "se", "alpha"):
                 r[k] = self._text((k, j))
-            if not entry and family == "multivariate_normal" or not entry and form == ("mean", "sample_size"):
+            if not entry and (family == "multivariate_normal" or form == ("mean", "sample_size")):
                 r["mean"] = self._point(str(name))  # a start the user edits: the point value
             rows.append(r)
         n = len(rows)
@@ -446,11 +446,10 @@ class GroupEditor(QDialog):
         self.message.setText("\n".join(dict.fromkeys(shown)))
         self.message.setVisible(bool(shown))
         spec = self.check.spec
-        if spec is not None:
-            means, intervals = spec.distribution.means(), spec.distribution.intervals(0.95)
+        means, intervals = (spec.distribution.means(), spec.distribution.intervals(0.95)) if spec else ([], [])
         for j, label in enumerate(self.results):
             label.setText(f"{number_text(float(means[j]))} ({number_text(float(intervals[j][0]))} to "
-                          f"{number_text(float(intervals[j][1]))})" if spec is not None else "")
+                          f"{number_text(float(intervals[j][1]))})" if j < len(means) else "")
         replaced = replaced_entries(self.document.data, values["parameters"], self.index)
         self.note.setText("".join(f"{name} has its own distribution (uncertainty[{i}]): the group replaces it. "
                                   for i, name in replaced))

@@ -155,6 +155,11 @@ def test_bad_matrix_and_unknown_parameter_are_marked_with_the_readers_rule(qtbot
     assert spec_of(doc, ["transitions[1].rate", "transitions[3].rate"]).distribution.mean == (-2.1203, -1.4)
     window.undo_action.trigger()
     assert doc.text == text
+    # the same matrix typed in the scenario text: the list of groups shows the reader's rule
+    doc.set_text(text.replace("covariance = [[0.0225, 0.0060], [0.0060, 0.0400]]",
+                              "covariance = [[0.0225, 0.0600], [0.0600, 0.0400]]"))
+    assert doc.scenario is None and "positive semi-definite" in groups.list.item(0).toolTip()
+    assert "positive semi-definite" not in groups.list.item(1).toolTip()
 
 
 def test_shares_group_created_checked_removed_and_undone(qtbot, window: MainWindow, screenshots: Path) -> None:
