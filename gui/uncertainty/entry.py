@@ -24,8 +24,8 @@ __all__ = ["FAMILIES", "FAMILY_LABELS", "FORM_LABELS", "KEY_LABELS", "OPTIONAL_K
            "is_uncertain_parameter", "find_entry", "EntryCheck", "draft_text", "check_draft", "forms_of",
            "removed_text", "spec_for", "BAND_LISTS", "band_groups", "forget_band"]
 
-#: Families offered for one parameter (groups, Dirichlet and multivariate normal, are edited in the
-#: scenario text), in the order of docs/scenario-format.md.
+#: Families offered for one parameter (groups, Dirichlet and multivariate normal, are edited by
+#: :mod:`gui.uncertainty.groups`), in the order of docs/scenario-format.md.
 FAMILIES = ("beta", "gamma", "lognormal", "normal", "uniform", "triangular")
 FAMILY_LABELS = {"beta": "beta", "gamma": "gamma", "lognormal": "log-normal", "normal": "normal (optionally truncated)",
                  "uniform": "uniform", "triangular": "triangular"}
