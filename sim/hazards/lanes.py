@@ -29,10 +29,17 @@ gets the bits of its own hazard whichever lanes share the call. Lanes where ``e 
 underflowed (huge or tiny ratios: the hazard's own edge handling, e.g. the log-space solver of
 :mod:`._log_space`) are reported back (``lost``) for the caller to evaluate with their own hazard.
 
-Not per lane (the caller groups lanes by hazard): Gompertz slopes that differ, Gompertz-Makeham
-(its Halley iteration branches on the signs of the slope and the constant per hazard), piecewise
-hazards with different band starts, waning hazard ratios and hazards with a floor (their pieces
-and crossing points differ per hazard), and mixtures of families.
+Not per lane (the caller groups lanes by hazard, one call per distinct hazard):
+
+- Gompertz slopes that differ and Gompertz-Makeham: their solvers (``_gompertz_time``,
+  ``GompertzMakeham._solve``) choose their formula from the slope's sign and whether the slope or
+  the constant is 0, and take ``log(slope)`` as one number; per lane they would need those choices
+  made lane by lane, a rewrite of :mod:`.gompertz` left for later (a varying rate with one slope,
+  the usual background by draw, is per lane);
+- piecewise hazards whose band starts differ (the band lookup shares them);
+- waning hazard ratios and hazards with a floor as hazards of their own (their windows, pieces and
+  crossing points differ per hazard; a ratio that differs on one shared such hazard is per lane);
+- mixtures of families.
 """
 
 from __future__ import annotations
