@@ -24,7 +24,8 @@ QUORREL = ROOT / "scenarios" / "quorrel_psa.toml"
 ONSET = 'family = "exponential"\nrate = 0.08              # per person-year\n'
 PIECEWISE = 'family = "piecewise"\nbreaks = [0.0, 5.0]      # years since entry\nrates = [0.05, 0.1]\n'
 ONSET_ENTRY = 'parameter = "transitions[0].rate"          # onset\ndistribution = "gamma"\nmean = 0.08\nse = 0.012\n'
-BAND_ENTRY = 'parameter = "transitions[0].rates[1]"      # onset after 5 years\ndistribution = "gamma"\nmean = 0.1\nse = 0.015\n'
+BAND_ENTRY = ('parameter = "transitions[0].rates[1]"      # onset after 5 years\n'
+              'distribution = "gamma"\nmean = 0.1\nse = 0.015\n')
 
 
 @pytest.fixture
