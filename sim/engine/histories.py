@@ -26,7 +26,6 @@ from __future__ import annotations
 
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
-from functools import lru_cache
 from typing import Callable, Iterator, Protocol
 
 import numpy as np
@@ -36,6 +35,7 @@ from numpy.typing import NDArray
 from ..hazards import KERNEL_ERRSTATE, entry_age_times
 from ..model.multistate import Clock, Model, ResolvedExit
 from .rng import ATTRIBUTE_STREAM, STREAM_LAYOUT, _BulkWords, _sorted_draws, key_from_seed
+from .tables import EventRecords, OutputTables, code_dtype
 
 __all__ = ["simulate", "simulate_chunks", "simulate_range", "SimulationResult", "SimulationCancelled", "SimulationError", "CancelToken",
            "cancel_requested", "chunk_size_for"]
@@ -82,45 +82,17 @@ class SimulationResult:
 
 
 # --------------------------------------------------------------------------- chunk kernel
-def _code_dtype(n_labels: int) -> np.dtype:
-    """Smallest integer dtype pandas uses for the codes of a categorical with ``n_labels``
-    categories (as ``pandas.core.dtypes.cast.coerce_indexer_dtype``), so that codes built in that
-    dtype become a :class:`pandas.Categorical` without a conversion copy."""
-    for dt in (np.int8, np.int16, np.int32):
-        if n_labels < np.iinfo(dt).max:
-            return np.dtype(dt)
-    return np.dtype(np.int64)
-
-
-class _PatientTable:
-    """Patient-level result columns for patients ``first .. first + n - 1`` under ``n_st`` strategies
-    (strategy-major, as in the returned table). The chunks write their patients' rows in place, so
-    these columns are never copied, and with several workers they fill in parallel."""
-
-    def __init__(self, first: int, n: int, n_st: int, state_code: np.dtype) -> None:
-        self.first, self.n, self.n_st = first, n, n_st
-        self.entry_age = np.empty(n)
-        self.sex = np.empty(n, dtype=np.int8)
-        self.initial = np.empty(n, dtype=state_code)  # initial state, common to every strategy
-        self.exit_time = np.empty(n * n_st)
-        self.final_state = np.empty(n * n_st, dtype=state_code)
-        self.exit_reason = np.empty(n * n_st, dtype=np.int8)  # codes of ("absorbed", "censored")
-
-    def rows(self, k: int, start: int, stop: int) -> slice:
-        """Rows of patients ``start .. stop - 1`` under strategy ``k``."""
-        a = k * self.n + start - self.first
-        return slice(a, a + stop - start)
+_code_dtype = code_dtype
+_PatientTable = OutputTables  # the run's result columns, written in place by the chunks (sim.engine.tables)
 
 
 @dataclass
 class _ChunkOut:
-    """One chunk's events (patients ``start .. stop - 1``): per strategy, the event columns already in
-    patient-then-time order, codes in the categorical code dtypes. Its patient rows are in the
-    run's :class:`_PatientTable`."""
+    """One chunk (patients ``start .. stop - 1``), once its rows of the patient table and of the event
+    log are written into the run's :class:`~sim.engine.tables.OutputTables`."""
 
     start: int
     stop: int
-    per_strategy: list[dict[str, NDArray]]
 
 
 def _clock_value(ex: ResolvedExit, t: NDArray[np.float64], age: NDArray[np.float64]) -> NDArray[np.float64]:
@@ -169,7 +141,7 @@ def _latent_times(ex: ResolvedExit, x: NDArray[np.float64], e: NDArray[np.float6
 def _run_strategy(model: Model, resolved: list[list[ResolvedExit]], bulk: _BulkWords, start: int,
                   entry_age: NDArray[np.float64], sex: NDArray[np.int8], initial: NDArray,
                   limit: NDArray[np.float64], max_transitions: int, t: NDArray[np.float64], cur: NDArray,
-                  reason: NDArray[np.int8], draw_of: NDArray[np.int64] | None = None) -> dict[str, NDArray]:
+                  reason: NDArray[np.int8], draw_of: NDArray[np.int64] | None = None) -> EventRecords:
     """Histories of one chunk under one strategy. ``t``, ``cur`` and ``reason`` are the chunk's rows
     of the patient table (exit time, final state, exit reason), used as the working state.
     ``draw_of`` gives each patient's parameter draw when the exits are per-draw (``DrawExit``)."""
@@ -297,31 +269,13 @@ def _run_strategy(model: Model, resolved: list[list[ResolvedExit]], bulk: _BulkW
     dest = first_slot[ev_idx]
     dest += np.repeat(np.array(rec_round, dtype=np.int64) - 1, sizes)
     del first_slot, per_patient
-
-    def place(parts: list[NDArray], dtype) -> NDArray:
-        out = np.empty(dest.size, dtype=dtype)
-        if parts:
-            out[dest] = np.concatenate(parts)
-        return out
-
-    ev_patient = np.empty(dest.size, dtype=np.int64)
-    ev_patient[dest] = ev_idx  # chunk-local for now
-    del ev_idx
-    ev_from = np.empty(dest.size, dtype=state_code)
-    ev_from[dest] = np.repeat(np.array(rec_from, dtype=state_code), sizes)
-    ev_time = place(rec_time, np.float64)
-    ev_age = entry_age.take(ev_patient)
-    ev_age += ev_time  # attained age: entry age + time
-    ev_patient += start
     np.logical_not(absorbed, out=reason.view(np.bool_))  # 0 "absorbed", 1 "censored"
-    return {
-        "ev_patient": ev_patient,
-        "ev_time": ev_time,
-        "ev_age": ev_age,
-        "ev_from": ev_from,
-        "ev_to": place(rec_to, state_code),
-        "ev_exit": place(rec_exit, exit_code),
-    }
+    if not rec_idx:
+        return EventRecords(dest, ev_idx, np.zeros(0), np.zeros(0, dtype=state_code), np.zeros(0, dtype=state_code),
+                            np.zeros(0, dtype=exit_code))
+    return EventRecords(dest, ev_idx, np.concatenate(rec_time),
+                        np.repeat(np.array(rec_from, dtype=state_code), sizes),
+                        np.concatenate(rec_to), np.concatenate(rec_exit))
 
 
 def _simulate_chunk(model: Model, plans: list[list[list[ResolvedExit]]], key: tuple[int, int],
@@ -355,76 +309,17 @@ def _simulate_chunk(model: Model, plans: list[list[list[ResolvedExit]]], key: tu
         rows = table.rows(k, start, stop)
         per.append(_run_strategy(model, plan, bulk, start, entry_age, sex, initial, limit, max_transitions,
                                  table.exit_time[rows], table.final_state[rows], table.exit_reason[rows], draw_of))
-    return _ChunkOut(start, stop, per)
+    table.finish_patients(start, stop)
+    table.place_events(start, stop, per, entry_age, _code_dtype(len(model.exit_names)))
+    return _ChunkOut(start, stop)
 
 
 # --------------------------------------------------------------------------- assembly
-@lru_cache(maxsize=256)
-def _categories(labels: tuple[str, ...]) -> pd.CategoricalDtype:
-    """The (immutable) categorical dtype of a tuple of labels, built once: building one costs about
-    50 microseconds, which shows in runs of a few thousand patients."""
-    return pd.CategoricalDtype(list(labels), ordered=False)
-
-
-def _cat(codes: NDArray, labels: tuple[str, ...]) -> pd.Categorical:
-    # codes come from the model's own indices, so pandas' range check is skipped
-    return pd.Categorical.from_codes(codes, dtype=_categories(tuple(labels)), validate=False)
-
-
 def _assemble(model: Model, strategies: tuple[str, ...], chunks: list[_ChunkOut],
-              table: _PatientTable) -> tuple[pd.DataFrame, pd.DataFrame]:
-    """Join the chunks' events (in chunk order, so patients stay sorted) and the patient table into
-    the two tables.
-
-    Each event column is built in one preallocated array and every chunk array is released as soon
-    as it has been copied, so the peak is about the returned tables plus one column rather than the
-    chunk results and the tables side by side. The chunks are emptied.
-    """
-    n_st = len(strategies)
-    state_code = _code_dtype(len(model.state_names))
-    states = model.state_names
-    strategy_labels = tuple(strategies)
-    strategy_code = _code_dtype(n_st)
-    n_pat = table.n
-    n_ev = [sum(c.per_strategy[k]["ev_patient"].size for c in chunks) for k in range(n_st)]
-    total = sum(n_ev)
-
-    def take(field_name: str, dtype) -> NDArray:
-        """Concatenate one per-strategy field over strategies, then chunks; release the parts."""
-        out = np.empty(total, dtype=dtype)
-        pos = 0
-        for k in range(n_st):
-            for c in chunks:
-                part = c.per_strategy[k].pop(field_name)
-                out[pos:pos + part.size] = part
-                pos += part.size
-                del part
-        return out
-
-    events = pd.DataFrame({
-        "strategy": _cat(np.repeat(np.arange(n_st, dtype=strategy_code), n_ev), strategy_labels),
-        "patient": take("ev_patient", np.int64),
-        "time": take("ev_time", np.float64),
-        "age": take("ev_age", np.float64),
-        "from_state": _cat(take("ev_from", state_code), states),
-        "to_state": _cat(take("ev_to", state_code), states),
-        "transition": _cat(take("ev_exit", _code_dtype(len(model.exit_names))), model.exit_names),
-    }, copy=False)
-
-    ids = np.arange(table.first, table.first + n_pat, dtype=np.int64)
-    entry_all = table.entry_age if n_st == 1 else np.tile(table.entry_age, n_st)
-    patients = pd.DataFrame({
-        "strategy": _cat(np.repeat(np.arange(n_st, dtype=strategy_code), n_pat), strategy_labels),
-        "patient": ids if n_st == 1 else np.tile(ids, n_st),
-        "entry_age": entry_all,
-        "sex": _cat(table.sex if n_st == 1 else np.tile(table.sex, n_st), model.population.sexes),
-        "initial_state": _cat(table.initial if n_st == 1 else np.tile(table.initial, n_st), states),
-        "exit_time": table.exit_time,
-        "exit_age": entry_all + table.exit_time,
-        "final_state": _cat(table.final_state, states),
-        "exit_reason": _cat(table.exit_reason, ("absorbed", "censored")),
-    }, copy=False)
-    return events, patients
+              table: OutputTables) -> tuple[pd.DataFrame, pd.DataFrame]:
+    """The event log and patient table of ``chunks``, whose rows the chunks wrote into ``table``
+    (in place: no copies of the columns)."""
+    return table.frames(model.state_names, model.exit_names, model.population.sexes, tuple(strategies))
 
 
 MIN_PROGRESS_CHUNK = 25_000
@@ -495,6 +390,8 @@ def _chunk_outputs(model: Model, n_patients: int, seed: int, names: tuple[str, .
             finally:
                 for f in futures.values():
                     f.cancel()
+                if table is not None:  # a chunk waiting for its turn to place its events gives up
+                    table.abort()
     if cancel_requested(cancel):
         raise SimulationCancelled("simulation cancelled")
 
@@ -540,9 +437,9 @@ def simulate(model: Model, n_patients: int, seed: int, *, strategies: tuple[str,
     n_patients : number of patients per strategy (same patients in every strategy).
     seed : non-negative integer; with the model it fixes every draw (recorded in the result).
     strategies : names to run (default: all of the model's strategies).
-    chunk_size : patients per chunk. Peak memory is about the returned tables plus one column (chunk
-        results are compact and released column by column as the tables are built) plus a working
-        set of under 1 kB per patient in a chunk for each worker's chunks in flight.
+    chunk_size : patients per chunk. Peak memory is about the returned tables (the chunks write their
+        rows into them in place, :mod:`sim.engine.tables`) plus a working set of under 1 kB per
+        patient in a chunk for each worker's chunks in flight.
     workers : worker threads (numpy releases the GIL); results are identical for any value.
     progress : called as ``progress(patients_done, n_patients)`` after each chunk.
     cancel : an object with ``is_set()`` (e.g. ``threading.Event``) or a callable; checked between
