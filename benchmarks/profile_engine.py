@@ -6,10 +6,11 @@
 Sections (``--only``):
 
 - ``engine``: line_profiler over the engine's hot functions (``sim.engine.histories._run_strategy``,
-  ``sim.engine.rng._sorted_draws``, ``sim.engine.histories._simulate_chunk``, ``sim.engine.histories._assemble``) for the
+  ``sim.engine.rng._sorted_draws``, ``sim.engine.histories._simulate_chunk``,
+  ``sim.engine.tables.OutputTables.place_events``, ``sim.engine.histories._assemble``) for the
   reference workload, 1,000,000 patients, one thread; the lines taking >= 2% of a function's time,
   then the time grouped by kind of work (draws, hazards, competing minimum, bookkeeping, event
-  placement, table assembly).
+  order, placing the events into the run's columns, building the frames).
 - ``batches``: pyinstrument over 300 calls of ``simulate(1,000 patients)``.
 - ``pipeline``: pyinstrument over ``sim.pipeline.run.run_scenario`` on the reference workload at 100,000
   patients (what the desktop window runs; the study included).
@@ -33,6 +34,7 @@ from workloads import reference_model  # noqa: E402
 
 import sim.engine.histories as engine  # noqa: E402
 import sim.engine.rng as rng  # noqa: E402
+import sim.engine.tables as tables  # noqa: E402
 
 SECTIONS = ("engine", "batches", "pipeline")
 OUTPUT = HERE / "PROFILES.md"
@@ -42,7 +44,8 @@ _KINDS = (
     ("draws (counter-based generator, uniforms, log)", ("_sorted_draws(",)),
     ("hazards (conditional times)", ("_latent_times(",)),
     ("competing minimum", ("better = ", "best = np.where", "win = np.where")),
-    ("event placement (patient order)", ("first_slot", "dest", "place(", "ev_patient[", "ev_from[", "np.repeat")),
+    ("event order (slots in patient-then-time order, records)", ("first_slot", "dest", "per_patient", "ev_idx",
+                                                                 "EventRecords(", "np.concatenate(", "np.repeat")),
 )
 
 
@@ -68,18 +71,21 @@ def engine_section(quick: bool) -> str:
         t0 = time.perf_counter()
         engine.simulate(model, n, seed=1, workers=1)
         plain.append(time.perf_counter() - t0)
-    lp = LineProfiler(engine._run_strategy, engine._simulate_chunk, engine._assemble, rng._sorted_draws)
+    place = tables.OutputTables.place_events
+    lp = LineProfiler(engine._run_strategy, engine._simulate_chunk, engine._assemble, rng._sorted_draws, place)
     saved = (engine._run_strategy, engine._simulate_chunk, engine._assemble, engine._sorted_draws)
     engine._run_strategy = lp(engine._run_strategy)
     engine._simulate_chunk = lp(engine._simulate_chunk)
     engine._assemble = lp(engine._assemble)
     engine._sorted_draws = lp(rng._sorted_draws)
+    tables.OutputTables.place_events = lp(place)
     try:
         t0 = time.perf_counter()
         engine.simulate(model, n, seed=1, workers=1)
         profiled = time.perf_counter() - t0
     finally:
         engine._run_strategy, engine._simulate_chunk, engine._assemble, engine._sorted_draws = saved
+        tables.OutputTables.place_events = place
     rows = _line_stats(lp)
     by_fn: dict[str, float] = {}
     for fn, _src, _hits, sec in rows:
@@ -100,8 +106,9 @@ def engine_section(quick: bool) -> str:
         text.write(f"| {kind} | {sec * 1e3:.1f} | {sec / total:.0%} |\n")
     draws = by_fn.get("_sorted_draws", 0.0)
     attr = sum(sec for fn, src, _h, sec in rows if fn == "_simulate_chunk" and "_sorted_draws(" in src)
-    text.write(f"\nOutside the loop: patient attributes' draws {attr * 1e3:.1f} ms; joining the tables "
-               f"(`_assemble`) {by_fn.get('_assemble', 0.0) * 1e3:.1f} ms. All draws together "
+    text.write(f"\nOutside the loop: patient attributes' draws {attr * 1e3:.1f} ms; placing the events into the "
+               f"run's columns, in the chunks (`OutputTables.place_events`) {by_fn.get('OutputTables.place_events', 0.0) * 1e3:.1f} "
+               f"ms; building the frames (`_assemble`) {by_fn.get('_assemble', 0.0) * 1e3:.1f} ms. All draws together "
                f"(`_sorted_draws`): {draws * 1e3:.1f} ms.\n\n")
     text.write("Lines taking >= 2% of their function's time:\n\n")
     text.write("| function | line | hits | ms | share of function |\n|---|---|---|---|---|\n")

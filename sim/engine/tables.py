@@ -27,6 +27,7 @@ from __future__ import annotations
 import math
 import threading
 from functools import lru_cache
+from itertools import accumulate
 from typing import Sequence
 
 import numpy as np
@@ -108,7 +109,7 @@ class _EventColumns:
 
     def _allocate(self, cap: list[int]) -> dict[str, NDArray]:
         self.cap = cap
-        self.base = [0] + np.cumsum(cap).tolist()[:-1]
+        self.base = list(accumulate(cap[:-1], initial=0))
         return {f: np.empty(sum(cap), dtype=dt) for f, dt in self.dtypes.items()}
 
     def reserve(self, start: int, stop: int, counts: Sequence[int]) -> tuple[dict[str, NDArray], list[int]]:
@@ -164,7 +165,7 @@ class _EventColumns:
             for buf in self.bufs.values():
                 move_down(buf, self.base[k], pos, self.filled[k])
             pos += self.filled[k]
-        self.base = [0] + np.cumsum(self.filled).tolist()[:-1]
+        self.base = list(accumulate(self.filled[:-1], initial=0))
         self.cap = list(self.filled)
         return {f: buf[:pos] for f, buf in self.bufs.items()}
 
