@@ -46,7 +46,7 @@ import pandas as pd
 from numpy.typing import NDArray
 
 from .exact import population_pairs
-from ..hazards import KERNEL_ERRSTATE
+from ..hazards import KERNEL_ERRSTATE, by_entry_age
 from .matrix_exp import expm_batched, expm_rows
 from ..model.multistate import Clock, Model, ResolvedExit
 from ..analysis.outcomes import combine_outcomes
@@ -219,16 +219,20 @@ def _space(model: Model, tunnel_cycles: int | None, tunnel_entry: TunnelEntry = 
 
 
 def _rates(ex: ResolvedExit, sex: NDArray[np.int64], start: NDArray[np.float64], t: NDArray[np.float64],
-           dt: NDArray[np.float64], rule: RateRule) -> NDArray[np.float64]:
+           dt: NDArray[np.float64], rule: RateRule, age: NDArray[np.float64]) -> NDArray[np.float64]:
     """Rate of one exit over cycles [t, t + dt] for clock readings ``start + t``; arrays of any
-    shape whose first axis is the stratum (matching ``sex``)."""
+    shape whose first axis is the stratum (matching ``sex`` and the strata's entry ``age``; a hazard
+    that reads the entry age is read at each stratum's own)."""
     start, t, dt = np.broadcast_arrays(start, t, dt)
     x = start + t
     out = np.zeros(x.shape)
     live = dt > 0
     with np.errstate(**KERNEL_ERRSTATE):  # the hazards' unchecked kernels: clocks here are >= 0
-        for code, h in enumerate(ex.hazards):
-            rows = (sex == code).reshape((-1,) + (1,) * (x.ndim - 1)) & live
+        for h, strata in (g for code, h_sex in enumerate(ex.hazards)
+                          for g in by_entry_age(h_sex, age, np.flatnonzero(sex == code))):
+            rows = np.zeros(sex.size, dtype=bool)
+            rows[strata] = True
+            rows = rows.reshape((-1,) + (1,) * (x.ndim - 1)) & live
             if not rows.any():
                 continue
             if rule is RateRule.MIDPOINT:
@@ -371,11 +375,11 @@ def cohort_trace(model: Model, strategy: str, cycle_length: float, conversion: s
             for ex in resolved[j]:
                 if ex.clock is Clock.STATE:  # copy c: c whole cycles in the state (+ the entry credit)
                     c = ((space.copy[src] + space.offset[src]) * h)[None, None, :]
-                    r = _rates(ex, sex, c, np.zeros((m, 1, 1)), dtm[:, :, None], rate_rule)  # (m, B, L)
+                    r = _rates(ex, sex, c, np.zeros((m, 1, 1)), dtm[:, :, None], rate_rule, age)  # (m, B, L)
                     R[:, :, src, ex.index] += np.moveaxis(r, 0, 1)
                 else:
                     start = age[:, None] if ex.clock is Clock.AGE else np.zeros((m, 1))
-                    r = _rates(ex, sex, start, tm, dtm, rate_rule)  # (m, B)
+                    r = _rates(ex, sex, start, tm, dtm, rate_rule, age)  # (m, B)
                     R[:, :, src, ex.index] += r.T[:, :, None]
         total = R.sum(axis=-1)  # (B, m, N) total exit rate per source
         stay_through = np.where(tunnel, np.exp(-total * dt[:, :, None]), 0.0)  # no move at all

@@ -36,7 +36,7 @@ import pandas as pd
 from numpy.typing import ArrayLike, NDArray
 
 from ..engine import CancelToken
-from ..hazards import KERNEL_ERRSTATE
+from ..hazards import KERNEL_ERRSTATE, by_entry_age
 from ..model.multistate import Clock, Model, ResolvedExit
 from .factored import background_target, integrate_factored
 from .forward import ATOL, RTOL, ExitRates, NoExactSolution, integrate_segments
@@ -142,7 +142,8 @@ def solve_stacked(model: Model, strategy: str | tuple[str, ...], entry_age: NDAr
         with np.errstate(**KERNEL_ERRSTATE):
             for k, (_, _, groups, offset, _) in enumerate(plan):
                 for h, rows in groups:
-                    out[k, rows] = h._hazard(offset[rows])
+                    out[k, rows] = (h._hazard_at_entry(offset[rows], entry_age[rows])
+                                    if getattr(h, "reads_entry_age", False) else h._hazard(offset[rows]))
         return out
 
     y0 = np.zeros(size_p + size_i + size_f)
@@ -161,9 +162,11 @@ def solve_stacked(model: Model, strategy: str | tuple[str, ...], entry_age: NDAr
         for k, (s_k, _, groups, offset, moving) in enumerate(plan):
             if s_k not in init:
                 continue
-            for h, rows in groups:
-                x = offset[rows]
-                dh[k, rows] = (h.cumhazard(x + t0) - h.cumhazard(x)) if moving else h.hazard(x) * t0
+            for h_rows, rows_h in groups:
+                # a hazard that reads the entry age (EntryAgeFloor): each row's own entry age's
+                for h, rows in by_entry_age(h_rows, entry_age, rows_h):
+                    x = offset[rows]
+                    dh[k, rows] = (h.cumhazard(x + t0) - h.cumhazard(x)) if moving else h.hazard(x) * t0
         a = p0.copy()
         total = np.zeros((m, n))
         for k in range(k_ex):

@@ -66,6 +66,7 @@ def background_target(exits: Sequence[ExitRates], background: Sequence[bool],
     if any(band_edges(h) is None for h, _ in first.groups):
         return None  # a smooth background (e.g. Gompertz) has no jumps to remove
     if any(isinstance(h, AtLeastHazard) or isinstance(getattr(h, "base", None), AtLeastHazard)
+           or getattr(h, "reads_entry_age", False)
            for k, ex in enumerate(exits) if not background[k] for h, _ in ex.groups):
         return None  # a transition floored at the background jumps with it: restart at the band edges
     return d

@@ -125,7 +125,8 @@ class _Segment:
         # value beyond it, where its values are not read
         mid = 0.5 * (lo + np.clip(system.end, lo, hi))
         self.fixed = system.fixed[:, active].copy()
-        self.smooth: list[tuple[int, Hazard, NDArray[np.int64], NDArray[np.float64]]] = []
+        # (exit, hazard, rows, clock offsets, entry ages for a hazard that reads them else None)
+        self.smooth: list[tuple[int, Hazard, NDArray[np.int64], NDArray[np.float64], NDArray | None]] = []
         self.copies: list[tuple[int, int]] = []
         with np.errstate(**KERNEL_ERRSTATE):
             for k, ex in enumerate(system.exits):
@@ -144,7 +145,8 @@ class _Segment:
                     if band_edges(h) is not None:  # constant within the segment
                         self.fixed[k, pos] = h._hazard(np.maximum(c + mid[rows], 0.0))
                     else:
-                        self.smooth.append((k, h, pos, c))
+                        entry = system.entry_age[rows] if getattr(h, "reads_entry_age", False) else None
+                        self.smooth.append((k, h, pos, c, entry))
         for k, first in self.copies:
             self.fixed[k] = self.fixed[first]
         self.size_p = a * self.n
@@ -156,8 +158,9 @@ class _Segment:
             return self.fixed
         out = self.fixed.copy()
         with np.errstate(**KERNEL_ERRSTATE):
-            for k, h, pos, c in self.smooth:
-                out[k, pos] = h._hazard(np.maximum(c + u, 0.0))
+            for k, h, pos, c, entry in self.smooth:
+                clock = np.maximum(c + u, 0.0)
+                out[k, pos] = h._hazard(clock) if entry is None else h._hazard_at_entry(clock, entry)
         for k, first in self.copies:
             out[k] = out[first]
         return out
@@ -229,6 +232,7 @@ class _Stacked:
     fixed: NDArray[np.float64]
     first_of: list[int]
     end: NDArray[np.float64]  # per row, the axis value where the current sweep stops reading it
+    entry_age: NDArray[np.float64] | None = None  # per row, for hazards that read it (EntryAgeFloor)
 
 
 def _own_edges(exits: Sequence[ExitRates], origin: NDArray[np.float64]
@@ -424,7 +428,8 @@ def integrate_segments(exits: Sequence[ExitRates], n_states: int, entry_age: NDA
     shared: dict[tuple, int] = {}
     first_of = [shared.setdefault((tuple(id(h) for h, _ in ex.groups), ex.moving, ex.offset.tobytes()), k)
                 for k, ex in enumerate(exits)]
-    system = _Stacked(n_states, m, exits, src, dst, deltas, np.zeros(m), fixed, first_of, np.full(m, np.inf))
+    system = _Stacked(n_states, m, exits, src, dst, deltas, np.zeros(m), fixed, first_of, np.full(m, np.inf),
+                      np.asarray(entry_age, dtype=float))
     span = np.maximum(horizon, t0) if to_horizon else np.maximum(horizon, float(times.max(initial=t0)))
     span = np.maximum(span, t0)
     queries = _Queries(times, t0, horizon, span, blocks)
