@@ -14,7 +14,7 @@ from __future__ import annotations
 
 import time
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
@@ -29,12 +29,14 @@ from .exact_draws import exact_per_draw
 from .tables import sort_draw_table
 
 __all__ = ["PsaJob", "BlockResult", "PsaProgress", "psa_jobs", "run_block", "run_inline", "join_blocks",
-           "block_draws_for"]
+           "block_draws_for", "without_source"]
 
 PsaProgress = Callable[[int, int, "float | None"], None]
 """``progress(draws_done, draws_total, seconds_left)``; ``seconds_left`` is None until a block is done."""
 
-TARGET_BLOCK_PATIENTS = 40_000
+TARGET_BLOCK_PATIENTS = 100_000
+"""Simulated patients per block (per strategy): the engine's own chunk size, where one call runs at
+full speed and a block's valuation costs little next to its simulation (benchmarks/RESULTS.md)."""
 
 
 @dataclass(frozen=True)
@@ -77,12 +79,15 @@ class BlockResult:
 
 
 def block_draws_for(patients: int, n_draws: int, workers: int = 1) -> int:
-    """Draws per block: about :data:`TARGET_BLOCK_PATIENTS` simulated patients per block (engine
-    calls of that size run at full speed), but at least four blocks per worker when there are enough
-    draws (progress and balance). Results do not depend on it."""
-    size = max(1, TARGET_BLOCK_PATIENTS // max(int(patients), 1))
-    per_worker = -(-int(n_draws) // (4 * max(int(workers), 1)))
-    return max(1, min(size, per_worker))
+    """Draws per block: blocks of at most about :data:`TARGET_BLOCK_PATIENTS` simulated patients
+    (engine calls of that size run at full speed), at least four per worker when there are enough
+    draws (progress), their number a multiple of the number of workers and their sizes equal where
+    the draws allow, so that the workers finish together (e.g. 1,000 draws x 1,000 patients on 2
+    workers: 10 blocks of 100 draws). Results do not depend on it."""
+    n_draws, workers = max(int(n_draws), 1), max(int(workers), 1)
+    blocks = max(-(-n_draws * max(int(patients), 0) // TARGET_BLOCK_PATIENTS), 4 * workers)
+    blocks = -(-blocks // workers) * workers  # a multiple of the workers
+    return max(1, -(-n_draws // blocks))
 
 
 def psa_jobs(source: Any, values: pd.DataFrame, apply: ApplyDraw | None, patients: int, seed: int, *,
@@ -99,10 +104,17 @@ def psa_jobs(source: Any, values: pd.DataFrame, apply: ApplyDraw | None, patient
             for a in range(0, len(values), int(block_draws))]
 
 
-def run_block(job: PsaJob) -> BlockResult:
-    """Compute one block (pure: the same job always gives the same rows)."""
+def without_source(job: PsaJob) -> PsaJob:
+    """The job without its source (for :func:`run_block` with the source sent apart, e.g. once to
+    each Dask worker instead of with every block)."""
+    return replace(job, source=None)
+
+
+def run_block(job: PsaJob, source: Any = None) -> BlockResult:
+    """Compute one block (pure: the same job always gives the same rows); ``source``, when given,
+    stands for the job's (see :func:`without_source`)."""
     t0 = time.perf_counter()
-    models = models_for_draws(job.source, job.values, job.apply)
+    models = models_for_draws(job.source if source is None else source, job.values, job.apply)
     draws = job.draws
     parts, notes = [], []
     if job.patients > 0:
@@ -115,7 +127,8 @@ def run_block(job: PsaJob) -> BlockResult:
             notes.append(f"no exact result: {err}")
     if job.cycle_methods:
         parts.append(cycle_per_draw(models, draws, job.cycle_methods, tunnel_entry=job.tunnel_entry))
-    table = sort_draw_table(parts, models[0].strategy_names)
+    # the simulated rows alone are already in the table's order (draw, then strategy)
+    table = parts[0] if len(parts) == 1 and job.patients > 0 else sort_draw_table(parts, models[0].strategy_names)
     return BlockResult(draws, table, tuple(notes), time.perf_counter() - t0)
 
 

@@ -26,7 +26,7 @@ import pandas as pd
 
 from ..engine import simulate_draws, simulate_range
 from ..model import Model
-from .patient_values import Valuations, block_outcomes, draw_means
+from .patient_values import Valuations, Workspace, block_rows, draw_means, strategy_outcomes
 from .tables import SIMULATED, draw_frame, sort_draw_table
 
 __all__ = ["ApplyDraw", "base_model", "models_for_draws", "simulated_per_draw", "simulated_vectorised", "consecutive_runs"]
@@ -51,14 +51,23 @@ def models_for_draws(source: Any, values: pd.DataFrame, apply: ApplyDraw | None)
 
 
 def _rows(models: Sequence[Model], draws: np.ndarray, events: pd.DataFrame, patients: pd.DataFrame, first: int,
-          n: int, strategies: tuple[str, ...]) -> list[pd.DataFrame]:
-    out = []
+          n: int, strategies: tuple[str, ...], workspace: Workspace | None = None) -> pd.DataFrame:
+    """The block's simulated rows, ordered as :func:`sort_draw_table` orders them (by draw, then
+    strategy in ``strategies`` order)."""
+    ws = Workspace() if workspace is None else workspace  # scratch arrays shared by the strategies
+    means = []
     comparator = None  # the first strategy's per-patient outcomes: the paired MCSE of the others' increments
+    rows = block_rows(events, patients, first)  # the engine's tables read once for every strategy
     for s in strategies:
-        values = block_outcomes(models[0], s, events, patients, first, n, Valuations.of(list(models), s))
+        values = strategy_outcomes(models[0], rows[s], n, Valuations.of(list(models), s), ws)
         comparator = values if comparator is None else comparator
-        out.append(draw_frame(draws, s, SIMULATED, draw_means(values, n, comparator), n))
-    return out
+        means.append(draw_means(values, n, comparator, ws))
+    k = len(strategies)
+    # one frame with the strategies interleaved within each draw (the table's row order)
+    table = draw_frame(np.repeat(np.asarray(draws, dtype=np.int64), k), strategies[0], SIMULATED,
+                       {c: np.stack([m[c] for m in means], axis=1).ravel() for c in means[0]}, n)
+    table["strategy"] = np.tile(np.array(strategies, dtype=object), len(draws))
+    return table
 
 
 def simulated_per_draw(models: Sequence[Model], draws: Sequence[int], patients: int, seed: int,
@@ -68,10 +77,11 @@ def simulated_per_draw(models: Sequence[Model], draws: Sequence[int], patients: 
     names = tuple(strategies or models[0].strategy_names)
     n = int(patients)
     parts = []
+    ws = Workspace()
     for model, d in zip(models, draws):
         first = int(d) * n
         events, pts = simulate_range(model, seed, first, first + n, strategies=names)
-        parts += _rows([model], np.array([d]), events, pts, first, n, names)
+        parts.append(_rows([model], np.array([d]), events, pts, first, n, names, ws))
     return sort_draw_table(parts, names)
 
 
@@ -92,9 +102,11 @@ def simulated_vectorised(models: Sequence[Model], draws: Sequence[int], patients
     n = int(patients)
     d_all = np.asarray(draws, dtype=np.int64)
     parts = []
+    ws = Workspace()
     for a, b in consecutive_runs(d_all):
         block = list(models[a:b])
         first = int(d_all[a]) * n
         events, pts = simulate_draws(block, seed, n, first_draw=int(d_all[a]), strategies=names)
-        parts += _rows(block, d_all[a:b], events, pts, first, n, names)
-    return sort_draw_table(parts, names)
+        parts.append(_rows(block, d_all[a:b], events, pts, first, n, names, ws))
+    # one run of consecutive draws (a block job): its rows are already in the table's order
+    return parts[0] if len(parts) == 1 else sort_draw_table(parts, names)
