@@ -15,10 +15,20 @@ from typing import Any
 from ..engine import CancelToken, SimulationCancelled, cancel_requested
 from ..problems import ValidationError
 
-__all__ = ["SchedulerError", "connect", "completed", "cancel_futures", "POLL_SECONDS", "CONNECT_TIMEOUT"]
+__all__ = ["SchedulerError", "connect", "local_cluster", "completed", "cancel_futures", "POLL_SECONDS",
+           "CONNECT_TIMEOUT", "WORKER_MALLOC_ENV"]
 
-POLL_SECONDS = 0.2
+POLL_SECONDS = 0.02
 CONNECT_TIMEOUT = "10s"
+
+WORKER_MALLOC_ENV = {"MALLOC_MMAP_THRESHOLD_": str(32 * 2**20), "MALLOC_TRIM_THRESHOLD_": str(2**30)}
+"""glibc allocator settings of local worker processes (set before they start, Dask's
+``distributed.nanny.pre-spawn-environ``): arrays up to 32 MiB come from the heap, and freed heap
+memory is kept for the next task up to 1 GiB. Dask's default for workers (``MALLOC_TRIM_THRESHOLD_``
+65536, which also fixes the mmap threshold at 128 KiB) hands every freed multi-megabyte array back
+to the system, so each block's fresh arrays are page-faulted in again: measured on the demo PSA, 80%
+more CPU time per block, all of it in the kernel (benchmarks/RESULTS.md, issue 14). A worker keeps
+its peak heap instead (a few hundred MB for a block of 100,000 patients)."""
 
 
 class SchedulerError(ValidationError):
@@ -35,13 +45,10 @@ def connect(scheduler: str | None, workers: int, processes: bool = True):
     SchedulerError : the address is not a ``tcp://...`` address or no scheduler answers there
         within :data:`CONNECT_TIMEOUT`.
     """
-    from dask.distributed import Client, LocalCluster
+    from dask.distributed import Client
 
     if scheduler is None:
-        # worker processes listen on the loopback interface only; threads talk in-process
-        where = {"host": "127.0.0.1"} if processes else {}
-        cluster = LocalCluster(n_workers=workers, threads_per_worker=1, processes=processes, dashboard_address=None,
-                               worker_dashboard_address=None, silence_logs=logging.ERROR, **where)
+        cluster = local_cluster(workers, processes)
         try:
             return Client(cluster), cluster
         except BaseException:
@@ -54,6 +61,20 @@ def connect(scheduler: str | None, workers: int, processes: bool = True):
     except (OSError, TimeoutError, ValueError) as err:
         raise SchedulerError(("scheduler",), f"must be the address of a running Dask scheduler (cannot connect: "
                              f"{type(err).__name__}: {err})", scheduler) from None
+
+
+def local_cluster(workers: int, processes: bool = True):
+    """A ``LocalCluster`` of ``workers`` single-threaded workers: processes listening on the loopback
+    interface only, started with :data:`WORKER_MALLOC_ENV`, or threads of this process (which talk
+    in-process). The caller closes it."""
+    import dask
+    from dask.distributed import LocalCluster
+
+    where = {"host": "127.0.0.1"} if processes else {}
+    environ = {f"distributed.nanny.pre-spawn-environ.{k}": v for k, v in WORKER_MALLOC_ENV.items()}
+    with dask.config.set(environ):
+        return LocalCluster(n_workers=workers, threads_per_worker=1, processes=processes, dashboard_address=None,
+                            worker_dashboard_address=None, silence_logs=logging.ERROR, **where)
 
 
 def completed(futures: Sequence[Any], cancel: CancelToken | Callable[[], bool] | None = None,

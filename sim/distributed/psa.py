@@ -30,7 +30,7 @@ from ..io import Scenario
 from ..problems import ValidationError
 from ..psa import (BlockResult, CycleMethod, PsaJob, block_draws_for, join_blocks, model_for_draw, psa_jobs,
                    run_block, run_inline, uncertain_parameters)
-from ..psa.blocks import Eta, PsaProgress
+from ..psa.blocks import Eta, PsaProgress, without_source
 from ..psa.draws_run import ApplyDraw
 from ..uncertainty import draw_table
 from .cluster import cancel_futures, completed, connect
@@ -58,7 +58,13 @@ class PsaResult:
 def run_jobs(jobs: Sequence[PsaJob], *, workers: int = 1, scheduler: str | None = None, processes: bool = True,
              progress: PsaProgress | None = None,
              cancel: CancelToken | Callable[[], bool] | None = None) -> list[BlockResult]:
-    """Run the jobs inline (one worker, no scheduler) or on Dask; the results in job order."""
+    """Run the jobs inline (one worker, no scheduler) or on Dask; the results in job order.
+
+    On Dask, each distinct source (the scenario or model) is sent once to every worker
+    (``Client.scatter(..., broadcast=True)``) and the tasks carry only their block's parameter
+    values; a task returns its block's rows of the per-draw table (a few kB per draw), never the
+    patients' histories.
+    """
     if scheduler is None and workers == 1:
         return run_inline(jobs, progress, cancel)
     client, cluster = connect(scheduler, workers, processes)
@@ -66,7 +72,12 @@ def run_jobs(jobs: Sequence[PsaJob], *, workers: int = 1, scheduler: str | None 
     try:
         eta = Eta(sum(len(j.values) for j in jobs), progress)
         token = uuid.uuid4().hex[:12]
-        futures = [client.submit(run_block, job, key=f"hazardtrace-psa-{token}-{i}", pure=False)
+        sources: dict[int, object] = {}  # id(source) -> its future on the workers
+        for job in jobs:
+            if id(job.source) not in sources:
+                sources[id(job.source)] = client.scatter([job.source], broadcast=True, hash=False)[0]
+        futures = [client.submit(run_block, without_source(job), sources[id(job.source)],
+                                 key=f"hazardtrace-psa-{token}-{i}", pure=False)
                    for i, job in enumerate(jobs)]
         results: list[BlockResult | None] = [None] * len(jobs)
         for i, result in completed(futures, cancel, "probabilistic analysis"):
