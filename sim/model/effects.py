@@ -11,14 +11,14 @@ from __future__ import annotations
 
 from typing import TYPE_CHECKING, Callable
 
-from ..hazards import AtLeastHazard, Hazard, ShiftedClock, waning_ratio
+from ..hazards import AtLeastHazard, EntryAgeFloor, Hazard, ShiftedClock, waning_ratio
 from ..problems import KeyPath
 from .parts import Clock, Waning
 
 if TYPE_CHECKING:
     from .multistate import Model
 
-__all__ = ["with_ratio", "floor_clock_rule", "at_least_background", "clock_end", "effect_problems", "floor_words",
+__all__ = ["with_ratio", "floor_clock_rule", "at_least_background", "DISCRETE_AGES", "clock_end", "effect_problems", "floor_words",
            "transition_effect_words"]
 
 def with_ratio(h: Hazard, hr: float, wanes: Waning | None) -> Hazard:
@@ -31,17 +31,14 @@ def with_ratio(h: Hazard, hr: float, wanes: Waning | None) -> Hazard:
 def floor_clock_rule(clock: Clock, model: "Model") -> str | None:
     """Why a transition on ``clock`` cannot be floored at the model's background hazard (``None``
     when it can): both hazards must be on one clock, or the transition on time since entry with the
-    background on age and every patient entering at one age."""
+    background on age (read at each patient's entry age plus the time since entry)."""
     bg = model.background
     if bg is None:
         return "needs background mortality ([background]) to be at least"
-    if clock is bg.clock:
-        return None
-    age = model.population.entry_age
-    if clock is Clock.ENTRY and bg.clock is Clock.AGE and age.low == age.high:
+    if clock is bg.clock or (clock is Clock.ENTRY and bg.clock is Clock.AGE):
         return None
     return (f"needs the transition on the background's clock ({bg.clock.value!r}), or on 'entry' with "
-            f"background on 'age' and a fixed entry age (the two hazards must share one clock)")
+            f"background on 'age' (the background is then read at the entry age plus the time since entry)")
 
 
 def clock_end(model: "Model", clock: Clock) -> float:
@@ -54,15 +51,26 @@ def clock_end(model: "Model", clock: Clock) -> float:
     return max(follow, 1e-9)
 
 
-def at_least_background(h: Hazard, clock: Clock, model: "Model", background: Hazard) -> AtLeastHazard:
-    """``max(h, background)`` on the transition's clock (the background shifted by the fixed entry age
-    when the transition runs on time since entry and the background on age)."""
+DISCRETE_AGES = 64
+"""An empirical entry-age distribution with at most this many ages is floored age by age
+(:class:`sim.hazards.EntryAgeFloor` with ``ages``); more are treated as continuous."""
+
+
+def at_least_background(h: Hazard, clock: Clock, model: "Model", background: Hazard) -> Hazard:
+    """``max(h, background)`` on the transition's clock. On time since entry with the background on
+    age: the background shifted by the entry age, :class:`~sim.hazards.ShiftedClock` when every patient
+    enters at one age, else :class:`~sim.hazards.EntryAgeFloor` (each patient's own entry age)."""
     bg = model.background
     assert bg is not None
-    floor = background
-    if clock is not bg.clock:  # entry clock, background on age, one entry age (floor_clock_rule)
-        floor = ShiftedClock(background, model.population.entry_age.low)
-    return AtLeastHazard(h, floor, clock_end(model, clock))
+    until = clock_end(model, clock)
+    if clock is bg.clock:
+        return AtLeastHazard(h, background, until)
+    age = model.population.entry_age  # entry clock, background on age (floor_clock_rule)
+    if age.low == age.high:
+        return AtLeastHazard(h, ShiftedClock(background, age.low), until)
+    ages = getattr(age, "ages", None)  # an empirical distribution: its ages
+    discrete = tuple(sorted(set(ages))) if ages is not None and len(set(ages)) <= DISCRETE_AGES else ()
+    return EntryAgeFloor(h, background, until, age.low, age.high, discrete)
 
 
 def effect_problems(model: "Model", add: Callable[..., None]) -> None:
@@ -110,16 +118,28 @@ def _clock_rule(add: Callable[..., None], path: KeyPath, clock: Clock) -> None:
 
 def _ages(model: "Model", clock: Clock) -> tuple[str, float]:
     """How a clock value reads in words for a floor: ``("age", 0)`` on the age clock, ``("age",
-    entry age)`` on time since entry with one entry age, else ``("time", 0)``."""
+    entry age)`` on time since entry with the background on age (the youngest entry age; each entry
+    age's own for an :class:`~sim.hazards.EntryAgeFloor`), else ``("time", 0)``."""
     bg = model.background
     if clock is Clock.AGE or (clock is Clock.ENTRY and bg is not None and bg.clock is Clock.AGE):
         return "age", (0.0 if clock is Clock.AGE else model.population.entry_age.low)
     return "time", 0.0
 
 
+def _crossing_words(h: AtLeastHazard, what: str, offset: float, unit: str) -> str:
+    """Where the fit of ``h`` crosses its floor, in words, clock values read as ``what`` plus ``offset``."""
+    parts = [f"falls {'below' if c.direction == 'below' else 'back above'} it from {what} "
+             f"{offset + c.at:.1f}{unit}" for c in h.crossings]
+    if not parts:
+        side = "below" if h.floor.hazard(h.until) >= h.fit.hazard(h.until) else "above"
+        parts = [f"stays {side} it up to {what} {offset + h.until:.1f}{unit}"]
+    return "the fit " + ", then ".join(parts)
+
+
 def floor_words(model: "Model", name: str) -> str:
     """What ``at_least_background`` does to transition ``name``, for ``hazardtrace check``: where the
-    fit (with each strategy's ratio) falls below the background hazard, per strategy and sex, e.g.
+    fit (with each strategy's ratio) falls below the background hazard, per strategy and sex (and, on
+    time since entry with entry ages that vary, for the youngest and the oldest entrants), e.g.
     ``"hazard at least the background hazard; the fit falls below it from age 81.4"``."""
     k = next(i for i, t in enumerate(model.transitions) if t.name == name)
     t = model.transitions[k]
@@ -129,14 +149,13 @@ def floor_words(model: "Model", name: str) -> str:
     for st in model.strategy_names:
         ex = next(e for exits in model.resolve(st) for e in exits if e.index == k)
         for sex, h in zip(model.population.sexes, ex.hazards):
-            if not isinstance(h, AtLeastHazard):
+            if isinstance(h, EntryAgeFloor):  # entry ages vary: the youngest and the oldest entrants
+                text = ", ".join(f"entering at age {a:.1f} {_crossing_words(h.at(a), what, a, unit)}"
+                                 for a in (h.low, h.high))
+            elif isinstance(h, AtLeastHazard):
+                text = _crossing_words(h, what, offset, unit)
+            else:
                 continue
-            parts = [f"falls {'below' if c.direction == 'below' else 'back above'} it from {what} "
-                     f"{offset + c.at:.1f}{unit}" for c in h.crossings]
-            if not parts:
-                side = "below" if h.floor.hazard(h.until) >= h.fit.hazard(h.until) else "above"
-                parts = [f"stays {side} it up to {what} {offset + h.until:.1f}{unit}"]
-            text = "the fit " + ", then ".join(parts)
             who = [st] + ([sex] if len(model.population.sexes) > 1 else [])
             found.setdefault(text, []).append(", ".join(who))
     if len(found) == 1 and len(model.strategy_names) * len(model.population.sexes) > 0:

@@ -177,7 +177,7 @@ def test_bad_waning_keys_name_key_value_rule_and_line(old, new, key, rule):
     # the floor needs a death transition and a shared clock
     ('to = "dead"\nfamily = "weibull"', 'to = "well"\nfamily = "weibull"', ("at_least_background",),
      "must be an absorbing state"),
-    ('entry_age = { distribution = "fixed", age = 70 }', 'entry_age = { distribution = "uniform", low = 60, high = 70 }',
+    ('at_least_background = true', 'at_least_background = true\nclock = "state"',
      ("at_least_background",), "needs the transition on the background's clock"),
     ('waning = { onset = { start = 2.0, end = 6.0 } }', 'waning = { nothing = { start = 2.0, end = 6.0 } }',
      ("waning", "nothing"), "must name a transition"),
