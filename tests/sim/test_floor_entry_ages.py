@@ -15,13 +15,15 @@ References outside the project:
 
 from __future__ import annotations
 
+import dataclasses
 import math
 
 import numpy as np
+import pandas as pd
 import pytest
 from scipy import integrate, stats
 
-from sim.engine import simulate, simulate_range
+from sim.engine import simulate, simulate_draws, simulate_range
 from sim.hazards import (KERNEL_ERRSTATE, AtLeastHazard, EntryAgeFloor, Exponential, Gompertz, LogNormal,
                          PiecewiseConstant, ShiftedClock, Weibull)
 from sim.model import (BackgroundMortality, Clock, EmpiricalAge, FixedAge, Horizon, Model, ModelError, Population,
@@ -54,7 +56,7 @@ def two_state(entry_age, background=BG, clock: Clock = Clock.ENTRY) -> Model:
 
 def illness_death(entry_age=UniformAge(LOW, HIGH)) -> Model:
     """healthy -> sick -> dead with the floored disease death leaving 'sick' (entered during follow-up,
-    so the engine samples it from a time since entry x > 0)."""
+    so the engine samples it from a time since entry x > 0); invented numbers."""
     return Model(
         states=(State("healthy"), State("sick"), State("dead", absorbing=True)),
         transitions=(
@@ -204,8 +206,6 @@ def test_single_entry_age_is_bit_identical_to_the_shifted_clock_path():
     one = two_state(FixedAge(70.0))
     via = two_state(EmpiricalAge((60.0, 70.0), (0.0, 1.0)))
     assert isinstance(floored(via), EntryAgeFloor)
-    for model in (one, via):
-        model.resolve("base")
     a, b = simulate(one, 20_000, seed=11), simulate(via, 20_000, seed=11)
     assert a.events.equals(b.events)
     assert a.patients.drop(columns="entry_age").equals(b.patients.drop(columns="entry_age"))
@@ -223,6 +223,24 @@ def test_same_histories_for_any_chunking_and_thread_count():
     events, _ = simulate_range(m, 5, 2_500, 4_100)
     want = whole.events[(whole.events["patient"] >= 2_500) & (whole.events["patient"] < 4_100)]
     assert np.array_equal(events["time"].to_numpy(), want["time"].to_numpy())
+
+
+def test_parameter_draws_read_each_patients_entry_age():
+    """A block of parameter draws in one engine call (simulate_draws): each draw's histories are those
+    of its own model's run, bit for bit, with the floor read at every patient's entry age."""
+    def with_fit(fit) -> Model:
+        m = illness_death()
+        t = dataclasses.replace(m.transitions[1], hazard=fit)
+        return dataclasses.replace(m, transitions=(m.transitions[0], t))
+
+    models = [with_fit(FIT), with_fit(Weibull(shape=0.6, scale=4.0)), with_fit(Weibull(shape=0.7, scale=5.0))]
+    n, seed = 1_500, 31
+    events, _ = simulate_draws(models, seed, n)
+    for i, model in enumerate(models):
+        assert isinstance(floored(model), EntryAgeFloor)
+        ev, _ = simulate_range(model, seed, i * n, (i + 1) * n)
+        got = events[(events["patient"] >= i * n) & (events["patient"] < (i + 1) * n)].reset_index(drop=True)
+        pd.testing.assert_frame_equal(got, ev, check_exact=True)
 
 
 # ------------------------------------------------------------------------------- exact and the engine
