@@ -437,10 +437,10 @@ class EntryAgeFloor(Hazard):
         n = age.size
         strip = (np.floor((age - self.low) / tab.width) if tab.width > 0 else np.zeros(n))
         strip = np.clip(strip, 0, tab.count.size - 1).astype(np.intp)
-        k = int(tab.count[strip].max(initial=0))
-        cells = tab.cells[strip, :k]
-        lane, col = np.nonzero(cells >= 0)  # lane-major, cells ascending within a lane
-        c = cells[lane, col]
+        count = tab.count[strip]  # candidate cells per patient, listed flat (lane-major, ascending)
+        lane = np.repeat(np.arange(n), count)
+        col = np.arange(lane.size) - np.repeat(np.cumsum(count) - count, count)
+        c = tab.cells[strip[lane], col]
         a = age[lane]
         lo, hi = tab.t[c], tab.t[c + 1]
         s_lo = self._floor_larger(lo, a)
