@@ -447,7 +447,13 @@ class EntryAgeFloor(Hazard):
         flip = s_lo != self._floor_larger(hi, a)
         lane, a, s_lo, lo, hi = lane[flip], a[flip], s_lo[flip], lo[flip], hi[flip]
         for _ in range(200):  # bisection, each crossing on its own: [lo, hi) holds the change of side
-            act = np.flatnonzero(hi - lo > CROSSING_TOL * np.maximum(1.0, hi))
+            wide = hi - lo > CROSSING_TOL * np.maximum(1.0, hi)
+            if wide.all():  # the usual case for most steps: every interval still halves (no gathers)
+                mid = 0.5 * (lo + hi)
+                same = self._floor_larger(mid, a) == s_lo
+                lo, hi = np.where(same, mid, lo), np.where(same, hi, mid)
+                continue
+            act = np.flatnonzero(wide)
             if act.size == 0:
                 break
             mid = 0.5 * (lo[act] + hi[act])
