@@ -134,8 +134,8 @@ class _EventColumns:
                 bufs = self._allocate([max(x, c, math.ceil(x * self.n / done * (1 + 2 * _MARGIN)) + _SLACK)
                                        for x, c in zip(need, self.cap)])
                 for f, buf in bufs.items():
-                    for k in range(self.n_st):
-                        buf[self.base[k]:self.base[k] + self.filled[k]] = old[f][old_base[k]:old_base[k] + self.filled[k]]
+                    for k, rows in enumerate(self.filled):
+                        buf[self.base[k]:self.base[k] + rows] = old[f][old_base[k]:old_base[k] + rows]
                 self.bufs = bufs
                 del old
             offsets = [b + f for b, f in zip(self.base, self.filled)]

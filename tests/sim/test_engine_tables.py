@@ -66,7 +66,8 @@ def test_tables_are_views_of_one_column_per_field(two_strategies):
     run = simulate(two_strategies, 2500, seed=2, chunk_size=600, workers=2)
     ev = run.events
     n_a = int((ev["strategy"] == "a").sum())
-    assert (ev["strategy"].cat.codes.to_numpy()[:n_a] == 0).all() and (ev["strategy"].cat.codes.to_numpy()[n_a:] == 1).all()
+    codes = ev["strategy"].cat.codes.to_numpy()
+    assert (codes[:n_a] == 0).all() and (codes[n_a:] == 1).all()
     for k, name in enumerate(("a", "b")):
         part = simulate_range(two_strategies, 2, 0, 2500, strategies=(name,))[0]
         rows = ev.iloc[:n_a] if k == 0 else ev.iloc[n_a:]
