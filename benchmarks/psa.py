@@ -5,15 +5,19 @@ benchmarks/RESULTS.md.
    (17 uncertain parameters), as blocks of draws through one engine call each (the runner's path),
    against the engine's single call on the same 10^6 patients at the point values: (a) the engine
    alone, (b) the engine plus the same per-patient valuation (what a run of 10^6 patients also
-   needs). Rounds alternate in one process (this VM's speed drifts). The per-draw path (one engine
-   call per draw) is timed on a sample of draws.
-2. A Dask LocalCluster of 2 worker processes against 1, started before timing (the cluster's
-   start-up is reported apart), on the simulated analysis of the demo.
+   needs). Rounds alternate in one process (this VM's speed drifts); wall-clock and thread CPU time
+   are both printed, the ratios per round. The per-draw path (one engine call per draw) is timed on a
+   sample of draws.
+2. A Dask LocalCluster of 2 worker processes against 1 (and 2 worker threads), started before timing
+   (the cluster's start-up is reported apart) the way `hazardtrace psa` starts it, on the simulated
+   analysis of the demo at the issue's size (1,000 draws x 1,000 patients), rounds alternating
+   between the clusters, with the CPU time the workers used (the machine is shared: wall-clock
+   speed-ups under load say little, the CPU time says whether splitting added work).
 3. The exact analysis of 1,000 draws of a 5-state time-homogeneous Markov model (batched matrix
    exponentials), and, for comparison, of the demo (Gompertz background: the forward equations draw by
    draw) on a sample of draws.
 
-Usage: .venv/bin/python benchmarks/psa.py [--quick]
+Usage: .venv/bin/python benchmarks/psa.py [--quick] [--sections 123]
 """
 
 from __future__ import annotations
@@ -21,6 +25,7 @@ from __future__ import annotations
 import argparse
 import dataclasses
 import logging
+import os
 import sys
 import time
 from pathlib import Path
@@ -36,6 +41,7 @@ from sim.io import load_scenario  # noqa: E402
 from sim.model import (Clock, FixedAge, Horizon, Model, Population, State, Strategy, Transition,  # noqa: E402
                        Valuation)
 from sim.distributed import run_jobs  # noqa: E402
+from sim.distributed.cluster import local_cluster  # noqa: E402
 from sim.psa import (block_draws_for, exact_per_draw, model_for_draw, models_for_draws, psa_jobs,  # noqa: E402
                      simulated_per_draw, simulated_vectorised, uncertain_parameters)
 from sim.psa.patient_values import Valuations, block_outcomes  # noqa: E402
@@ -51,6 +57,13 @@ def best_of(fn, rounds):
         fn()
         times.append(time.perf_counter() - t0)
     return min(times)
+
+
+def timed(fn) -> tuple[float, float]:
+    """(wall-clock, thread CPU) seconds of one call."""
+    t0, c0 = time.perf_counter(), time.thread_time()
+    fn()
+    return time.perf_counter() - t0, time.thread_time() - c0
 
 
 def inner_loop(draws: int, patients: int, rounds: int) -> None:
@@ -78,46 +91,92 @@ def inner_loop(draws: int, patients: int, rounds: int) -> None:
     def per_draw():
         simulated_per_draw(models[:sample], values.index[:sample], patients, 1)
 
-    timings = {"engine": [], "engine + valuation": [], "PSA vectorised": [], "PSA per draw (sample)": []}
+    names = ("engine", "engine + valuation", "PSA vectorised", "PSA per draw (sample)")
+    wall: dict[str, list[float]] = {k: [] for k in names}
+    cpu: dict[str, list[float]] = {k: [] for k in names}
+    load = []
     for _ in range(rounds):  # alternating rounds
-        for name, fn in zip(timings, (engine, engine_valued, vectorised, per_draw)):
-            timings[name].append(best_of(fn, 1))
-    t = {k: min(v) for k, v in timings.items()}
+        load.append(os.getloadavg()[0])
+        for name, fn in zip(names, (engine, engine_valued, vectorised, per_draw)):
+            w, c = timed(fn)
+            wall[name].append(w)
+            cpu[name].append(c)
+    t = {k: min(v) for k, v in wall.items()}
+    c = {k: min(v) for k, v in cpu.items()}
     t["PSA per draw (sample)"] *= draws / sample
+    c["PSA per draw (sample)"] *= draws / sample
+    histories = total * len(model.strategy_names)
     print(f"\n1. Inner loop: {draws:,} draws x {patients:,} patients x {len(model.strategy_names)} strategies "
-          f"({total:,} patients per strategy), blocks of {block} draws, best of {rounds} alternating rounds")
-    for k, v in t.items():
-        print(f"   {k:<24} {v:7.2f} s   {total * len(model.strategy_names) / v / 1e6:6.2f} M patient-histories/s")
-    print(f"   PSA vectorised / engine alone:           {t['engine'] / t['PSA vectorised']:.0%} of its throughput")
-    print(f"   PSA vectorised / engine with valuation:  {t['engine + valuation'] / t['PSA vectorised']:.0%}")
+          f"({total:,} patients per strategy), blocks of {block} draws, best of {rounds} alternating rounds "
+          f"(load average {min(load):.1f}-{max(load):.1f})")
+    for k in names:
+        print(f"   {k:<24} {t[k]:7.2f} s   {histories / t[k] / 1e6:6.2f} M patient-histories/s   "
+              f"thread CPU {c[k]:6.2f} s")
+
+    def ratio(a: str, b: str, times: dict[str, list[float]]) -> str:
+        per_round = [x / y for x, y in zip(times[a], times[b])]
+        return f"{min(times[a]) / min(times[b]):.0%} (per round {', '.join(f'{r:.0%}' for r in per_round)})"
+
+    print(f"   PSA vectorised / engine alone:           {ratio('engine', 'PSA vectorised', wall)} of its throughput; "
+          f"in thread CPU time {ratio('engine', 'PSA vectorised', cpu)}")
+    print(f"   PSA vectorised / engine with valuation:  {ratio('engine + valuation', 'PSA vectorised', wall)}; "
+          f"in thread CPU time {ratio('engine + valuation', 'PSA vectorised', cpu)}")
     print(f"   per-draw path / vectorised path:         {t['PSA per draw (sample)'] / t['PSA vectorised']:.1f}x slower")
 
 
-def cluster_scaling(draws: int, patients: int, rounds: int) -> None:
-    from dask.distributed import LocalCluster
+def _worker_cpu(client) -> float:
+    """CPU seconds used so far by the cluster's worker processes (or this process, for threads)."""
+    return sum(client.run(time.process_time).values())
 
+
+def cluster_scaling(draws: int, patients: int, rounds: int) -> None:
+    from dask.distributed import Client
+
+    logging.getLogger("distributed").setLevel(logging.ERROR)  # three clusters at once: keep their closing quiet
     scenario = load_scenario(DEMO)
     values = draw_table(uncertain_parameters(scenario), draws, scenario.run.seed)
     jobs = psa_jobs(scenario, values, model_for_draw, patients, scenario.run.seed,
                     block_draws=block_draws_for(patients, draws, 2), exact=False)
-    print(f"\n2. Dask LocalCluster: {draws:,} draws x {patients:,} patients (simulated rows), "
-          f"{len(jobs)} blocks")
-    times = {}
-    for n, processes in ((1, True), (2, True), (2, False)):
+    print(f"\n2. Dask LocalCluster (sim.distributed.cluster.local_cluster, as `hazardtrace psa`): {draws:,} draws x "
+          f"{patients:,} patients (simulated rows, parameter draws applied in the tasks), {len(jobs)} blocks of "
+          f"{len(jobs[0].values)} draws; rounds alternate between the clusters, all started before timing")
+    kinds = ((1, True), (2, True), (2, False))
+    clusters, clients, start = {}, {}, {}
+    for n, processes in kinds:
         t0 = time.perf_counter()
-        where = {"host": "127.0.0.1"} if processes else {}
-        cluster = LocalCluster(n_workers=n, threads_per_worker=1, processes=processes, dashboard_address=None,
-                               worker_dashboard_address=None, silence_logs=logging.ERROR, **where)
-        start = time.perf_counter() - t0
-        try:
-            times[n, processes] = best_of(lambda: run_jobs(jobs, scheduler=cluster.scheduler_address), rounds)
-        finally:
-            cluster.close()
+        clusters[n, processes] = local_cluster(n, processes)
+        start[n, processes] = time.perf_counter() - t0
+        clients[n, processes] = Client(clusters[n, processes])
+    wall: dict[tuple, list[float]] = {k: [] for k in kinds}
+    cpu: dict[tuple, list[float]] = {k: [] for k in kinds}
+    load = []
+    try:
+        for r in range(rounds + 1):  # round 0 warms the workers up (imports), not counted
+            order = kinds if r % 2 == 0 else kinds[::-1]
+            for key in order:
+                load.append(os.getloadavg()[0])
+                c0 = _worker_cpu(clients[key]) if key[1] else time.process_time()
+                t0 = time.perf_counter()
+                run_jobs(jobs, scheduler=clusters[key].scheduler_address)
+                w = time.perf_counter() - t0
+                used = (_worker_cpu(clients[key]) if key[1] else time.process_time()) - c0
+                if r:
+                    wall[key].append(w)
+                    cpu[key].append(used)
+    finally:
+        for key in kinds:
+            clients[key].close()
+            clusters[key].close()
+    for n, processes in kinds:
         kind = "processes" if processes else "threads"
-        print(f"   {n} worker {kind}: {times[n, processes]:6.2f} s (cluster start-up {start:.1f} s, not included)")
-    times[1], times[2] = times[1, True], times[2, True]
-    print(f"   2 worker threads vs 1 worker process: {times[1] / times[2, False]:.2f}x")
-    print(f"   speed-up 2 vs 1: {times[1] / times[2]:.2f}x")
+        print(f"   {n} worker {kind}: {min(wall[n, processes]):6.2f} s, CPU in the workers {min(cpu[n, processes]):6.2f} s "
+              f"(cluster start-up {start[n, processes]:.1f} s, not included)")
+    one, two = wall[1, True], wall[2, True]
+    print(f"   2 worker threads vs 1 worker process: {min(one) / min(wall[2, False]):.2f}x")
+    print(f"   speed-up 2 vs 1: {min(one) / min(two):.2f}x (per round {', '.join(f'{a / b:.2f}' for a, b in zip(one, two))}; "
+          f"load average {min(load):.1f}-{max(load):.1f})")
+    print(f"   CPU time in the workers, 2 vs 1: {min(cpu[2, True]) / min(cpu[1, True]):.2f}x (1.00: no work added by "
+          f"splitting; the speed-up a quiet machine would give is about 2 / this figure, less the last block's wait)")
 
 
 def five_state_model() -> Model:
@@ -156,15 +215,13 @@ def exact_analysis(draws: int, rounds: int) -> None:
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true", help="small sizes: proves the script runs")
+    parser.add_argument("--sections", default="123", help="which sections to run, e.g. 2 (default: 123)")
     args = parser.parse_args()
-    if args.quick:
-        inner_loop(40, 100, 1)
-        cluster_scaling(16, 100, 1)
-        exact_analysis(50, 1)
-    else:
-        inner_loop(1000, 1000, 3)
-        cluster_scaling(200, 1000, 2)
-        exact_analysis(1000, 3)
+    runs = {"1": (inner_loop, (40, 100, 1), (1000, 1000, 3)), "2": (cluster_scaling, (16, 100, 1), (1000, 1000, 3)),
+            "3": (exact_analysis, (50, 1), (1000, 3))}
+    for key, (fn, quick, full) in runs.items():
+        if key in args.sections:
+            fn(*(quick if args.quick else full))
 
 
 if __name__ == "__main__":
