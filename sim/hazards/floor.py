@@ -273,6 +273,7 @@ class _SideTable:
     width: float  # strip width (years of entry age)
     cells: np.ndarray  # (strips, K) candidate cell indices per strip, ascending, -1 padded
     count: np.ndarray  # (strips,) candidates per strip
+    jumps: FloatArray  # the background's jumps and kinks (ages), sorted
 
 
 @dataclass(frozen=True)
@@ -309,12 +310,13 @@ class EntryAgeFloor(Hazard):
     located by bisection to :data:`CROSSING_TOL` (patient by patient, so that a patient's time does not
     depend on the other patients of the call). The pieces between the patient's crossings are sampled
     piece by piece as in :class:`AtLeastHazard` (inverse cumulative hazard sampling, Bender, Augustin &
-    Blettner 2005). Two crossings within one cell in ``t``, or a side change inside a cell whose four
-    corners agree, may be missed (the grid assumption of :class:`AtLeastHazard`, on two axes); unlike
-    :meth:`at`, whose grid holds the background's jumps, this includes a sliver where a life table
-    jumps above the fit and the fit overtakes it again within one cell: on it the cumulative hazard is
-    off by at most the cell's width times the jump (with 1-year bands, event times agree with
-    :meth:`at`'s to about 3e-8 relative; tests/sim/test_floor_entry_ages.py).
+    Blettner 2005). The background's jumps (a life table's band edges) cut the patients' cells as they
+    are nodes of :meth:`at`'s grid, and the cells they cross are candidates wherever the jump may change
+    the side (:meth:`_mark_jumps`), so that a sliver where the background jumps above the fit and the
+    fit overtakes it again within one cell is found. Two crossings within one cell in ``t``, or a side
+    change inside a cell whose four corners agree away from a jump, may be missed (the grid assumption
+    of :class:`AtLeastHazard`, on two axes). Event times agree with :meth:`at`'s to rounding where both
+    find the same crossings, each crossing being located to :data:`CROSSING_TOL` from its own bracket.
 
     Read without an entry age (the plain :class:`Hazard` methods, e.g. in range checks) it is the
     hazard of a patient entering at the oldest age, ``at(high)``.
@@ -402,14 +404,45 @@ class EntryAgeFloor(Hazard):
             side = self._floor_larger(t[None, :], a[:, None])
         c = side[:-1, :-1]
         mixed = (side[:-1, 1:] != c) | (side[1:, :-1] != c) | (side[1:, 1:] != c)
+        jumps = np.array(sorted(p for p in rough_points(self.background) if self.low < p < self.high + self.until))
+        if jumps.size:
+            with np.errstate(over="ignore", under="ignore", divide="ignore", invalid="ignore"):
+                self._mark_jumps(mixed, t, a, jumps)
         count = mixed.sum(axis=1)
         k = max(int(count.max(initial=0)), 1)
         cells = np.argsort(~mixed, axis=1, kind="stable")[:, :k]  # the mixed cells first, ascending
         cells = np.where(np.arange(k)[None, :] < count[:, None], cells, -1)
-        for arr in (t, cells, count):
+        for arr in (t, cells, count, jumps):
             arr.setflags(write=False)
-        table = _SideTable(t, (self.high - self.low) / strips, cells, count)
+        table = _SideTable(t, (self.high - self.low) / strips, cells, count, jumps)
         return self._memo.setdefault("table", table)
+
+    def _mark_jumps(self, mixed: np.ndarray, t: FloatArray, a: FloatArray, jumps: FloatArray) -> None:
+        """Mark as candidates the cells a jump of the background at age ``r`` crosses in a strip
+        (``t`` from ``r - a_{j+1}`` to ``r - a_j``) when it may change the side there: when the fit,
+        sampled at those cells' nodes and the range's ends, reaches the span of the background's
+        values on the two sides of the jump. Their four corners may agree although the side changes
+        between them (a sliver where the background jumps above the fit and the fit overtakes it
+        again); the patients' cells are then cut at the jump, as :meth:`at`'s grid is."""
+        n_cells = t.size - 1
+        below = self.background._hazard(np.nextafter(jumps, -np.inf))
+        above = self.background._hazard(jumps)
+        g_lo, g_hi = np.minimum(below, above), np.maximum(below, above)
+        strip, k = (v.ravel() for v in np.meshgrid(np.arange(a.size - 1), np.arange(jumps.size), indexing="ij"))
+        t0 = np.clip(jumps[k] - a[strip + 1], 0.0, self.until)
+        t1 = np.clip(jumps[k] - a[strip], 0.0, self.until)
+        i0 = np.clip(np.searchsorted(t, t0, side="right") - 1, 0, n_cells - 1)
+        i1 = np.clip(np.searchsorted(t, t1, side="left") - 1, i0, n_cells - 1)
+        f0, f1, f_nodes = self.fit._hazard(t0), self.fit._hazard(t1), self.fit._hazard(t)
+        f_min, f_max = np.fmin(f0, f1), np.fmax(f0, f1)
+        width = int((i1 - i0).max(initial=0))
+        for step in range(1, width + 1):  # the nodes strictly inside the range
+            node = np.minimum(i0 + step, i1)
+            f_min, f_max = np.fmin(f_min, f_nodes[node]), np.fmax(f_max, f_nodes[node])
+        flag = (t1 > t0) & (f_max >= g_lo[k]) & (f_min <= g_hi[k])
+        for step in range(width + 1):
+            sel = flag & (i0 + step <= i1)
+            mixed[strip[sel], (i0 + step)[sel]] = True
 
     def _side_time(self, use_floor: np.ndarray, x: FloatArray, e: FloatArray, age: FloatArray) -> FloatArray:
         out = np.empty(x.shape)
@@ -443,6 +476,17 @@ class EntryAgeFloor(Hazard):
         c = tab.cells[strip[lane], col]
         a = age[lane]
         lo, hi = tab.t[c], tab.t[c + 1]
+        if tab.jumps.size:  # cells cut at the background's jumps inside them (as at(a)'s grid holds them)
+            j0 = np.searchsorted(tab.jumps, a + lo, side="right")
+            cuts = np.maximum(np.searchsorted(tab.jumps, a + hi, side="left") - j0, 0)
+            if np.any(cuts):
+                pick = np.repeat(np.arange(lane.size), cuts + 1)
+                r = np.arange(pick.size) - np.repeat(np.cumsum(cuts + 1) - (cuts + 1), cuts + 1)
+                last_jump = tab.jumps.size - 1
+                ap = a[pick]
+                lo = np.where(r == 0, lo[pick], tab.jumps[np.minimum(j0[pick] + r - 1, last_jump)] - ap)
+                hi = np.where(r == cuts[pick], hi[pick], tab.jumps[np.minimum(j0[pick] + r, last_jump)] - ap)
+                lane, a = lane[pick], ap
         s_lo = self._floor_larger(lo, a)
         flip = s_lo != self._floor_larger(hi, a)
         lane, a, s_lo, lo, hi = lane[flip], a[flip], s_lo[flip], lo[flip], hi[flip]

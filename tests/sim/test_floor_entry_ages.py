@@ -21,7 +21,7 @@ import math
 import numpy as np
 import pandas as pd
 import pytest
-from scipy import integrate, stats
+from scipy import integrate, optimize, stats
 
 from sim.engine import simulate, simulate_draws, simulate_range
 from sim.hazards import (KERNEL_ERRSTATE, AtLeastHazard, EntryAgeFloor, Exponential, Gompertz, LogNormal,
@@ -102,6 +102,25 @@ def test_written_out_hazards_match_scipy_stats():
 REF = {id(BG): gompertz_ref, id(LIFE_TABLE): table_ref, id(FIT): fit_ref}
 
 
+def breaks(f, g, a: float, lo: float, hi: float) -> list[float]:
+    """Break points for quad on (lo, hi) of max(f(u), g(a + u)): the life table's band edges and where
+    the two hazards cross (sign changes on a 0.01-year grid, each located by scipy.optimize.brentq). A
+    kink left undeclared can cost quad 1e-8 relative while its error estimate says 1e-14."""
+    grid = np.linspace(lo, hi, max(2, int(math.ceil((hi - lo) * 100)) + 1))[1:-1]
+    if grid.size < 2:
+        return []
+    d = np.array([f(u) - g(a + u) for u in grid])
+    found = [optimize.brentq(lambda u: f(u) - g(a + u), grid[i], grid[i + 1], xtol=1e-14)
+             for i in np.flatnonzero(np.sign(d[:-1]) != np.sign(d[1:]))]
+    if g is table_ref:
+        found += [b - a for b in BANDS if lo < b - a < hi]
+    out: list[float] = []
+    for p in sorted(found):  # a crossing at a band edge is found twice: keep one
+        if lo + 1e-9 < p < hi - 1e-9 and (not out or p - out[-1] > 1e-9):
+            out.append(p)
+    return out
+
+
 def alive_by_quad(a: float, t: float, background=BG) -> float:
     """Share alive at t of patients entering at age a: exp(-∫_0^t max(h_fit(u), h_bg(a + u)) + h_bg(a + u) du)
     by scipy quad, in w = u^0.6 (du = w^(2/3) dw / 0.6), where the Weibull fit's u^-0.4 is bounded."""
@@ -111,9 +130,8 @@ def alive_by_quad(a: float, t: float, background=BG) -> float:
         u = w ** (1.0 / 0.6)
         return (max(fit_ref(u), g(a + u)) + g(a + u)) * w ** (2.0 / 3.0) / 0.6
 
-    # band edges inside (0, t), as break points (not within 1e-9 years of an end: no break needed there)
-    jumps = [(b - a) ** 0.6 for b in BANDS if 1e-9 < b - a < t - 1e-9] if background is LIFE_TABLE else None
-    inner, _ = integrate.quad(rate, 0.0, t ** 0.6, points=jumps, limit=400, epsabs=1e-12, epsrel=1e-10)
+    points = [p ** 0.6 for p in breaks(fit_ref, g, a, 0.0, t)] or None
+    inner, _ = integrate.quad(rate, 0.0, t ** 0.6, points=points, limit=400, epsabs=1e-12, epsrel=1e-10)
     return math.exp(-inner)
 
 
@@ -176,26 +194,30 @@ def test_patient_times_solve_the_cumulative_hazard(fit, background):
         t = h._conditional_time_at_entry(x, e, a)
     assert np.all(np.isfinite(t)) and np.all(t > 0)
     for ai, xi, ei, ti in zip(a, x, e, t):
-        jumps = [b - ai for b in BANDS if xi < b - ai < xi + ti] if background is LIFE_TABLE else None
-        got, _ = integrate.quad(lambda u: max(f_ref(u), g_ref(ai + u)), xi, xi + ti, points=jumps, limit=400,
-                                epsabs=1e-13, epsrel=1e-12)
-        # 1e-7: quad's own accuracy is 1e-12; what remains is a change of side confined to one search
-        # cell at a band edge, which the per-patient search may miss (docs/methods.md)
-        assert got == pytest.approx(ei, rel=1e-7)
+        got, _ = integrate.quad(lambda u: max(f_ref(u), g_ref(ai + u)), xi, xi + ti, limit=400,
+                                points=breaks(f_ref, g_ref, ai, xi, xi + ti) or None, epsabs=1e-13, epsrel=1e-12)
+        assert got == pytest.approx(ei, rel=1e-9)  # quad to 1e-12; crossings located to 1e-10 years
 
 
-def test_one_entry_age_per_patient_path_matches_the_shifted_clock_hazard():
-    """With every patient at one entry age the continuous-distribution sampler gives the times of
-    AtLeastHazard(fit, ShiftedClock(bg, a)), the fixed-entry-age path, to 1e-12 relative."""
-    h = EntryAgeFloor(FIT, BG, FOLLOW, LOW, HIGH)
+@pytest.mark.parametrize("fit, background", [(FIT, BG), (LogNormal(1.0, 0.6), LIFE_TABLE)],
+                         ids=["weibull-gompertz", "lognormal-lifetable"])
+def test_per_patient_path_matches_the_shifted_clock_hazard_of_each_entry_age(fit, background):
+    """The continuous-distribution sampler gives each patient the times of AtLeastHazard(fit,
+    ShiftedClock(bg, a)) of its own entry age a (the fixed-entry-age path), at one age for everyone
+    and at ages that differ: to 1e-9 relative (each crossing is located to 1e-10 years from its own
+    bracket; with the life table this needs the band edges as nodes: a sliver where the table jumps
+    above the rising log-normal and the fit overtakes it within one grid cell)."""
+    h = EntryAgeFloor(fit, background, FOLLOW, LOW, HIGH)
     rng = np.random.default_rng(7)
-    e = rng.exponential(size=2000)
-    x = np.where(rng.random(2000) < 0.5, 0.0, rng.uniform(0.0, 25.0, 2000))
-    for a in (LOW, 63.3, HIGH):
+    n = 1500
+    e = rng.exponential(size=n)
+    x = np.where(rng.random(n) < 0.5, 0.0, rng.uniform(0.0, 25.0, n))
+    for ages in (np.full(n, LOW), np.full(n, 63.3), np.full(n, HIGH), rng.uniform(LOW, HIGH, n)):
         with np.errstate(**KERNEL_ERRSTATE):
-            got = h._conditional_time_at_entry(x, e, np.full(x.size, a))
-            want = AtLeastHazard(FIT, ShiftedClock(BG, a), FOLLOW)._conditional_time(x, e)
-        np.testing.assert_allclose(got, want, rtol=1e-12)
+            got = h._conditional_time_at_entry(x, e, ages)
+            want = np.array([AtLeastHazard(fit, ShiftedClock(background, a), FOLLOW)._conditional_time(
+                np.array([xi]), np.array([ei]))[0] for a, xi, ei in zip(ages[:300], x, e)])
+        np.testing.assert_allclose(got[:300], want, rtol=1e-9)
 
 
 # ------------------------------------------------------------------------------------- bit identity
