@@ -44,7 +44,7 @@ from sim.distributed import run_jobs  # noqa: E402
 from sim.distributed.cluster import local_cluster  # noqa: E402
 from sim.psa import (block_draws_for, exact_per_draw, model_for_draw, models_for_draws, psa_jobs,  # noqa: E402
                      simulated_per_draw, simulated_vectorised, uncertain_parameters)
-from sim.psa.patient_values import Valuations, block_outcomes  # noqa: E402
+from sim.psa.patient_values import Valuations, Workspace, block_outcomes  # noqa: E402
 from sim.uncertainty import draw_table  # noqa: E402
 
 DEMO = ROOT / "scenarios" / "quorrel_psa.toml"
@@ -82,9 +82,10 @@ def inner_loop(draws: int, patients: int, rounds: int) -> None:
         for s in model.strategy_names:
             block_outcomes(model, s, ev, pt, 0, total, Valuations.of([model], s))
 
-    def vectorised():
+    def vectorised():  # as sim.psa.run_inline: one workspace for the run's blocks
+        ws = Workspace()
         for a in range(0, draws, block):
-            simulated_vectorised(models[a:a + block], values.index[a:a + block], patients, 1)
+            simulated_vectorised(models[a:a + block], values.index[a:a + block], patients, 1, workspace=ws)
 
     sample = max(1, draws // 20)
 

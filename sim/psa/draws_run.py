@@ -58,8 +58,8 @@ def _rows(models: Sequence[Model], draws: np.ndarray, events: pd.DataFrame, pati
     means = []
     comparator = None  # the first strategy's per-patient outcomes: the paired MCSE of the others' increments
     rows = block_rows(events, patients, first)  # the engine's tables read once for every strategy
-    for s in strategies:
-        values = strategy_outcomes(models[0], rows[s], n, Valuations.of(list(models), s), ws)
+    for k, s in enumerate(strategies):
+        values = strategy_outcomes(models[0], rows[s], n, Valuations.of(list(models), s), ws, keep=f"outcomes{k}")
         comparator = values if comparator is None else comparator
         means.append(draw_means(values, n, comparator, ws))
     k = len(strategies)
@@ -71,13 +71,14 @@ def _rows(models: Sequence[Model], draws: np.ndarray, events: pd.DataFrame, pati
 
 
 def simulated_per_draw(models: Sequence[Model], draws: Sequence[int], patients: int, seed: int,
-                       strategies: tuple[str, ...] | None = None) -> pd.DataFrame:
+                       strategies: tuple[str, ...] | None = None,
+                       workspace: Workspace | None = None) -> pd.DataFrame:
     """Simulated outcomes per draw and strategy (rows of the per-draw table, method ``"simulated"``),
     one engine call per draw."""
     names = tuple(strategies or models[0].strategy_names)
     n = int(patients)
     parts = []
-    ws = Workspace()
+    ws = Workspace() if workspace is None else workspace
     for model, d in zip(models, draws):
         first = int(d) * n
         events, pts = simulate_range(model, seed, first, first + n, strategies=names)
@@ -96,13 +97,17 @@ def consecutive_runs(draws: Sequence[int]) -> list[tuple[int, int]]:
 
 
 def simulated_vectorised(models: Sequence[Model], draws: Sequence[int], patients: int, seed: int,
-                         strategies: tuple[str, ...] | None = None) -> pd.DataFrame:
-    """As :func:`simulated_per_draw` with one engine call per run of consecutive draws."""
+                         strategies: tuple[str, ...] | None = None,
+                         workspace: Workspace | None = None) -> pd.DataFrame:
+    """As :func:`simulated_per_draw` with one engine call per run of consecutive draws.
+
+    ``workspace`` (both paths): scratch arrays to reuse, e.g. across the blocks of an inline run
+    (:class:`sim.psa.patient_values.Workspace`; results do not depend on it)."""
     names = tuple(strategies or models[0].strategy_names)
     n = int(patients)
     d_all = np.asarray(draws, dtype=np.int64)
     parts = []
-    ws = Workspace()
+    ws = Workspace() if workspace is None else workspace
     for a, b in consecutive_runs(d_all):
         block = list(models[a:b])
         first = int(d_all[a]) * n

@@ -56,11 +56,20 @@ class Valuations:
 
     @classmethod
     def of(cls, models: list[Model], strategy: str) -> "Valuations":
-        pairs = [m.state_values(strategy) for m in models]
-        return cls(utility=np.array([u for u, _ in pairs]), state_cost=np.array([c for _, c in pairs]),
-                   exit_cost=np.array([m.exit_costs(strategy) for m in models]),
-                   discount_effects=np.array([m.valuation.discount_effects for m in models], dtype=float),
-                   discount_costs=np.array([m.valuation.discount_costs for m in models], dtype=float))
+        """The rows of :meth:`sim.model.Model.state_values` and :meth:`~sim.model.Model.exit_costs`
+        of each draw's model (the same sums, in the same order: the valuation's value, plus the
+        strategy's), read from the draws' valuations and strategies in one pass: the models of a
+        block share their states and exits (as :func:`sim.engine.simulate_draws` requires)."""
+        states, exits = models[0].state_names, models[0].exit_names
+        vals = [m.valuation for m in models]
+        plans = [m.strategy(strategy) for m in models]
+        return cls(utility=np.array([[v.utilities.get(s, 0.0) for s in states] for v in vals], dtype=float),
+                   state_cost=np.array([[v.state_costs.get(s, 0.0) + p.state_costs.get(s, 0.0) for s in states]
+                                        for v, p in zip(vals, plans)], dtype=float),
+                   exit_cost=np.array([[v.transition_costs.get(e, 0.0) + p.transition_costs.get(e, 0.0) for e in exits]
+                                       for v, p in zip(vals, plans)], dtype=float).reshape(len(models), len(exits)),
+                   discount_effects=np.array([v.discount_effects for v in vals], dtype=float),
+                   discount_costs=np.array([v.discount_costs for v in vals], dtype=float))
 
 
 @dataclass(frozen=True)
@@ -234,7 +243,7 @@ class _Sojourns:
 
 
 def strategy_outcomes(model: Model, rows: StrategyRows, n_per_draw: int, values: Valuations,
-                      workspace: Workspace | None = None) -> dict[str, NDArray[np.float64]]:
+                      workspace: Workspace | None = None, keep: str | None = None) -> dict[str, NDArray[np.float64]]:
     """Each patient's outcomes (:data:`sim.analysis.OUTCOMES`) under one strategy, in patient order.
 
     Parameters
@@ -244,6 +253,8 @@ def strategy_outcomes(model: Model, rows: StrategyRows, n_per_draw: int, values:
         block's first patient) belongs to draw ``p // n_per_draw`` of the block.
     values : the block's per-draw valuation of the strategy.
     workspace : scratch arrays to reuse (e.g. one for every strategy of a block); a new one by default.
+    keep : the outcomes are written into the workspace's buffer of this name (valid until the next
+        use of the name); by default into new arrays.
     """
     n, n_states = rows.n, len(model.states)
     ws = Workspace() if workspace is None else workspace
@@ -277,10 +288,13 @@ def strategy_outcomes(model: Model, rows: StrategyRows, n_per_draw: int, values:
     n_draws = -(-n // n_per_draw)
     shape = (n_draws, n_per_draw) if n_draws * n_per_draw == n else (1, n)
     scratch = ws.take("scratch", n).reshape(shape)
+    results = np.zeros((len(OUTCOMES), n)) if keep is None else ws.take(keep, len(OUTCOMES) * n).reshape(-1, n)
+    slots = iter(results)
 
     def weighted(t: NDArray, w: NDArray | None, extra: NDArray | None = None) -> NDArray:
         # explicit sum over states in a fixed order from +0.0: the same bits for any number of rows
-        out = np.zeros(n)
+        out = next(slots)
+        out.fill(0.0)
         view = out.reshape(shape)
         for j in (alive if w is None else range(n_states)):
             if w is None:

@@ -111,6 +111,19 @@ def _block(variant: str, first_draw: int = 0, draws: int = DRAWS):
     return models, events, patients
 
 
+@pytest.mark.parametrize("variant", ["fixture", "per-draw rates", "per-draw one-off costs"])
+def test_valuations_are_the_models_own_values(variant):
+    # rows of Model.state_values / Model.exit_costs (valuation plus strategy), read in one pass
+    models = _models(variant)
+    for s in models[0].strategy_names:
+        v = Valuations.of(models, s)
+        pairs = [m.state_values(s) for m in models]
+        assert np.array_equal(v.utility, [u for u, _ in pairs]) and np.array_equal(v.state_cost, [c for _, c in pairs])
+        assert np.array_equal(v.exit_cost, [m.exit_costs(s) for m in models])
+        assert np.array_equal(v.discount_costs, [m.valuation.discount_costs for m in models])
+        assert np.array_equal(v.discount_effects, [m.valuation.discount_effects for m in models])
+
+
 @pytest.mark.parametrize("variant", VARIANTS)
 def test_per_patient_outcomes_match_a_pandas_group_by(variant):
     models, events, patients = _block(variant)
@@ -168,6 +181,9 @@ def test_same_bits_whatever_the_block_and_the_workspace(variant):
     # block first, then smaller ones: views of its buffers) and with fresh workspaces
     whole_models, whole_ev, whole_pt = _block(variant)
     ws = Workspace()
+    kept = strategy_outcomes(whole_models[0], block_rows(whole_ev, whole_pt, 0)[whole_models[0].strategy_names[0]], N,
+                             Valuations.of(whole_models, whole_models[0].strategy_names[0]), ws, keep="outcomes")
+    assert all(kept[o].base is not None for o in OUTCOMES)  # views of the workspace's buffer
     for s in whole_models[0].strategy_names:
         rows = block_rows(whole_ev, whole_pt, 0)
         whole = strategy_outcomes(whole_models[0], rows[s], N, Valuations.of(whole_models, s), ws)
@@ -182,6 +198,8 @@ def test_same_bits_whatever_the_block_and_the_workspace(variant):
             parts.append(reused)
         for o in OUTCOMES:
             assert np.concatenate([p[o] for p in parts]).tobytes() == whole[o].tobytes(), (s, o)
+        if s == whole_models[0].strategy_names[0]:  # the outcomes kept in the workspace: the same bits
+            assert all(kept[o].tobytes() == whole[o].tobytes() for o in OUTCOMES)
 
 
 @pytest.mark.parametrize("patients, draws, workers", [
