@@ -10,8 +10,8 @@ is the same bits whichever lanes share the call.
 
 :func:`invert_and_polish` is the smooth families' conditional time (log-normal, gamma): the inverse
 cumulative hazard, polished by Newton iterations on the increment of ``H`` where it loses relative
-accuracy (Crowther & Lambert 2013, Stat Med 32(23):4118-4134), the same steps as
-``Hazard._conditional_time`` with the parameters carried along with the lanes.
+accuracy (Crowther & Lambert 2013, Stat Med 32(23):4118-4134), with the parameters carried along
+with the lanes; ``Hazard._conditional_time`` runs it on the hazard itself (:class:`WholeHazard`).
 """
 
 from __future__ import annotations
@@ -21,8 +21,7 @@ from typing import Any, ClassVar, TypeVar
 import numpy as np
 from numpy.typing import NDArray
 
-from ._numerics import _GL_NODES, _GL_WEIGHTS, FloatArray
-from .base import _EPS, _TINY
+from ._numerics import _EPS, _GL_NODES, _GL_WEIGHTS, _TINY, FloatArray
 
 L = TypeVar("L", bound="Lanes")
 
@@ -62,6 +61,28 @@ class Lanes:
 
     def _inv_cumhazard(self, y: FloatArray) -> FloatArray:
         raise NotImplementedError
+
+
+class WholeHazard(Lanes):
+    """One hazard seen as lanes that all share its parameters (the default conditional time of
+    :class:`~sim.hazards.base.Hazard` runs :func:`invert_and_polish` on it)."""
+
+    _fields = ("hazard",)
+
+    def take(self, mask: NDArray[np.bool_]) -> "WholeHazard":
+        return self
+
+    def column(self) -> "WholeHazard":
+        return self
+
+    def _hazard(self, t: FloatArray) -> FloatArray:
+        return self.hazard._hazard(t)
+
+    def _cumhazard(self, t: FloatArray) -> FloatArray:
+        return self.hazard._cumhazard(t)
+
+    def _inv_cumhazard(self, y: FloatArray) -> FloatArray:
+        return self.hazard._inv_cumhazard(y)
 
 
 def invert_and_polish(k: Lanes, x: FloatArray, e: FloatArray) -> FloatArray:

@@ -3,7 +3,8 @@
 Each helper is vectorised and raises no floating-point warning for valid input; each is free of
 the overflow or cancellation its naive form would suffer (``log(1 + exp(v))`` for large ``v``,
 ``log1p(v) / v`` near 0, ``log(expm1(y))`` for large ``y``). Also the 12-point Gauss-Legendre
-rule on [0, 1] with which the base class integrates the hazard over short intervals.
+rule on [0, 1] with which the conditional time integrates the hazard over short intervals
+(:mod:`._lane_kernels`), and the double-precision epsilon and smallest positive double.
 """
 
 from __future__ import annotations
@@ -15,6 +16,9 @@ from numpy.typing import ArrayLike, NDArray
 from scipy import special as sc
 
 FloatArray = NDArray[np.float64]
+
+_EPS = float(np.finfo(np.float64).eps)
+_TINY = 2.0 ** -1074  # the smallest positive double
 
 
 def _softplus(v: FloatArray) -> FloatArray:

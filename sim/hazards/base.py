@@ -50,7 +50,8 @@ import numpy as np
 from numpy.typing import ArrayLike
 
 from ..problems import NO_VALUE, KeyPath, Problem, ValidationError, format_key
-from ._numerics import _GL_NODES, _GL_WEIGHTS, FloatArray, _out
+from ._lane_kernels import WholeHazard, invert_and_polish
+from ._numerics import FloatArray, _out
 from .dimensions import Dimension
 
 __all__ = ["KERNEL_ERRSTATE", "Hazard", "HazardParameterError"]
@@ -137,8 +138,6 @@ def _nonnegative(method: str, name: str, a: ArrayLike, *, finite: bool = False) 
 # Base class
 # --------------------------------------------------------------------------------------------
 
-_EPS = float(np.finfo(np.float64).eps)
-_TINY = 2.0 ** -1074  # the smallest positive double
 
 KERNEL_ERRSTATE = {"divide": "ignore", "over": "ignore", "under": "ignore"}
 """``np.errstate`` settings under which the public methods run the private kernels."""
@@ -271,27 +270,11 @@ class Hazard(abc.ABC):
     def _inv_cumhazard(self, y: FloatArray) -> FloatArray: ...
 
     def _conditional_time(self, x: FloatArray, e: FloatArray) -> FloatArray:
-        """Default for smooth families with ``h > 0`` on ``(0, inf)``: invert, then polish.
-
-        ``T0 = H^{-1}(H(x) + e) - x`` is accurate in absolute terms. Where that loses relative
-        accuracy (``T0`` or ``e`` small next to ``x`` or ``H(x)``) it is polished by Newton
-        iterations on ``int_x^{x+T} h(s) ds = e``, the integral by 12-point Gauss-Legendre, which
-        involves no cancellation (numerical integration and root finding as in Crowther & Lambert
-        2013).
-        """
-        hx = self._cumhazard(x)
-        t = self._inv_cumhazard(hx + e) - x
-        t = np.where(e > 0.0, np.maximum(t, 0.0), 0.0)
-        refine = (e > 0.0) & (t <= x) & ((t < 1e-3 * x) | (e < 1e-3 * hx))
-        lost = (hx == np.inf) & (e > 0.0) & (e < np.inf) & (x < np.inf)  # H(x) overflowed at a finite x
-        if np.any(lost):  # the hazard there is huge: start from the first-order time, never +inf
-            with np.errstate(invalid="ignore"):
-                t = np.where(lost, np.nan_to_num(e / self._hazard(x), nan=0.0), t)
-            refine = refine | lost
-        if np.any(refine):
-            t = np.array(t, dtype=np.float64)
-            t[refine] = self._polish(x[refine], e[refine], t[refine])
-        return t
+        """Default for smooth families with ``h > 0`` on ``(0, inf)``: invert, then polish
+        (:func:`~sim.hazards._lane_kernels.invert_and_polish`: ``T0 = H^{-1}(H(x) + e) - x``, then
+        Newton on ``int_x^{x+T} h(s) ds = e`` by Gauss-Legendre where ``T0`` loses relative
+        accuracy; Crowther & Lambert 2013)."""
+        return invert_and_polish(WholeHazard(self), x, e)
 
     def _conditional_time_large_ratio(self, x: FloatArray, e: FloatArray, hr: float) -> FloatArray | None:
         """Conditional time under the cumulative hazard ``hr * H`` for 1-D lanes where ``e / hr``
@@ -313,38 +296,3 @@ class Hazard(abc.ABC):
     def _log_hazard_lt(self, lt: FloatArray) -> FloatArray:
         """:math:`\\log h` at :math:`t = e^{lt}`, for families with :attr:`_log_forms`."""
         raise NotImplementedError
-
-    def _increment(self, x: FloatArray, t: FloatArray) -> FloatArray:
-        """H(x + t) - H(x) by Gauss-Legendre quadrature of h (for short intervals, t <= x)."""
-        s = x[:, None] + t[:, None] * _GL_NODES
-        # an elementwise product and a row sum, not a matrix-vector product: BLAS may round a lane
-        # differently depending on how many lanes share the call (bit-identity across chunkings)
-        return t * (self._hazard(s) * _GL_WEIGHTS).sum(axis=1)
-
-    def _polish(self, x: FloatArray, e: FloatArray, t0: FloatArray) -> FloatArray:
-        """Newton on ``increment(x, T) = e`` from ``t0`` (1-D arrays); keeps ``t0`` where it fails
-        (a non-finite or negative iterate, no convergence within 30 steps, or a result whose
-        ``H(x + T) - H(x)`` misses ``e`` by more than the rounding of ``H``: a hazard so steep over
-        ``[x, x + T]``, e.g. a log-normal with a tiny sigma, that the quadrature cannot follow)."""
-        first = e / self._hazard(x)  # first-order solution
-        t = np.where((t0 > 0.5 * first) & (t0 < 2.0 * first), t0, first)
-        # Each lane stops on its own: its iterations (hence its bits) never depend on which other
-        # lanes share the call, so results are the same for any chunking.
-        done = np.zeros(t.shape, dtype=bool)
-        for _ in range(30):
-            with np.errstate(invalid="ignore"):
-                step = (self._increment(x, t) - e) / self._hazard(x + t)
-                new = np.clip(t - step, 0.5 * t, 2.0 * t)
-            converged = ~(np.abs(step) > 1e-10 * t)  # quadratic convergence: the next iterate is final
-            t = np.where(~done & np.isfinite(new), new, t)
-            done |= converged
-            if np.all(done):
-                break
-        good = np.isfinite(t) & (t >= 0.0) & done
-        if np.any(good):  # the cumulative hazard must agree too, within its own rounding
-            with np.errstate(invalid="ignore"):  # inf - inf where H overflowed: not agreed
-                end = x + t
-                h_end = self._cumhazard(end)
-                slack = 16.0 * _EPS * (h_end + self._hazard(end) * end) + _TINY * self._hazard(end)
-                good &= (np.abs((h_end - self._cumhazard(x)) - e) <= slack) & (slack < np.inf)
-        return np.where(good, t, t0)
