@@ -1,5 +1,5 @@
 """A plain run on Dask (sim.distributed.run): the partitioned event log is the local run's bit for
-bit, the summary equals the local run's to rounding, a cancel or an unreachable scheduler leaves
+bit, the summary and increments equal the local run's bit for bit (exact sums, sim.analysis.exact_sums), a cancel or an unreachable scheduler leaves
 nothing behind. Cluster: two worker processes on the loopback interface, started here and closed."""
 
 from __future__ import annotations
@@ -73,17 +73,17 @@ def test_summary_and_increments_equal_the_local_run(runs):
         assert list(got["strategy"]) == list(local.outcomes["strategy"])
         assert list(got["outcome"]) == list(local.outcomes["outcome"])
         assert (got["n"] == local.outcomes["n"]).all()
-        # merged partial sums (Chan, Golub & LeVeque 1983) vs the whole sample: equal up to rounding
-        np.testing.assert_allclose(got["mean"], local.outcomes["mean"], rtol=1e-12, atol=1e-12)
-        np.testing.assert_allclose(got["mcse"], local.outcomes["mcse"], rtol=1e-9)
+        # exact sums merged in partition order vs the whole sample: the same bits
+        np.testing.assert_array_equal(got["mean"], local.outcomes["mean"])
+        np.testing.assert_array_equal(got["mcse"], local.outcomes["mcse"])
     # numpy on the per-patient outcomes of the kept log, outside the project's formulas
     per = local.per_patient
     for (strategy, outcome), row in on_dask.outcomes.set_index(["strategy", "outcome"]).iterrows():
         x = per.loc[per["strategy"] == strategy, outcome].to_numpy()
         assert row["mean"] == pytest.approx(np.mean(x), rel=1e-12, abs=1e-12)
         assert row["mcse"] == pytest.approx(np.std(x, ddof=1) / np.sqrt(x.size), rel=1e-9, abs=1e-15)
-    np.testing.assert_allclose(on_dask.increments["value"], local.increments["value"], rtol=1e-10)
-    np.testing.assert_allclose(on_dask.increments["mcse"], local.increments["mcse"], rtol=1e-8)
+    np.testing.assert_array_equal(on_dask.increments["value"], local.increments["value"])
+    np.testing.assert_array_equal(on_dask.increments["mcse"], local.increments["mcse"])
     assert on_dask.n_events == len(local.simulation.events)
     meta = json.loads((folder / "metadata.json").read_text())
     assert meta["format"] == PARTITIONED_FORMAT and meta["chunk_size"] == CHUNK and meta["chunks"] == 3
