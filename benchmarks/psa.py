@@ -125,6 +125,16 @@ def inner_loop(draws: int, patients: int, rounds: int) -> None:
     print(f"   per-draw path / vectorised path:         {t['PSA per draw (sample)'] / t['PSA vectorised']:.1f}x slower")
 
 
+def _machine_busy() -> float:
+    """CPU seconds the whole machine has been busy (all cores, /proc/stat; 0 where unavailable)."""
+    try:
+        with open("/proc/stat", encoding="ascii") as f:
+            ticks = [int(x) for x in f.readline().split()[1:]]
+    except OSError:
+        return 0.0
+    return (sum(ticks) - ticks[3] - ticks[4]) / os.sysconf("SC_CLK_TCK")  # less idle and iowait
+
+
 def _worker_cpu(client) -> float:
     """CPU seconds used so far by the cluster's worker processes (or this process, for threads)."""
     return sum(client.run(time.process_time).values())
@@ -150,20 +160,24 @@ def cluster_scaling(draws: int, patients: int, rounds: int) -> None:
         clients[n, processes] = Client(clusters[n, processes])
     wall: dict[tuple, list[float]] = {k: [] for k in kinds}
     cpu: dict[tuple, list[float]] = {k: [] for k in kinds}
+    others: dict[tuple, list[float]] = {k: [] for k in kinds}  # share of the machine other processes used
     load = []
+    cores = os.cpu_count() or 1
     try:
         for r in range(rounds + 1):  # round 0 warms the workers up (imports), not counted
             order = kinds if r % 2 == 0 else kinds[::-1]
             for key in order:
                 load.append(os.getloadavg()[0])
-                c0 = _worker_cpu(clients[key]) if key[1] else time.process_time()
-                t0 = time.perf_counter()
+                c0 = _worker_cpu(clients[key]) if key[1] else 0.0
+                p0, b0, t0 = time.process_time(), _machine_busy(), time.perf_counter()
                 run_jobs(jobs, scheduler=clusters[key].scheduler_address)
                 w = time.perf_counter() - t0
-                used = (_worker_cpu(clients[key]) if key[1] else time.process_time()) - c0
+                busy, mine = _machine_busy() - b0, time.process_time() - p0
+                used = (_worker_cpu(clients[key]) - c0) if key[1] else mine
                 if r:
                     wall[key].append(w)
                     cpu[key].append(used)
+                    others[key].append(max(0.0, busy - used - (mine if key[1] else 0.0)) / (w * cores))
     finally:
         for key in kinds:
             clients[key].close()
@@ -174,8 +188,14 @@ def cluster_scaling(draws: int, patients: int, rounds: int) -> None:
               f"(cluster start-up {start[n, processes]:.1f} s, not included)")
     one, two = wall[1, True], wall[2, True]
     print(f"   2 worker threads vs 1 worker process: {min(one) / min(wall[2, False]):.2f}x")
+    share = [max(a, b) for a, b in zip(others[1, True], others[2, True])]
     print(f"   speed-up 2 vs 1: {min(one) / min(two):.2f}x (per round {', '.join(f'{a / b:.2f}' for a, b in zip(one, two))}; "
           f"load average {min(load):.1f}-{max(load):.1f})")
+    print(f"   other processes' share of the machine during the round's two runs (the larger): "
+          f"{', '.join(f'{x:.0%}' for x in share)}")
+    quiet = [a / b for a, b, x in zip(one, two, share) if x < 0.10]
+    print(f"   speed-up 2 vs 1 in the rounds where others used < 10%: "
+          f"{', '.join(f'{q:.2f}x' for q in quiet) if quiet else 'none (the machine was never quiet enough)'}")
     print(f"   CPU time in the workers, 2 vs 1: {min(cpu[2, True]) / min(cpu[1, True]):.2f}x (1.00: no work added by "
           f"splitting; the speed-up a quiet machine would give is about 2 / this figure, less the last block's wait)")
 
@@ -217,12 +237,14 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true", help="small sizes: proves the script runs")
     parser.add_argument("--sections", default="123", help="which sections to run, e.g. 2 (default: 123)")
+    parser.add_argument("--rounds", type=int, default=None, help="rounds of every section run (default: its own)")
     args = parser.parse_args()
     runs = {"1": (inner_loop, (40, 100, 1), (1000, 1000, 3)), "2": (cluster_scaling, (16, 100, 1), (1000, 1000, 3)),
             "3": (exact_analysis, (50, 1), (1000, 3))}
     for key, (fn, quick, full) in runs.items():
         if key in args.sections:
-            fn(*(quick if args.quick else full))
+            sizes = quick if args.quick else full
+            fn(*(sizes[:-1] + ((args.rounds,) if args.rounds else sizes[-1:])))
 
 
 if __name__ == "__main__":
