@@ -8,6 +8,7 @@ in pyproject.toml); Dask is imported inside the functions, so importing the pack
 from __future__ import annotations
 
 import logging
+import os
 import time
 from collections.abc import Callable, Iterator, Sequence
 from typing import Any
@@ -72,9 +73,21 @@ def local_cluster(workers: int, processes: bool = True):
 
     where = {"host": "127.0.0.1"} if processes else {}
     environ = {f"distributed.nanny.pre-spawn-environ.{k}": v for k, v in WORKER_MALLOC_ENV.items()}
-    with dask.config.set(environ):
-        return LocalCluster(n_workers=workers, threads_per_worker=1, processes=processes, dashboard_address=None,
-                            worker_dashboard_address=None, silence_logs=logging.ERROR, **where)
+    # Dask lets this process's environment override the configuration, and its nannies write their
+    # settings into it when they spawn (so an earlier cluster's 65536 would win): set ours for the
+    # start-up, then put back what was there
+    before = {k: os.environ.get(k) for k in WORKER_MALLOC_ENV}
+    try:
+        os.environ.update(WORKER_MALLOC_ENV)
+        with dask.config.set(environ):
+            return LocalCluster(n_workers=workers, threads_per_worker=1, processes=processes, dashboard_address=None,
+                                worker_dashboard_address=None, silence_logs=logging.ERROR, **where)
+    finally:
+        for k, v in before.items():
+            if v is None:
+                os.environ.pop(k, None)
+            else:
+                os.environ[k] = v
 
 
 def completed(futures: Sequence[Any], cancel: CancelToken | Callable[[], bool] | None = None,

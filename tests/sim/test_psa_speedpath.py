@@ -229,11 +229,14 @@ def test_a_block_run_with_its_source_apart_gives_the_same_rows():
         assert table_hash(apart.table) == table_hash(run_block(job).table)
 
 
-def test_local_worker_processes_get_the_allocator_settings():
+def test_local_worker_processes_get_the_allocator_settings(monkeypatch):
     from dask.distributed import Client
 
     from sim.distributed.cluster import WORKER_MALLOC_ENV, local_cluster
 
+    # as left in this process by an earlier cluster started with Dask's defaults (its nannies write
+    # their settings into the parent's environment, which Dask lets override the configuration)
+    monkeypatch.setenv("MALLOC_TRIM_THRESHOLD_", "65536")
     cluster = local_cluster(1, processes=True)
     try:
         with Client(cluster) as client:
@@ -241,3 +244,4 @@ def test_local_worker_processes_get_the_allocator_settings():
     finally:
         cluster.close()
     assert list(seen.values()) == [WORKER_MALLOC_ENV]
+    assert os.environ["MALLOC_TRIM_THRESHOLD_"] == "65536"  # this process's environment put back
