@@ -15,17 +15,19 @@ years with delta = ln(1 + d); a one-off transition cost at t is discounted by ex
 engine's tables are trusted (sorted by strategy, then patient, then time; checked by the engine's
 own tests), so none of the event-log validation of :mod:`sim.analysis` is repeated here.
 
-How it is kept cheap (the PSA's inner loop values 10^6 patients per strategy): the tables are read
-once per block for every strategy (:func:`block_rows`); each sojourn's discount factor at its start,
-exp(-delta t0), is the factor at the previous move, so exp is evaluated once per move and once per
-patient's exit and reused for the one-off costs at the moves; sojourn lengths go to per-patient,
-per-state cells with one ``np.bincount`` over the moves plus one scatter of each patient's last
-sojourn (the same additions, in the same order, as one ``bincount`` over every sojourn); draws are
-broadcast over a (draws, patients) view instead of repeated; zero one-off costs and a zero discount
-rate skip their arithmetic, and a rate shared by every draw stays one number. Every value is the
-result of the same IEEE operations on the same operands as the direct formulas above, so the
-outcomes are bit-identical to those of the straightforward evaluation (tested against it and
-against a pandas group-by and ``scipy.integrate.quad``).
+How it is kept cheap (the PSA's inner loop values 10^6 patients per strategy; benchmarks/RESULTS.md,
+issue 14): the tables are read once per block for every strategy (:func:`block_rows`); the sojourns
+(one ending at each move, then each patient's last one) are laid out in place in a
+:class:`Workspace` reused by the strategies and blocks, since fresh multi-megabyte arrays cost more
+in page faults than in arithmetic; each sojourn's start factor exp(-delta t0) is the factor at the
+previous move, so exp is evaluated once per move and reused for the one-off costs at the moves;
+per-state cells are summed with ``np.add.at`` (the additions of ``np.bincount``, in sojourn order);
+draws are broadcast over a (draws, patients) view instead of repeated; moves through exits without
+cost, multiplications by 1 and a zero discount rate skip their arithmetic, and a rate shared by
+every draw stays one number. Every value is the result of the same IEEE operations on the same
+operands, added in the same order, as the direct formulas above, so the outcomes are bit-identical
+to those of the straightforward evaluation (checked against it when written; tested against a
+pandas group-by and ``scipy.integrate.quad``).
 """
 
 from __future__ import annotations
