@@ -140,28 +140,19 @@ def _worker_cpu(client) -> float:
     return sum(client.run(time.process_time).values())
 
 
-def cluster_scaling(draws: int, patients: int, rounds: int) -> None:
+def _time_clusters(jobs, kinds, rounds, wall, cpu, others, start, load) -> None:
+    """Start the clusters ``kinds`` ((workers, processes) pairs), time ``rounds`` alternating runs of
+    ``jobs`` on each after a warm-up round, close them; figures go into the dicts by kind."""
     from dask.distributed import Client
 
-    logging.getLogger("distributed").setLevel(logging.ERROR)  # three clusters at once: keep their closing quiet
-    scenario = load_scenario(DEMO)
-    values = draw_table(uncertain_parameters(scenario), draws, scenario.run.seed)
-    jobs = psa_jobs(scenario, values, model_for_draw, patients, scenario.run.seed,
-                    block_draws=block_draws_for(patients, draws, 2), exact=False)
-    print(f"\n2. Dask LocalCluster (sim.distributed.cluster.local_cluster, as `hazardtrace psa`): {draws:,} draws x "
-          f"{patients:,} patients (simulated rows, parameter draws applied in the tasks), {len(jobs)} blocks of "
-          f"{len(jobs[0].values)} draws; rounds alternate between the clusters, all started before timing")
-    kinds = ((1, True), (2, True), (2, False))
-    clusters, clients, start = {}, {}, {}
+    clusters, clients = {}, {}
     for n, processes in kinds:
         t0 = time.perf_counter()
         clusters[n, processes] = local_cluster(n, processes)
         start[n, processes] = time.perf_counter() - t0
         clients[n, processes] = Client(clusters[n, processes])
-    wall: dict[tuple, list[float]] = {k: [] for k in kinds}
-    cpu: dict[tuple, list[float]] = {k: [] for k in kinds}
-    others: dict[tuple, list[float]] = {k: [] for k in kinds}  # share of the machine other processes used
-    load = []
+    for key in kinds:
+        wall[key], cpu[key], others[key] = [], [], []
     cores = os.cpu_count() or 1
     try:
         for r in range(rounds + 1):  # round 0 warms the workers up (imports), not counted
@@ -182,6 +173,27 @@ def cluster_scaling(draws: int, patients: int, rounds: int) -> None:
         for key in kinds:
             clients[key].close()
             clusters[key].close()
+
+
+def cluster_scaling(draws: int, patients: int, rounds: int) -> None:
+    logging.getLogger("distributed").setLevel(logging.ERROR)  # keep the clusters' closing quiet
+    scenario = load_scenario(DEMO)
+    values = draw_table(uncertain_parameters(scenario), draws, scenario.run.seed)
+    jobs = psa_jobs(scenario, values, model_for_draw, patients, scenario.run.seed,
+                    block_draws=block_draws_for(patients, draws, 2), exact=False)
+    print(f"\n2. Dask LocalCluster (sim.distributed.cluster.local_cluster, as `hazardtrace psa`): {draws:,} draws x "
+          f"{patients:,} patients (simulated rows, parameter draws applied in the tasks), {len(jobs)} blocks of "
+          f"{len(jobs[0].values)} draws; rounds alternate between the 1- and 2-process clusters, both started before timing and alone; the thread cluster after them")
+    wall: dict[tuple, list[float]] = {}
+    cpu: dict[tuple, list[float]] = {}
+    others: dict[tuple, list[float]] = {}  # share of the machine other processes used
+    start: dict[tuple, float] = {}
+    load: list[float] = []
+    # The process clusters alternate with only each other alive; the thread cluster (workers inside
+    # this process, whose threads would share the client's interpreter) is timed after they close.
+    for phase in (((1, True), (2, True)), ((2, False),)):
+        _time_clusters(jobs, phase, rounds, wall, cpu, others, start, load)
+    kinds = ((1, True), (2, True), (2, False))
     for n, processes in kinds:
         kind = "processes" if processes else "threads"
         print(f"   {n} worker {kind}: {min(wall[n, processes]):6.2f} s, CPU in the workers {min(cpu[n, processes]):6.2f} s "
