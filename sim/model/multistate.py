@@ -184,15 +184,13 @@ class Model:
     def state_values(self, strategy: str) -> tuple[np.ndarray, np.ndarray]:
         """Utility per year and cost per year in each state under ``strategy`` (arrays over states)."""
         st, val = self.strategy(strategy), self.valuation
-        utility = np.array([val.utilities.get(s, 0.0) for s in self.state_names])
-        cost = np.array([val.state_costs.get(s, 0.0) + st.state_costs.get(s, 0.0) for s in self.state_names])
-        return utility, cost
+        return (np.array(val.utility_row(self.state_names), dtype=float),
+                np.array(val.state_cost_row(self.state_names, st.state_costs), dtype=float))
 
     def exit_costs(self, strategy: str) -> np.ndarray:
         """One-off cost per occurrence of each exit, indexed like :attr:`exit_names`."""
         st, val = self.strategy(strategy), self.valuation
-        return np.array([val.transition_costs.get(e, 0.0) + st.transition_costs.get(e, 0.0)
-                         for e in self.exit_names])
+        return np.array(val.exit_cost_row(self.exit_names, st.transition_costs), dtype=float)
 
     @property
     def is_markov(self) -> bool:

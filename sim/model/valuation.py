@@ -11,7 +11,7 @@ evaluations manual, 2022) or 3%/year (Sanders et al. 2016, JAMA 316(10):1093-110
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Mapping
+from typing import Mapping, Sequence
 
 from .checks import Problems, number, number_map, string
 from .errors import ValuationError
@@ -72,3 +72,15 @@ class Valuation:
             object.__setattr__(self, name, rate)
         object.__setattr__(self, "willingness_to_pay", wtp)
         object.__setattr__(self, "currency", currency)
+
+    def utility_row(self, states: Sequence[str]) -> list[float]:
+        """QALY weight per year of each of ``states`` (0 where none is given)."""
+        return [self.utilities.get(s, 0.0) for s in states]
+
+    def state_cost_row(self, states: Sequence[str], added: Mapping[str, float]) -> list[float]:
+        """Cost per year of each of ``states``: the valuation's plus ``added`` (a strategy's own)."""
+        return [self.state_costs.get(s, 0.0) + added.get(s, 0.0) for s in states]
+
+    def exit_cost_row(self, exits: Sequence[str], added: Mapping[str, float]) -> list[float]:
+        """One-off cost of each of ``exits``: the valuation's plus ``added`` (a strategy's own)."""
+        return [self.transition_costs.get(e, 0.0) + added.get(e, 0.0) for e in exits]

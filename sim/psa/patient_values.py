@@ -59,17 +59,17 @@ class Valuations:
     @classmethod
     def of(cls, models: list[Model], strategy: str) -> "Valuations":
         """The rows of :meth:`sim.model.Model.state_values` and :meth:`~sim.model.Model.exit_costs`
-        of each draw's model (the same sums, in the same order: the valuation's value, plus the
-        strategy's), read from the draws' valuations and strategies in one pass: the models of a
-        block share their states and exits (as :func:`sim.engine.simulate_draws` requires)."""
+        of each draw's model (built by the same :meth:`sim.model.Valuation.state_cost_row` and its
+        siblings), read from the draws' valuations and strategies in one pass: the models of a block
+        share their states and exits (as :func:`sim.engine.simulate_draws` requires)."""
         states, exits = models[0].state_names, models[0].exit_names
         vals = [m.valuation for m in models]
         plans = [m.strategy(strategy) for m in models]
-        return cls(utility=np.array([[v.utilities.get(s, 0.0) for s in states] for v in vals], dtype=float),
-                   state_cost=np.array([[v.state_costs.get(s, 0.0) + p.state_costs.get(s, 0.0) for s in states]
-                                        for v, p in zip(vals, plans)], dtype=float),
-                   exit_cost=np.array([[v.transition_costs.get(e, 0.0) + p.transition_costs.get(e, 0.0) for e in exits]
-                                       for v, p in zip(vals, plans)], dtype=float).reshape(len(models), len(exits)),
+        return cls(utility=np.array([v.utility_row(states) for v in vals], dtype=float),
+                   state_cost=np.array([v.state_cost_row(states, p.state_costs) for v, p in zip(vals, plans)],
+                                       dtype=float),
+                   exit_cost=np.array([v.exit_cost_row(exits, p.transition_costs) for v, p in zip(vals, plans)],
+                                      dtype=float).reshape(len(models), len(exits)),
                    discount_effects=np.array([v.discount_effects for v in vals], dtype=float),
                    discount_costs=np.array([v.discount_costs for v in vals], dtype=float))
 
