@@ -13,18 +13,19 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from types import MappingProxyType
 from typing import ClassVar
 
 import numpy as np
 from scipy import special as sc
 
+from ._lane_kernels import Lanes, _sub
 from ._numerics import FloatArray, _log1prel, _log_expm1, _log_exprel, _softplus
 from .base import Hazard, _param
 from .dimensions import Dimension
 
-__all__ = ["Gompertz", "GompertzMakeham", "gompertz_times"]
+__all__ = ["Gompertz", "GompertzMakeham", "MakehamLanes", "gompertz_times"]
 
 
 def _gompertz_cumhazard(b: float, g: float, t: FloatArray) -> FloatArray:
@@ -44,56 +45,95 @@ def _gompertz_cumhazard(b: float, g: float, t: FloatArray) -> FloatArray:
 _TINY_NORMAL = float(np.finfo(np.float64).tiny)  # smallest normal double, 2.2e-308
 _BIG = float(np.finfo(np.float64).max)
 
+Num = FloatArray | float
 
-def _gompertz_time(log_b: FloatArray | float, g: float, e: FloatArray) -> FloatArray:
-    """Solve (B/g)(exp(g T) - 1) = e for T with B = exp(log_b): T = log1p(g e / B) / g.
 
-    Written as ``(e/B) * log1p(v)/v`` with ``v = g e / B`` when ``|v| <= 1`` and as
-    ``softplus(log v) / g`` when ``v > 1``; ``+inf`` when ``v <= -1`` (improper, g < 0).
-    Exact in the limit g -> 0 (gives e / B) and free of overflow for huge ``e / B``.
-    """
-    if g == 0.0:
-        with np.errstate(invalid="ignore"):  # 0 * inf where 1/B overflowed: replaced below
-            t = e * np.exp(-np.asarray(log_b, dtype=np.float64))
-        edge = ~np.isfinite(t) & (e < np.inf)  # 1/B overflowed (B subnormal): e/B in log space
-        if np.any(edge):
-            with np.errstate(invalid="ignore"):  # e = 0 lanes (0 * inf) are replaced here
-                t = np.where(edge, np.where(e > 0.0, np.exp(np.log(e) - log_b), 0.0), t)
-        return t
-    if g > 0.0:
-        # Short form T = log1p(v) / g with v = e g / B formed directly (one exp, one log1p instead
-        # of about six transcendental passes): as accurate as the forms below (relative error a few
-        # ulp, log1p being accurate for small v) wherever v and g / B are normal, finite numbers
-        # (a subnormal g / B, e.g. g = 5e-324, has lost digits even when v itself is normal).
-        with np.errstate(over="ignore", under="ignore", invalid="ignore"):
-            g_over_b = np.exp(math.log(g) - np.asarray(log_b, dtype=np.float64))
-            v = e * g_over_b
-        short = (v >= 1e-300) & (v < 1e300) & (g_over_b >= _TINY_NORMAL)
-        if v.size and np.all(short):
-            return np.log1p(v) / g
-        if np.any(short):  # lane by lane: a lane's form must not depend on the lanes sharing the call
-            long = _gompertz_time(log_b, g, np.where(short, np.inf, e))
-            with np.errstate(invalid="ignore"):  # NaN v in the long form's lanes, not used
-                return np.where(short, np.log1p(v) / g, long)
+def _log_abs(v: float) -> float:
+    """``log |v|`` by ``math.log`` (``-inf`` at 0): a slope's or a constant's log as the kernels take
+    it, computed once per hazard by the same scalar function whichever call the hazard joins."""
+    return math.log(abs(v)) if v != 0.0 else -math.inf
+
+
+def _flat_time(log_b: Num, g: Num, log_g: Num, e: FloatArray) -> FloatArray:
+    """``g = 0``: ``T = e / B``, in log space where ``1/B`` overflowed (``B`` subnormal)."""
+    with np.errstate(invalid="ignore"):  # 0 * inf where 1/B overflowed: replaced below
+        t = e * np.exp(-np.asarray(log_b, dtype=np.float64))
+    edge = ~np.isfinite(t) & (e < np.inf)
+    if np.any(edge):
+        with np.errstate(invalid="ignore"):  # e = 0 lanes (0 * inf) are replaced here
+            t = np.where(edge, np.where(e > 0.0, np.exp(np.log(e) - log_b), 0.0), t)
+    return t
+
+
+def _rising_time(log_b: Num, g: Num, log_g: Num, e: FloatArray) -> FloatArray:
+    """``g > 0``: the short form ``T = log1p(v) / g`` with ``v = e g / B`` formed directly (one exp,
+    one log1p instead of about six transcendental passes), as accurate as the log-space form (a few
+    ulp, log1p being accurate for small v) wherever ``v`` and ``g / B`` are normal, finite numbers (a
+    subnormal ``g / B``, e.g. ``g = 5e-324``, has lost digits even when ``v`` is normal); the
+    log-space form (:func:`_log_rising`) on the other lanes, chosen lane by lane."""
+    with np.errstate(over="ignore", under="ignore", invalid="ignore"):
+        g_over_b = np.exp(log_g - np.asarray(log_b, dtype=np.float64))
+        v = e * g_over_b
+    short = (v >= 1e-300) & (v < 1e300) & (g_over_b >= _TINY_NORMAL)
+    if v.size and np.all(short):
+        return np.log1p(v) / g
+    if not np.any(short):
+        return _log_rising(log_b, g, log_g, e)
+    long = _log_rising(log_b, g, log_g, np.where(short, np.inf, e))
+    with np.errstate(invalid="ignore"):  # NaN v in the long form's lanes, not used
+        return np.where(short, np.log1p(v) / g, long)
+
+
+def _log_rising(log_b: Num, g: Num, log_g: Num, e: FloatArray) -> FloatArray:
+    """``g > 0`` in log space: ``softplus(log v) / g`` for ``v > 1``, ``(e/B) log1p(v)/v`` else."""
     log_e = np.log(e)
-    # Lanes where log B is infinite (g x overflowed: B = inf for g > 0, B = 0 for g < 0) together
-    # with e = 0 or e = inf make inf - inf here; the wheres below give them T = 0 (e = 0) and
-    # T = inf (e = inf).
+    # Lanes where log B is infinite (g x overflowed: B = inf) together with e = 0 or e = inf make
+    # inf - inf here; the where below gives them T = 0 (e = 0) and T = inf (e = inf).
     with np.errstate(invalid="ignore"):
-        lv = math.log(abs(g)) + log_e - log_b  # log |v|
+        lv = log_g + log_e - log_b  # log |v|
         ratio = np.exp(log_e - log_b)  # e / B
-        if g > 0.0:
-            small = ratio * _log1prel(np.exp(np.minimum(lv, 0.0)))
-            t = np.where(lv > 0.0, _softplus(lv) / g, small)
-            edge = ~(t >= 0.0) | (e == np.inf)  # NaN (inf - inf) or an infinite draw
-            return np.where(edge, np.where(e > 0.0, np.where(e < np.inf, 0.0, np.inf), 0.0), t) \
-                if np.any(edge) else t
-        # g < 0: v in [-1, 0]; log1p(-1) = -inf gives +inf (never) exactly when |v| >= 1.
+        small = ratio * _log1prel(np.exp(np.minimum(lv, 0.0)))
+        t = np.where(lv > 0.0, _softplus(lv) / g, small)
+        edge = ~(t >= 0.0) | (e == np.inf)  # NaN (inf - inf) or an infinite draw
+        return np.where(edge, np.where(e > 0.0, np.where(e < np.inf, 0.0, np.inf), 0.0), t) \
+            if np.any(edge) else t
+
+
+def _falling_time(log_b: Num, g: Num, log_g: Num, e: FloatArray) -> FloatArray:
+    """``g < 0`` (improper): ``v`` in ``[-1, 0]``; ``log1p(-1) = -inf`` gives ``+inf`` (never) exactly
+    when ``|v| >= 1``. Lanes with ``log B = -inf`` (``B = 0``) and ``e = 0`` or ``inf``: the where."""
+    log_e = np.log(e)
+    with np.errstate(invalid="ignore"):
+        lv = log_g + log_e - log_b  # log |v|
+        ratio = np.exp(log_e - log_b)  # e / B
         t = ratio * _log1prel(-np.exp(np.minimum(lv, 0.0)))
     return np.where(e > 0.0, np.where(lv >= 0.0, np.inf, t), 0.0)
 
 
-def _log_form(log_b: FloatArray, g: float, t: FloatArray, edge: FloatArray, bem1: FloatArray,
+def _gompertz_time(log_b: Num, g: Num, log_g: Num, e: FloatArray) -> FloatArray:
+    """Solve (B/g)(exp(g T) - 1) = e for T with B = exp(log_b): T = log1p(g e / B) / g.
+
+    ``log_b``, the slope ``g`` and ``log_g = log |g|`` (:func:`_log_abs`) are numbers (one hazard)
+    or arrays aligned with ``e`` (one value per lane). Written as ``(e/B) * log1p(v)/v`` with
+    ``v = g e / B`` when ``|v| <= 1`` and as ``softplus(log v) / g`` when ``v > 1``; ``+inf`` when
+    ``v <= -1`` (improper, g < 0); ``e / B`` where ``g = 0``. Exact in the limit g -> 0 (gives
+    e / B) and free of overflow for huge ``e / B``. The form is chosen lane by lane from the lane's
+    slope (its sign) and numbers; lanes of one sign go through their form together, so a lane gets
+    the same bits whichever lanes share the call.
+    """
+    rising, falling = np.asarray(g) > 0.0, np.asarray(g) < 0.0
+    forms = ((rising, _rising_time), (falling, _falling_time), (~(rising | falling), _flat_time))
+    for lanes, form in forms:
+        if np.all(lanes):
+            return form(log_b, g, log_g, e)
+    t = np.empty(e.shape)  # slopes of more than one sign: each sign's lanes through its form
+    for lanes, form in forms:
+        if np.any(lanes):
+            t[lanes] = form(_sub(log_b, lanes), _sub(g, lanes), _sub(log_g, lanes), e[lanes])
+    return t
+
+
+def _log_form(log_b: FloatArray, g: Num, t: FloatArray, edge: FloatArray, bem1: FloatArray,
               gomp: FloatArray) -> tuple[FloatArray, FloatArray]:
     """``B expm1(g t)`` and ``B exp(g t)`` from ``log B`` on the lanes ``edge`` (the others kept):
     ``sign(g) exp(log B + log|expm1(g t)|)`` and ``exp(log B + g t)``, finite wherever the
@@ -102,18 +142,19 @@ def _log_form(log_b: FloatArray, g: float, t: FloatArray, edge: FloatArray, bem1
     with np.errstate(divide="ignore"):  # t = 0: log 0 = -inf, exp(-inf) = 0
         log_abs = np.where(gt > 0.0, _log_expm1(np.maximum(gt, 0.0)), np.log(-np.expm1(np.minimum(gt, 0.0))))
     lb = np.where(edge, log_b, 0.0)
-    return (np.where(edge, math.copysign(1.0, g) * np.exp(lb + np.where(edge, log_abs, 0.0)), bem1),
+    return (np.where(edge, np.copysign(1.0, g) * np.exp(lb + np.where(edge, log_abs, 0.0)), bem1),
             np.where(edge, np.exp(lb + np.where(edge, gt, 0.0)), gomp))
 
 
-def gompertz_times(log_rate: FloatArray | float, shape: float, x: FloatArray, e: FloatArray) -> FloatArray:
-    """Conditional event times of Gompertz hazards sharing ``shape`` g, with a log-rate that may
-    differ from lane to lane (one value per patient: ``math.log(rate)`` of each lane's hazard):
+def gompertz_times(log_rate: Num, shape: Num, log_shape: Num, x: FloatArray, e: FloatArray) -> FloatArray:
+    """Conditional event times of Gompertz hazards whose log-rate, slope ``shape`` (g, any sign) and
+    ``log_shape = log |g|`` may differ from lane to lane (numbers, or arrays with one value per
+    patient: the numbers of each lane's hazard, :meth:`Gompertz._lane_params`):
     :math:`T = \\log(1 + g e / (b e^{g x})) / g` through ``_gompertz_time`` with
     :math:`\\log B = \\log b + g x`. :meth:`Gompertz._conditional_time` is this function with its own
-    scalar log-rate, so a lane gets the bits of its own hazard (the engine evaluates a block of
-    parameter draws in one call with it: :func:`sim.engine.simulate_draws`)."""
-    return _gompertz_time(log_rate + shape * x, shape, e)
+    numbers, so a lane gets the bits of its own hazard (the engine evaluates a block of parameter
+    draws in one call with it: :func:`sim.engine.simulate_draws`)."""
+    return _gompertz_time(log_rate + shape * x, shape, log_shape, e)
 
 
 @dataclass(frozen=True)
@@ -164,116 +205,87 @@ class Gompertz(Hazard):
     def _cumhazard(self, t: FloatArray) -> FloatArray:
         return _gompertz_cumhazard(self.rate, self.shape, t)
 
+    def _lane_params(self) -> tuple[float, float, float]:
+        """The numbers :func:`gompertz_times` takes: ``(log rate, shape, log |shape|)``."""
+        return math.log(self.rate), self.shape, _log_abs(self.shape)
+
     def _inv_cumhazard(self, y: FloatArray) -> FloatArray:
-        return _gompertz_time(math.log(self.rate), self.shape, y)
+        return _gompertz_time(math.log(self.rate), self.shape, _log_abs(self.shape), y)
 
     def _conditional_time(self, x: FloatArray, e: FloatArray) -> FloatArray:
-        return gompertz_times(math.log(self.rate), self.shape, x, e)
+        return gompertz_times(*self._lane_params(), x, e)
 
     def _conditional_time_large_ratio(self, x: FloatArray, e: FloatArray, hr: float) -> FloatArray:
         """Under ``hr * H``: the Gompertz time with ``log B = log hr + log b + g x`` (no ``b hr``
         formed, which may underflow, and no ``e / hr``, which overflowed)."""
-        return _gompertz_time(math.log(hr) + math.log(self.rate) + self.shape * x, self.shape, e)
+        g = self.shape
+        return _gompertz_time(math.log(hr) + math.log(self.rate) + g * x, g, _log_abs(g), e)
 
 
-@dataclass(frozen=True)
-class GompertzMakeham(Hazard):
-    """Gompertz-Makeham hazard: a Gompertz term plus a constant (age-independent) term.
+class MakehamLanes(Lanes):
+    """The Gompertz-Makeham conditional time with ``rate`` b, ``log_rate``, ``shape`` g,
+    ``log_shape`` (``log |g|``), ``constant`` c and ``log_constant`` as numbers (one hazard,
+    :meth:`GompertzMakeham._lane_params`) or arrays with one value per lane (a block of parameter
+    draws, :mod:`sim.hazards.lanes`). :class:`GompertzMakeham` evaluates its own through it, so a
+    lane gets the bits of its own hazard whichever lanes share the call.
 
-    Parameters
-    ----------
-    rate : float
-        :math:`b > 0`, the Gompertz hazard per year at clock 0.
-    shape : float
-        :math:`g`, any finite real (log-hazard slope per year).
-    constant : float
-        :math:`c \\ge 0`, the Makeham term per year. ``c = 0`` is :class:`Gompertz`.
-
-    Notes
-    -----
-    :math:`h(t) = c + b e^{g t}`, :math:`H(t) = c t + (b/g)(e^{g t} - 1)` (docs/methods.md, 'Hazards and survival').
-    Proper whenever ``c > 0``.
-
-    Conditional time from clock ``x`` solves :math:`F(T) = c T + B T\\,\\mathrm{exprel}(g T) = e`
-    with :math:`B = b e^{g x}`. ``F`` is a sum of positive terms, so it is evaluated without
-    cancellation, and it is increasing. The root is bracketed (see ``_newton``) and found by
-    Halley's method safeguarded by bisection (relative accuracy ~1e-15). Where
-    ``|g| e / (c + B) < 1e-17`` the linear solution ``e / (c + B)`` is already exact in double
-    precision. (A Lambert-W closed form exists,
-    :math:`T = (K/c - W_0((B/c) e^{K/c}))/g` with :math:`K = g e + B`, derived here, but it
-    cancels badly as ``c -> 0`` or ``g -> 0``; it is not used.)
+    The form is chosen lane by lane: the Gompertz time where ``c = 0``, the exponential time
+    ``e / (b + c)`` where ``g = 0``, otherwise the linear solution ``e / (c + B)`` where it is
+    exact and Halley's method (``_newton``) where it is not (see :class:`GompertzMakeham`). Every
+    iteration stops lane by lane.
     """
 
-    rate: float
-    shape: float
-    constant: float
-    family: ClassVar[str] = "gompertz_makeham"
-    dimensions: ClassVar[Mapping[str, Dimension]] = MappingProxyType({"rate": Dimension.RATE, "shape": Dimension.RATE, "constant": Dimension.RATE})
+    _fields = ("rate", "log_rate", "shape", "log_shape", "constant", "log_constant")
+    rate: Num
+    log_rate: Num
+    shape: Num
+    log_shape: Num
+    constant: Num
+    log_constant: Num
 
-    def __post_init__(self) -> None:
-        object.__setattr__(self, "rate", _param(self.family, "rate", self.rate, "positive"))
-        object.__setattr__(self, "shape", _param(self.family, "shape", self.shape, "finite"))
-        object.__setattr__(self, "constant", _param(self.family, "constant", self.constant, "nonnegative"))
+    def conditional_time(self, x: FloatArray, e: FloatArray) -> FloatArray:
+        """``T`` from clocks ``x``: :meth:`solve` with ``log B = log b + g x``."""
+        return self.solve(self.log_rate + self.shape * x, e)
 
-    @property
-    def cumhazard_limit(self) -> float:
-        if self.constant > 0.0 or self.shape >= 0.0:
-            return math.inf
-        return self.rate / -self.shape
-
-    def params(self) -> dict[str, float]:
-        return {"rate": self.rate, "shape": self.shape, "constant": self.constant}
-
-    def _hazard(self, t: FloatArray) -> FloatArray:
-        g = self.shape
-        gomp = np.full(t.shape, self.rate) if g == 0.0 else self.rate * np.exp(g * t)
-        return self.constant + gomp
-
-    def _cumhazard(self, t: FloatArray) -> FloatArray:
-        gomp = _gompertz_cumhazard(self.rate, self.shape, t)
-        return gomp + self.constant * t if self.constant > 0.0 else gomp
-
-    def _inv_cumhazard(self, y: FloatArray) -> FloatArray:
-        return self._solve(np.full(y.shape, math.log(self.rate)), y)
-
-    def _conditional_time(self, x: FloatArray, e: FloatArray) -> FloatArray:
-        return self._solve(math.log(self.rate) + self.shape * x, e)
-
-    def _conditional_time_large_ratio(self, x: FloatArray, e: FloatArray, hr: float) -> FloatArray | None:
-        """Under ``hr * H`` where ``y = e / hr`` overflows (``y`` above the largest double), one term
-        of ``c T + (B/g) expm1(g T) = y`` is negligible to rounding: for ``g > 0`` the Makeham term
-        (``c T <= 2^-60 y`` is checked), giving the Gompertz time with ``log B = log hr + log b + g x``;
-        for ``g < 0`` the bounded Gompertz term (``B/|g| <= 2^-60 y``), giving ``(e / c) / hr``;
-        for ``g = 0``, ``(e / (b + c)) / hr``. ``None`` where the neglected term is not negligible."""
-        b, g, c = self.rate, self.shape, self.constant
-        if g == 0.0:
-            return (e / (b + c)) / hr
-        if g > 0.0:
-            t = _gompertz_time(math.log(hr) + math.log(b) + g * x, g, e)
-            return t if np.all(c * t <= 2.0 ** -60 * _BIG) else None
-        if c == 0.0:
-            return _gompertz_time(math.log(hr) + math.log(b) + g * x, g, e)
-        if b * math.exp(min(g * float(np.min(x)), 0.0)) / -g > 2.0 ** -60 * _BIG:
-            return None
-        return (e / c) / hr
-
-    def _solve(self, log_b: FloatArray, e: FloatArray) -> FloatArray:
+    def solve(self, log_b: FloatArray, e: FloatArray) -> FloatArray:
         """T with c T + (B/g)(exp(g T) - 1) = e, B = exp(log_b); arrays of equal shape."""
-        b, g, c = self.rate, self.shape, self.constant
-        if c == 0.0:
-            return _gompertz_time(log_b, g, e)
-        if g == 0.0:
+        g, c = np.asarray(self.shape), np.asarray(self.constant)
+        pure, flat = c == 0.0, g == 0.0
+        forms = ((pure, MakehamLanes._gompertz), (~pure & flat, MakehamLanes._flat),
+                 (~pure & ~flat, MakehamLanes._general))
+        for lanes, form in forms:
+            if np.all(lanes):
+                return form(self, log_b, e)
+        t = np.empty(e.shape)  # lanes of more than one form: each form on its own lanes
+        for lanes, form in forms:
+            if np.any(lanes):
+                t[lanes] = form(self.take(lanes), log_b[lanes], e[lanes])
+        return t
+
+    def _gompertz(self, log_b: FloatArray, e: FloatArray) -> FloatArray:
+        """``c = 0``: the Gompertz time."""
+        return _gompertz_time(log_b, self.shape, self.log_shape, e)
+
+    def _flat(self, log_b: FloatArray, e: FloatArray) -> FloatArray:
+        """``g = 0``: ``e / (b + c)``, all halved where ``b + c`` overflows (both near the largest
+        double)."""
+        b, c = self.rate, self.constant
+        with np.errstate(invalid="ignore"):  # inf / inf where b + c overflowed: replaced below
             t = e / (b + c)
-            if b + c == math.inf:  # both near the largest double: halve everything
-                t = (0.5 * e) / (0.5 * b + 0.5 * c)
-            return t
+        wide = np.asarray(b + c) == math.inf
+        if np.any(wide):
+            t = np.where(wide, (0.5 * e) / (0.5 * b + 0.5 * c), t)
+        return t
+
+    def _general(self, log_b: FloatArray, e: FloatArray) -> FloatArray:
+        """``c > 0``, ``g != 0``: the linear solution where exact, Halley's method elsewhere."""
         with np.errstate(invalid="ignore"):  # inf / inf (an infinite draw where B overflowed)
-            t = e / (c + np.exp(log_b))  # linear solution; exact when |g| t is negligible
+            t = e / (self.constant + np.exp(log_b))  # linear solution; exact when |g| t is negligible
         t = np.where(e == np.inf, np.inf, t) if np.any(e == np.inf) else t
-        hard = (abs(g) * t > 1e-17) & (e < np.inf)
+        hard = (np.abs(self.shape) * t > 1e-17) & (e < np.inf)
         if np.any(hard):
             t = np.array(t, dtype=np.float64)
-            t[hard] = self._newton(log_b[hard], e[hard])
+            t[hard] = self.take(hard)._newton(log_b[hard], e[hard])
         return t
 
     def _far_gompertz(self, log_b: FloatArray, e: FloatArray) -> FloatArray:
@@ -281,10 +293,10 @@ class GompertzMakeham(Hazard):
         Gompertz term dwarfs the Makeham one (its hazard exceeds ``e^700 B``), so the fixed point
         ``T = T_G(e - c T)`` (``T_G`` the pure Gompertz time, in log space) contracts by a factor
         ``c / (B e^{g T}) < 1/20`` per step; ten steps reach rounding level."""
-        c = self.constant
-        t = _gompertz_time(log_b, self.shape, e)
+        c, g, log_g = self.constant, self.shape, self.log_shape
+        t = _gompertz_time(log_b, g, log_g, e)
         for _ in range(10):
-            t = _gompertz_time(log_b, self.shape, np.maximum(e - c * t, 0.0))
+            t = _gompertz_time(log_b, g, log_g, np.maximum(e - c * t, 0.0))
         return t
 
     def _newton(self, log_b: FloatArray, e: FloatArray) -> FloatArray:
@@ -296,7 +308,8 @@ class GompertzMakeham(Hazard):
         ``T >= e/(c + B)``); ``T <= min(e/c, T_G(e))`` always, and for ``g > 0`` also
         ``T >= min(e/c, T_G(e)) / 2`` (``T_G`` is concave in ``e``). A step leaving the shrinking
         bracket is replaced by bisection. Converged once a step is below 1e-8 of ``T`` (cubic
-        convergence: the step then taken leaves a relative error at rounding level).
+        convergence: the step then taken leaves a relative error at rounding level). The bracket's
+        side, the rescaling of tiny numbers and every stop are decided lane by lane.
         """
         g = self.shape
         big_b = np.exp(log_b)
@@ -309,18 +322,17 @@ class GompertzMakeham(Hazard):
             scale = np.where(deep, np.exp2(power), 1.0)
             big_b, c, e = big_b * scale, c * scale, e * scale
         else:
-            c = np.full(e.shape, c)
+            c = np.array(np.broadcast_to(c, e.shape), dtype=np.float64)
         # B subnormal (few significant bits) or exp(g T) near overflow: the Gompertz terms in log
         # form there, from log B (scaled like B above), never from the rounded B
         log_bs = log_b + power * math.log(2.0) if np.any(deep) else log_b
         sub = big_b < _TINY_NORMAL
         t_c = e / c
-        t_g = _gompertz_time(log_b, g, e)
+        t_g = _gompertz_time(log_b, g, self.log_shape, e)
         t_lin = e / (c + big_b)
-        if g > 0.0:
-            lo, hi = 0.5 * np.minimum(t_c, t_g), np.minimum(t_lin, t_g)
-        else:
-            lo, hi = t_lin, np.minimum(t_c, t_g)
+        rising = np.asarray(g) > 0.0
+        lo = np.where(rising, 0.5 * np.minimum(t_c, t_g), t_lin)
+        hi = np.where(rising, np.minimum(t_lin, t_g), np.minimum(t_c, t_g))
         hi = np.minimum(hi, _BIG)  # e/c may overflow for a subnormal c (+inf restored at the end)
         t = np.clip(1.0 / (1.0 / t_c + 1.0 / t_g), lo, hi)  # harmonic guess, exact for small e
         out = np.empty_like(e)
@@ -348,18 +360,115 @@ class GompertzMakeham(Hazard):
             if not np.any(keep):
                 break
             idx, t, lo, hi, big_b, e, c = idx[keep], new[keep], lo[keep], hi[keep], big_b[keep], e[keep], c[keep]
-            log_bs, sub = log_bs[keep], sub[keep]
+            log_bs, sub, g = log_bs[keep], sub[keep], _sub(g, keep)
         else:  # pragma: no cover - bisection guarantees convergence well within 200 steps
             out[idx] = t
-        if g > 0.0:
-            # exp(g T) overflows near the root, where F cannot be evaluated, and the Gompertz
-            # hazard there exceeds 20 c (so that the fixed point below contracts)
-            far = (g * out > 700.0) & (log_b + g * out > math.log(self.constant) + 3.0)
-            if np.any(far):
-                out[far] = self._far_gompertz(log_b[far], e0[far])
+        # g > 0: exp(g T) overflows near the root, where F cannot be evaluated, and the Gompertz
+        # hazard there exceeds 20 c (so that the fixed point below contracts)
+        g = self.shape
+        far = (np.asarray(g) > 0.0) & (g * out > 700.0) & (log_b + g * out > self.log_constant + 3.0)
+        if np.any(far):
+            out[far] = self.take(far)._far_gompertz(log_b[far], e0[far])
         top = out >= _BIG  # the bracket was capped at the largest double: is the root beyond it?
         if np.any(top):
+            k = self.take(top)
+            n = int(np.count_nonzero(top))
             with np.errstate(invalid="ignore"):  # inf - inf: the root is not beyond (F(top) = inf)
-                f_top = self.constant * _BIG + big_b0[top] * np.expm1(g * _BIG) / g - e0[top]
+                gb = np.array(np.broadcast_to(np.asarray(k.shape) * _BIG, (n,)))  # expm1 of lanes, never of a scalar
+                f_top = k.constant * _BIG + big_b0[top] * np.expm1(gb) / k.shape - e0[top]
             out[top] = np.where(f_top < 0.0, np.inf, out[top])
         return out
+
+
+@dataclass(frozen=True)
+class GompertzMakeham(Hazard):
+    """Gompertz-Makeham hazard: a Gompertz term plus a constant (age-independent) term.
+
+    Parameters
+    ----------
+    rate : float
+        :math:`b > 0`, the Gompertz hazard per year at clock 0.
+    shape : float
+        :math:`g`, any finite real (log-hazard slope per year).
+    constant : float
+        :math:`c \\ge 0`, the Makeham term per year. ``c = 0`` is :class:`Gompertz`.
+
+    Notes
+    -----
+    :math:`h(t) = c + b e^{g t}`, :math:`H(t) = c t + (b/g)(e^{g t} - 1)` (docs/methods.md, 'Hazards and survival').
+    Proper whenever ``c > 0``.
+
+    Conditional time from clock ``x`` solves :math:`F(T) = c T + B T\\,\\mathrm{exprel}(g T) = e`
+    with :math:`B = b e^{g x}`. ``F`` is a sum of positive terms, so it is evaluated without
+    cancellation, and it is increasing. The root is bracketed (see ``MakehamLanes._newton``) and found by
+    Halley's method safeguarded by bisection (relative accuracy ~1e-15). Where
+    ``|g| e / (c + B) < 1e-17`` the linear solution ``e / (c + B)`` is already exact in double
+    precision. (A Lambert-W closed form exists,
+    :math:`T = (K/c - W_0((B/c) e^{K/c}))/g` with :math:`K = g e + B`, derived here, but it
+    cancels badly as ``c -> 0`` or ``g -> 0``; it is not used.)
+    """
+
+    rate: float
+    shape: float
+    constant: float
+    family: ClassVar[str] = "gompertz_makeham"
+    dimensions: ClassVar[Mapping[str, Dimension]] = MappingProxyType({"rate": Dimension.RATE, "shape": Dimension.RATE, "constant": Dimension.RATE})
+    _lanes: MakehamLanes = field(init=False, repr=False, compare=False)
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "rate", _param(self.family, "rate", self.rate, "positive"))
+        object.__setattr__(self, "shape", _param(self.family, "shape", self.shape, "finite"))
+        object.__setattr__(self, "constant", _param(self.family, "constant", self.constant, "nonnegative"))
+        object.__setattr__(self, "_lanes", MakehamLanes(*self._lane_params()))
+
+    @property
+    def cumhazard_limit(self) -> float:
+        if self.constant > 0.0 or self.shape >= 0.0:
+            return math.inf
+        return self.rate / -self.shape
+
+    def params(self) -> dict[str, float]:
+        return {"rate": self.rate, "shape": self.shape, "constant": self.constant}
+
+    def _hazard(self, t: FloatArray) -> FloatArray:
+        g = self.shape
+        gomp = np.full(t.shape, self.rate) if g == 0.0 else self.rate * np.exp(g * t)
+        return self.constant + gomp
+
+    def _cumhazard(self, t: FloatArray) -> FloatArray:
+        gomp = _gompertz_cumhazard(self.rate, self.shape, t)
+        return gomp + self.constant * t if self.constant > 0.0 else gomp
+
+    def _lane_params(self) -> tuple[float, float, float, float, float, float]:
+        """The numbers :class:`MakehamLanes` takes: ``(rate, log rate, shape, log |shape|, constant,
+        log constant)``."""
+        return (self.rate, math.log(self.rate), self.shape, _log_abs(self.shape), self.constant,
+                _log_abs(self.constant))
+
+    def _inv_cumhazard(self, y: FloatArray) -> FloatArray:
+        return self._solve(np.full(y.shape, math.log(self.rate)), y)
+
+    def _conditional_time(self, x: FloatArray, e: FloatArray) -> FloatArray:
+        return self._lanes.conditional_time(x, e)
+
+    def _conditional_time_large_ratio(self, x: FloatArray, e: FloatArray, hr: float) -> FloatArray | None:
+        """Under ``hr * H`` where ``y = e / hr`` overflows (``y`` above the largest double), one term
+        of ``c T + (B/g) expm1(g T) = y`` is negligible to rounding: for ``g > 0`` the Makeham term
+        (``c T <= 2^-60 y`` is checked), giving the Gompertz time with ``log B = log hr + log b + g x``;
+        for ``g < 0`` the bounded Gompertz term (``B/|g| <= 2^-60 y``), giving ``(e / c) / hr``;
+        for ``g = 0``, ``(e / (b + c)) / hr``. ``None`` where the neglected term is not negligible."""
+        b, g, c = self.rate, self.shape, self.constant
+        if g == 0.0:
+            return (e / (b + c)) / hr
+        if g > 0.0:
+            t = _gompertz_time(math.log(hr) + math.log(b) + g * x, g, _log_abs(g), e)
+            return t if np.all(c * t <= 2.0 ** -60 * _BIG) else None
+        if c == 0.0:
+            return _gompertz_time(math.log(hr) + math.log(b) + g * x, g, _log_abs(g), e)
+        if b * math.exp(min(g * float(np.min(x)), 0.0)) / -g > 2.0 ** -60 * _BIG:
+            return None
+        return (e / c) / hr
+
+    def _solve(self, log_b: FloatArray, e: FloatArray) -> FloatArray:
+        """T with c T + (B/g)(exp(g T) - 1) = e, B = exp(log_b); arrays of equal shape."""
+        return self._lanes.solve(log_b, e)

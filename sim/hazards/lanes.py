@@ -13,7 +13,10 @@ exponential            rate                                          --
 weibull, loglogistic   shape, log(scale) (:func:`weibull_times`)      --
 lognormal              mu, sigma (:class:`.lognormal.LogNormalLanes`)  --
 gamma                  shape, scale (:class:`.gamma.GammaLanes`)      --
-gompertz               log(rate) (:func:`gompertz_times`)             the slope
+gompertz               log(rate), slope g of any sign or 0,          --
+                       log|g| (:func:`gompertz_times`)
+gompertz_makeham       rate, log(rate), g, log|g|, constant c,       --
+                       log(c) (:class:`.gompertz.MakehamLanes`)
 piecewise              band rates and cumulative hazards             the band starts
                        (:class:`.piecewise.Bands`)
 =====================  ============================================  =============================
@@ -29,13 +32,13 @@ gets the bits of its own hazard whichever lanes share the call. Lanes where ``e 
 underflowed (huge or tiny ratios: the hazard's own edge handling, e.g. the log-space solver of
 :mod:`._log_space`) are reported back (``lost``) for the caller to evaluate with their own hazard.
 
+The Gompertz and Gompertz-Makeham solvers choose their formula lane by lane (the slope's sign, a
+slope or constant of 0, the short or log-space form, the bracket side and stop of the Makeham's
+Halley iteration), and ``log |g|`` and ``log c`` come per hazard from ``math.log``, as in the
+hazard's own call: slopes of both signs, 0 and constants that differ share one call.
+
 Not per lane (the caller groups lanes by hazard, one call per distinct hazard):
 
-- Gompertz slopes that differ and Gompertz-Makeham: their solvers (``_gompertz_time``,
-  ``GompertzMakeham._solve``) choose their formula from the slope's sign and whether the slope or
-  the constant is 0, and take ``log(slope)`` as one number; per lane they would need those choices
-  made lane by lane, a rewrite of :mod:`.gompertz` left for later (a varying rate with one slope,
-  the usual background by draw, is per lane);
 - piecewise hazards whose band starts differ (the band lookup shares them);
 - waning hazard ratios and hazards with a floor as hazards of their own (their windows, pieces and
   crossing points differ per hazard; a ratio that differs on one shared such hazard is per lane);
@@ -44,7 +47,6 @@ Not per lane (the caller groups lanes by hazard, one call per distinct hazard):
 
 from __future__ import annotations
 
-import math
 from collections.abc import Callable, Hashable, Sequence
 from dataclasses import dataclass
 
@@ -55,7 +57,7 @@ from ._numerics import FloatArray
 from .base import Hazard
 from .exponential import Exponential
 from .gamma import Gamma, GammaLanes
-from .gompertz import Gompertz, gompertz_times
+from .gompertz import Gompertz, GompertzMakeham, MakehamLanes, gompertz_times
 from .lognormal import LogNormal, LogNormalLanes
 from .piecewise import Bands, PiecewiseConstant
 from .proportional import ProportionalHazards, ratio_draws
@@ -91,7 +93,11 @@ def _gamma(shared: Hashable, tab: Tables, codes: Codes, x: FloatArray, e: FloatA
 
 
 def _gompertz(shared: Hashable, tab: Tables, codes: Codes, x: FloatArray, e: FloatArray) -> FloatArray:
-    return gompertz_times(tab[0][codes], float(shared), x, e)  # type: ignore[arg-type]
+    return gompertz_times(tab[0][codes], tab[1][codes], tab[2][codes], x, e)
+
+
+def _makeham(shared: Hashable, tab: Tables, codes: Codes, x: FloatArray, e: FloatArray) -> FloatArray:
+    return MakehamLanes(*(col[codes] for col in tab)).conditional_time(x, e)
 
 
 def _piecewise(shared: Hashable, tab: Tables, codes: Codes, x: FloatArray, e: FloatArray) -> FloatArray:
@@ -120,7 +126,8 @@ _FAMILIES: dict[type, _Family] = {
     LogLogistic: _Family(_none, lambda h: h._lane_params(), _loglogistic),
     LogNormal: _Family(_none, lambda h: h._lane_params(), _lognormal),
     Gamma: _Family(_none, lambda h: h._lane_params(), _gamma),
-    Gompertz: _Family(lambda h: h.shape, lambda h: (math.log(h.rate),), _gompertz),
+    Gompertz: _Family(_none, lambda h: h._lane_params(), _gompertz),
+    GompertzMakeham: _Family(_none, lambda h: h._lane_params(), _makeham),
     PiecewiseConstant: _Family(lambda h: h.breaks, lambda h: (h._r, h._cum), _piecewise, whole=True),
 }
 

@@ -1,8 +1,9 @@
 """The engine's many-parameter-sets entry (sim.engine.simulate_draws): each draw's rows are those of
 simulate_range of its own model over its own patients, bit for bit, for every way lanes are
-evaluated (one hazard; per-lane numbers of every family that has them, with and without a hazard
-ratio that differs per draw, on the entry and the age clock (left truncation); grouped by hazard)
-and for draws whose populations differ."""
+evaluated (one hazard; per-lane numbers of every family that has them, Gompertz slopes of both
+signs and 0 and Gompertz-Makeham included, with and without a hazard ratio that differs per draw,
+on the entry and the age clock (left truncation); grouped by hazard) and for draws whose
+populations differ."""
 
 from __future__ import annotations
 
@@ -70,6 +71,8 @@ def test_varying_weibull_takes_per_lane_numbers_and_is_identical():
     _check_identical(models, 30, seed=2)
 
 
+SLOPES = (0.1, -0.2, 0.0, 0.05, -0.05, 0.15)  # Gompertz slopes per draw (per year)
+
 # Per family, draw i's hazards: progression on the entry clock (clock 0 at the first visit) and death
 # from "sick" on attained age (clock 60-80 at entry: left-truncated). Invented numbers, each giving
 # events within the 20-year horizon.
@@ -80,7 +83,13 @@ FAMILY_DRAWS = {
     "lognormal": (lambda i: LogNormal(math.log(9.0) + 0.05 * i, 0.8 + 0.05 * i),
                   lambda i: LogNormal(math.log(75.0) + 0.01 * i, 0.12 + 0.01 * i)),
     "gamma": (lambda i: Gamma(1.5 + 0.1 * i, 6.0 + 0.5 * i), lambda i: Gamma(30.0 + i, 2.5 + 0.02 * i)),
-    "gompertz": (lambda i: Gompertz(0.05 * (1 + 0.1 * i), 0.1), lambda i: Gompertz(2e-4 * (1 + 0.1 * i), 0.09)),
+    # slopes that differ between draws: rising, 0 and falling (improper: some never have the event)
+    "gompertz": (lambda i: Gompertz(0.08 * (1 + 0.1 * i), SLOPES[i]),
+                 lambda i: Gompertz(0.1 * math.exp(-70.0 * SLOPES[i] / 2) * (1 + 0.1 * i), SLOPES[i] / 2)),
+    # slopes as above, constants 0 (the Gompertz form) and > 0
+    "gompertz_makeham": (lambda i: GompertzMakeham(0.05 * (1 + 0.1 * i), SLOPES[i], (0.0, 0.02, 0.04)[i % 3]),
+                         lambda i: GompertzMakeham(0.05 * math.exp(-70.0 * SLOPES[i] / 2), SLOPES[i] / 2,
+                                                   (0.03, 0.0, 0.01)[i % 3])),
     "piecewise": (lambda i: PiecewiseConstant((0.0, 2.0, 5.0, 10.0), tuple(r * (1 + 0.1 * i) for r in (0.05, 0.1, 0.0, 0.15))),
                   lambda i: PiecewiseConstant((0.0, 60.0, 70.0, 80.0), tuple(r * (1 + 0.1 * i) for r in (0.001, 0.02, 0.05, 0.12)))),
 }
@@ -107,7 +116,8 @@ def test_every_family_with_draw_varying_numbers_is_one_call_and_identical(family
     _check_identical(models, 40, seed=21, first_draw=1)
 
 
-@pytest.mark.parametrize("family", ["weibull", "lognormal", "gamma", "loglogistic", "piecewise"])
+@pytest.mark.parametrize("family", ["weibull", "lognormal", "gamma", "loglogistic", "piecewise", "gompertz",
+                                    "gompertz_makeham"])
 def test_extreme_hazard_ratios_go_through_their_own_hazard(family):
     # e / hr underflows (hr near the largest double: the log-space solver or the family's own form)
     # or overflows (a subnormal hr) in some lanes: those lanes take their hazard's own edge handling
@@ -119,8 +129,7 @@ def test_extreme_hazard_ratios_go_through_their_own_hazard(family):
 
 
 @pytest.mark.parametrize("make,kind", [
-    (lambda i: Gompertz(0.05, 0.1 + 0.01 * i), ("group", None, None)),  # slopes differ
-    (lambda i: GompertzMakeham(0.05, 0.1, 0.01 * (1 + i)), ("group", None, None)),  # no per-lane kernel
+    (lambda i: Gompertz(0.05, 0.1) if i % 2 else GompertzMakeham(0.05, 0.1, 0.01), ("group", None, None)),  # 2 families
     (lambda i: PiecewiseConstant((0.0, 1.0 + i), (0.1, 0.2)), ("group", None, None)),  # band starts differ
     (lambda i: Weibull(1.2, 8.0) if i % 2 else LogNormal(2.0, 0.8), ("group", None, None)),  # mixed families
 ])
@@ -167,6 +176,23 @@ def test_a_varying_gompertz_background_uses_per_lane_rates():
              if ex.is_background}
     assert kinds == {("lanes", "gompertz")}
     _check_identical(models, 30, seed=6, first_draw=2)
+
+
+def test_a_varying_makeham_background_with_slopes_and_constants_by_draw_is_one_call():
+    # background Gompertz-Makeham per sex whose rate, slope and constant all differ by draw (a slope
+    # of 0 in one draw, a constant of 0 in another): one per-lane call, each draw its own run's bits
+    base = markov_model()
+    pop = Population(UniformAge(50.0, 70.0), "healthy", {"female": 0.5, "male": 0.5})
+    slopes, constants = (0.09, 0.0, 0.085, 0.1, 0.07), (0.001, 0.002, 0.0, 0.0005, 0.003)
+    models = [dataclasses.replace(base, population=pop, background=BackgroundMortality("dead", {
+        "female": GompertzMakeham(2e-5 * (1 + 0.1 * i), slopes[i], constants[i]),
+        "male": GompertzMakeham(3e-5 * (1 + 0.05 * i), slopes[i] * 1.02, constants[i] * 1.5)})) for i in range(5)]
+    models[1] = dataclasses.replace(models[1], background=BackgroundMortality("dead", {
+        "female": GompertzMakeham(0.01, 0.0, 0.002), "male": GompertzMakeham(0.015, 0.0, 0.003)}))
+    kinds = {(ex.kind, ex.lanes.family) for exits in DrawSet(models, 30, 0).plan("usual") for ex in exits
+             if ex.is_background}
+    assert kinds == {("lanes", "gompertz_makeham")}
+    _check_identical(models, 30, seed=13, first_draw=1)
 
 
 def test_a_varying_life_table_by_sex_uses_per_lane_band_rates():

@@ -7,7 +7,9 @@ call, each lane with its own hazard's numbers.
   then evaluates them by their own hazard), at clocks from 0 to the largest double and draws from 0
   to +inf.
 - Iterations stop lane by lane: a lane computed alone equals the same lane among others (Newton
-  polishing of the log-normal and gamma inversions, the gamma's far tail and continued fraction).
+  polishing of the log-normal and gamma inversions, the gamma's far tail and continued fraction,
+  the Gompertz-Makeham's Halley iteration); forms are chosen lane by lane (Gompertz and
+  Gompertz-Makeham slopes of both signs and 0 and Makeham constants of 0 share one call).
 - The times are right: ``H(x + T) - H(x) = e`` in 40-digit arithmetic (mpmath; the check of
   tests/sim/test_hazard_edges.py, K eps with K = 64) and, for band rates per lane, against the
   piecewise closed form summed exactly (math.fsum).
@@ -21,8 +23,8 @@ import math
 import numpy as np
 import pytest
 
-from sim.hazards import (KERNEL_ERRSTATE, Exponential, Gamma, Gompertz, GompertzMakeham, LaneHazards, LogLogistic,
-                         LogNormal, PiecewiseConstant, Weibull)
+from sim.hazards import (KERNEL_ERRSTATE, AtLeastHazard, Exponential, Gamma, Gompertz, GompertzMakeham, LaneHazards,
+                         LogLogistic, LogNormal, PiecewiseConstant, Weibull)
 from sim.hazards.piecewise import _search_right
 
 from .test_hazard_edges import check
@@ -36,7 +38,13 @@ FAMILIES = {
     "loglogistic": [LogLogistic(k, s) for k, s in ((2.0, 5.0), (0.3, 100.0), (40.0, 0.5), (1.0, 1e-200))],
     "lognormal": [LogNormal(m, s) for m, s in ((1.0, 0.5), (-3.0, 2.5), (4.0, 0.01), (0.0, 1e-3), (600.0, 3.0))],
     "gamma": [Gamma(a, s) for a, s in ((2.0, 3.0), (0.3, 0.5), (40.0, 0.1), (1.0, 1e-3), (5e3, 1e-2))],
-    "gompertz": [Gompertz(r, 0.09) for r in (2e-5, 1e-300, 0.5, 1e300)],
+    # slopes of both signs (g < 0 improper), 0, subnormal and steep, rates from subnormal to huge
+    "gompertz": [Gompertz(r, g) for r, g in ((2e-5, 0.09), (1e-300, 0.09), (0.5, -0.3), (1e300, 0.0), (0.05, 0.0),
+                                             (3e-3, -5e-324), (0.02, 5e-324), (1e-4, 700.0), (0.2, -40.0))],
+    # constants 0 (the Gompertz form), subnormal and large; slopes of both signs and 0 (e / (b + c))
+    "gompertz_makeham": [GompertzMakeham(b, g, c) for b, g, c in (
+        (1e-4, 0.08, 0.002), (0.5, -0.3, 0.01), (0.05, 0.0, 0.1), (2e-5, 0.09, 0.0), (0.3, -0.05, 0.0),
+        (1e-300, 0.1, 5e-324), (1e300, 0.0, 1e300), (1e-250, 0.5, 1e-260), (3.0, -2.0, 1e-3), (1e-6, 700.0, 0.4))],
     "piecewise": [PiecewiseConstant((0.0, 1.0, 5.0, 20.0), rates) for rates in
                   ((0.1, 0.0, 0.3, 2.0), (1e300, 1e308, 0.0, 0.0), (0.0, 0.0, 0.0, 1e-3), (5.0, 4.0, 3.0, 0.0))],
 }
@@ -94,7 +102,7 @@ def test_hazard_ratios_per_lane_get_the_bits_of_their_own_hazard(family):
 
 
 def test_ratios_on_one_shared_base_of_any_family():
-    base = GompertzMakeham(1e-4, 0.08, 0.002)
+    base = AtLeastHazard(GompertzMakeham(1e-4, 0.08, 0.002), Exponential(0.01), 40.0)  # a floor: no per-lane kernel
     hazards = [base.scaled(hr) for hr in (0.5, 0.8, 2.0)] + [base]
     x, e, codes = _lanes(500, len(hazards), seed=3)
     lanes = LaneHazards.of(hazards)
@@ -146,6 +154,28 @@ def test_per_lane_times_solve_the_left_truncated_equation(family):
     assert not bad
 
 
+@pytest.mark.parametrize("family", ["gompertz", "gompertz_makeham"])
+def test_gompertz_slopes_of_every_sign_in_one_call_solve_the_equation(family):
+    # every Gompertz(-Makeham) of FAMILIES in one call (slopes < 0, 0 and > 0, subnormal slopes and
+    # constants, rates from 1e-300 to 1e300): H(x + T) - H(x) = e in 40-digit arithmetic (mpmath),
+    # T = +inf only where e reaches the hazard left (improper g < 0 with c = 0); clocks 0-100, draws
+    # from a standard exponential and a few tiny and huge ones
+    hazards = FAMILIES[family]
+    rng = np.random.default_rng(5)
+    n = 80
+    x = np.where(rng.random(n) < 0.2, 0.0, rng.uniform(0.0, 100.0, n))
+    e = rng.exponential(1.0, n)
+    e[::11], e[3::13] = 1e-200, 1e200
+    codes = np.arange(n) % len(hazards)
+    with np.errstate(**KERNEL_ERRSTATE):
+        t, lost = LaneHazards.of(hazards).times(codes, x, e)
+    assert lost is None
+    if family == "gompertz":  # the improper hazards do give some lanes no event
+        assert np.isinf(t[np.array([h.shape < 0.0 for h in hazards])[codes]]).any()
+    bad = [(i, why) for i in range(n) if (why := check(hazards[codes[i]], float(x[i]), float(e[i]), float(t[i])))]
+    assert not bad
+
+
 def test_per_lane_band_rates_solve_the_piecewise_closed_form():
     # H(t) = sum of rate x time in each band up to t (the life-table form, common practice, no source)
     breaks = (0.0, 1.0, 5.0, 20.0)
@@ -181,11 +211,10 @@ def test_the_band_search_per_row_equals_searchsorted():
 
 
 @pytest.mark.parametrize("hazards", [
-    [Gompertz(1e-4, 0.08), Gompertz(1e-4, 0.09)],  # the slope is shared by one call
-    [GompertzMakeham(1e-4, 0.08, 0.001), GompertzMakeham(2e-4, 0.08, 0.001)],  # no per-lane kernel
+    [Gompertz(1e-4, 0.08), GompertzMakeham(1e-4, 0.08, 0.001)],  # two families (although c = 0 is Gompertz)
     [PiecewiseConstant((0.0, 1.0), (0.1, 0.2)), PiecewiseConstant((0.0, 2.0), (0.1, 0.2))],  # band starts
     [Weibull(1.2, 3.0), LogLogistic(1.2, 3.0)],  # two families
     [Weibull(1.2, 3.0).scaled(0.5), LogNormal(1.0, 0.5).scaled(0.5)],  # two families under ratios
-], ids=["gompertz-slopes", "gompertz-makeham", "piecewise-breaks", "mixed", "mixed-ratios"])
+], ids=["gompertz-and-makeham", "piecewise-breaks", "mixed", "mixed-ratios"])
 def test_hazards_without_a_shared_kernel_are_refused(hazards):
     assert LaneHazards.of(hazards) is None
