@@ -316,19 +316,22 @@ class MakehamLanes(Lanes):
         big_b0, e0 = big_b, e
         c = self.constant
         top_size = np.maximum(np.maximum(big_b, c), e)
+        # B subnormal (few significant bits) or exp(g T) near overflow: the Gompertz terms in log
+        # form there, from log B (scaled like B below), never from the rounded B
+        sub = big_b < _TINY_NORMAL
         deep = top_size < 2.0 ** -800  # c, B and e all tiny: subnormal arithmetic would lose digits
         if np.any(deep):  # F(T) = e is unchanged when c, B and e are scaled by one power of two
             power = np.minimum(-np.floor(np.log2(np.where(deep, top_size, 1.0))), 1000.0)  # 2**1000 finite
             scale = np.where(deep, np.exp2(power), 1.0)
-            big_b, c, e = big_b * scale, c * scale, e * scale
+            log_bs = log_b + power * math.log(2.0)
+            # a subnormal B scaled from log B (its bracket and first terms), not from its few bits
+            big_b = np.where(deep & sub, np.exp(log_bs), big_b * scale)
+            c, e = c * scale, e * scale
         else:
+            log_bs = log_b
             c = np.array(np.broadcast_to(c, e.shape), dtype=np.float64)
-        # B subnormal (few significant bits) or exp(g T) near overflow: the Gompertz terms in log
-        # form there, from log B (scaled like B above), never from the rounded B
-        log_bs = log_b + power * math.log(2.0) if np.any(deep) else log_b
-        sub = big_b < _TINY_NORMAL
         t_c = e / c
-        t_g = _gompertz_time(log_b, g, self.log_shape, e)
+        t_g = _gompertz_time(log_bs, g, self.log_shape, e)  # with B and e scaled alike (T unchanged)
         t_lin = e / (c + big_b)
         rising = np.asarray(g) > 0.0
         lo = np.where(rising, 0.5 * np.minimum(t_c, t_g), t_lin)

@@ -159,13 +159,15 @@ def test_gompertz_slopes_of_every_sign_in_one_call_solve_the_equation(family):
     # every Gompertz(-Makeham) of FAMILIES in one call (slopes < 0, 0 and > 0, subnormal slopes and
     # constants, rates from 1e-300 to 1e300): H(x + T) - H(x) = e in 40-digit arithmetic (mpmath),
     # T = +inf only where e reaches the hazard left (improper g < 0 with c = 0); clocks 0-100, draws
-    # from a standard exponential and a few tiny and huge ones
+    # from a standard exponential and a few tiny and huge ones (c, B and e all tiny: a Makeham whose
+    # Gompertz term dominates once took its bracket from a Gompertz time of the unscaled B)
     hazards = FAMILIES[family]
     rng = np.random.default_rng(5)
     n = 80
     x = np.where(rng.random(n) < 0.2, 0.0, rng.uniform(0.0, 100.0, n))
     e = rng.exponential(1.0, n)
     e[::11], e[3::13] = 1e-200, 1e200
+    e[5::7] = 1e-246  # with the Makeham's tiny rates and constants: c, B and e all below 2^-800, rescaled
     codes = np.arange(n) % len(hazards)
     with np.errstate(**KERNEL_ERRSTATE):
         t, lost = LaneHazards.of(hazards).times(codes, x, e)
