@@ -24,7 +24,13 @@ Before timing, one pass per variant counts the kernel calls (Weibull and log-nor
 times) and the engine rounds that evaluate those exits, and checks that the variants' event tables
 are identical (bit for bit).
 
-Usage: .venv/bin/python benchmarks/psa_families.py [--quick] [--rounds N] [--old DIR]
+``--gompertz``: the progression hazard is a Gompertz-Makeham on the entry clock whose rate, slope
+(of either sign: a normal around 0.02 with SD 0.04) and constant are drawn per draw, and the
+background a Gompertz on age whose rate and slope are drawn per draw (the kernel calls counted are
+the Gompertz and Gompertz-Makeham conditional times, the rounds those of the progression and
+background exits).
+
+Usage: .venv/bin/python benchmarks/psa_families.py [--quick] [--rounds N] [--old DIR] [--gompertz]
 """
 
 from __future__ import annotations
@@ -46,6 +52,7 @@ ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 
 import sim.engine.draws as draws_module  # noqa: E402
+import sim.hazards.gompertz as gompertz_module  # noqa: E402
 import sim.hazards.lanes as lanes_module  # noqa: E402
 import sim.hazards.lognormal as lognormal_module  # noqa: E402
 import sim.hazards.shape_scale as shape_scale_module  # noqa: E402
@@ -57,7 +64,15 @@ def parameter_draws(n: int, seed: int = 14) -> dict[str, np.ndarray]:
     rng = np.random.default_rng(seed)
     return {"shape": rng.lognormal(math.log(1.3), 0.08, n), "scale": rng.gamma(100.0, 8.0 / 100.0, n),
             "mu": rng.normal(math.log(6.0), 0.1, n), "sigma": rng.gamma(100.0, 0.7 / 100.0, n),
-            "hr": rng.lognormal(math.log(0.6), 0.15, n)}
+            "hr": rng.lognormal(math.log(0.6), 0.15, n),
+            # --gompertz: Gompertz-Makeham progression (rate, slope of either sign, constant) and
+            # the background Gompertz's rate and slope
+            "gm_rate": rng.lognormal(math.log(0.05), 0.1, n), "gm_slope": rng.normal(0.02, 0.04, n),
+            "gm_constant": rng.gamma(25.0, 0.01 / 25.0, n),
+            "bg_rate": rng.lognormal(math.log(3e-5), 0.1, n), "bg_slope": rng.normal(0.09, 0.005, n)}
+
+
+GOMPERTZ = False  # set by --gompertz: the Gompertz(-Makeham) workload
 
 
 def models(pkg: str, values: dict[str, np.ndarray]) -> list:
@@ -66,15 +81,19 @@ def models(pkg: str, values: dict[str, np.ndarray]) -> list:
     md = importlib.import_module(f"{pkg}.model")
     out = []
     for i in range(values["shape"].size):
+        progression = hz.Weibull(float(values["shape"][i]), float(values["scale"][i]))
+        background = hz.Gompertz(3e-5, 0.09)
+        if GOMPERTZ:
+            progression = hz.GompertzMakeham(*(float(values[k][i]) for k in ("gm_rate", "gm_slope", "gm_constant")))
+            background = hz.Gompertz(float(values["bg_rate"][i]), float(values["bg_slope"][i]))
         transitions = (
-            md.Transition("progression", "healthy", "sick", hz.Weibull(float(values["shape"][i]), float(values["scale"][i])),
-                          md.Clock.ENTRY),
+            md.Transition("progression", "healthy", "sick", progression, md.Clock.ENTRY),
             md.Transition("death_sick", "sick", "dead", hz.LogNormal(float(values["mu"][i]), float(values["sigma"][i])),
                           md.Clock.STATE))
         out.append(md.Model(
             states=(md.State("healthy"), md.State("sick"), md.State("dead", absorbing=True)), transitions=transitions,
             population=md.Population(md.UniformAge(55.0, 70.0), "healthy"), horizon=md.Horizon(30.0),
-            background=md.BackgroundMortality("dead", {"all": hz.Gompertz(3e-5, 0.09)}),
+            background=md.BackgroundMortality("dead", {"all": background}),
             strategies=(md.Strategy("usual"), md.Strategy("new", hazard_ratios={"progression": float(values["hr"][i])})),
             name="per-lane families benchmark (invented)"))
     return out
@@ -101,9 +120,12 @@ def grouped():
 
 @contextlib.contextmanager
 def counting(calls: Counter):
-    """Count kernel calls (Weibull and log-normal conditional times) and engine rounds per exit."""
+    """Count kernel calls (Weibull, log-normal, Gompertz and Gompertz-Makeham conditional times) and
+    engine rounds per exit."""
     saved = [(shape_scale_module, "weibull_times"), (lanes_module, "weibull_times"),
-             (lognormal_module.LogNormalLanes, "conditional_time"), (draws_module.DrawExit, "latent")]
+             (lognormal_module.LogNormalLanes, "conditional_time"), (draws_module.DrawExit, "latent"),
+             (gompertz_module, "gompertz_times"), (lanes_module, "gompertz_times"),
+             (gompertz_module.MakehamLanes, "conditional_time")]
     originals = [getattr(obj, name) for obj, name in saved]
 
     def wrap(key, fn):
@@ -120,6 +142,9 @@ def counting(calls: Counter):
     lanes_module.weibull_times = wrap("weibull kernel", originals[1])
     lognormal_module.LogNormalLanes.conditional_time = wrap("lognormal kernel", originals[2])
     draws_module.DrawExit.latent = latent
+    gompertz_module.gompertz_times = wrap("gompertz kernel", originals[4])
+    lanes_module.gompertz_times = wrap("gompertz kernel", originals[5])
+    gompertz_module.MakehamLanes.conditional_time = wrap("makeham kernel", originals[6])
     try:
         yield
     finally:
@@ -141,7 +166,12 @@ def measure(variants: dict, values: dict[str, np.ndarray], patients: int, block:
                                             index=False).sum()
         reference = digest if reference is None else reference
         same = "identical" if digest == reference else "DIFFERENT"
-        if calls:
+        if calls and GOMPERTZ:
+            rounds_total = calls["rounds progression"] + calls["rounds background death"]
+            kernels = calls["gompertz kernel"] + calls["makeham kernel"]
+            print(f"  {name:9s} events {same}; Gompertz + Gompertz-Makeham kernel calls {kernels} over "
+                  f"{rounds_total} rounds of those exits ({kernels / max(rounds_total, 1):.1f} per round)")
+        elif calls:
             rounds_total = calls["rounds progression"] + calls["rounds death_sick"]
             kernels = calls["weibull kernel"] + calls["lognormal kernel"]
             print(f"  {name:9s} events {same}; Weibull + log-normal kernel calls {kernels} over {rounds_total} "
@@ -173,12 +203,17 @@ def main() -> None:
     parser.add_argument("--quick", action="store_true", help="100 draws x 200 patients, one round")
     parser.add_argument("--rounds", type=int, default=None)
     parser.add_argument("--old", type=Path, default=None, help="folder holding an older sim/ as sim_old")
+    parser.add_argument("--gompertz", action="store_true", help="Gompertz-Makeham progression and Gompertz "
+                        "background with rates, slopes and constants drawn per draw")
     args = parser.parse_args()
+    global GOMPERTZ
+    GOMPERTZ = args.gompertz
     variants = {"per-lane": ("sim", contextlib.nullcontext), "grouped": ("sim", grouped)}
     if args.old is not None:
         sys.path.insert(0, str(args.old))
         variants["old"] = ("sim_old", contextlib.nullcontext)
-    print("Weibull and log-normal parameters and a hazard ratio drawn per draw")
+    print("Gompertz-Makeham progression, Gompertz background" if GOMPERTZ else "Weibull progression",
+          "(parameters drawn per draw), log-normal death after progression, a hazard ratio drawn per draw")
     if args.quick:
         measure(variants, parameter_draws(100), 200, block_draws_for(200, 100, 1), args.rounds or 1)
         return
