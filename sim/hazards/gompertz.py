@@ -338,6 +338,9 @@ class MakehamLanes(Lanes):
         hi = np.where(rising, np.minimum(t_lin, t_g), np.minimum(t_c, t_g))
         hi = np.minimum(hi, _BIG)  # e/c may overflow for a subnormal c (+inf restored at the end)
         t = np.clip(1.0 / (1.0 / t_c + 1.0 / t_g), lo, hi)  # harmonic guess, exact for small e
+        # a lower end that overflowed (e/c and T_G, or e/(c + B), beyond the largest double): the root
+        # is at least half the largest double (the bisection's midpoints stay finite)
+        lo = np.where(lo == np.inf, np.minimum(0.5 * _BIG, hi), lo)
         out = np.empty_like(e)
         idx = np.arange(e.size)
         for _ in range(200):
@@ -355,7 +358,8 @@ class MakehamLanes(Lanes):
                 step = f * fp / (fp * fp - 0.5 * f * g * gomp)
                 new = t - step
             bad = ~((new >= lo) & (new <= hi))  # outside the bracket (or NaN): bisect
-            mid = np.where(hi > 4.0 * lo, np.sqrt(lo) * np.sqrt(hi), lo + 0.5 * (hi - lo))  # geometric if wide
+            with np.errstate(invalid="ignore"):  # inf - inf (a bracket at +inf): that lane's f decides
+                mid = np.where(hi > 4.0 * lo, np.sqrt(lo) * np.sqrt(hi), lo + 0.5 * (hi - lo))  # geometric if wide
             new = np.where(f == 0.0, t, np.where(bad, mid, new))
             done = (~bad & (np.abs(step) <= 1e-8 * t)) | (hi - lo <= 4e-16 * hi) | (f == 0.0)
             out[idx[done]] = new[done]
@@ -465,7 +469,8 @@ class GompertzMakeham(Hazard):
             return (e / (b + c)) / hr
         if g > 0.0:
             t = _gompertz_time(math.log(hr) + math.log(b) + g * x, g, _log_abs(g), e)
-            return t if np.all(c * t <= 2.0 ** -60 * _BIG) else None
+            with np.errstate(invalid="ignore"):  # 0 * inf (c = 0, T = inf): not negligible, as before
+                return t if np.all(c * t <= 2.0 ** -60 * _BIG) else None
         if c == 0.0:
             return _gompertz_time(math.log(hr) + math.log(b) + g * x, g, _log_abs(g), e)
         if b * math.exp(min(g * float(np.min(x)), 0.0)) / -g > 2.0 ** -60 * _BIG:

@@ -178,6 +178,26 @@ def test_gompertz_slopes_of_every_sign_in_one_call_solve_the_equation(family):
     assert not bad
 
 
+def test_makeham_lanes_with_subnormal_slopes_and_the_largest_draws():
+    # slopes of +-5e-324 with draws near the largest double, alone and under ratios whose e / hr
+    # overflows: the Halley bracket's lower end once overflowed (NaN times) and the large-ratio
+    # form's check multiplied 0 by inf (a RuntimeWarning, an error here); T against 40-digit mpmath
+    hazards = [GompertzMakeham(0.9, 5e-324, 0.15), GompertzMakeham(0.9, -5e-324, 0.15),
+               GompertzMakeham(3.0, 5e-324, 0.5).scaled(0.3), GompertzMakeham(3.0, 5e-324, 0.0).scaled(1e-310)]
+    x, e = np.array([0.0, 53.0, 0.0, 20.0]), np.array([0.6, 1.7e308, 1.7e308, 1e308])
+    for h in hazards:
+        t = h.conditional_time(x, e)
+        assert not np.isnan(t).any()
+        assert not [why for xi, ei, ti in zip(x, e, t) if (why := check(h, float(xi), float(ei), float(ti)))]
+    with np.errstate(**KERNEL_ERRSTATE):  # the per-lane call of the bases, each lane its own hazard's bits
+        codes = np.repeat(np.arange(3), x.size)
+        xs, es = np.tile(x, 3), np.tile(e, 3)
+        bases = hazards[:2] + [hazards[2].base]
+        t, lost = LaneHazards.of(bases).times(codes, xs, es)
+    assert lost is None
+    np.testing.assert_array_equal(t, _own(bases, codes, xs, es))
+
+
 def test_per_lane_band_rates_solve_the_piecewise_closed_form():
     # H(t) = sum of rate x time in each band up to t (the life-table form, common practice, no source)
     breaks = (0.0, 1.0, 5.0, 20.0)
