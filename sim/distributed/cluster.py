@@ -80,8 +80,11 @@ def local_cluster(workers: int, processes: bool = True):
     try:
         os.environ.update(WORKER_MALLOC_ENV)
         with dask.config.set(environ):
+            # no dashboard; the scheduler's small HTTP endpoint (health, metrics) on a free port rather
+            # than 8787, which another cluster on this machine may hold (Dask then warns)
             return LocalCluster(n_workers=workers, threads_per_worker=1, processes=processes, dashboard_address=None,
-                                worker_dashboard_address=None, silence_logs=logging.ERROR, **where)
+                                worker_dashboard_address=None, silence_logs=logging.ERROR,
+                                scheduler_kwargs={"dashboard_address": ":0"}, **where)
     finally:
         for k, v in before.items():
             if v is None:
