@@ -10,15 +10,14 @@ Per competing exit, the draws' hazards are compared once (:class:`DrawExit`):
 - the same hazard in every draw: one evaluation for all lanes, as in a plain run;
 - hazards of one family whose numbers differ (exponential, Weibull, log-logistic, log-normal,
   gamma, Gompertz and Gompertz-Makeham with any slope, piecewise-constant with shared band starts),
-  each optionally times
-  a hazard ratio that may differ too, or a ratio that differs on one shared base of any family:
+  each optionally times a hazard ratio that may differ too, or a ratio that differs on one shared
+  base of any family:
   one call of the family's kernel in which every lane carries its draw's numbers
   (:class:`sim.hazards.LaneHazards`; hazard ratios as ``e / hr`` per lane, Bender, Augustin &
   Blettner 2005, Stat Med 24(11):1713-1723). Lanes whose ``e / hr`` over- or underflowed go
   through their own hazard (its edge handling);
 - anything else (piecewise band starts that differ, waning hazard ratios, hazards with a floor,
-  mixed families): lanes grouped by their draw's hazard, one
-  evaluation per distinct hazard.
+  mixed families): lanes grouped by their draw's hazard, one evaluation per distinct hazard.
 
 Every lane goes through exactly the arithmetic of its draw's own hazard (each family's own
 conditional time is its per-lane kernel with its own numbers: the same IEEE operations on the same
