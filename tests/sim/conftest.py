@@ -98,3 +98,24 @@ def simulate_within_4_mcse(model: Model, n: int, seed: int, times: np.ndarray):
 @pytest.fixture
 def rng():
     return np.random.default_rng(12345)
+
+
+@pytest.fixture(scope="session")
+def lanthic():
+    """The bundled (invented) lanthic demo scenario."""
+    from sim.io import demo_scenario
+
+    return demo_scenario("lanthic")
+
+
+@pytest.fixture(scope="session")
+def loopback_scheduler():
+    """Address of a Dask cluster of two worker processes on the loopback interface, started once for
+    the session and closed after it (the distributed run tests share it)."""
+    import logging
+
+    from dask.distributed import LocalCluster
+
+    with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1", dashboard_address=None,
+                      worker_dashboard_address=None, silence_logs=logging.ERROR) as cluster:
+        yield cluster.scheduler_address

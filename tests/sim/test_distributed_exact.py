@@ -7,7 +7,6 @@ Cluster: two worker processes on the loopback interface, started here and closed
 from __future__ import annotations
 
 import dataclasses
-import logging
 import math
 import re
 from fractions import Fraction
@@ -15,30 +14,17 @@ from fractions import Fraction
 import numpy as np
 import pandas as pd
 import pytest
-from dask.distributed import LocalCluster
 
 from sim.analysis import OutcomeAccumulator, incremental, summarise
 from sim.analysis.exact_sums import MAX_EXPONENT, SCALE_BITS, as_fraction, exact_sums, two_product
 from sim.cli.commands import main
 from sim.distributed import run_distributed
-from sim.io import demo_scenario
 from sim.io.demo import SCENARIO_DIR
 from sim.pipeline import RunPlan, run_plan
 
 N, SEED = 3000, 5
 SCENARIO = SCENARIO_DIR / "lanthic_syndrome.toml"
 
-
-@pytest.fixture(scope="module")
-def lanthic():
-    return demo_scenario("lanthic")
-
-
-@pytest.fixture(scope="module")
-def address():
-    with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1", dashboard_address=None,
-                      worker_dashboard_address=None, silence_logs=logging.ERROR) as cluster:
-        yield cluster.scheduler_address
 
 
 def _plan(scenario, chunk: int, workers: int) -> RunPlan:
@@ -56,10 +42,10 @@ def _read(path):
     return pd.read_csv(path, float_precision="round_trip")
 
 
-def test_cli_local_and_dask_runs_write_bit_identical_summaries(address, tmp_path, capsys):
+def test_cli_local_and_dask_runs_write_bit_identical_summaries(loopback_scheduler, tmp_path, capsys):
     common = ["run", str(SCENARIO), "--patients", str(N), "--seed", str(SEED), "--no-study"]
     assert main(common + ["--output", str(tmp_path / "local")]) == 0, capsys.readouterr().err
-    assert main(common + ["--scheduler", address, "--output", str(tmp_path / "dask")]) == 0, capsys.readouterr().err
+    assert main(common + ["--scheduler", loopback_scheduler, "--output", str(tmp_path / "dask")]) == 0, capsys.readouterr().err
     for name in ("summary.csv", "increments.csv"):
         local, dask = _read(tmp_path / "local" / name), _read(tmp_path / "dask" / name)
         assert len(local) > 0
@@ -67,12 +53,12 @@ def test_cli_local_and_dask_runs_write_bit_identical_summaries(address, tmp_path
 
 
 @pytest.mark.parametrize("workers, chunk", [(1, 1000), (2, 1000), (2, 400)])
-def test_dask_run_equals_the_memory_run_bit_for_bit(lanthic, memory_run, address, tmp_path, workers, chunk):
+def test_dask_run_equals_the_memory_run_bit_for_bit(lanthic, memory_run, loopback_scheduler, tmp_path, workers, chunk):
     plan = _plan(lanthic, chunk, workers)
     if workers == 1:  # a one-worker cluster of this process (threads), as --workers 1 on a laptop would be
         got = run_distributed(lanthic, plan, tmp_path / "run", processes=False, study=False)
     else:
-        got = run_distributed(lanthic, plan, tmp_path / "run", scheduler=address, study=False)
+        got = run_distributed(lanthic, plan, tmp_path / "run", scheduler=loopback_scheduler, study=False)
     pd.testing.assert_frame_equal(got.outcomes, memory_run.outcomes, check_exact=True)
     pd.testing.assert_frame_equal(got.increments, memory_run.increments, check_exact=True)
     pd.testing.assert_frame_equal(_read(tmp_path / "run" / "summary.csv"),

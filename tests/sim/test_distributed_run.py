@@ -6,36 +6,22 @@ from __future__ import annotations
 
 import dataclasses
 import json
-import logging
 import threading
 
 import numpy as np
 import pandas as pd
 import pyarrow.dataset as ds
 import pytest
-from dask.distributed import LocalCluster
 
 from sim.cli.commands import main
 from sim.distributed import cluster as cluster_module
 from sim.distributed import PARTITIONED_FORMAT, read_partitioned, run_distributed
 from sim.engine import SimulationCancelled
-from sim.io import demo_scenario
 from sim.io.demo import SCENARIO_DIR
 from sim.pipeline import RunPlan, chunk_jobs, run_plan, simulate_chunk
 
 N, CHUNK, SEED = 3000, 1000, 5
 
-
-@pytest.fixture(scope="module")
-def lanthic():
-    return demo_scenario("lanthic")
-
-
-@pytest.fixture(scope="module")
-def address():
-    with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1", dashboard_address=None,
-                      worker_dashboard_address=None, silence_logs=logging.ERROR) as cluster:
-        yield cluster.scheduler_address
 
 
 def _plan(scenario, patients=N) -> RunPlan:
@@ -44,12 +30,12 @@ def _plan(scenario, patients=N) -> RunPlan:
 
 
 @pytest.fixture(scope="module")
-def runs(lanthic, address, tmp_path_factory):
+def runs(lanthic, loopback_scheduler, tmp_path_factory):
     plan = _plan(lanthic)
     folder = tmp_path_factory.mktemp("dask") / "run"
     local = run_plan(lanthic, plan, study=False)  # the in-memory run: the whole log and per-patient outcomes
     seen = []
-    on_dask = run_distributed(lanthic, plan, folder, scheduler=address, study=False,
+    on_dask = run_distributed(lanthic, plan, folder, scheduler=loopback_scheduler, study=False,
                               progress=lambda stage, done, total: seen.append((stage, done, total)))
     return local, on_dask, folder, seen
 
@@ -92,7 +78,7 @@ def test_summary_and_increments_equal_the_local_run(runs):
     assert not [p for p in folder.parent.iterdir() if p.name != "run"]  # no temporary folder left
 
 
-def test_cancel_leaves_nothing(lanthic, address, tmp_path):
+def test_cancel_leaves_nothing(lanthic, loopback_scheduler, tmp_path):
     stop = threading.Event()
 
     def progress(stage, done, total):
@@ -100,7 +86,7 @@ def test_cancel_leaves_nothing(lanthic, address, tmp_path):
             stop.set()  # after the first chunk
 
     with pytest.raises(SimulationCancelled):
-        run_distributed(lanthic, _plan(lanthic, patients=30_000), tmp_path / "run", scheduler=address,
+        run_distributed(lanthic, _plan(lanthic, patients=30_000), tmp_path / "run", scheduler=loopback_scheduler,
                         study=False, progress=progress, cancel=stop)
     assert list(tmp_path.iterdir()) == []
 
@@ -126,9 +112,9 @@ def test_cli_options_the_partitioned_run_cannot_take_exit_2(tmp_path, capsys, ex
     assert list(tmp_path.iterdir()) == []
 
 
-def test_cli_run_on_a_scheduler_writes_partitioned_parquet(address, tmp_path, capsys):
+def test_cli_run_on_a_scheduler_writes_partitioned_parquet(loopback_scheduler, tmp_path, capsys):
     code = main(["run", str(SCENARIO_DIR / "lanthic_syndrome.toml"), "--patients", "2000", "--seed", "3",
-                 "--no-study", "--scheduler", address, "--output", str(tmp_path / "run")])
+                 "--no-study", "--scheduler", loopback_scheduler, "--output", str(tmp_path / "run")])
     assert code == 0, capsys.readouterr().err
     assert "partitioned parquet" in capsys.readouterr().out
     meta = json.loads((tmp_path / "run" / "metadata.json").read_text())

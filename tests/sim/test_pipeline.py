@@ -20,7 +20,7 @@ import pytest
 import sim.pipeline.chunks as chunks_module
 import sim.reference.study as study_module
 from sim.engine import SimulationCancelled, simulate
-from sim.io import demo_scenario, load_scenario
+from sim.io import load_scenario
 from sim.io.demo import SCENARIO_DIR
 from sim.io.export import RunWriter, metadata_for
 from sim.pipeline import (MemorySink, RunPlan, SerialExecutor, StrategyMajorJoin, StreamSink, ThreadExecutor,
@@ -29,11 +29,6 @@ from sim.problems import ValidationError
 from sim.reference import discretization_study
 
 N = 3000
-
-
-@pytest.fixture(scope="module")
-def lanthic():
-    return demo_scenario("lanthic")
 
 
 @pytest.fixture(scope="module")
