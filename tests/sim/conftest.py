@@ -117,5 +117,6 @@ def loopback_scheduler():
     from dask.distributed import LocalCluster
 
     with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, host="127.0.0.1", dashboard_address=None,
-                      worker_dashboard_address=None, silence_logs=logging.ERROR) as cluster:
+                      worker_dashboard_address=None, silence_logs=logging.ERROR,
+                      scheduler_kwargs={"dashboard_address": ":0"}) as cluster:  # keep 8787 free for others
         yield cluster.scheduler_address
