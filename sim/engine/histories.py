@@ -25,6 +25,7 @@ that transition produces.
 from __future__ import annotations
 
 from concurrent.futures import ThreadPoolExecutor
+from queue import Empty, SimpleQueue
 from dataclasses import dataclass, field
 from typing import Callable, Iterator, Protocol
 
@@ -35,6 +36,7 @@ from numpy.typing import NDArray
 from ..hazards import KERNEL_ERRSTATE, entry_age_times
 from ..model.multistate import Clock, Model, ResolvedExit
 from .rng import ATTRIBUTE_STREAM, STREAM_LAYOUT, _BulkWords, _sorted_draws, key_from_seed
+from . import kernels
 from .tables import EventRecords, OutputTables, code_dtype
 
 __all__ = ["simulate", "simulate_chunks", "simulate_range", "SimulationResult", "SimulationCancelled", "SimulationError", "CancelToken",
@@ -138,18 +140,51 @@ def _latent_times(ex: ResolvedExit, x: NDArray[np.float64], e: NDArray[np.float6
     return out
 
 
+class _Workspace:
+    """Scratch arrays of one worker's chunks, reused from chunk to chunk and round to round: a page
+    of fresh memory costs a page fault on first touch, which on this project's VM made the engine's
+    temporaries cost more than their arithmetic (issue 16). Not thread-safe: one per worker."""
+
+    def __init__(self) -> None:
+        self._arrays: dict[str, NDArray] = {}
+        self._records: dict[int, EventRecords] = {}
+
+    def array(self, name: str, size: int, dtype=np.float64) -> NDArray:
+        """A buffer of at least ``size`` items (contents undefined), its first ``size`` returned."""
+        buf = self._arrays.get(name)
+        if buf is None or buf.size < size or buf.dtype != dtype:
+            buf = self._arrays[name] = np.empty(max(int(size), 1), dtype=dtype)
+        return buf[:size]
+
+    def records(self, k: int, capacity: int, state_code: np.dtype, exit_code: np.dtype) -> EventRecords:
+        """Strategy ``k``'s event records of the chunk, emptied (kept until the chunk's events are placed)."""
+        rec = self._records.get(k)
+        if rec is None or rec.from_.dtype != state_code or rec.exit.dtype != exit_code:
+            rec = self._records[k] = EventRecords(capacity, state_code, exit_code)
+        rec.count = 0
+        return rec
+
+
 def _run_strategy(model: Model, resolved: list[list[ResolvedExit]], bulk: _BulkWords, start: int,
                   entry_age: NDArray[np.float64], sex: NDArray[np.int8], initial: NDArray,
                   limit: NDArray[np.float64], max_transitions: int, t: NDArray[np.float64], cur: NDArray,
-                  reason: NDArray[np.int8], draw_of: NDArray[np.int64] | None = None) -> EventRecords:
+                  reason: NDArray[np.int8], draw_of: NDArray[np.int64] | None = None,
+                  work: _Workspace | None = None, code: int = 0) -> EventRecords:
     """Histories of one chunk under one strategy. ``t``, ``cur`` and ``reason`` are the chunk's rows
     of the patient table (exit time, final state, exit reason), used as the working state.
-    ``draw_of`` gives each patient's parameter draw when the exits are per-draw (``DrawExit``)."""
+    ``draw_of`` gives each patient's parameter draw when the exits are per-draw (``DrawExit``);
+    ``work`` holds the worker's scratch arrays, ``code`` the strategy's index in the run.
+
+    Per round and occupied state: the state's patients' uniforms (:func:`kernels.visit_units`, each
+    at its own occurrence), their exponentials (numpy), each exit's conditional times (the hazards'
+    numpy kernels), then the competing minimum, moves, censoring and records
+    (:func:`kernels.settle`)."""
     n = entry_age.size
     n_states = len(model.states)
     state_code = _code_dtype(n_states)
     exit_code = _code_dtype(len(model.exit_names))
     absorbing = np.array([s.absorbing for s in model.states])
+    k0, k1 = np.uint64(bulk.pair[0]), np.uint64(bulk.pair[1])
     cur[...] = initial
     t[...] = 0.0
     active = limit > 0.0
@@ -162,13 +197,12 @@ def _run_strategy(model: Model, resolved: list[list[ResolvedExit]], bulk: _BulkW
     reads_entry = [[any(getattr(h, "reads_entry_age", False) for h in e.hazards) for e in ex] for ex in resolved]
     by_sex = [any(getattr(e, "sex_specific", None) or any(h is not e.hazards[0] for h in e.hazards) for e in ex)
               for ex in resolved]
-    # one record per (round, state): chunk-local patient index, time, from, to, exit, round
-    rec_idx: list[NDArray[np.int64]] = []
-    rec_time: list[NDArray[np.float64]] = []
-    rec_from: list[int] = []
-    rec_to: list[NDArray] = []
-    rec_exit: list[NDArray] = []
-    rec_round: list[int] = []
+    work = work if work is not None else _Workspace()
+    rec = work.records(code, 2 * n, state_code, exit_code)
+    k_max = max(len(ex) for ex in resolved)
+    bounds = np.empty(n_states + 1, dtype=np.int64)
+    order, clock, attained = work.array("order", n, np.int64), work.array("clock", n), work.array("attained", n)
+    draws_buf, latent_buf = work.array("draws", n * k_max), work.array("latent", n * k_max)
     rounds = 0
     while True:
         idx = np.flatnonzero(active)
@@ -180,110 +214,45 @@ def _run_strategy(model: Model, resolved: list[list[ResolvedExit]], bulk: _BulkW
                 f"some patients made more than {max_transitions} transitions before the horizon "
                 f"(states now occupied: {sorted({model.state_names[s] for s in np.unique(cur[idx])})}); "
                 f"check for very large hazards on a loop between states, or raise max_transitions")
-        everyone = idx.size == n  # all patients active: whole arrays instead of gathers
-        cur_round = cur if everyone else cur[idx]
-        present = np.flatnonzero(np.bincount(cur_round, minlength=n_states)).tolist()
-        if everyone and len(present) > 1:
-            # moves below update ``cur``; this round's states must not follow them (a patient moved
-            # into a state handled later in the round would move twice). Reached when patients start
-            # in several states (an initial mix).
-            cur_round = cur.copy()
-        for s in present:
-            if len(present) == 1:
-                sel, whole = idx, everyone
-            else:
-                sel, whole = idx[cur_round == s], False
+        # each state's patients are fixed (``order``) before any of them moves: a patient moved into
+        # a state handled later in the round does not move twice
+        kernels.by_state(idx, cur, t, entry_age, bounds, order, clock, attained)
+        for s in np.flatnonzero(np.diff(bounds)).tolist():
+            part = slice(int(bounds[s]), int(bounds[s + 1]))
+            sel, ts = order[part], clock[part]
             exits = resolved[s]
             k = len(exits)
             if visits[s] is None:
-                visits[s] = np.zeros(n, dtype=np.int64)
-            v = visits[s]
-            occ = v if whole else v[sel]
-            o_lo, o_hi = int(occ.min()), int(occ.max())
-            if o_lo == o_hi:  # the usual case: one occurrence number per (round, state)
-                e = _sorted_draws(bulk, sel + start, 1 + s, o_lo, k)
-                if whole:
-                    v += 1
-                else:
-                    v[sel] = o_lo + 1
-            else:
-                e = np.empty((sel.size, k))
-                for o in np.unique(occ).tolist():
-                    m = occ == o
-                    e[m] = _sorted_draws(bulk, sel[m] + start, 1 + s, o, k)
-                v[sel] = occ + 1
-            ts = t if whole else t[sel]
-            age = (entry_age + ts if whole else entry_age[sel] + ts) if uses_age[s] else None
-            sx = (sex if whole else sex[sel]) if by_sex[s] else None
-            dr = None if draw_of is None else (draw_of if whole else draw_of[sel])
-            a0 = (entry_age if whole else entry_age[sel]) if any(reads_entry[s]) else None
-            # earliest latent time (the first exit wins ties, as with numpy.argmin)
-            best = _latent_times(exits[0], _clock_value(exits[0], ts, age), e[:, 0], sx, dr,
-                                 a0 if reads_entry[s][0] else None)
-            win = None
-            for j in range(1, k):
-                dt_j = _latent_times(exits[j], _clock_value(exits[j], ts, age), e[:, j], sx, dr,
-                                     a0 if reads_entry[s][j] else None)
-                better = dt_j < best
-                best = np.where(better, dt_j, best)
-                win = np.where(better, j, 0 if win is None else win)
-            t_new = ts + best
-            if rounds > 1:  # a stay shorter than the clock resolves at ts lasts one step of the clock, so
-                # that a patient's move times stay strictly increasing (no two moves at the same time)
-                t_new = np.maximum(t_new, np.nextafter(ts, np.inf))
-            lim = limit if whole else limit[sel]
-            moved = t_new < lim
-            m_idx = sel[moved]
-            # censored at the horizon: follow-up ends there; the others move at t_new
-            if whole:
-                np.copyto(t, np.where(moved, t_new, lim))
-                np.copyto(active, moved)
-            else:
-                t[sel] = np.where(moved, t_new, lim)
-                active[sel] = moved
-            t_moved = t_new[moved]
-            if win is None:
-                to = np.full(m_idx.size, targets[s][0], dtype=state_code)
-                ex_code = np.full(m_idx.size, exit_index[s][0], dtype=exit_code)
-            else:
-                w = win[moved]
-                to = targets[s][w]
-                ex_code = exit_index[s][w]
-            rec_idx.append(m_idx)
-            rec_time.append(t_moved)
-            rec_from.append(s)
-            rec_to.append(to)
-            rec_exit.append(ex_code)
-            rec_round.append(rounds)
-            cur[m_idx] = to
-            done = absorbing[to]  # moved patients were active and not absorbed until now
-            absorbed[m_idx] = done
-            active[m_idx] = ~done
-    # Order events by patient, then time, by placing them directly: a patient active in round r
-    # has made exactly r - 1 moves before it (every round either moves or censors each active
-    # patient), so its event of round r is its r-th.
-    sizes = [a.size for a in rec_idx]
-    ev_idx = np.concatenate(rec_idx) if rec_idx else np.zeros(0, dtype=np.int64)
-    per_patient = np.bincount(ev_idx, minlength=n)
-    first_slot = np.cumsum(per_patient) - per_patient
-    dest = first_slot[ev_idx]
-    dest += np.repeat(np.array(rec_round, dtype=np.int64) - 1, sizes)
-    del first_slot, per_patient
+                visits[s] = work.array(f"visits {s}", n, np.int64)
+                visits[s][...] = 0
+            e = draws_buf[:sel.size * k].reshape(sel.size, k)
+            kernels.visit_units(sel, start, visits[s], k, 1 + s, k0, k1, e)
+            np.log(e, out=e)
+            np.negative(e, out=e)
+            age = attained[part] if uses_age[s] else None
+            sx = sex[sel] if by_sex[s] else None
+            dr = None if draw_of is None else draw_of[sel]
+            a0 = entry_age[sel] if any(reads_entry[s]) else None
+            latent = latent_buf[:k * sel.size].reshape(k, sel.size)
+            for j, ex in enumerate(exits):
+                latent[j] = _latent_times(ex, _clock_value(ex, ts, age), e[:, j], sx, dr,
+                                          a0 if reads_entry[s][j] else None)
+            rec.reserve(sel.size)
+            rec.count = kernels.settle(sel, latent, rounds > 1, s, rounds, limit, targets[s], exit_index[s],
+                                       absorbing, t, cur, active, absorbed, rec.idx, rec.time, rec.from_, rec.to,
+                                       rec.exit, rec.round, rec.count)
     np.logical_not(absorbed, out=reason.view(np.bool_))  # 0 "absorbed", 1 "censored"
-    if not rec_idx:
-        return EventRecords(dest, ev_idx, np.zeros(0), np.zeros(0, dtype=state_code), np.zeros(0, dtype=state_code),
-                            np.zeros(0, dtype=exit_code))
-    return EventRecords(dest, ev_idx, np.concatenate(rec_time),
-                        np.repeat(np.array(rec_from, dtype=state_code), sizes),
-                        np.concatenate(rec_to), np.concatenate(rec_exit))
+    return rec
 
 
 def _simulate_chunk(model: Model, plans: list[list[list[ResolvedExit]]], key: tuple[int, int],
                     start: int, stop: int, max_transitions: int, table: _PatientTable,
-                    draws=None) -> _ChunkOut:
+                    draws=None, work: _Workspace | None = None) -> _ChunkOut:
     """One chunk. ``draws`` (a ``sim.engine.draws.DrawSet``) gives patients of different parameter
-    draws their own population and horizon (``draws.segments``) and each patient's draw index."""
+    draws their own population and horizon (``draws.segments``) and each patient's draw index;
+    ``work``: the worker's scratch arrays (a fresh set if None)."""
     bulk = _BulkWords(key)
+    work = work if work is not None else _Workspace()
     segments = [(start, stop, model)] if draws is None else draws.segments(start, stop)
     single = all(m.population.single_initial_state for _, _, m in segments)
     # attribute words: entry age and sex (occurrence 0); the initial state of a mix from occurrence 1,
@@ -308,9 +277,11 @@ def _simulate_chunk(model: Model, plans: list[list[list[ResolvedExit]]], key: tu
     for k, plan in enumerate(plans):
         rows = table.rows(k, start, stop)
         per.append(_run_strategy(model, plan, bulk, start, entry_age, sex, initial, limit, max_transitions,
-                                 table.exit_time[rows], table.final_state[rows], table.exit_reason[rows], draw_of))
+                                 table.exit_time[rows], table.final_state[rows], table.exit_reason[rows], draw_of,
+                                 work, k))
     table.finish_patients(start, stop)
-    table.place_events(start, stop, per, entry_age, _code_dtype(len(model.exit_names)))
+    table.place_events(start, stop, per, entry_age, _code_dtype(len(model.exit_names)),
+                       work.array("slots", stop - start + 1, np.int64))
     return _ChunkOut(start, stop)
 
 
@@ -365,13 +336,21 @@ def _chunk_outputs(model: Model, n_patients: int, seed: int, names: tuple[str, .
     key = key_from_seed(seed)
     plans = [model.resolve(nm) for nm in names]
     bounds = [(a, min(a + chunk_size, n_patients)) for a in range(0, n_patients, chunk_size)]
+    spare: SimpleQueue[_Workspace] = SimpleQueue()  # scratch arrays of the workers' finished chunks
 
     def work(i: int) -> tuple[_ChunkOut, _PatientTable]:
         if cancel_requested(cancel):
             raise SimulationCancelled("simulation cancelled")
         a, b = bounds[i]
         rows = table if table is not None else _PatientTable(a, b - a, len(names), state_code)
-        return _simulate_chunk(model, plans, key, a, b, max_transitions, rows), rows
+        try:
+            ws = spare.get_nowait()
+        except Empty:
+            ws = _Workspace()
+        try:
+            return _simulate_chunk(model, plans, key, a, b, max_transitions, rows, work=ws), rows
+        finally:
+            spare.put(ws)
 
     if workers == 1 or len(bounds) == 1:
         for i in range(len(bounds)):

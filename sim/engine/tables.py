@@ -34,6 +34,8 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
+from . import kernels
+
 __all__ = ["code_dtype", "EventRecords", "OutputTables", "move_down"]
 
 #: Rows of a strategy's region reserved beyond the estimate from the first chunk (share and count).
@@ -52,18 +54,34 @@ def code_dtype(n_labels: int) -> np.dtype:
 
 
 class EventRecords:
-    """One strategy's events of one chunk in the order they were made (round by round), with each
-    event's slot in patient-then-time order among the chunk's events (``dest``)."""
+    """One strategy's events of one chunk in the order they were made (round by round): chunk-local
+    patient index, time, from and to state codes, exit code and round, in growable columns of which
+    the first ``count`` rows are used. :meth:`OutputTables.place_events` puts them in
+    patient-then-time order."""
 
-    __slots__ = ("dest", "idx", "time", "from_", "to", "exit")
+    __slots__ = ("idx", "time", "from_", "to", "exit", "round", "count")
 
-    def __init__(self, dest: NDArray[np.int64], idx: NDArray[np.int64], time: NDArray[np.float64],
-                 from_: NDArray, to: NDArray, exit: NDArray) -> None:
-        self.dest, self.idx, self.time, self.from_, self.to, self.exit = dest, idx, time, from_, to, exit
+    def __init__(self, capacity: int, state_code: np.dtype, exit_code: np.dtype) -> None:
+        capacity = max(int(capacity), 16)
+        self.idx = np.empty(capacity, dtype=np.int64)
+        self.time = np.empty(capacity)
+        self.from_ = np.empty(capacity, dtype=state_code)
+        self.to = np.empty(capacity, dtype=state_code)
+        self.exit = np.empty(capacity, dtype=exit_code)
+        self.round = np.empty(capacity, dtype=np.int64)
+        self.count = 0
 
-    @property
-    def count(self) -> int:
-        return int(self.dest.size)
+    def reserve(self, more: int) -> None:
+        """Make room for ``more`` records after the ``count`` already made (doubling the columns)."""
+        need = self.count + int(more)
+        if need <= self.idx.size:
+            return
+        size = max(need, 2 * self.idx.size)
+        for name in ("idx", "time", "from_", "to", "exit", "round"):
+            old = getattr(self, name)
+            new = np.empty(size, dtype=old.dtype)
+            new[:self.count] = old[:self.count]
+            setattr(self, name, new)
 
 
 def move_down(a: NDArray, src: int, dst: int, n: int) -> None:
@@ -227,27 +245,22 @@ class OutputTables:
             return self._events
 
     def place_events(self, start: int, stop: int, records: Sequence[EventRecords],
-                     entry_age: NDArray[np.float64], exit_code: np.dtype) -> None:
+                     entry_age: NDArray[np.float64], exit_code: np.dtype, scratch: NDArray[np.int64] | None = None) -> None:
         """Write the events of patients ``start .. stop - 1`` (``records[k]`` for strategy ``k``; patient
         indexes local to the chunk, ``entry_age`` the chunk's entry ages) into the event columns, after
-        the chunks before it (waits for its turn)."""
+        the chunks before it (waits for its turn). ``scratch``: ``stop - start + 1`` integers to use
+        as working space (allocated if None)."""
+        if scratch is None:
+            scratch = np.empty(stop - start + 1, dtype=np.int64)
         cols = self._event_columns(exit_code)
         bufs, offsets = cols.reserve(start, stop, [r.count for r in records])
         try:
             for k, (rec, off) in enumerate(zip(records, offsets)):
                 rows = slice(off, off + rec.count)
-                patient = bufs["patient"][rows]
-                patient[rec.dest] = rec.idx  # chunk-local for now
-                bufs["from_state"][rows][rec.dest] = rec.from_
-                time = bufs["time"][rows]
-                time[rec.dest] = rec.time
-                bufs["to_state"][rows][rec.dest] = rec.to
-                bufs["transition"][rows][rec.dest] = rec.exit
-                age = bufs["age"][rows]
-                np.take(entry_age, patient, out=age, mode="clip")  # indexes are valid: no bounds buffer
-                age += time  # attained age: entry age + time
-                patient += start
-                bufs["strategy"][rows] = k
+                kernels.place_events(rec.idx, rec.time, rec.from_, rec.to, rec.exit, rec.round, rec.count,
+                                     entry_age, start, k, scratch,
+                                     *(bufs[f][rows] for f in ("patient", "time", "age", "from_state", "to_state",
+                                                               "transition", "strategy")))
         finally:
             cols.done()
 

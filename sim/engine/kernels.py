@@ -1,0 +1,237 @@
+"""Compiled kernels of the engine's round loop (numba): keyed draws, the competing minimum and moves,
+and the placement of a chunk's events.
+
+What stays in numpy: every transcendental function (``log`` of the draws, the hazards' conditional
+times), whose SIMD implementations in numpy are several times faster than the scalar libm calls a
+compiled loop makes, and whose bits are therefore exactly those of the numpy code before this module.
+What moved here is the integer and bookkeeping work that numpy can only do as many passes with
+temporaries and gathers (issue 16):
+
+- :func:`visit_units`: the Philox4x64-10 words (Salmon, Moraes, Dror & Shaw 2011, Proc. SC'11) of
+  exactly the patients in a state, at each patient's own occurrence, turned into uniforms. numpy's
+  C Philox can only produce consecutive counters, so a state holding a scattered tenth of a chunk's
+  patients cost the words of the whole id range and a gather; here each counter is evaluated once
+  (consecutive patients share it). The 64 x 64 -> 128-bit products are one machine multiply
+  (:func:`_mulhi`, an LLVM ``i128`` product). Same bits as :func:`sim.engine.rng.uniforms` (tested).
+- :func:`settle`: the earliest latent time per patient (the first exit wins ties), the move or the
+  censoring at the horizon, and the event record, in one pass instead of some twenty array passes.
+- :func:`place_events`: a chunk's records written straight into the run's event columns in
+  patient-then-time order (counting placement).
+
+All kernels release the GIL (``nogil``), so the worker threads of a run overlap them, and are cached
+on disk after their first compilation (``cache=True``).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from llvmlite import ir
+from numba import njit, types
+from numba.extending import intrinsic
+
+__all__ = ["visit_units", "by_state", "settle", "place_events"]
+
+
+@intrinsic
+def _mulhilo(typingctx, a, b):  # noqa: ARG001 - numba's intrinsic signature
+    """High and low 64 bits of the 128-bit product of two unsigned 64-bit words: one LLVM ``i128``
+    product, which x86-64 computes with a single ``mulx``."""
+    sig = types.UniTuple(types.uint64, 2)(types.uint64, types.uint64)
+
+    def codegen(context, builder, signature, args):  # noqa: ARG001
+        wide, word = ir.IntType(128), ir.IntType(64)
+        product = builder.mul(builder.zext(args[0], wide), builder.zext(args[1], wide))
+        hi = builder.trunc(builder.lshr(product, ir.Constant(wide, 64)), word)
+        return context.make_tuple(builder, signature.return_type, (hi, builder.trunc(product, word)))
+
+    return sig, codegen
+
+
+@intrinsic
+def _bits_as_float(typingctx, bits):  # noqa: ARG001
+    """The float64 whose bit pattern is ``bits`` (a reinterpretation, no conversion)."""
+    sig = types.float64(types.uint64)
+
+    def codegen(context, builder, signature, args):  # noqa: ARG001
+        return builder.bitcast(args[0], ir.DoubleType())
+
+    return sig, codegen
+
+
+@intrinsic
+def _float_bits(typingctx, x):  # noqa: ARG001
+    """The bit pattern of a float64 as an unsigned 64-bit word."""
+    sig = types.uint64(types.float64)
+
+    def codegen(context, builder, signature, args):  # noqa: ARG001
+        return builder.bitcast(args[0], ir.IntType(64))
+
+    return sig, codegen
+
+
+# Philox4x64 round multipliers and Weyl key increments (Salmon et al. 2011, Table 2 / Random123).
+_M0 = np.uint64(0xD2E7470EE14C6C93)
+_M1 = np.uint64(0xCA5A826395121157)
+_W0 = np.uint64(0x9E3779B97F4A7C15)
+_W1 = np.uint64(0xBB67AE8584CAA73B)
+_ONE_BITS = np.uint64(0x3FF0000000000000)  # bit pattern of 1.0
+_NO_COUNTER = np.uint64(0xFFFFFFFFFFFFFFFF)
+
+
+@njit(inline="always")
+def _philox(c0, c1, c2, c3, k0, k1):
+    """Philox4x64-10 of the counter (c0, c1, c2, c3) under the key (k0, k1): a round maps it to
+    (hi(M1 c2) ^ c1 ^ k0, lo(M1 c2), hi(M0 c0) ^ c3 ^ k1, lo(M0 c0)), the key advancing by the Weyl
+    constants; all arithmetic modulo 2^64."""
+    for _ in range(10):
+        hi0, lo0 = _mulhilo(_M0, c0)
+        hi1, lo1 = _mulhilo(_M1, c2)
+        c0, c1, c2, c3 = hi1 ^ c1 ^ k0, lo1, hi0 ^ c3 ^ k1, lo0
+        k0 = k0 + _W0
+        k1 = k1 + _W1
+    return c0, c1, c2, c3
+
+
+@njit(inline="always")
+def _unit(word):
+    """u = 1 - floor(w / 2^12) / 2^52 in (0, 1]: the top 52 bits as the mantissa of a float f in
+    [1, 2), then 2 - f (exact by Sterbenz's lemma); as :func:`sim.engine.rng._to_unit`."""
+    return 2.0 - _bits_as_float((word >> np.uint64(12)) | _ONE_BITS)
+
+
+@njit(inline="always")
+def _fill(pid, o, k, stream, k0, k1, out, i, last):
+    """Uniforms of the ``k`` words of patient ``pid`` at occurrence ``o`` into ``out[i, :]``: word
+    ``w = pid k + j`` is word ``w mod 4`` of the counter ``(w div 4, stream, o, 0)``. ``last`` is the
+    last counter evaluated (index, occurrence, its four words), returned updated: consecutive
+    patients share counters."""
+    c_last, o_last, w0, w1, w2, w3 = last
+    oc = np.uint64(o)
+    w = np.uint64(pid) * np.uint64(k)
+    for j in range(k):
+        c = w >> np.uint64(2)
+        if c != c_last or oc != o_last:
+            w0, w1, w2, w3 = _philox(c, np.uint64(stream), oc, np.uint64(0), k0, k1)
+            c_last, o_last = c, oc
+        r = w & np.uint64(3)
+        out[i, j] = _unit(w0 if r == 0 else (w1 if r == 1 else (w2 if r == 2 else w3)))
+        w += np.uint64(1)
+    return c_last, o_last, w0, w1, w2, w3
+
+
+_NOTHING_YET = (_NO_COUNTER, _NO_COUNTER, np.uint64(0), np.uint64(0), np.uint64(0), np.uint64(0))
+
+
+@njit(nogil=True, cache=True)
+def visit_units(sel, start, visits, k, stream, k0, k1, out):  # pragma: no cover - compiled
+    """Uniforms for the patients ``sel`` (chunk-local indexes, ids ``start + sel``) entering state
+    ``stream - 1`` again: patient ``p``'s occurrence is ``visits[p]`` (then counted up by one) and its
+    ``k`` uniforms go into ``out[i, :]`` for ``p = sel[i]``. Layout of :mod:`sim.engine.rng`."""
+    last = _NOTHING_YET
+    for i in range(sel.size):
+        p = sel[i]
+        o = visits[np.uint64(p)]
+        visits[np.uint64(p)] = o + 1
+        last = _fill(start + p, o, k, stream, k0, k1, out, i, last)
+
+
+@njit(nogil=True, cache=True)
+def by_state(idx, cur, t, entry_age, bounds, order, ts, age):  # pragma: no cover - compiled
+    """The patients ``idx`` (increasing) grouped by current state, in increasing order within a
+    state: state ``s``'s are ``order[bounds[s]:bounds[s + 1]]``, with their clocks ``ts`` (time since
+    entry, ``t[p]``) and attained ages ``age`` (``entry_age[p] + t[p]``) in the same rows (a counting
+    sort; no branches that depend on the data). ``bounds`` has one more entry than there are states."""
+    bounds[:] = 0
+    for i in range(idx.size):
+        bounds[cur[np.uint64(idx[i])] + 1] += 1
+    for s in range(bounds.size - 1):
+        bounds[s + 1] += bounds[s]
+    pos = bounds[:-1].copy()
+    for i in range(idx.size):
+        p = np.uint64(idx[i])  # unsigned indexes: no code for negative-index wraparound
+        s = cur[p]
+        q = pos[s]
+        pos[s] = q + 1
+        order[q] = idx[i]
+        x = t[p]
+        ts[q] = x
+        age[q] = entry_age[p] + x
+
+
+@njit(nogil=True, cache=True)
+def settle(sel, latent, later, state, rnd, limit, targets, exits, absorbing, t, cur, active, absorbed,
+           rec_idx, rec_time, rec_from, rec_to, rec_exit, rec_round, count):  # pragma: no cover - compiled
+    """Resolve one round of the patients ``sel`` in ``state``; returns the new number of records.
+
+    For patient ``p = sel[i]`` the exit ``j`` with the smallest latent time ``latent[j, i]`` wins
+    (the first on ties, as ``numpy.argmin``); the move time is ``t[p] + latent[j, i]``, in rounds
+    after the first (``later``) at least one step of the clock after ``t[p]`` (``nextafter``; move
+    times stay strictly increasing). A move before ``limit[p]`` goes to ``targets[j]`` and is
+    recorded (patient, time, from, to, exit code ``exits[j]``, round ``rnd``), and the patient stays
+    ``active`` unless absorbed; otherwise it is censored at the limit. ``t >= +0``
+    always, so the next float up is the bit pattern plus one.
+    """
+    k = latent.shape[0]
+    n_rec = count
+    for i in range(sel.size):
+        p = np.uint64(sel[i])  # unsigned indexes: no code for negative-index wraparound
+        best = latent[0, i]
+        w = 0
+        for j in range(1, k):
+            x = latent[j, i]
+            if x < best:
+                best = x
+                w = j
+        ts = t[p]
+        tn = ts + best
+        if later:
+            up = _bits_as_float(_float_bits(ts) + np.uint64(1))
+            if tn < up:
+                tn = up
+        lim = limit[p]
+        if tn < lim:
+            to = targets[w]
+            t[p] = tn
+            cur[p] = to
+            done = absorbing[to]
+            absorbed[p] = done
+            active[p] = not done
+            rec_idx[n_rec] = sel[i]
+            rec_time[n_rec] = tn
+            rec_from[n_rec] = state
+            rec_to[n_rec] = to
+            rec_exit[n_rec] = exits[w]
+            rec_round[n_rec] = rnd
+            n_rec += 1
+        else:
+            t[p] = lim
+            active[p] = False
+    return n_rec
+
+
+@njit(nogil=True, cache=True)
+def place_events(rec_idx, rec_time, rec_from, rec_to, rec_exit, rec_round, count, entry_age, start, code, first,
+                 patient, time, age, from_state, to_state, transition, strategy):  # pragma: no cover - compiled
+    """Write ``count`` records of a chunk into the event columns (views of the chunk's rows) in
+    patient-then-time order: a patient active in round r has made exactly r - 1 moves before it
+    (each round moves or censors every active patient), so its event of round r is its r-th, at
+    ``first[p] + r - 1`` where ``first`` counts the events of the patients before it (a counting
+    placement). Attained age = entry age + time; patient ids ``start + p``; strategy code ``code``;
+    ``first``: scratch of one more entry than the chunk has patients."""
+    n = first.size - 1
+    first[:] = 0
+    for r in range(count):
+        first[rec_idx[r] + 1] += 1
+    for p in range(n):
+        first[p + 1] += first[p]
+    for r in range(count):
+        p = np.uint64(rec_idx[r])  # unsigned indexes: no code for negative-index wraparound
+        d = np.uint64(first[p] + rec_round[r] - 1)
+        tr = rec_time[r]
+        patient[d] = start + rec_idx[r]
+        time[d] = tr
+        age[d] = entry_age[p] + tr
+        from_state[d] = rec_from[r]
+        to_state[d] = rec_to[r]
+        transition[d] = rec_exit[r]
+        strategy[d] = code
