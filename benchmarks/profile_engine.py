@@ -41,11 +41,10 @@ OUTPUT = HERE / "PROFILES.md"
 
 # engine source lines by kind of work: (kind, text that identifies the line)
 _KINDS = (
-    ("draws (counter-based generator, uniforms, log)", ("_sorted_draws(",)),
+    ("draws (counter-based generator, uniforms, log)", ("_sorted_draws(", "visit_units(", "np.log(e", "np.negative(e")),
     ("hazards (conditional times)", ("_latent_times(",)),
-    ("competing minimum", ("better = ", "best = np.where", "win = np.where")),
-    ("event order (slots in patient-then-time order, records)", ("first_slot", "dest", "per_patient", "ev_idx",
-                                                                 "EventRecords(", "np.concatenate(", "np.repeat")),
+    ("competing minimum, moves and records (kernels.settle)", ("kernels.settle(",)),
+    ("grouping by state", ("kernels.by_state(", "np.flatnonzero(")),
 )
 
 
