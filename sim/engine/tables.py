@@ -8,7 +8,8 @@ scatters its events there in patient-then-time order. No per-chunk copy of the e
 chunk and no join copies them at the end, so a run touches fresh memory only for the tables it
 returns: on this project's VM a page of fresh memory costs up to ten times as much to touch as one
 the process freed moments ago, which made 10^7 patients cost ~1.8x as much per patient as 10^6 when
-the chunks' results were kept and joined (benchmarks/RESULTS.md, issue 16).
+the chunks' results were kept and joined (benchmarks/RESULTS.md, issue 16). The returned columns
+themselves come from :mod:`sim.engine.buffers`, which reuses the memory of tables no longer held.
 
 The event columns hold one region per strategy (the table is strategy-major). Their size is not
 known until the last chunk is done, so the first chunk in order sizes them from its own counts
@@ -34,7 +35,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
-from . import kernels
+from . import buffers, kernels
 
 __all__ = ["code_dtype", "EventRecords", "OutputTables", "move_down"]
 
@@ -128,7 +129,7 @@ class _EventColumns:
     def _allocate(self, cap: list[int]) -> dict[str, NDArray]:
         self.cap = cap
         self.base = list(accumulate(cap[:-1], initial=0))
-        return {f: np.empty(sum(cap), dtype=dt) for f, dt in self.dtypes.items()}
+        return {f: buffers.empty(sum(cap), dt) for f, dt in self.dtypes.items()}
 
     def reserve(self, start: int, stop: int, counts: Sequence[int]) -> tuple[dict[str, NDArray], list[int]]:
         """Wait for the turn of the chunk ``start .. stop - 1`` (the chunks before it have taken their
@@ -202,15 +203,15 @@ class OutputTables:
         self.strategy_code = code_dtype(n_st)
         self.state_code = np.dtype(state_code)
         rows = n * n_st
-        self.strategy = np.empty(rows, dtype=self.strategy_code)
-        self.patient = np.empty(rows, dtype=np.int64)
-        self.entry_age = np.empty(rows)
-        self.sex = np.empty(rows, dtype=np.int8)
-        self.initial = np.empty(rows, dtype=state_code)  # initial state, common to every strategy
-        self.exit_time = np.empty(rows)
-        self.exit_age = np.empty(rows)
-        self.final_state = np.empty(rows, dtype=state_code)
-        self.exit_reason = np.empty(rows, dtype=np.int8)  # codes of ("absorbed", "censored")
+        self.strategy = buffers.empty(rows, self.strategy_code)
+        self.patient = buffers.empty(rows, np.int64)
+        self.entry_age = buffers.empty(rows)
+        self.sex = buffers.empty(rows, np.int8)
+        self.initial = buffers.empty(rows, state_code)  # initial state, common to every strategy
+        self.exit_time = buffers.empty(rows)
+        self.exit_age = buffers.empty(rows)
+        self.final_state = buffers.empty(rows, state_code)
+        self.exit_reason = buffers.empty(rows, np.int8)  # codes of ("absorbed", "censored")
         self._events: _EventColumns | None = None
         self._aborted = False
         self._lock = threading.Lock()
