@@ -10,8 +10,8 @@ temporaries and gathers (issue 16):
 - :func:`visit_units`: the Philox4x64-10 words (Salmon, Moraes, Dror & Shaw 2011, Proc. SC'11) of
   exactly the patients in a state, at each patient's own occurrence, turned into uniforms. numpy's
   C Philox can only produce consecutive counters, so a state holding a scattered tenth of a chunk's
-  patients cost the words of the whole id range and a gather; here each counter is evaluated once
-  (consecutive patients share it). The 64 x 64 -> 128-bit products are one machine multiply
+  patients cost the words of the whole id range and a gather; here only the counters of the
+  patients in the state are evaluated. The 64 x 64 -> 128-bit products are one machine multiply
   (:func:`_mulhi`, an LLVM ``i128`` product). Same bits as :func:`sim.engine.rng.uniforms` (tested).
 - :func:`settle`: the earliest latent time per patient (the first exit wins ties), the move or the
   censoring at the horizon, and the event record, in one pass instead of some twenty array passes.
@@ -75,7 +75,6 @@ _M1 = np.uint64(0xCA5A826395121157)
 _W0 = np.uint64(0x9E3779B97F4A7C15)
 _W1 = np.uint64(0xBB67AE8584CAA73B)
 _ONE_BITS = np.uint64(0x3FF0000000000000)  # bit pattern of 1.0
-_NO_COUNTER = np.uint64(0xFFFFFFFFFFFFFFFF)
 
 
 @njit(inline="always")
@@ -99,40 +98,35 @@ def _unit(word):
     return 2.0 - _bits_as_float((word >> np.uint64(12)) | _ONE_BITS)
 
 
-@njit(inline="always")
-def _fill(pid, o, k, stream, k0, k1, out, i, last):
-    """Uniforms of the ``k`` words of patient ``pid`` at occurrence ``o`` into ``out[i, :]``: word
-    ``w = pid k + j`` is word ``w mod 4`` of the counter ``(w div 4, stream, o, 0)``. ``last`` is the
-    last counter evaluated (index, occurrence, its four words), returned updated: consecutive
-    patients share counters."""
-    c_last, o_last, w0, w1, w2, w3 = last
-    oc = np.uint64(o)
-    w = np.uint64(pid) * np.uint64(k)
-    for j in range(k):
-        c = w >> np.uint64(2)
-        if c != c_last or oc != o_last:
-            w0, w1, w2, w3 = _philox(c, np.uint64(stream), oc, np.uint64(0), k0, k1)
-            c_last, o_last = c, oc
-        r = w & np.uint64(3)
-        out[i, j] = _unit(w0 if r == 0 else (w1 if r == 1 else (w2 if r == 2 else w3)))
-        w += np.uint64(1)
-    return c_last, o_last, w0, w1, w2, w3
-
-
-_NOTHING_YET = (_NO_COUNTER, _NO_COUNTER, np.uint64(0), np.uint64(0), np.uint64(0), np.uint64(0))
-
-
 @njit(nogil=True, cache=True)
 def visit_units(sel, start, visits, k, stream, k0, k1, out):  # pragma: no cover - compiled
     """Uniforms for the patients ``sel`` (chunk-local indexes, ids ``start + sel``) entering state
     ``stream - 1`` again: patient ``p``'s occurrence is ``visits[p]`` (then counted up by one) and its
-    ``k`` uniforms go into ``out[i, :]`` for ``p = sel[i]``. Layout of :mod:`sim.engine.rng`."""
-    last = _NOTHING_YET
+    ``k`` uniforms go into ``out[i, :]`` for ``p = sel[i]``. Layout of :mod:`sim.engine.rng`: word
+    ``w = id k + j`` of the patient is word ``w mod 4`` of the counter ``(w div 4, stream, o, 0)``.
+
+    Each patient evaluates the counters of its own words, even when the patient before it used the
+    same counter: a patient's work then depends on nothing carried from the previous one, so the
+    processor overlaps the multiplications of consecutive patients; measured 25-45% faster per word
+    than keeping the last counter's words (issue 16), although it repeats some counters."""
+    st, kk, top = np.uint64(stream), np.uint64(k), np.uint64(3)
     for i in range(sel.size):
-        p = sel[i]
-        o = visits[np.uint64(p)]
-        visits[np.uint64(p)] = o + 1
-        last = _fill(start + p, o, k, stream, k0, k1, out, i, last)
+        p = np.uint64(sel[i])  # unsigned indexes: no code for negative-index wraparound
+        o = visits[p]
+        visits[p] = o + 1
+        oc = np.uint64(o)
+        w = np.uint64(start + sel[i]) * kk
+        j = 0
+        while j < k:
+            w0, w1, w2, w3 = _philox(w >> np.uint64(2), st, oc, np.uint64(0), k0, k1)
+            r = w & top
+            while True:  # the words of this counter, from word r on
+                out[i, j] = _unit(w0 if r == 0 else (w1 if r == 1 else (w2 if r == 2 else w3)))
+                j += 1
+                w += np.uint64(1)
+                if j == k or r == top:
+                    break
+                r += np.uint64(1)
 
 
 @njit(nogil=True, cache=True)
