@@ -61,8 +61,13 @@ def weibull_times(k: Shape, log_lam: Shape, x: FloatArray, e: FloatArray) -> Flo
     log_hx = k * (np.log(x) - log_lam)  # -inf at x = 0
     log_e = np.log(e)
     with np.errstate(invalid="ignore"):  # x = 0 and e = 0 together: fixed by the where below
-        z = _softplus(log_e - log_hx) / k  # log((x + T) / x)
-        log_end = log_lam + np.logaddexp(log_hx, log_e) / k  # log(x + T)
+        # softplus(d) and logaddexp(log H(x), log e) share log1p(exp(-|d|)), d = log e - log H(x):
+        # one pass of numpy's SIMD exp and log1p instead of two ufuncs that call the scalar libm
+        # functions per element (~11 ns each per lane here, most of this function's time; issue 16)
+        d = log_e - log_hx
+        tail = np.log1p(np.exp(-np.abs(d)))
+        z = (np.maximum(d, 0.0) + tail) / k  # log((x + T) / x) = softplus(d) / k
+        log_end = log_lam + (np.maximum(log_hx, log_e) + tail) / k  # log(x + T)
         t = np.exp(log_end) * -np.expm1(-z)
     t = _overflowed_end(t, log_end, z, e)
     return np.where(e > 0.0, t, 0.0)
