@@ -217,6 +217,8 @@ class Hazard(abc.ABC):
         x = _nonnegative(f"{self.family}.conditional_time", "x", x, finite=True)
         e = _nonnegative(f"{self.family}.conditional_time", "e", e)
         x, e = np.broadcast_arrays(x, e)
+        for a in (x, e):  # views that are only read; saying so spares compiled kernels numpy's warning
+            a.flags.writeable = False
         with np.errstate(**KERNEL_ERRSTATE):
             return _out(self._conditional_time(x, e))
 

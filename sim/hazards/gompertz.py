@@ -20,6 +20,7 @@ from typing import ClassVar
 import numpy as np
 from scipy import special as sc
 
+from . import _fused
 from ._lane_kernels import Lanes, _sub
 from ._numerics import FloatArray, _log1prel, _log_expm1, _log_exprel, _softplus
 from .base import Hazard, _param
@@ -154,6 +155,15 @@ def gompertz_times(log_rate: Num, shape: Num, log_shape: Num, x: FloatArray, e: 
     :math:`\\log B = \\log b + g x`. :meth:`Gompertz._conditional_time` is this function with its own
     numbers, so a lane gets the bits of its own hazard (the engine evaluates a block of parameter
     draws in one call with it: :func:`sim.engine.simulate_draws`)."""
+    if _fused.fusable((log_rate, shape, log_shape), (x, e)) and shape > 0.0:
+        # _rising_time's short form with its arithmetic fused (sim.hazards._fused): the same bits
+        t = np.empty(x.size)
+        _fused.minus_affine(log_shape, log_rate, shape, x, t)  # log(g / B), B = b exp(g x)
+        with np.errstate(over="ignore", under="ignore", invalid="ignore"):
+            np.exp(t, out=t)
+            if _fused.scale_within(e, t, 1e-300, 1e300, _TINY_NORMAL):  # v = e g / B, all normal
+                np.log1p(t, out=t)
+                return np.divide(t, shape, out=t)
     return _gompertz_time(log_rate + shape * x, shape, log_shape, e)
 
 

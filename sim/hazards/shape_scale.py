@@ -16,6 +16,7 @@ from typing import ClassVar
 
 import numpy as np
 
+from . import _fused
 from ._numerics import FloatArray, _log_expm1, _power_or_log, _softplus
 from .base import Hazard, _param
 from .dimensions import Dimension
@@ -57,6 +58,10 @@ def weibull_times(k: Shape, log_lam: Shape, x: FloatArray, e: FloatArray) -> Flo
         # every clock at 0 (a first visit on the entry clock, any visit on the time-in-state
         # clock): T = lambda e^(1/k). The general form below reduces to exactly these
         # operations there (logaddexp(-inf, a) = a, expm1(-inf) = -1), so the bits agree.
+        if _fused.fusable((k, log_lam), (e,)):
+            t = np.log(e)
+            _fused.affine_of_scaled(log_lam, k, t)  # the same bits as the line below
+            return np.exp(t, out=t)
         return np.exp(log_lam + np.log(e) / k)
     log_hx = k * (np.log(x) - log_lam)  # -inf at x = 0
     log_e = np.log(e)
