@@ -6,7 +6,7 @@
 Sections (``--only``):
 
 - ``engine``: line_profiler over the engine's hot functions (``sim.engine.histories._run_strategy``,
-  ``sim.engine.rng._sorted_draws``, ``sim.engine.histories._simulate_chunk``,
+  ``sim.engine.histories._simulate_chunk``,
   ``sim.engine.tables.OutputTables.place_events``, ``sim.engine.histories._assemble``) for the
   reference workload, 1,000,000 patients, one thread; the lines taking >= 2% of a function's time,
   then the time grouped by kind of work (draws, hazards, competing minimum, bookkeeping, event
@@ -33,7 +33,6 @@ from harness import machine  # noqa: E402
 from workloads import reference_model  # noqa: E402
 
 import sim.engine.histories as engine  # noqa: E402
-import sim.engine.rng as rng  # noqa: E402
 import sim.engine.tables as tables  # noqa: E402
 
 SECTIONS = ("engine", "batches", "pipeline")
@@ -41,7 +40,7 @@ OUTPUT = HERE / "PROFILES.md"
 
 # engine source lines by kind of work: (kind, text that identifies the line)
 _KINDS = (
-    ("draws (counter-based generator, uniforms, log)", ("_sorted_draws(", "visit_units(", "np.log(e", "np.negative(e")),
+    ("draws (counter-based generator, uniforms, log)", ("visit_units(", "np.log(e", "np.negative(e")),
     ("hazards (conditional times)", ("_latent_times(",)),
     ("competing minimum, moves and records (kernels.settle)", ("kernels.settle(",)),
     ("grouping by state", ("kernels.by_state(", "np.flatnonzero(")),
@@ -71,19 +70,18 @@ def engine_section(quick: bool) -> str:
         engine.simulate(model, n, seed=1, workers=1)
         plain.append(time.perf_counter() - t0)
     place = tables.OutputTables.place_events
-    lp = LineProfiler(engine._run_strategy, engine._simulate_chunk, engine._assemble, rng._sorted_draws, place)
-    saved = (engine._run_strategy, engine._simulate_chunk, engine._assemble, engine._sorted_draws)
+    lp = LineProfiler(engine._run_strategy, engine._simulate_chunk, engine._assemble, place)
+    saved = (engine._run_strategy, engine._simulate_chunk, engine._assemble)
     engine._run_strategy = lp(engine._run_strategy)
     engine._simulate_chunk = lp(engine._simulate_chunk)
     engine._assemble = lp(engine._assemble)
-    engine._sorted_draws = lp(rng._sorted_draws)
     tables.OutputTables.place_events = lp(place)
     try:
         t0 = time.perf_counter()
         engine.simulate(model, n, seed=1, workers=1)
         profiled = time.perf_counter() - t0
     finally:
-        engine._run_strategy, engine._simulate_chunk, engine._assemble, engine._sorted_draws = saved
+        engine._run_strategy, engine._simulate_chunk, engine._assemble = saved
         tables.OutputTables.place_events = place
     rows = _line_stats(lp)
     by_fn: dict[str, float] = {}
@@ -103,12 +101,10 @@ def engine_section(quick: bool) -> str:
     text.write("| Work (inside the round loop, `_run_strategy`) | ms | share |\n|---|---|---|\n")
     for kind, sec in sorted(kinds.items(), key=lambda kv: -kv[1]):
         text.write(f"| {kind} | {sec * 1e3:.1f} | {sec / total:.0%} |\n")
-    draws = by_fn.get("_sorted_draws", 0.0)
-    attr = sum(sec for fn, src, _h, sec in rows if fn == "_simulate_chunk" and "_sorted_draws(" in src)
+    attr = sum(sec for fn, src, _h, sec in rows if fn == "_simulate_chunk" and "range_units(" in src)
     text.write(f"\nOutside the loop: patient attributes' draws {attr * 1e3:.1f} ms; placing the events into the "
                f"run's columns, in the chunks (`OutputTables.place_events`) {by_fn.get('OutputTables.place_events', 0.0) * 1e3:.1f} "
-               f"ms; building the frames (`_assemble`) {by_fn.get('_assemble', 0.0) * 1e3:.1f} ms. All draws together "
-               f"(`_sorted_draws`): {draws * 1e3:.1f} ms.\n\n")
+               f"ms; building the frames (`_assemble`) {by_fn.get('_assemble', 0.0) * 1e3:.1f} ms.\n\n")
     text.write("Lines taking >= 2% of their function's time:\n\n")
     text.write("| function | line | hits | ms | share of function |\n|---|---|---|---|---|\n")
     for fn, src, hits, sec in sorted(rows, key=lambda r: (r[0], -r[3])):

@@ -35,7 +35,7 @@ from numpy.typing import NDArray
 
 from ..hazards import KERNEL_ERRSTATE, entry_age_times
 from ..model.multistate import Clock, Model, ResolvedExit
-from .rng import ATTRIBUTE_STREAM, STREAM_LAYOUT, _BulkWords, _sorted_draws, key_from_seed
+from .rng import ATTRIBUTE_STREAM, STREAM_LAYOUT, key_from_seed
 from . import kernels
 from .tables import EventRecords, OutputTables, code_dtype
 
@@ -165,7 +165,7 @@ class _Workspace:
         return rec
 
 
-def _run_strategy(model: Model, resolved: list[list[ResolvedExit]], bulk: _BulkWords, start: int,
+def _run_strategy(model: Model, resolved: list[list[ResolvedExit]], key: tuple[np.uint64, np.uint64], start: int,
                   entry_age: NDArray[np.float64], sex: NDArray[np.int8], initial: NDArray,
                   limit: NDArray[np.float64], max_transitions: int, t: NDArray[np.float64], cur: NDArray,
                   reason: NDArray[np.int8], draw_of: NDArray[np.int64] | None = None,
@@ -173,7 +173,8 @@ def _run_strategy(model: Model, resolved: list[list[ResolvedExit]], bulk: _BulkW
     """Histories of one chunk under one strategy. ``t``, ``cur`` and ``reason`` are the chunk's rows
     of the patient table (exit time, final state, exit reason), used as the working state.
     ``draw_of`` gives each patient's parameter draw when the exits are per-draw (``DrawExit``);
-    ``work`` holds the worker's scratch arrays, ``code`` the strategy's index in the run.
+    ``work`` holds the worker's scratch arrays, ``code`` the strategy's index in the run, ``key``
+    the run's Philox key as two unsigned words.
 
     Per round and occupied state: the state's patients' uniforms (:func:`kernels.visit_units`, each
     at its own occurrence), their exponentials (numpy), each exit's conditional times (the hazards'
@@ -184,7 +185,7 @@ def _run_strategy(model: Model, resolved: list[list[ResolvedExit]], bulk: _BulkW
     state_code = _code_dtype(n_states)
     exit_code = _code_dtype(len(model.exit_names))
     absorbing = np.array([s.absorbing for s in model.states])
-    k0, k1 = np.uint64(bulk.pair[0]), np.uint64(bulk.pair[1])
+    k0, k1 = key
     cur[...] = initial
     t[...] = 0.0
     active = limit > 0.0
@@ -251,15 +252,19 @@ def _simulate_chunk(model: Model, plans: list[list[list[ResolvedExit]]], key: tu
     """One chunk. ``draws`` (a ``sim.engine.draws.DrawSet``) gives patients of different parameter
     draws their own population and horizon (``draws.segments``) and each patient's draw index;
     ``work``: the worker's scratch arrays (a fresh set if None)."""
-    bulk = _BulkWords(key)
     work = work if work is not None else _Workspace()
     segments = [(start, stop, model)] if draws is None else draws.segments(start, stop)
     single = all(m.population.single_initial_state for _, _, m in segments)
     # attribute words: entry age and sex (occurrence 0); the initial state of a mix from occurrence 1,
     # drawn only when some segment has a mix, so that entry ages and sexes never depend on it
-    ids = np.arange(start, stop, dtype=np.int64)
-    u = _sorted_draws(bulk, ids, ATTRIBUTE_STREAM, 0, 2, exponential=False)
-    u_initial = None if single else _sorted_draws(bulk, ids, ATTRIBUTE_STREAM, 1, 1, exponential=False)[:, 0]
+    k0, k1 = np.uint64(key[0]), np.uint64(key[1])
+    u = work.array("attributes", 2 * (stop - start)).reshape(stop - start, 2)
+    kernels.range_units(start, stop - start, 2, ATTRIBUTE_STREAM, 0, k0, k1, u)
+    u_initial = None
+    if not single:
+        u_initial = work.array("initial", stop - start).reshape(stop - start, 1)
+        kernels.range_units(start, stop - start, 1, ATTRIBUTE_STREAM, 1, k0, k1, u_initial)
+        u_initial = u_initial[:, 0]
     rows = table.rows(0, start, stop)
     entry_age, sex, initial = table.entry_age[rows], table.sex[rows], table.initial[rows]
     limit = np.empty(stop - start)
@@ -276,7 +281,7 @@ def _simulate_chunk(model: Model, plans: list[list[list[ResolvedExit]]], key: tu
     per = []
     for k, plan in enumerate(plans):
         rows = table.rows(k, start, stop)
-        per.append(_run_strategy(model, plan, bulk, start, entry_age, sex, initial, limit, max_transitions,
+        per.append(_run_strategy(model, plan, (k0, k1), start, entry_age, sex, initial, limit, max_transitions,
                                  table.exit_time[rows], table.final_state[rows], table.exit_reason[rows], draw_of,
                                  work, k))
     table.finish_patients(start, stop)

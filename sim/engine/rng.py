@@ -271,26 +271,3 @@ def exponentials(key: tuple[int, int], patient: ArrayLike, stream: int,
     out = uniforms(key, patient, stream, occurrence, n)
     np.log(out, out=out)
     return np.negative(out, out=out)
-
-
-def _sorted_draws(bulk: _BulkWords, patient: NDArray[np.int64], stream: int, occurrence: int, n: int,
-                  exponential: bool = True) -> NDArray[np.float64]:
-    """The engine's draws: :func:`exponentials` (or :func:`uniforms` if not ``exponential``) for ids
-    known to be strictly increasing, with the same bits.
-
-    The id range and contiguity are read off the ends. For dense ids the words are one C Philox
-    call over the range, viewed as ``(count, n)`` rows (gathered only when some ids of the range are
-    absent), then converted and logged in place over contiguous memory: each element goes through
-    the same kernels as in :func:`exponentials`.
-    """
-    m = patient.shape[0]
-    if m == 0:
-        return np.empty((0, n))
-    lo, hi = int(patient[0]), int(patient[-1])
-    words = _words_of(bulk.pair, bulk, patient, lo, hi, hi - lo + 1 == m, stream, occurrence, n)
-    out = words.view(np.float64)
-    _unit_into(words, out)
-    if exponential:
-        np.log(out, out=out)
-        np.negative(out, out=out)
-    return out

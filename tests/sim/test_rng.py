@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from sim.engine.rng import STREAM_LAYOUT, _BulkWords, _sorted_draws, exponentials, key_from_seed, philox4x64, uniforms
+from sim.engine.rng import STREAM_LAYOUT, exponentials, key_from_seed, philox4x64, uniforms
 
 
 @pytest.mark.parametrize("counter", [(0, 0, 0, 0), (5, 7, 11, 13), (2**64 - 2, 1, 2**63, 99)])
@@ -101,20 +101,6 @@ def test_layout_2_reads_every_word_of_the_philox_sequence(k):
     w = _numpy_words(key, 4, 3, far * k, k)
     np.testing.assert_array_equal(uniforms(key, [5, far], 4, 3, k)[1],
                                   1.0 - (w >> np.uint64(12)).astype(np.float64) / 2.0**52)
-
-
-def test_engine_draws_equal_public_draws_on_every_path():
-    # The engine's path (_sorted_draws: sorted ids, one bulk range, rows viewed or gathered; or the
-    # vectorised bijection for sparse ids) gives the bits of exponentials() for any subset.
-    key = key_from_seed(5)
-    bulk = _BulkWords(key)
-    rng = np.random.default_rng(0)
-    for k in (1, 2, 3, 4, 6):
-        for ids in (np.arange(1000, 5000), np.sort(rng.choice(100_000, 3000, replace=False)),
-                    np.array([3, 90_000, 2_000_000]), np.array([7])):
-            np.testing.assert_array_equal(_sorted_draws(bulk, ids, 2, 1, k), exponentials(key, ids, 2, 1, k))
-            np.testing.assert_array_equal(_sorted_draws(bulk, ids, 2, 1, k, exponential=False),
-                                          uniforms(key, ids, 2, 1, k))
 
 
 def test_draws_do_not_overlap_between_patients_or_columns():
