@@ -43,7 +43,7 @@ _KINDS = (
     ("draws (counter-based generator, uniforms, log)", ("visit_units(", "np.log(e", "np.negative(e")),
     ("hazards (conditional times)", ("_latent_times(",)),
     ("competing minimum, moves and records (kernels.settle)", ("kernels.settle(",)),
-    ("grouping by state", ("kernels.by_state(", "np.flatnonzero(")),
+    ("grouping by state", ("kernels.by_state(",)),
 )
 
 

@@ -204,20 +204,22 @@ def _run_strategy(model: Model, resolved: list[list[ResolvedExit]], key: tuple[n
     bounds = np.empty(n_states + 1, dtype=np.int64)
     order, clock, attained = work.array("order", n, np.int64), work.array("clock", n), work.array("attained", n)
     draws_buf, latent_buf = work.array("draws", n * k_max), work.array("latent", n * k_max)
+    idx = work.array("active", n, np.int64)  # the active patients, increasing: first all with time to live
+    m = int(np.count_nonzero(active))
+    idx[:m] = np.flatnonzero(active)
     rounds = 0
     while True:
-        idx = np.flatnonzero(active)
-        if idx.size == 0:
+        # each state's patients are fixed (``order``) before any of them moves: a patient moved into
+        # a state handled later in the round does not move twice
+        m = kernels.by_state(idx, m, active, cur, t, entry_age, bounds, order, clock, attained)
+        if m == 0:
             break
         rounds += 1
         if rounds > max_transitions:
             raise SimulationError(
                 f"some patients made more than {max_transitions} transitions before the horizon "
-                f"(states now occupied: {sorted({model.state_names[s] for s in np.unique(cur[idx])})}); "
+                f"(states now occupied: {sorted({model.state_names[s] for s in np.unique(cur[idx[:m]])})}); "
                 f"check for very large hazards on a loop between states, or raise max_transitions")
-        # each state's patients are fixed (``order``) before any of them moves: a patient moved into
-        # a state handled later in the round does not move twice
-        kernels.by_state(idx, cur, t, entry_age, bounds, order, clock, attained)
         for s in np.flatnonzero(np.diff(bounds)).tolist():
             part = slice(int(bounds[s]), int(bounds[s + 1]))
             sel, ts = order[part], clock[part]

@@ -171,19 +171,26 @@ def visit_units(sel, start, visits, k, stream, k0, k1, out):  # pragma: no cover
 
 
 @njit(nogil=True, cache=True)
-def by_state(idx, cur, t, entry_age, bounds, order, ts, age):  # pragma: no cover - compiled
-    """The patients ``idx`` (increasing) grouped by current state, in increasing order within a
-    state: state ``s``'s are ``order[bounds[s]:bounds[s + 1]]``, with their clocks ``ts`` (time since
-    entry, ``t[p]``) and attained ages ``age`` (``entry_age[p] + t[p]``) in the same rows (a counting
-    sort; no branches that depend on the data). ``bounds`` has one more entry than there are states."""
+def by_state(idx, m, active, cur, t, entry_age, bounds, order, ts, age):  # pragma: no cover - compiled
+    """The patients of ``idx[:m]`` (increasing) still ``active``, grouped by current state; returns
+    their number. They are kept in ``idx`` (compacted in place, order kept: the next round's
+    candidates), and state ``s``'s are ``order[bounds[s]:bounds[s + 1]]`` in increasing order, with
+    their clocks ``ts`` (time since entry, ``t[p]``) and attained ages ``age`` (``entry_age[p] +
+    t[p]``) in the same rows: a compaction and a counting sort, with no branches that depend on the
+    data. ``bounds`` has one more entry than there are states."""
     bounds[:] = 0
-    for i in range(idx.size):
-        bounds[cur[np.uint64(idx[i])] + 1] += 1
+    kept = 0
+    for i in range(m):
+        p = idx[i]
+        on = active[np.uint64(p)]  # unsigned indexes: no code for negative-index wraparound
+        idx[kept] = p
+        kept += on
+        bounds[cur[np.uint64(p)] + 1] += on
     for s in range(bounds.size - 1):
         bounds[s + 1] += bounds[s]
     pos = bounds[:-1].copy()
-    for i in range(idx.size):
-        p = np.uint64(idx[i])  # unsigned indexes: no code for negative-index wraparound
+    for i in range(kept):
+        p = np.uint64(idx[i])
         s = cur[p]
         q = pos[s]
         pos[s] = q + 1
@@ -191,6 +198,7 @@ def by_state(idx, cur, t, entry_age, bounds, order, ts, age):  # pragma: no cove
         x = t[p]
         ts[q] = x
         age[q] = entry_age[p] + x
+    return kept
 
 
 @njit(nogil=True, cache=True)
