@@ -37,7 +37,7 @@ from ..hazards import KERNEL_ERRSTATE, entry_age_times
 from ..model.multistate import Clock, Model, ResolvedExit
 from .rng import ATTRIBUTE_STREAM, STREAM_LAYOUT, key_from_seed
 from . import kernels
-from .tables import EventRecords, OutputTables, code_dtype
+from .tables import EventRecords, OutputTables, code_dtype, placement_scratch
 
 __all__ = ["simulate", "simulate_chunks", "simulate_range", "SimulationResult", "SimulationCancelled", "SimulationError", "CancelToken",
            "cancel_requested", "chunk_size_for"]
@@ -288,7 +288,7 @@ def _simulate_chunk(model: Model, plans: list[list[list[ResolvedExit]]], key: tu
                                  work, k))
     table.finish_patients(start, stop)
     table.place_events(start, stop, per, entry_age, _code_dtype(len(model.exit_names)),
-                       work.array("slots", stop - start + 1, np.int64))
+                       work.array("slots", placement_scratch(stop - start, per), np.int64))
     return _ChunkOut(start, stop)
 
 

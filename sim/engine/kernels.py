@@ -254,13 +254,17 @@ def settle(sel, latent, later, state, rnd, limit, targets, exits, absorbing, t, 
 
 @njit(nogil=True, cache=True)
 def place_events(rec_idx, rec_time, rec_from, rec_to, rec_exit, rec_round, count, entry_age, start, code, first,
-                 patient, time, age, from_state, to_state, transition, strategy):  # pragma: no cover - compiled
+                 perm, patient, time, age, from_state, to_state, transition, strategy):  # pragma: no cover - compiled
     """Write ``count`` records of a chunk into the event columns (views of the chunk's rows) in
     patient-then-time order: a patient active in round r has made exactly r - 1 moves before it
     (each round moves or censors every active patient), so its event of round r is its r-th, at
     ``first[p] + r - 1`` where ``first`` counts the events of the patients before it (a counting
-    placement). Attained age = entry age + time; patient ids ``start + p``; strategy code ``code``;
-    ``first``: scratch of one more entry than the chunk has patients."""
+    placement). Attained age = entry age + time; patient ids ``start + p``; strategy code ``code``.
+    Scratch: ``first``, one more entry than the chunk has patients; ``perm``, ``count`` entries.
+
+    The record of each row is found first (``perm``, one scattered integer per record), then the
+    columns are written row by row, reading the records where they lie: writing seven columns in
+    order and reading scattered records costs ~15% less than scattering seven columns (issue 16)."""
     n = first.size - 1
     first[:] = 0
     for r in range(count):
@@ -268,12 +272,14 @@ def place_events(rec_idx, rec_time, rec_from, rec_to, rec_exit, rec_round, count
     for p in range(n):
         first[p + 1] += first[p]
     for r in range(count):
-        p = np.uint64(rec_idx[r])  # unsigned indexes: no code for negative-index wraparound
-        d = np.uint64(first[p] + rec_round[r] - 1)
+        perm[np.uint64(first[np.uint64(rec_idx[r])] + rec_round[r] - 1)] = r
+    for d in range(count):
+        r = np.uint64(perm[d])  # unsigned indexes: no code for negative-index wraparound
+        p = rec_idx[r]
         tr = rec_time[r]
-        patient[d] = start + rec_idx[r]
+        patient[d] = start + p
         time[d] = tr
-        age[d] = entry_age[p] + tr
+        age[d] = entry_age[np.uint64(p)] + tr
         from_state[d] = rec_from[r]
         to_state[d] = rec_to[r]
         transition[d] = rec_exit[r]

@@ -37,7 +37,7 @@ from numpy.typing import NDArray
 
 from . import buffers, kernels
 
-__all__ = ["code_dtype", "EventRecords", "OutputTables", "move_down"]
+__all__ = ["code_dtype", "EventRecords", "OutputTables", "move_down", "placement_scratch"]
 
 #: Rows of a strategy's region reserved beyond the estimate from the first chunk (share and count).
 _MARGIN, _SLACK = 0.02, 1024
@@ -105,6 +105,12 @@ def move_down(a: NDArray, src: int, dst: int, n: int) -> None:
         b = min(_BLOCK, n - i)
         tmp[:b] = a[src + i:src + i + b]
         a[dst + i:dst + i + b] = tmp[:b]
+
+
+def placement_scratch(n_patients: int, records: Sequence[EventRecords]) -> int:
+    """Integers of working space :meth:`OutputTables.place_events` needs for a chunk of
+    ``n_patients`` patients with these records."""
+    return n_patients + 1 + max((r.count for r in records), default=0)
 
 
 class _Aborted(RuntimeError):
@@ -249,17 +255,19 @@ class OutputTables:
                      entry_age: NDArray[np.float64], exit_code: np.dtype, scratch: NDArray[np.int64] | None = None) -> None:
         """Write the events of patients ``start .. stop - 1`` (``records[k]`` for strategy ``k``; patient
         indexes local to the chunk, ``entry_age`` the chunk's entry ages) into the event columns, after
-        the chunks before it (waits for its turn). ``scratch``: ``stop - start + 1`` integers to use
-        as working space (allocated if None)."""
-        if scratch is None:
-            scratch = np.empty(stop - start + 1, dtype=np.int64)
+        the chunks before it (waits for its turn). ``scratch``: at least :func:`placement_scratch`
+        integers to use as working space (allocated if None)."""
+        need = placement_scratch(stop - start, records)
+        if scratch is None or scratch.size < need:
+            scratch = np.empty(need, dtype=np.int64)
+        first, perm = scratch[:stop - start + 1], scratch[stop - start + 1:]
         cols = self._event_columns(exit_code)
         bufs, offsets = cols.reserve(start, stop, [r.count for r in records])
         try:
             for k, (rec, off) in enumerate(zip(records, offsets)):
                 rows = slice(off, off + rec.count)
                 kernels.place_events(rec.idx, rec.time, rec.from_, rec.to, rec.exit, rec.round, rec.count,
-                                     entry_age, start, k, scratch,
+                                     entry_age, start, k, first, perm,
                                      *(bufs[f][rows] for f in ("patient", "time", "age", "from_state", "to_state",
                                                                "transition", "strategy")))
         finally:
