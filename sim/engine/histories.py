@@ -131,13 +131,22 @@ def _latent_times(ex: ResolvedExit, x: NDArray[np.float64], e: NDArray[np.float6
                 m = sex == code
                 if m.any():
                     out[m] = h._conditional_time(x[m], e[m])
-    if out.size and np.isnan(out.min()):  # min is NaN iff some lane is: one pass, no mask
-        # A NaN would compare as "no event" and censor the patient silently: an internal error instead.
-        bad = int(np.flatnonzero(np.isnan(out))[0])
-        raise SimulationError(
-            f"internal error: the hazard of transition {ex.name!r} gave no event time (NaN) for clock "
-            f"{float(x[bad])!r} and draw {float(e[bad])!r}; please report this with the scenario")
     return out
+
+
+def _no_event_time(exits: list[ResolvedExit], latent: NDArray[np.float64], ts: NDArray[np.float64],
+                   age: NDArray[np.float64] | None, e: NDArray[np.float64]) -> SimulationError:
+    """The error for a NaN latent time (:func:`kernels.settle` found one): a NaN would compare as
+    "no event" and censor the patient silently, so it is an internal error instead."""
+    for j, ex in enumerate(exits):
+        bad = np.flatnonzero(np.isnan(latent[j]))
+        if bad.size:
+            b = int(bad[0])
+            return SimulationError(
+                f"internal error: the hazard of transition {ex.name!r} gave no event time (NaN) for clock "
+                f"{float(_clock_value(ex, ts, age)[b])!r} and draw {float(e[b, j])!r}; please report this "
+                f"with the scenario")
+    return SimulationError("internal error: a latent time was NaN; please report this with the scenario")
 
 
 class _Workspace:
@@ -241,9 +250,12 @@ def _run_strategy(model: Model, resolved: list[list[ResolvedExit]], key: tuple[n
                 latent[j] = _latent_times(ex, _clock_value(ex, ts, age), e[:, j], sx, dr,
                                           a0 if reads_entry[s][j] else None)
             rec.reserve(sel.size)
-            rec.count = kernels.settle(sel, latent, rounds > 1, s, rounds, limit, targets[s], exit_index[s],
-                                       absorbing, t, cur, active, absorbed, rec.idx, rec.time, rec.from_, rec.to,
-                                       rec.exit, rec.round, rec.count)
+            got = kernels.settle(sel, latent, rounds > 1, s, rounds, limit, targets[s], exit_index[s],
+                                 absorbing, t, cur, active, absorbed, rec.idx, rec.time, rec.from_, rec.to,
+                                 rec.exit, rec.round, rec.count)
+            if got < 0:
+                raise _no_event_time(exits, latent, ts, age, e)
+            rec.count = got
     np.logical_not(absorbed, out=reason.view(np.bool_))  # 0 "absorbed", 1 "censored"
     return rec
 

@@ -204,7 +204,8 @@ def by_state(idx, m, active, cur, t, entry_age, bounds, order, ts, age):  # prag
 @njit(nogil=True, cache=True)
 def settle(sel, latent, later, state, rnd, limit, targets, exits, absorbing, t, cur, active, absorbed,
            rec_idx, rec_time, rec_from, rec_to, rec_exit, rec_round, count):  # pragma: no cover - compiled
-    """Resolve one round of the patients ``sel`` in ``state``; returns the new number of records.
+    """Resolve one round of the patients ``sel`` in ``state``; returns the new number of records,
+    or -1 at the first patient with a NaN latent time (nothing after it is resolved).
 
     For patient ``p = sel[i]`` the exit ``j`` with the smallest latent time ``latent[j, i]`` wins
     (the first on ties, as ``numpy.argmin``); the move time is ``t[p] + latent[j, i]``, in rounds
@@ -219,12 +220,16 @@ def settle(sel, latent, later, state, rnd, limit, targets, exits, absorbing, t, 
     for i in range(sel.size):
         p = np.uint64(sel[i])  # unsigned indexes: no code for negative-index wraparound
         best = latent[0, i]
+        nan = best != best
         w = 0
         for j in range(1, k):
             x = latent[j, i]
+            nan |= x != x
             if x < best:
                 best = x
                 w = j
+        if nan:  # a hazard's internal error: the caller reports it
+            return -1
         ts = t[p]
         tn = ts + best
         if later:
