@@ -145,8 +145,11 @@ def check(h, x, e, T):
         if T == math.inf:
             if e_ >= rest - slack:
                 return None
+            # T = inf is right when, for some parameters within rounding of the given ones, the
+            # increment up to the largest double stays below e (as the finite case below accepts T
+            # when some rounding of the parameters brackets e): the smallest increment, not the largest
             top = mp.mpf(BIG)
-            if max(inc(q, top) for q in [p] + perturbed(fam, p)) <= e_ + slack:
+            if min(inc(q, top) for q in [p] + perturbed(fam, p)) <= e_ + slack:
                 return None
             return f"T=inf but root finite (rest={mp.nstr(rest,5)}, inc(BIG)={mp.nstr(inc(p, top),5)})"
         if e_ > rest + slack:
