@@ -134,7 +134,7 @@ def _latent_times(ex: ResolvedExit, x: NDArray[np.float64], e: NDArray[np.float6
     return out
 
 
-def _no_event_time(exits: list[ResolvedExit], latent: NDArray[np.float64], ts: NDArray[np.float64],
+def _no_event_time(exits: list[ResolvedExit], latent: list[NDArray[np.float64]], ts: NDArray[np.float64],
                    age: NDArray[np.float64] | None, e: NDArray[np.float64]) -> SimulationError:
     """The error for a NaN latent time (:func:`kernels.settle` found one): a NaN would compare as
     "no event" and censor the patient silently, so it is an internal error instead."""
@@ -212,7 +212,7 @@ def _run_strategy(model: Model, resolved: list[list[ResolvedExit]], key: tuple[n
     k_max = max(len(ex) for ex in resolved)
     bounds = np.empty(n_states + 1, dtype=np.int64)
     order, clock, attained = work.array("order", n, np.int64), work.array("clock", n), work.array("attained", n)
-    draws_buf, latent_buf = work.array("draws", n * k_max), work.array("latent", n * k_max)
+    draws_buf, latent_buf = work.array("draws", n * k_max), work.array("latent", n * max(k_max - 4, 1))
     idx = work.array("active", n, np.int64)  # the active patients, increasing: first all with time to live
     m = int(np.count_nonzero(active))
     idx[:m] = np.flatnonzero(active)
@@ -245,14 +245,17 @@ def _run_strategy(model: Model, resolved: list[list[ResolvedExit]], key: tuple[n
             sx = sex[sel] if by_sex[s] else None
             dr = None if draw_of is None else draw_of[sel]
             a0 = entry_age[sel] if any(reads_entry[s]) else None
-            latent = latent_buf[:k * sel.size].reshape(k, sel.size)
-            for j, ex in enumerate(exits):
-                latent[j] = _latent_times(ex, _clock_value(ex, ts, age), e[:, j], sx, dr,
-                                          a0 if reads_entry[s][j] else None)
+            latent = [np.ascontiguousarray(_latent_times(ex, _clock_value(ex, ts, age), e[:, j], sx, dr,
+                                                         a0 if reads_entry[s][j] else None))
+                      for j, ex in enumerate(exits)]
+            more = latent_buf[:max(k - 4, 0) * sel.size].reshape(max(k - 4, 0), sel.size)
+            for j in range(4, k):  # a fifth exit and beyond: one block (rare)
+                more[j - 4] = latent[j]
+            fill = latent + latent[:1] * (4 - min(k, 4))  # unused arguments, not read
             rec.reserve(sel.size)
-            got = kernels.settle(sel, latent, rounds > 1, s, rounds, limit, targets[s], exit_index[s],
-                                 absorbing, t, cur, active, absorbed, rec.idx, rec.time, rec.from_, rec.to,
-                                 rec.exit, rec.round, rec.count)
+            got = kernels.settle(sel, k, fill[0], fill[1], fill[2], fill[3], more, rounds > 1, s, rounds, limit,
+                                 targets[s], exit_index[s], absorbing, t, cur, active, absorbed, rec.idx, rec.time,
+                                 rec.from_, rec.to, rec.exit, rec.round, rec.count)
             if got < 0:
                 raise _no_event_time(exits, latent, ts, age, e)
             rec.count = got

@@ -202,12 +202,14 @@ def by_state(idx, m, active, cur, t, entry_age, bounds, order, ts, age):  # prag
 
 
 @njit(nogil=True, cache=True)
-def settle(sel, latent, later, state, rnd, limit, targets, exits, absorbing, t, cur, active, absorbed,
-           rec_idx, rec_time, rec_from, rec_to, rec_exit, rec_round, count):  # pragma: no cover - compiled
+def settle(sel, k, l0, l1, l2, l3, more, later, state, rnd, limit, targets, exits, absorbing, t, cur, active,
+           absorbed, rec_idx, rec_time, rec_from, rec_to, rec_exit, rec_round, count):  # pragma: no cover - compiled
     """Resolve one round of the patients ``sel`` in ``state``; returns the new number of records,
     or -1 at the first patient with a NaN latent time (nothing after it is resolved).
 
-    For patient ``p = sel[i]`` the exit ``j`` with the smallest latent time ``latent[j, i]`` wins
+    The ``k`` exits' latent times are ``l0[i]``, ``l1[i]``, ``l2[i]``, ``l3[i]`` (the first ``k``; the
+    others are ignored) and ``more[j - 4, i]`` for exits ``j >= 4``: the hazards' own result arrays,
+    not copied into one block. For patient ``p = sel[i]`` the exit ``j`` with the smallest latent time wins
     (the first on ties, as ``numpy.argmin``); the move time is ``t[p] + latent[j, i]``, in rounds
     after the first (``later``) at least one step of the clock after ``t[p]`` (``nextafter``; move
     times stay strictly increasing). A move before ``limit[p]`` goes to ``targets[j]`` and is
@@ -215,15 +217,32 @@ def settle(sel, latent, later, state, rnd, limit, targets, exits, absorbing, t, 
     ``active`` unless absorbed; otherwise it is censored at the limit. ``t >= +0``
     always, so the next float up is the bit pattern plus one.
     """
-    k = latent.shape[0]
     n_rec = count
     for i in range(sel.size):
         p = np.uint64(sel[i])  # unsigned indexes: no code for negative-index wraparound
-        best = latent[0, i]
+        best = l0[i]
         nan = best != best
         w = 0
-        for j in range(1, k):
-            x = latent[j, i]
+        if k > 1:
+            x = l1[i]
+            nan |= x != x
+            if x < best:
+                best = x
+                w = 1
+        if k > 2:
+            x = l2[i]
+            nan |= x != x
+            if x < best:
+                best = x
+                w = 2
+        if k > 3:
+            x = l3[i]
+            nan |= x != x
+            if x < best:
+                best = x
+                w = 3
+        for j in range(4, k):
+            x = more[j - 4, i]
             nan |= x != x
             if x < best:
                 best = x

@@ -179,6 +179,27 @@ def test_rate_and_risk_from_constant_hazard():
     assert abs(risk - r * T) > 10 * se_risk  # the naive risk r T = 1 is far off
 
 
+@pytest.mark.parametrize("n_exits", [2, 4, 6])
+def test_competing_exits_share_the_events_in_proportion_to_their_hazards(n_exits):
+    # Constant competing hazards r_j: the exit taken is j with probability r_j / sum(r) and the time
+    # to it is exponential with rate sum(r), whatever the number of exits (common practice, no
+    # source needed: the minimum of independent exponentials). Six exits take the engine's path for
+    # a fifth exit and beyond.
+    rates = np.array([0.05, 0.3, 0.12, 0.02, 0.2, 0.08])[:n_exits]
+    n = 40_000
+    model = Model(states=(State("alive"), State("dead", absorbing=True)),
+                  transitions=tuple(Transition(f"cause {j}", "alive", "dead", Exponential(float(r)), Clock.ENTRY)
+                                    for j, r in enumerate(rates)),
+                  population=Population(FixedAge(50.0), "alive"), horizon=Horizon(400.0, "time"))
+    run = simulate(model, n, seed=99)
+    assert (run.patients["exit_reason"] == "absorbed").all()
+    share = run.events["transition"].value_counts(normalize=True).reindex([f"cause {j}" for j in range(n_exits)])
+    p = rates / rates.sum()
+    _check_within(share.to_numpy(), p, np.sqrt(p * (1 - p) / n), "shares of the exits")
+    mean_time = float(run.patients["exit_time"].mean())
+    _check_within(mean_time, 1 / rates.sum(), 1 / rates.sum() / np.sqrt(n), "mean time to the first exit")
+
+
 def test_gompertz_on_age_is_conditional_survival():
     # Everyone enters alive at 60: S(t | 60) = S(60 + t) / S(60) with the Gompertz survival
     # S(a) = exp(-(b/g)(exp(g a) - 1)) (docs/methods.md, 'Hazards and survival').
