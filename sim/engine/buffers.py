@@ -23,11 +23,12 @@ from __future__ import annotations
 import os
 import sys
 import threading
+from typing import Callable
 
 import numpy as np
 from numpy.typing import DTypeLike, NDArray
 
-__all__ = ["MIN_BYTES", "empty", "kept_bytes", "limit", "release", "set_limit"]
+__all__ = ["MIN_BYTES", "empty", "kept_bytes", "limit", "on_release", "release", "set_limit"]
 
 #: Columns smaller than this come from ``numpy.empty`` (the C allocator already reuses them).
 MIN_BYTES = 1 << 20
@@ -44,6 +45,7 @@ def _default_limit() -> int:
 _lock = threading.Lock()
 _kept: list[NDArray[np.uint8]] = []
 _limit = _default_limit()
+_release_hooks: list[Callable[[], int]] = []
 
 
 def _unused(i: int) -> bool:
@@ -79,15 +81,21 @@ def empty(n: int, dtype: DTypeLike = np.float64) -> NDArray:
         return buf.view(dt)
 
 
+def on_release(hook: Callable[[], int]) -> None:
+    """Have :func:`release` also call ``hook``, which drops other memory the engine keeps between
+    runs (the idle chunk workspaces of :mod:`sim.engine.histories`) and returns its bytes."""
+    _release_hooks.append(hook)
+
+
 def release() -> int:
-    """Drop the kept buffers no array uses (returned to the C allocator, and so to the system);
-    returns the bytes dropped."""
+    """Drop the kept buffers no array uses (returned to the C allocator, and so to the system) and
+    what the :func:`on_release` hooks keep; returns the bytes dropped."""
     with _lock:
         dropped = 0
         for i in range(len(_kept) - 1, -1, -1):
             if _unused(i):
                 dropped += _kept.pop(i).nbytes
-        return dropped
+    return dropped + sum(hook() for hook in _release_hooks)
 
 
 def kept_bytes() -> tuple[int, int]:

@@ -24,8 +24,10 @@ that transition produces.
 
 from __future__ import annotations
 
+import os
+import threading
 from concurrent.futures import ThreadPoolExecutor
-from queue import Empty, SimpleQueue
+from contextlib import contextmanager
 from dataclasses import dataclass, field
 from typing import Callable, Iterator, Protocol
 
@@ -36,7 +38,7 @@ from numpy.typing import NDArray
 from ..hazards import KERNEL_ERRSTATE, entry_age_times
 from ..model.multistate import Clock, Model, ResolvedExit
 from .rng import ATTRIBUTE_STREAM, STREAM_LAYOUT, key_from_seed
-from . import kernels
+from . import buffers, kernels
 from .tables import EventRecords, OutputTables, code_dtype, placement_scratch
 
 __all__ = ["simulate", "simulate_chunks", "simulate_range", "SimulationResult", "SimulationCancelled", "SimulationError", "CancelToken",
@@ -150,9 +152,11 @@ def _no_event_time(exits: list[ResolvedExit], latent: list[NDArray[np.float64]],
 
 
 class _Workspace:
-    """Scratch arrays of one worker's chunks, reused from chunk to chunk and round to round: a page
-    of fresh memory costs a page fault on first touch, which on this project's VM made the engine's
-    temporaries cost more than their arithmetic (issue 16). Not thread-safe: one per worker."""
+    """Scratch arrays of a chunk, reused from chunk to chunk, round to round and run to run (kept
+    idle between runs by :func:`_workspace`): a page of fresh memory costs a page fault on first
+    touch, which on this project's VM made the engine's temporaries cost more than their arithmetic,
+    and allocating them for every run cost ~5% of a run of 10^6 patients (issue 16). Not
+    thread-safe: one chunk at a time."""
 
     def __init__(self) -> None:
         self._arrays: dict[str, NDArray] = {}
@@ -165,6 +169,11 @@ class _Workspace:
             buf = self._arrays[name] = np.empty(max(int(size), 1), dtype=dtype)
         return buf[:size]
 
+    @property
+    def nbytes(self) -> int:
+        return (sum(a.nbytes for a in self._arrays.values())
+                + sum(c.nbytes for r in self._records.values() for c in (r.idx, r.time, r.from_, r.to, r.exit, r.round)))
+
     def records(self, k: int, capacity: int, state_code: np.dtype, exit_code: np.dtype) -> EventRecords:
         """Strategy ``k``'s event records of the chunk, emptied (kept until the chunk's events are placed)."""
         rec = self._records.get(k)
@@ -172,6 +181,35 @@ class _Workspace:
             rec = self._records[k] = EventRecords(capacity, state_code, exit_code)
         rec.count = 0
         return rec
+
+
+_IDLE: list[_Workspace] = []  # workspaces of finished chunks, for the next chunks of any run
+_IDLE_LOCK = threading.Lock()
+_MAX_IDLE = max(2, os.cpu_count() or 2)
+
+
+@contextmanager
+def _workspace() -> Iterator[_Workspace]:
+    """A workspace for one chunk: an idle one if there is one, else a new one; kept idle afterwards
+    (at most one per processor; :func:`sim.engine.buffers.release` drops them)."""
+    with _IDLE_LOCK:
+        ws = _IDLE.pop() if _IDLE else _Workspace()
+    try:
+        yield ws
+    finally:
+        with _IDLE_LOCK:
+            if len(_IDLE) < _MAX_IDLE:
+                _IDLE.append(ws)
+
+
+def _drop_idle_workspaces() -> int:
+    with _IDLE_LOCK:
+        dropped = sum(ws.nbytes for ws in _IDLE)
+        _IDLE.clear()
+    return dropped
+
+
+buffers.on_release(_drop_idle_workspaces)
 
 
 def _run_strategy(model: Model, resolved: list[list[ResolvedExit]], key: tuple[np.uint64, np.uint64], start: int,
@@ -268,8 +306,10 @@ def _simulate_chunk(model: Model, plans: list[list[list[ResolvedExit]]], key: tu
                     draws=None, work: _Workspace | None = None) -> _ChunkOut:
     """One chunk. ``draws`` (a ``sim.engine.draws.DrawSet``) gives patients of different parameter
     draws their own population and horizon (``draws.segments``) and each patient's draw index;
-    ``work``: the worker's scratch arrays (a fresh set if None)."""
-    work = work if work is not None else _Workspace()
+    ``work``: the chunk's scratch arrays (an idle workspace, or a new one, if None)."""
+    if work is None:
+        with _workspace() as ws:
+            return _simulate_chunk(model, plans, key, start, stop, max_transitions, table, draws, ws)
     segments = [(start, stop, model)] if draws is None else draws.segments(start, stop)
     single = all(m.population.single_initial_state for _, _, m in segments)
     # attribute words: entry age and sex (occurrence 0); the initial state of a mix from occurrence 1,
@@ -358,21 +398,13 @@ def _chunk_outputs(model: Model, n_patients: int, seed: int, names: tuple[str, .
     key = key_from_seed(seed)
     plans = [model.resolve(nm) for nm in names]
     bounds = [(a, min(a + chunk_size, n_patients)) for a in range(0, n_patients, chunk_size)]
-    spare: SimpleQueue[_Workspace] = SimpleQueue()  # scratch arrays of the workers' finished chunks
 
     def work(i: int) -> tuple[_ChunkOut, _PatientTable]:
         if cancel_requested(cancel):
             raise SimulationCancelled("simulation cancelled")
         a, b = bounds[i]
         rows = table if table is not None else _PatientTable(a, b - a, len(names), state_code)
-        try:
-            ws = spare.get_nowait()
-        except Empty:
-            ws = _Workspace()
-        try:
-            return _simulate_chunk(model, plans, key, a, b, max_transitions, rows, work=ws), rows
-        finally:
-            spare.put(ws)
+        return _simulate_chunk(model, plans, key, a, b, max_transitions, rows), rows
 
     if workers == 1 or len(bounds) == 1:
         for i in range(len(bounds)):

@@ -87,3 +87,17 @@ def test_runs_are_bit_identical_with_and_without_kept_buffers():
     buffers.release()
     plain = simulate(model, 150_000, seed=5, chunk_size=17_000, workers=2)
     assert plain.events.equals(kept.events) and plain.patients.equals(kept.patients)
+
+
+def test_chunk_workspaces_are_kept_between_runs_and_dropped_by_release():
+    from sim.engine import histories
+
+    model = illness_death()
+    simulate(model, 5_000, seed=1, chunk_size=1_000, workers=2)
+    idle = list(histories._IDLE)
+    assert 1 <= len(idle) <= 2  # one per worker that ran chunks
+    simulate(model, 5_000, seed=2, chunk_size=1_000)
+    assert any(ws is idle[0] or ws is idle[-1] for ws in histories._IDLE)  # the same workspaces again
+    kept = sum(ws.nbytes for ws in histories._IDLE)
+    assert kept > 0 and buffers.release() >= kept
+    assert histories._IDLE == []
