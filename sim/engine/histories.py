@@ -115,24 +115,24 @@ def _latent_times(ex: ResolvedExit, x: NDArray[np.float64], e: NDArray[np.float6
     # hazards read them (``reads_entry_age``, e.g. sim.hazards.EntryAgeFloor).
     # The engine's clocks are finite and >= 0 and its draws are >= 0 by construction, so the
     # arguments need not be re-validated on every call: evaluate the family's conditional time
-    # directly under the floating-point error state of Hazard.conditional_time (the values are the
-    # same; only a -0.0 could differ, and t + (-0.0) == t + 0.0 for the engine's t >= +0.0).
+    # directly (the caller sets the floating-point error state of Hazard.conditional_time; the
+    # values are the same; only a -0.0 could differ, and t + (-0.0) == t + 0.0 for the engine's
+    # t >= +0.0).
     first = ex.hazards[0]
-    with np.errstate(**KERNEL_ERRSTATE):
-        if entry is not None:
-            by_draw = draw is not None and hasattr(ex, "unique")
-            codes = ex.code[draw, 0 if sex is None else sex] if by_draw else sex
-            out = entry_age_times(ex.unique if by_draw else ex.hazards, codes, x, e, entry)
-        elif draw is not None and hasattr(ex, "latent"):
-            out = ex.latent(x, e, sex, draw)
-        elif all(h is first for h in ex.hazards):
-            out = first._conditional_time(x, e)
-        else:
-            out = np.empty_like(x)
-            for code, h in enumerate(ex.hazards):
-                m = sex == code
-                if m.any():
-                    out[m] = h._conditional_time(x[m], e[m])
+    if entry is not None:
+        by_draw = draw is not None and hasattr(ex, "unique")
+        codes = ex.code[draw, 0 if sex is None else sex] if by_draw else sex
+        out = entry_age_times(ex.unique if by_draw else ex.hazards, codes, x, e, entry)
+    elif draw is not None and hasattr(ex, "latent"):
+        out = ex.latent(x, e, sex, draw)
+    elif all(h is first for h in ex.hazards):
+        out = first._conditional_time(x, e)
+    else:
+        out = np.empty_like(x)
+        for code, h in enumerate(ex.hazards):
+            m = sex == code
+            if m.any():
+                out[m] = h._conditional_time(x[m], e[m])
     return out
 
 
@@ -254,49 +254,52 @@ def _run_strategy(model: Model, resolved: list[list[ResolvedExit]], key: tuple[n
     idx = work.array("active", n, np.int64)  # the active patients, increasing: first all with time to live
     m = int(np.count_nonzero(active))
     idx[:m] = np.flatnonzero(active)
-    rounds = 0
-    while True:
-        # each state's patients are fixed (``order``) before any of them moves: a patient moved into
-        # a state handled later in the round does not move twice
-        m = kernels.by_state(idx, m, active, cur, t, entry_age, bounds, order, clock, attained)
-        if m == 0:
-            break
-        rounds += 1
-        if rounds > max_transitions:
-            raise SimulationError(
-                f"some patients made more than {max_transitions} transitions before the horizon "
-                f"(states now occupied: {sorted({model.state_names[s] for s in np.unique(cur[idx[:m]])})}); "
-                f"check for very large hazards on a loop between states, or raise max_transitions")
-        for s in np.flatnonzero(np.diff(bounds)).tolist():
-            part = slice(int(bounds[s]), int(bounds[s + 1]))
-            sel, ts = order[part], clock[part]
-            exits = resolved[s]
-            k = len(exits)
-            if visits[s] is None:
-                visits[s] = work.array(f"visits {s}", n, np.int64)
-                visits[s][...] = 0
-            e = draws_buf[:sel.size * k].reshape(sel.size, k)
-            kernels.visit_units(sel, start, visits[s], k, 1 + s, k0, k1, e)
-            np.log(e, out=e)
-            np.negative(e, out=e)
-            age = attained[part] if uses_age[s] else None
-            sx = sex[sel] if by_sex[s] else None
-            dr = None if draw_of is None else draw_of[sel]
-            a0 = entry_age[sel] if any(reads_entry[s]) else None
-            latent = [np.ascontiguousarray(_latent_times(ex, _clock_value(ex, ts, age), e[:, j], sx, dr,
-                                                         a0 if reads_entry[s][j] else None))
-                      for j, ex in enumerate(exits)]
-            more = latent_buf[:max(k - 4, 0) * sel.size].reshape(max(k - 4, 0), sel.size)
-            for j in range(4, k):  # a fifth exit and beyond: one block (rare)
-                more[j - 4] = latent[j]
-            fill = latent + latent[:1] * (4 - min(k, 4))  # unused arguments, not read
-            rec.reserve(sel.size)
-            got = kernels.settle(sel, k, fill[0], fill[1], fill[2], fill[3], more, rounds > 1, s, rounds, limit,
-                                 targets[s], exit_index[s], absorbing, t, cur, active, absorbed, rec.idx, rec.time,
-                                 rec.from_, rec.to, rec.exit, rec.round, rec.count)
-            if got < 0:
-                raise _no_event_time(exits, latent, ts, age, e)
-            rec.count = got
+    # the hazards' numpy kernels run under Hazard.conditional_time's floating-point error state,
+    # set once for the whole loop rather than per call
+    with np.errstate(**KERNEL_ERRSTATE):
+        rounds = 0
+        while True:
+            # each state's patients are fixed (``order``) before any of them moves: a patient moved into
+            # a state handled later in the round does not move twice
+            m = kernels.by_state(idx, m, active, cur, t, entry_age, bounds, order, clock, attained)
+            if m == 0:
+                break
+            rounds += 1
+            if rounds > max_transitions:
+                raise SimulationError(
+                    f"some patients made more than {max_transitions} transitions before the horizon "
+                    f"(states now occupied: {sorted({model.state_names[s] for s in np.unique(cur[idx[:m]])})}); "
+                    f"check for very large hazards on a loop between states, or raise max_transitions")
+            for s in np.flatnonzero(np.diff(bounds)).tolist():
+                part = slice(int(bounds[s]), int(bounds[s + 1]))
+                sel, ts = order[part], clock[part]
+                exits = resolved[s]
+                k = len(exits)
+                if visits[s] is None:
+                    visits[s] = work.array(f"visits {s}", n, np.int64)
+                    visits[s][...] = 0
+                e = draws_buf[:sel.size * k].reshape(sel.size, k)
+                kernels.visit_units(sel, start, visits[s], k, 1 + s, k0, k1, e)
+                np.log(e, out=e)
+                np.negative(e, out=e)
+                age = attained[part] if uses_age[s] else None
+                sx = sex[sel] if by_sex[s] else None
+                dr = None if draw_of is None else draw_of[sel]
+                a0 = entry_age[sel] if any(reads_entry[s]) else None
+                latent = [np.ascontiguousarray(_latent_times(ex, _clock_value(ex, ts, age), e[:, j], sx, dr,
+                                                             a0 if reads_entry[s][j] else None))
+                          for j, ex in enumerate(exits)]
+                more = latent_buf[:max(k - 4, 0) * sel.size].reshape(max(k - 4, 0), sel.size)
+                for j in range(4, k):  # a fifth exit and beyond: one block (rare)
+                    more[j - 4] = latent[j]
+                fill = latent + latent[:1] * (4 - min(k, 4))  # unused arguments, not read
+                rec.reserve(sel.size)
+                got = kernels.settle(sel, k, fill[0], fill[1], fill[2], fill[3], more, rounds > 1, s, rounds, limit,
+                                     targets[s], exit_index[s], absorbing, t, cur, active, absorbed, rec.idx, rec.time,
+                                     rec.from_, rec.to, rec.exit, rec.round, rec.count)
+                if got < 0:
+                    raise _no_event_time(exits, latent, ts, age, e)
+                rec.count = got
     np.logical_not(absorbed, out=reason.view(np.bool_))  # 0 "absorbed", 1 "censored"
     return rec
 
