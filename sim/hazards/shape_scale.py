@@ -63,6 +63,10 @@ def weibull_times(k: Shape, log_lam: Shape, x: FloatArray, e: FloatArray) -> Flo
             _fused.affine_of_scaled(log_lam, k, t)  # the same bits as the line below
             return np.exp(t, out=t)
         return np.exp(log_lam + np.log(e) / k)
+    if _fused.fusable((k, log_lam), (x, e)):
+        t = _fused_weibull_times(k, log_lam, x, e)
+        if t is not None:
+            return t
     log_hx = k * (np.log(x) - log_lam)  # -inf at x = 0
     log_e = np.log(e)
     with np.errstate(invalid="ignore"):  # x = 0 and e = 0 together: fixed by the where below
@@ -76,6 +80,23 @@ def weibull_times(k: Shape, log_lam: Shape, x: FloatArray, e: FloatArray) -> Flo
         t = np.exp(log_end) * -np.expm1(-z)
     t = _overflowed_end(t, log_end, z, e)
     return np.where(e > 0.0, t, 0.0)
+
+
+def _fused_weibull_times(k: float, log_lam: float, x: FloatArray, e: FloatArray) -> FloatArray | None:
+    """:func:`weibull_times`' general form with its arithmetic fused (:mod:`._fused`; the same bits:
+    the same operations in the same order, numpy's exp, log, log1p and expm1 between them), or None
+    where some lane needs the overflow form (the caller then takes the numpy path)."""
+    log_hx, log_e = np.log(x), np.log(e)
+    tail = np.empty(x.size)
+    with np.errstate(invalid="ignore"):  # x = 0 and e = 0 together: the lane's time is 0 below
+        _fused.weibull_gaps(k, log_lam, log_hx, log_e, tail)
+        np.exp(tail, out=tail)
+        np.log1p(tail, out=tail)  # log1p(exp(-|d|))
+        neg_z, ends = log_e, np.empty(x.size)  # log e is not needed after this
+        _fused.weibull_ends(k, log_lam, log_hx, log_e, tail, neg_z, ends)
+        np.exp(ends, out=ends)
+        np.expm1(neg_z, out=neg_z)
+        return tail if _fused.weibull_times_from(ends, neg_z, e, tail) else None
 
 
 def loglogistic_times(k: Shape, log_lam: Shape, x: FloatArray, e: FloatArray) -> FloatArray:

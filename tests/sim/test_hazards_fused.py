@@ -55,3 +55,16 @@ def test_per_lane_parameters_are_not_fused():
     assert not fusable((np.full(x.size, 0.1), 0.09, math.log(0.09)), (x, e))
     assert not fusable((0.1, 0.09, math.log(0.09)), (x.reshape(-1, 1), e.reshape(-1, 1)))
     assert not fusable((0.1, 1, 0.0), (x, e))  # an int: numpy's type promotion, not the kernels'
+
+
+@pytest.mark.parametrize("shape,scale", [(1.3, 12.0), (0.4, 0.5), (7.0, 80.0), (1e-3, 1e5), (0.999999999999999, 1.0),
+                                         (300.0, 1e-300)])
+def test_weibull_fused_time_on_running_clocks_equals_the_numpy_form_bit_for_bit(shape, scale):
+    x, e = _inputs(5)
+    log_lam = math.log(scale)
+    assert fusable((shape, log_lam), (x, e))
+    with np.errstate(all="ignore"):
+        fused = weibull_times(shape, log_lam, x, e)
+        numpy_form = weibull_times(np.float64(shape), np.float64(log_lam), x, e)  # numpy scalars: not fused
+    assert not fusable((np.float64(shape), np.float64(log_lam)), (x, e))
+    np.testing.assert_array_equal(fused, numpy_form)
