@@ -233,10 +233,10 @@ def _run_strategy(model: Model, resolved: list[list[ResolvedExit]], key: tuple[n
     exit_code = _code_dtype(len(model.exit_names))
     absorbing = np.array([s.absorbing for s in model.states])
     k0, k1 = key
-    cur[...] = initial
-    t[...] = 0.0
-    active = limit > 0.0
-    absorbed = np.zeros(n, dtype=bool)
+    work = work if work is not None else _Workspace()
+    active, absorbed = work.array("active", n, np.bool_), work.array("absorbed", n, np.bool_)
+    idx = work.array("active ids", n, np.int64)  # the active patients, increasing
+    m = kernels.start_histories(initial, limit, t, cur, active, absorbed, idx)
     visits: list[NDArray[np.int64] | None] = [None] * n_states  # entries into each state so far
     # per state: exit codes, targets, whether any exit reads attained age / has sex-specific hazards
     exit_index = [np.array([e.index for e in ex], dtype=exit_code) for ex in resolved]
@@ -245,15 +245,11 @@ def _run_strategy(model: Model, resolved: list[list[ResolvedExit]], key: tuple[n
     reads_entry = [[any(getattr(h, "reads_entry_age", False) for h in e.hazards) for e in ex] for ex in resolved]
     by_sex = [any(getattr(e, "sex_specific", None) or any(h is not e.hazards[0] for h in e.hazards) for e in ex)
               for ex in resolved]
-    work = work if work is not None else _Workspace()
     rec = work.records(code, 2 * n, state_code, exit_code)
     k_max = max(len(ex) for ex in resolved)
     bounds = np.empty(n_states + 1, dtype=np.int64)
     order, clock, attained = work.array("order", n, np.int64), work.array("clock", n), work.array("attained", n)
     draws_buf, latent_buf = work.array("draws", n * k_max), work.array("latent", n * max(k_max - 4, 1))
-    idx = work.array("active", n, np.int64)  # the active patients, increasing: first all with time to live
-    m = int(np.count_nonzero(active))
-    idx[:m] = np.flatnonzero(active)
     # the hazards' numpy kernels run under Hazard.conditional_time's floating-point error state,
     # set once for the whole loop rather than per call
     with np.errstate(**KERNEL_ERRSTATE):

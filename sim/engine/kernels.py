@@ -29,7 +29,7 @@ from llvmlite import ir
 from numba import njit, types
 from numba.extending import intrinsic
 
-__all__ = ["range_units", "visit_units", "by_state", "settle", "place_events"]
+__all__ = ["range_units", "visit_units", "start_histories", "by_state", "settle", "place_events", "number_rows"]
 
 
 @intrinsic
@@ -168,6 +168,31 @@ def visit_units(sel, start, visits, k, stream, k0, k1, out):  # pragma: no cover
                 if j == k or r == top:
                     break
                 r += np.uint64(1)
+
+
+@njit(nogil=True, cache=True)
+def start_histories(initial, limit, t, cur, active, absorbed, idx):  # pragma: no cover - compiled
+    """Every patient of the chunk in its initial state at time 0, active if it has time to live
+    (``limit > 0``), none absorbed; the active ones' indexes into ``idx`` (increasing). Returns their
+    number. One pass instead of six array operations."""
+    m = 0
+    for i in range(t.size):
+        cur[i] = initial[i]
+        t[i] = 0.0
+        on = limit[i] > 0.0
+        active[i] = on
+        absorbed[i] = False
+        idx[m] = i
+        m += on
+    return m
+
+
+@njit(nogil=True, cache=True)
+def number_rows(start, patient, entry_age, exit_time, exit_age):  # pragma: no cover - compiled
+    """Patient ids ``start, start + 1, ...`` and exit ages ``entry_age + exit_time`` of a chunk's rows."""
+    for i in range(patient.size):
+        patient[i] = start + i
+        exit_age[i] = entry_age[i] + exit_time[i]
 
 
 @njit(nogil=True, cache=True)
