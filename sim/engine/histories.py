@@ -20,6 +20,13 @@ Because each latent draw is a pure function of (seed, patient, state, occurrence
 histories are identical for every chunking and worker count, and strategies share common random
 numbers: a strategy that only changes the hazard of one transition changes only the latent times
 that transition produces.
+
+Where the work runs: the integer and bookkeeping steps of a round (the Philox words of exactly the
+patients in a state, grouping by state, the competing minimum with moves, censoring and records,
+placing a chunk's events) are compiled kernels (:mod:`sim.engine.kernels`, numba, without the GIL,
+so worker threads overlap); ``log`` of the uniforms and the hazards' conditional times are numpy
+(:mod:`sim.hazards`). Scratch arrays live in per-chunk workspaces kept between runs, and the
+result columns come from :mod:`sim.engine.buffers`.
 """
 
 from __future__ import annotations

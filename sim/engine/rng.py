@@ -17,7 +17,9 @@ per patient in ``(stream, occurrence)`` reads the words of the counters::
 as one sequence, four 64-bit words per counter: draw ``j`` of patient ``p`` is word
 ``w = p k + j``, that is word ``w mod 4`` of counter ``c = floor(w / 4)``. Every word of every
 Philox call is used, and the draws of consecutive patients are consecutive in memory, so a dense
-range of patients is one call to numpy's C Philox and a reshape, with no gather.
+range of patients is one call to numpy's C Philox and a reshape, with no gather. The engine draws
+through the compiled :mod:`sim.engine.kernels` (``visit_units``, ``range_units``), which give the
+same bits as :func:`uniforms` (tested); this module is their numpy reference and the public API.
 
 stream 0 holds patient attributes (occurrence 0: entry age and sex, ``k = 2``; occurrence 1: the
 initial state of a mix, ``k = 1``); stream 1 + s holds the latent times for the exits of state
