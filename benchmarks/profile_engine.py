@@ -6,7 +6,7 @@
 Sections (``--only``):
 
 - ``engine``: line_profiler over the engine's hot functions (``sim.engine.histories._run_strategy``,
-  ``sim.engine.histories._simulate_chunk``,
+  ``sim.engine.histories._chunk_in`` (one chunk),
   ``sim.engine.tables.OutputTables.place_events``, ``sim.engine.histories._assemble``) for the
   reference workload, 1,000,000 patients, one thread; the lines taking >= 2% of a function's time,
   then the time grouped by kind of work (draws, hazards, competing minimum, bookkeeping, event
@@ -70,10 +70,10 @@ def engine_section(quick: bool) -> str:
         engine.simulate(model, n, seed=1, workers=1)
         plain.append(time.perf_counter() - t0)
     place = tables.OutputTables.place_events
-    lp = LineProfiler(engine._run_strategy, engine._simulate_chunk, engine._assemble, place)
-    saved = (engine._run_strategy, engine._simulate_chunk, engine._assemble)
+    lp = LineProfiler(engine._run_strategy, engine._chunk_in, engine._assemble, place)
+    saved = (engine._run_strategy, engine._chunk_in, engine._assemble)
     engine._run_strategy = lp(engine._run_strategy)
-    engine._simulate_chunk = lp(engine._simulate_chunk)
+    engine._chunk_in = lp(engine._chunk_in)
     engine._assemble = lp(engine._assemble)
     tables.OutputTables.place_events = lp(place)
     try:
@@ -81,7 +81,7 @@ def engine_section(quick: bool) -> str:
         engine.simulate(model, n, seed=1, workers=1)
         profiled = time.perf_counter() - t0
     finally:
-        engine._run_strategy, engine._simulate_chunk, engine._assemble = saved
+        engine._run_strategy, engine._chunk_in, engine._assemble = saved
         tables.OutputTables.place_events = place
     rows = _line_stats(lp)
     by_fn: dict[str, float] = {}
@@ -101,7 +101,7 @@ def engine_section(quick: bool) -> str:
     text.write("| Work (inside the round loop, `_run_strategy`) | ms | share |\n|---|---|---|\n")
     for kind, sec in sorted(kinds.items(), key=lambda kv: -kv[1]):
         text.write(f"| {kind} | {sec * 1e3:.1f} | {sec / total:.0%} |\n")
-    attr = sum(sec for fn, src, _h, sec in rows if fn == "_simulate_chunk" and "range_units(" in src)
+    attr = sum(sec for fn, src, _h, sec in rows if fn == "_chunk_in" and "range_units(" in src)
     text.write(f"\nOutside the loop: patient attributes' draws {attr * 1e3:.1f} ms; placing the events into the "
                f"run's columns, in the chunks (`OutputTables.place_events`) {by_fn.get('OutputTables.place_events', 0.0) * 1e3:.1f} "
                f"ms; building the frames (`_assemble`) {by_fn.get('_assemble', 0.0) * 1e3:.1f} ms.\n\n")

@@ -315,7 +315,13 @@ def _simulate_chunk(model: Model, plans: list[list[list[ResolvedExit]]], key: tu
     ``work``: the chunk's scratch arrays (an idle workspace, or a new one, if None)."""
     if work is None:
         with _workspace() as ws:
-            return _simulate_chunk(model, plans, key, start, stop, max_transitions, table, draws, ws)
+            return _chunk_in(model, plans, key, start, stop, max_transitions, table, draws, ws)
+    return _chunk_in(model, plans, key, start, stop, max_transitions, table, draws, work)
+
+
+def _chunk_in(model: Model, plans: list[list[list[ResolvedExit]]], key: tuple[int, int], start: int, stop: int,
+              max_transitions: int, table: _PatientTable, draws, work: _Workspace) -> _ChunkOut:
+    """:func:`_simulate_chunk` in the workspace ``work``."""
     segments = [(start, stop, model)] if draws is None else draws.segments(start, stop)
     single = all(m.population.single_initial_state for _, _, m in segments)
     # attribute words: entry age and sex (occurrence 0); the initial state of a mix from occurrence 1,

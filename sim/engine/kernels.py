@@ -29,7 +29,7 @@ from llvmlite import ir
 from numba import njit, types
 from numba.extending import intrinsic
 
-__all__ = ["range_units", "visit_units", "start_histories", "by_state", "settle", "place_events", "number_rows"]
+__all__ = ["range_units", "visit_units", "start_histories", "by_state", "settle", "place_events"]
 
 
 @intrinsic
@@ -185,14 +185,6 @@ def start_histories(initial, limit, t, cur, active, absorbed, idx):  # pragma: n
         idx[m] = i
         m += on
     return m
-
-
-@njit(nogil=True, cache=True)
-def number_rows(start, patient, entry_age, exit_time, exit_age):  # pragma: no cover - compiled
-    """Patient ids ``start, start + 1, ...`` and exit ages ``entry_age + exit_time`` of a chunk's rows."""
-    for i in range(patient.size):
-        patient[i] = start + i
-        exit_age[i] = entry_age[i] + exit_time[i]
 
 
 @njit(nogil=True, cache=True)

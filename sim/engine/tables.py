@@ -237,11 +237,11 @@ class OutputTables:
             r = self.rows(k, start, stop)
             self.strategy[r] = k
             if k == 0:
-                kernels.number_rows(start, self.patient[r], self.entry_age[r], self.exit_time[r], self.exit_age[r])
+                self.patient[r] = np.arange(start, stop, dtype=np.int64)
             else:
                 for col in (self.patient, self.entry_age, self.sex, self.initial):
                     col[r] = col[r0]
-                np.add(self.entry_age[r], self.exit_time[r], out=self.exit_age[r])
+            np.add(self.entry_age[r], self.exit_time[r], out=self.exit_age[r])
 
     def _event_columns(self, exit_code: np.dtype) -> _EventColumns:
         with self._lock:
