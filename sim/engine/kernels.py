@@ -98,6 +98,19 @@ def _unit(word):
     return 2.0 - _bits_as_float((word >> np.uint64(12)) | _ONE_BITS)
 
 
+@njit(inline="always")
+def _pick(x, a0, a1, a2, a3, b0, b1, b2, b3):
+    """Word ``x`` (0-7) of two counters' words ``a`` then ``b``, by selects rather than branches."""
+    v = a0
+    v = a1 if x == 1 else v
+    v = a2 if x == 2 else v
+    v = a3 if x == 3 else v
+    v = b0 if x == 4 else v
+    v = b1 if x == 5 else v
+    v = b2 if x == 6 else v
+    return b3 if x == 7 else v
+
+
 @njit(nogil=True, cache=True)
 def range_units(first, count, k, stream, occurrence, k0, k1, out):  # pragma: no cover - compiled
     """Uniforms of the patients with ids ``first .. first + count - 1``, ``k`` each, at one
@@ -151,6 +164,33 @@ def visit_units(sel, start, visits, k, stream, k0, k1, out):  # pragma: no cover
             range_units(start + sel[0], m, k, stream, o, k0, k1, out)
             return
     st, kk, top = np.uint64(stream), np.uint64(k), np.uint64(3)
+    if k <= 4:  # straight-line code: the word loop below costs ~4 ns a patient in mispredicted branches
+        for i in range(sel.size):
+            p = np.uint64(sel[i])
+            o = visits[p]
+            visits[p] = o + 1
+            oc = np.uint64(o)
+            w = np.uint64(start + sel[i]) * kk
+            r = w & top
+            a0, a1, a2, a3 = _philox(w >> np.uint64(2), st, oc, np.uint64(0), k0, k1)
+            if k == 4:  # r = 0
+                out[i, 0] = _unit(a0)
+                out[i, 1] = _unit(a1)
+                out[i, 2] = _unit(a2)
+                out[i, 3] = _unit(a3)
+            elif k == 2:  # r = 0 or 2: one counter
+                hi = r != np.uint64(0)
+                out[i, 0] = _unit(a2 if hi else a0)
+                out[i, 1] = _unit(a3 if hi else a1)
+            elif k == 1:
+                out[i, 0] = _unit(_pick(r, a0, a1, a2, a3, a0, a1, a2, a3))
+            else:  # k = 3: words r .. r + 2, into the next counter when r >= 2
+                b0, b1, b2, b3 = a0, a1, a2, a3
+                if r >= np.uint64(2):
+                    b0, b1, b2, b3 = _philox((w >> np.uint64(2)) + np.uint64(1), st, oc, np.uint64(0), k0, k1)
+                for j in range(3):
+                    out[i, j] = _unit(_pick(r + np.uint64(j), a0, a1, a2, a3, b0, b1, b2, b3))
+        return
     for i in range(sel.size):
         p = np.uint64(sel[i])  # unsigned indexes: no code for negative-index wraparound
         o = visits[p]
