@@ -258,6 +258,15 @@ def by_state(idx, m, active, cur, t, entry_age, bounds, order, ts, age):  # prag
     return kept
 
 
+@njit(inline="always")
+def _earlier(x, j, best, w, nan):
+    """One exit's latent time ``x`` against the earliest so far (``best`` of exit ``w``): exit ``j``
+    wins only if strictly earlier (the first on ties); ``nan`` records a NaN seen."""
+    if x < best:
+        return x, j, nan | (x != x)
+    return best, w, nan | (x != x)
+
+
 @njit(nogil=True, cache=True)
 def settle(sel, k, l0, l1, l2, l3, more, later, state, rnd, limit, targets, exits, absorbing, t, cur, active,
            absorbed, rec_idx, rec_time, rec_from, rec_to, rec_exit, rec_round, count):  # pragma: no cover - compiled
@@ -281,29 +290,13 @@ def settle(sel, k, l0, l1, l2, l3, more, later, state, rnd, limit, targets, exit
         nan = best != best
         w = 0
         if k > 1:
-            x = l1[i]
-            nan |= x != x
-            if x < best:
-                best = x
-                w = 1
+            best, w, nan = _earlier(l1[i], 1, best, w, nan)
         if k > 2:
-            x = l2[i]
-            nan |= x != x
-            if x < best:
-                best = x
-                w = 2
+            best, w, nan = _earlier(l2[i], 2, best, w, nan)
         if k > 3:
-            x = l3[i]
-            nan |= x != x
-            if x < best:
-                best = x
-                w = 3
+            best, w, nan = _earlier(l3[i], 3, best, w, nan)
         for j in range(4, k):
-            x = more[j - 4, i]
-            nan |= x != x
-            if x < best:
-                best = x
-                w = j
+            best, w, nan = _earlier(more[j - 4, i], j, best, w, nan)
         if nan:  # a hazard's internal error: the caller reports it
             return -1
         ts = t[p]
