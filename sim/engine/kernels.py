@@ -12,11 +12,14 @@ temporaries and gathers (issue 16):
   C Philox can only produce consecutive counters, so a state holding a scattered tenth of a chunk's
   patients cost the words of the whole id range and a gather; here only the counters of the
   patients in the state are evaluated. The 64 x 64 -> 128-bit products are one machine multiply
-  (:func:`_mulhi`, an LLVM ``i128`` product). Same bits as :func:`sim.engine.rng.uniforms` (tested).
+  (:func:`_mulhilo`, an LLVM ``i128`` product). Same bits as :func:`sim.engine.rng.uniforms` (tested).
+  :func:`range_units` does the same for a whole range of patients, each counter once (attributes).
+- :func:`start_histories` and :func:`by_state`: a chunk's starting state, and each round's active
+  patients grouped by state (a compaction and a counting sort).
 - :func:`settle`: the earliest latent time per patient (the first exit wins ties), the move or the
   censoring at the horizon, and the event record, in one pass instead of some twenty array passes.
 - :func:`place_events`: a chunk's records written straight into the run's event columns in
-  patient-then-time order (counting placement).
+  patient-then-time order (counting placement, gathering the records row by row).
 
 All kernels release the GIL (``nogil``), so the worker threads of a run overlap them, and are cached
 on disk after their first compilation (``cache=True``).
