@@ -43,6 +43,8 @@ import pandas as pd
 from numpy.typing import NDArray
 
 from ..hazards import KERNEL_ERRSTATE, entry_age_times
+from ..hazards.numpy_loops import loops as numpy_loops
+from ..hazards.blocks import block_form
 from ..model.multistate import Clock, Model, ResolvedExit
 from .rng import ATTRIBUTE_STREAM, STREAM_LAYOUT, key_from_seed
 from . import buffers, kernels
@@ -141,6 +143,27 @@ def _latent_times(ex: ResolvedExit, x: NDArray[np.float64], e: NDArray[np.float6
             if m.any():
                 out[m] = h._conditional_time(x[m], e[m])
     return out
+
+
+_CLOCK_CODES = {Clock.STATE: 0, Clock.ENTRY: 1, Clock.AGE: 2}
+
+
+def _block_plan(exits: list[ResolvedExit]) -> tuple[NDArray[np.int64], NDArray[np.float64], NDArray[np.int64]] | None:
+    """The exits' families, numbers and clock codes for :func:`kernels.state_round` when every exit
+    is a plain one (not per-draw, one hazard for both sexes, not reading entry ages) with a block
+    form (:func:`sim.hazards.blocks.block_form`); else None (the numpy path)."""
+    forms = []
+    for ex in exits:
+        first = ex.hazards[0]
+        if type(ex) is not ResolvedExit or any(h is not first for h in ex.hazards) \
+                or getattr(first, "reads_entry_age", False):
+            return None
+        form = block_form(first)
+        if form is None:
+            return None
+        forms.append(form)
+    return (np.array([f[0] for f in forms], dtype=np.int64), np.array([f[1:] for f in forms], dtype=np.float64),
+            np.array([_CLOCK_CODES[ex.clock] for ex in exits], dtype=np.int64))
 
 
 def _no_event_time(exits: list[ResolvedExit], latent: list[NDArray[np.float64]], ts: NDArray[np.float64],
@@ -257,6 +280,12 @@ def _run_strategy(model: Model, resolved: list[list[ResolvedExit]], key: tuple[n
     bounds = np.empty(n_states + 1, dtype=np.int64)
     order, clock, attained = work.array("order", n, np.int64), work.array("clock", n), work.array("attained", n)
     draws_buf, latent_buf = work.array("draws", n * k_max), work.array("latent", n * max(k_max - 4, 1))
+    # states whose exits all have block forms take one compiled call per round (kernels.state_round)
+    fns = numpy_loops()
+    plans = [None if fns is None else _block_plan(ex) for ex in resolved]
+    if any(p is not None for p in plans):
+        latents = work.array("latents", n * k_max)
+        tmp = work.array("block scratch", 3 * kernels.STATE_BLOCK).reshape(3, kernels.STATE_BLOCK)
     # the hazards' numpy kernels run under Hazard.conditional_time's floating-point error state,
     # set once for the whole loop rather than per call
     with np.errstate(**KERNEL_ERRSTATE):
@@ -282,6 +311,27 @@ def _run_strategy(model: Model, resolved: list[list[ResolvedExit]], key: tuple[n
                     visits[s] = work.array(f"visits {s}", n, np.int64)
                     visits[s][...] = 0
                 e = draws_buf[:sel.size * k].reshape(sel.size, k)
+                if plans[s] is not None:
+                    families, params, clocks = plans[s]
+                    lat = latents[:k * sel.size].reshape(k, sel.size)
+                    rec.reserve(sel.size)
+                    failed, got = kernels.state_round(
+                        sel, start, visits[s], k, 1 + s, k0, k1, fns, families, params, clocks, ts, attained[part], e,
+                        lat, tmp, rounds > 1, s, rounds, limit, targets[s], exit_index[s], absorbing, t, cur, active,
+                        absorbed, rec.idx, rec.time, rec.from_, rec.to, rec.exit, rec.round, rec.count)
+                    if failed:  # some exit needs the numpy code's general form: evaluate it there
+                        age = attained[part]
+                        for j, ex in enumerate(exits):
+                            if failed >> j & 1:
+                                lat[j] = _latent_times(ex, _clock_value(ex, ts, age), e[:, j], None)
+                        got = kernels.settle(sel, k, lat[0], lat[min(1, k - 1)], lat[min(2, k - 1)],
+                                             lat[min(3, k - 1)], lat[4:], rounds > 1, s, rounds, limit, targets[s],
+                                             exit_index[s], absorbing, t, cur, active, absorbed, rec.idx, rec.time,
+                                             rec.from_, rec.to, rec.exit, rec.round, rec.count)
+                    if got < 0:
+                        raise _no_event_time(exits, list(lat), ts, attained[part], e)
+                    rec.count = got
+                    continue
                 kernels.visit_units(sel, start, visits[s], k, 1 + s, k0, k1, e)
                 np.log(e, out=e)
                 np.negative(e, out=e)

@@ -32,7 +32,15 @@ from llvmlite import ir
 from numba import njit, types
 from numba.extending import intrinsic
 
-__all__ = ["range_units", "visit_units", "start_histories", "by_state", "settle", "place_events"]
+from ..hazards.numpy_loops import LOG, call
+from ..hazards.blocks import exit_block
+
+__all__ = ["range_units", "visit_units", "start_histories", "by_state", "settle", "state_round", "place_events",
+           "STATE_BLOCK"]
+
+#: Patients per block in :func:`state_round`: a block's draws, latent times and scratch stay in the
+#: first-level cache.
+STATE_BLOCK = 2048
 
 
 @intrinsic
@@ -327,6 +335,43 @@ def settle(sel, k, l0, l1, l2, l3, more, later, state, rnd, limit, targets, exit
             t[p] = lim
             active[p] = False
     return n_rec
+
+
+@njit(nogil=True, cache=True)
+def state_round(sel, start, visits, k, stream, k0, k1, fns, families, params, clocks, ts, age, draws, latent, tmp,
+                later, state, rnd, limit, targets, exits, absorbing, t, cur, active, absorbed, rec_idx, rec_time,
+                rec_from, rec_to, rec_exit, rec_round, count):  # pragma: no cover - compiled
+    """One round of the patients ``sel`` in ``state`` whose ``k`` exits all have block forms
+    (:func:`sim.hazards.blocks.block_form`: ``families[j]``, ``params[j, :]``; clock ``clocks[j]``:
+    0 time in state, 1 time since entry ``ts``, 2 attained age ``age``), in one call: block by
+    block of :data:`STATE_BLOCK` patients, their uniforms (:func:`visit_units`), ``e = -log u``
+    into ``draws`` (shape (m, k)) and each exit's latent times into ``latent[j]`` (shape (k, m));
+    then :func:`settle`. The values are those of the numpy path (the same operations; numpy's own
+    log loop). Returns ``(failed, count)``: ``failed`` has bit ``j`` set where exit ``j`` needs the
+    numpy code (nothing settled; the draws are in ``draws``), else 0 and :func:`settle`'s count."""
+    m = sel.size
+    failed = 0
+    for a in range(0, m, STATE_BLOCK):
+        b = min(a + STATE_BLOCK, m)
+        e = draws[a:b]
+        visit_units(sel[a:b], start, visits, k, stream, k0, k1, e)
+        pe = e.ctypes.data
+        call(fns, LOG, pe, pe, (b - a) * k, 8, 8)
+        for i in range(b - a):
+            for j in range(k):
+                e[i, j] = -e[i, j]
+        for j in range(k):
+            c = clocks[j]
+            x = ts[a:b] if c == 1 else age[a:b]
+            if not exit_block(fns, families[j], params[j, 0], params[j, 1], params[j, 2], x, c == 0, e, j,
+                              latent[j, a:b], tmp):
+                failed |= 1 << j
+    if failed:
+        return failed, count
+    got = settle(sel, k, latent[0], latent[min(1, k - 1)], latent[min(2, k - 1)], latent[min(3, k - 1)],
+                 latent[4:], later, state, rnd, limit, targets, exits, absorbing, t, cur, active, absorbed, rec_idx,
+                 rec_time, rec_from, rec_to, rec_exit, rec_round, count)
+    return 0, got
 
 
 @njit(nogil=True, cache=True)
