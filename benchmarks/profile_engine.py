@@ -9,8 +9,10 @@ Sections (``--only``):
   ``sim.engine.histories._chunk_in`` (one chunk),
   ``sim.engine.tables.OutputTables.place_events``, ``sim.engine.histories._assemble``) for the
   reference workload, 1,000,000 patients, one thread; the lines taking >= 2% of a function's time,
-  then the time grouped by kind of work (draws, hazards, competing minimum, bookkeeping, event
-  order, placing the events into the run's columns, building the frames).
+  then the time grouped by kind of work (the compiled round loop, placing the events into the run's
+  columns, building the frames), and the same for a run with the block forms switched off (the
+  numpy path, same histories), whose calls show the parts of the round loop (draws, hazards,
+  competing minimum, grouping).
 - ``batches``: pyinstrument over 300 calls of ``simulate(1,000 patients)``.
 - ``pipeline``: pyinstrument over ``sim.pipeline.run.run_scenario`` on the reference workload at 100,000
   patients (what the desktop window runs; the study included).
@@ -40,6 +42,8 @@ OUTPUT = HERE / "PROFILES.md"
 
 # engine source lines by kind of work: (kind, text that identifies the line)
 _KINDS = (
+    ("the compiled round loop (kernels.run_rounds: grouping, draws, block-form hazards, competing minimum)",
+     ("kernels.run_rounds(",)),
     ("draws (counter-based generator, uniforms, log)", ("visit_units(", "np.log(e", "np.negative(e")),
     ("hazards (conditional times)", ("_latent_times(",)),
     ("competing minimum, moves and records (kernels.settle)", ("kernels.settle(",)),
@@ -58,17 +62,10 @@ def _line_stats(lp) -> list[tuple[str, str, int, float]]:
     return out
 
 
-def engine_section(quick: bool) -> str:
+def _profiled_run(model, n: int) -> tuple[list[tuple[str, str, int, float]], float]:
+    """Line timings of one run (the engine's hot functions) and its time with the profiler."""
     from line_profiler import LineProfiler
 
-    n = 50_000 if quick else 1_000_000
-    model = reference_model()
-    engine.simulate(model, n, seed=1, workers=1)  # warm-up (the first large run pays fresh pages)
-    plain = []
-    for _ in range(3):
-        t0 = time.perf_counter()
-        engine.simulate(model, n, seed=1, workers=1)
-        plain.append(time.perf_counter() - t0)
     place = tables.OutputTables.place_events
     lp = LineProfiler(engine._run_strategy, engine._chunk_in, engine._assemble, place)
     saved = (engine._run_strategy, engine._chunk_in, engine._assemble)
@@ -83,24 +80,44 @@ def engine_section(quick: bool) -> str:
     finally:
         engine._run_strategy, engine._chunk_in, engine._assemble = saved
         tables.OutputTables.place_events = place
-    rows = _line_stats(lp)
+    return _line_stats(lp), profiled
+
+
+def _by_function(rows) -> dict[str, float]:
     by_fn: dict[str, float] = {}
     for fn, _src, _hits, sec in rows:
         by_fn[fn] = by_fn.get(fn, 0.0) + sec
-    text = io.StringIO()
-    text.write(f"Reference workload, {n:,} patients, 1 thread: {sorted(plain)[1] * 1e3:.0f} ms without the profiler "
-               f"(median of 3), {profiled * 1e3:.0f} ms with it.\n\n")
-    # work by kind, within _run_strategy (the round loop) plus the draws of patient attributes
-    strategy_rows = [r for r in rows if r[0] == "_run_strategy"]
+    return by_fn
+
+
+def _kind_table(text: io.StringIO, rows, by_fn: dict[str, float]) -> None:
+    """Time within ``_run_strategy`` (the round loop) grouped by kind of work (:data:`_KINDS`)."""
     total = by_fn.get("_run_strategy", 0.0)
     kinds: dict[str, float] = {}
-    for _fn, src, _hits, sec in strategy_rows:
+    for _fn, src, _hits, sec in (r for r in rows if r[0] == "_run_strategy"):
         kind = next((k for k, marks in _KINDS if any(m in src for m in marks)), "round bookkeeping (selection, "
                     "occurrence counters, moves, censoring)")
         kinds[kind] = kinds.get(kind, 0.0) + sec
     text.write("| Work (inside the round loop, `_run_strategy`) | ms | share |\n|---|---|---|\n")
     for kind, sec in sorted(kinds.items(), key=lambda kv: -kv[1]):
         text.write(f"| {kind} | {sec * 1e3:.1f} | {sec / total:.0%} |\n")
+
+
+def engine_section(quick: bool) -> str:
+    n = 50_000 if quick else 1_000_000
+    model = reference_model()
+    engine.simulate(model, n, seed=1, workers=1)  # warm-up (the first large run pays fresh pages)
+    plain = []
+    for _ in range(3):
+        t0 = time.perf_counter()
+        engine.simulate(model, n, seed=1, workers=1)
+        plain.append(time.perf_counter() - t0)
+    rows, profiled = _profiled_run(model, n)
+    by_fn = _by_function(rows)
+    text = io.StringIO()
+    text.write(f"Reference workload, {n:,} patients, 1 thread: {sorted(plain)[1] * 1e3:.0f} ms without the profiler "
+               f"(median of 3), {profiled * 1e3:.0f} ms with it.\n\n")
+    _kind_table(text, rows, by_fn)
     attr = sum(sec for fn, src, _h, sec in rows if fn == "_chunk_in" and "range_units(" in src)
     text.write(f"\nOutside the loop: patient attributes' draws {attr * 1e3:.1f} ms; placing the events into the "
                f"run's columns, in the chunks (`OutputTables.place_events`) {by_fn.get('OutputTables.place_events', 0.0) * 1e3:.1f} "
@@ -111,6 +128,20 @@ def engine_section(quick: bool) -> str:
         if by_fn[fn] > 0 and sec >= 0.02 * by_fn[fn]:
             cell = src.replace("|", "\\|")[:110]
             text.write(f"| `{fn}` | `{cell}` | {hits:,} | {sec * 1e3:.1f} | {sec / by_fn[fn]:.0%} |\n")
+    # the compiled round loop is one call to line_profiler: the same work on the numpy path (the block
+    # forms switched off: the same histories, every step a numpy or kernel call of its own) shows its parts
+    saved_loops = engine.numpy_loops
+    engine.numpy_loops = lambda: None
+    try:
+        engine.simulate(model, n, seed=1, workers=1)
+        rows, profiled = _profiled_run(model, n)
+    finally:
+        engine.numpy_loops = saved_loops
+    text.write(f"\nThe same run with the block forms switched off (`sim.engine.histories.numpy_loops` -> None: "
+               f"the numpy path, the same histories, each step a call of its own; {profiled * 1e3:.0f} ms with the "
+               f"profiler), which shows the parts of the compiled round loop (there `kernels.run_rounds` only groups the "
+               f"patients by state):\n\n")
+    _kind_table(text, rows, _by_function(rows))
     return text.getvalue()
 
 

@@ -21,12 +21,14 @@ histories are identical for every chunking and worker count, and strategies shar
 numbers: a strategy that only changes the hazard of one transition changes only the latent times
 that transition produces.
 
-Where the work runs: the integer and bookkeeping steps of a round (the Philox words of exactly the
-patients in a state, grouping by state, the competing minimum with moves, censoring and records,
-placing a chunk's events) are compiled kernels (:mod:`sim.engine.kernels`, numba, without the GIL,
-so worker threads overlap); ``log`` of the uniforms and the hazards' conditional times are numpy
-(:mod:`sim.hazards`). Scratch arrays live in per-chunk workspaces kept between runs, and the
-result columns come from :mod:`sim.engine.buffers`.
+Where the work runs: the round loop is one compiled kernel (:func:`sim.engine.kernels.run_rounds`,
+numba, without the GIL, so worker threads overlap): grouping by state, the Philox words of exactly
+the patients in a state, ``-log u``, the conditional times of exits with block forms (exponential,
+Weibull, Gompertz: :mod:`sim.hazards.blocks`, calling numpy's own ``exp``/``log`` loops), the
+competing minimum with moves, censoring and records. It returns to Python for a state whose exits
+have no block form, which takes the hazards' numpy code (:mod:`sim.hazards`; the same values the
+blocks give). Placing a chunk's events is a kernel too. Scratch arrays live in per-chunk
+workspaces kept between runs, and the result columns come from :mod:`sim.engine.buffers`.
 """
 
 from __future__ import annotations
@@ -166,6 +168,42 @@ def _block_plan(exits: list[ResolvedExit]) -> tuple[NDArray[np.int64], NDArray[n
             np.array([_CLOCK_CODES[ex.clock] for ex in exits], dtype=np.int64))
 
 
+@dataclass(frozen=True)
+class _RoundTables:
+    """Per state (rows) and exit (columns, padded to the most exits of a state), what
+    :func:`kernels.run_rounds` reads: whether the state has block forms, its number of exits, their
+    families, numbers and clock codes (:func:`_block_plan`), targets and exit codes; ``fns`` numpy's
+    loops (:func:`sim.hazards.numpy_loops.loops`; zeros, unused, when they are not available)."""
+
+    fns: NDArray[np.int64]
+    planned: NDArray[np.bool_]
+    n_exits: NDArray[np.int64]
+    families: NDArray[np.int64]
+    params: NDArray[np.float64]
+    clocks: NDArray[np.int64]
+    targets: NDArray
+    exits: NDArray
+
+
+def _round_tables(resolved: list[list[ResolvedExit]], state_code: np.dtype, exit_code: np.dtype,
+                  k_max: int) -> _RoundTables:
+    fns = numpy_loops()
+    n_states = len(resolved)
+    t = _RoundTables(np.zeros(8, dtype=np.int64) if fns is None else fns, np.zeros(n_states, dtype=np.bool_),
+                     np.array([len(ex) for ex in resolved], dtype=np.int64), np.zeros((n_states, k_max), np.int64),
+                     np.zeros((n_states, k_max, 3)), np.zeros((n_states, k_max), np.int64),
+                     np.zeros((n_states, k_max), state_code), np.zeros((n_states, k_max), exit_code))
+    for s, ex in enumerate(resolved):
+        k = len(ex)
+        t.targets[s, :k] = [e.target for e in ex]
+        t.exits[s, :k] = [e.index for e in ex]
+        plan = None if fns is None or k == 0 else _block_plan(ex)
+        if plan is not None:
+            t.planned[s] = True
+            t.families[s, :k], t.params[s, :k], t.clocks[s, :k] = plan
+    return t
+
+
 def _no_event_time(exits: list[ResolvedExit], latent: list[NDArray[np.float64]], ts: NDArray[np.float64],
                    age: NDArray[np.float64] | None, e: NDArray[np.float64]) -> SimulationError:
     """The error for a NaN latent time (:func:`kernels.settle` found one): a NaN would compare as
@@ -254,9 +292,9 @@ def _run_strategy(model: Model, resolved: list[list[ResolvedExit]], key: tuple[n
     the run's Philox key as two unsigned words.
 
     Per round and occupied state: the state's patients' uniforms (:func:`kernels.visit_units`, each
-    at its own occurrence), their exponentials (numpy), each exit's conditional times (the hazards'
-    numpy kernels), then the competing minimum, moves, censoring and records
-    (:func:`kernels.settle`)."""
+    at its own occurrence), their exponentials, each exit's conditional times, then the competing
+    minimum, moves, censoring and records (:func:`kernels.settle`): all in :func:`kernels.run_rounds`
+    for states whose exits have block forms, else with the hazards' numpy code here."""
     n = entry_age.size
     n_states = len(model.states)
     state_code = _code_dtype(n_states)
@@ -267,7 +305,6 @@ def _run_strategy(model: Model, resolved: list[list[ResolvedExit]], key: tuple[n
     active, absorbed = work.array("active", n, np.bool_), work.array("absorbed", n, np.bool_)
     idx = work.array("active ids", n, np.int64)  # the active patients, increasing
     m = kernels.start_histories(initial, limit, t, cur, active, absorbed, idx)
-    visits: list[NDArray[np.int64] | None] = [None] * n_states  # entries into each state so far
     # per state: exit codes, targets, whether any exit reads attained age / has sex-specific hazards
     exit_index = [np.array([e.index for e in ex], dtype=exit_code) for ex in resolved]
     targets = [np.array([e.target for e in ex], dtype=state_code) for ex in resolved]
@@ -277,82 +314,65 @@ def _run_strategy(model: Model, resolved: list[list[ResolvedExit]], key: tuple[n
               for ex in resolved]
     rec = work.records(code, 2 * n, state_code, exit_code)
     k_max = max(len(ex) for ex in resolved)
+    tables = _round_tables(resolved, state_code, exit_code, k_max)
     bounds = np.empty(n_states + 1, dtype=np.int64)
     order, clock, attained = work.array("order", n, np.int64), work.array("clock", n), work.array("attained", n)
-    draws_buf, latent_buf = work.array("draws", n * k_max), work.array("latent", n * max(k_max - 4, 1))
-    # states whose exits all have block forms take one compiled call per round (kernels.state_round)
-    fns = numpy_loops()
-    plans = [None if fns is None else _block_plan(ex) for ex in resolved]
-    if any(p is not None for p in plans):
-        latents = work.array("latents", n * k_max)
-        tmp = work.array("block scratch", 3 * kernels.STATE_BLOCK).reshape(3, kernels.STATE_BLOCK)
+    visits = work.array("visits", n_states * n, np.int64).reshape(n_states, n)  # entries into each state
+    seen = np.zeros(n_states, dtype=np.bool_)  # states whose row of ``visits`` is zeroed
+    draws_buf, latents = work.array("draws", n * k_max), work.array("latents", n * k_max)
+    tmp = work.array("block scratch", 3 * kernels.STATE_BLOCK).reshape(3, kernels.STATE_BLOCK)
+    rnd, s_from = 0, -1
     # the hazards' numpy kernels run under Hazard.conditional_time's floating-point error state,
     # set once for the whole loop rather than per call
     with np.errstate(**KERNEL_ERRSTATE):
-        rounds = 0
         while True:
-            # each state's patients are fixed (``order``) before any of them moves: a patient moved into
-            # a state handled later in the round does not move twice
-            m = kernels.by_state(idx, m, active, cur, t, entry_age, bounds, order, clock, attained)
-            if m == 0:
+            # every round, and every state of a round with block forms, in compiled code; it returns
+            # here for a state the numpy code must handle, for room for records, or at the end
+            status, s, failed, rec.count, rnd, m = kernels.run_rounds(
+                idx, m, active, cur, t, entry_age, bounds, order, clock, attained, rnd, s_from, max_transitions,
+                start, visits, seen, k0, k1, tables.fns, tables.planned, tables.n_exits, tables.families,
+                tables.params, tables.clocks, tables.targets, tables.exits, draws_buf, latents, tmp, limit, absorbing,
+                absorbed, rec.idx, rec.time, rec.from_, rec.to, rec.exit, rec.round, rec.count)
+            if status == kernels.DONE:
                 break
-            rounds += 1
-            if rounds > max_transitions:
+            if status == kernels.TOO_MANY:
                 raise SimulationError(
                     f"some patients made more than {max_transitions} transitions before the horizon "
                     f"(states now occupied: {sorted({model.state_names[s] for s in np.unique(cur[idx[:m]])})}); "
                     f"check for very large hazards on a loop between states, or raise max_transitions")
-            for s in np.flatnonzero(np.diff(bounds)).tolist():
-                part = slice(int(bounds[s]), int(bounds[s + 1]))
-                sel, ts = order[part], clock[part]
-                exits = resolved[s]
-                k = len(exits)
-                if visits[s] is None:
-                    visits[s] = work.array(f"visits {s}", n, np.int64)
-                    visits[s][...] = 0
-                e = draws_buf[:sel.size * k].reshape(sel.size, k)
-                if plans[s] is not None:
-                    families, params, clocks = plans[s]
-                    lat = latents[:k * sel.size].reshape(k, sel.size)
-                    rec.reserve(sel.size)
-                    failed, got = kernels.state_round(
-                        sel, start, visits[s], k, 1 + s, k0, k1, fns, families, params, clocks, ts, attained[part], e,
-                        lat, tmp, rounds > 1, s, rounds, limit, targets[s], exit_index[s], absorbing, t, cur, active,
-                        absorbed, rec.idx, rec.time, rec.from_, rec.to, rec.exit, rec.round, rec.count)
-                    if failed:  # some exit needs the numpy code's general form: evaluate it there
-                        age = attained[part]
-                        for j, ex in enumerate(exits):
-                            if failed >> j & 1:
-                                lat[j] = _latent_times(ex, _clock_value(ex, ts, age), e[:, j], None)
-                        got = kernels.settle(sel, k, lat[0], lat[min(1, k - 1)], lat[min(2, k - 1)],
-                                             lat[min(3, k - 1)], lat[4:], rounds > 1, s, rounds, limit, targets[s],
-                                             exit_index[s], absorbing, t, cur, active, absorbed, rec.idx, rec.time,
-                                             rec.from_, rec.to, rec.exit, rec.round, rec.count)
-                    if got < 0:
-                        raise _no_event_time(exits, list(lat), ts, attained[part], e)
-                    rec.count = got
-                    continue
+            part = slice(int(bounds[s]), int(bounds[s + 1]))
+            sel, ts, age = order[part], clock[part], attained[part]
+            exits, k = resolved[s], len(resolved[s])
+            e = draws_buf[:sel.size * k].reshape(sel.size, k)
+            lat = latents[:k * sel.size].reshape(k, sel.size)
+            if status == kernels.NEEDS_ROOM:
+                rec.reserve(sel.size)
+                s_from = s
+                continue
+            s_from = s + 1
+            if status == kernels.NO_TIME:
+                raise _no_event_time(exits, list(lat), ts, age, e)
+            if not failed:  # no block form: the state's whole round in numpy
                 kernels.visit_units(sel, start, visits[s], k, 1 + s, k0, k1, e)
                 np.log(e, out=e)
                 np.negative(e, out=e)
-                age = attained[part] if uses_age[s] else None
                 sx = sex[sel] if by_sex[s] else None
                 dr = None if draw_of is None else draw_of[sel]
                 a0 = entry_age[sel] if any(reads_entry[s]) else None
-                latent = [np.ascontiguousarray(_latent_times(ex, _clock_value(ex, ts, age), e[:, j], sx, dr,
-                                                             a0 if reads_entry[s][j] else None))
-                          for j, ex in enumerate(exits)]
-                more = latent_buf[:max(k - 4, 0) * sel.size].reshape(max(k - 4, 0), sel.size)
-                for j in range(4, k):  # a fifth exit and beyond: one block (rare)
-                    more[j - 4] = latent[j]
-                fill = latent + latent[:1] * (4 - min(k, 4))  # unused arguments, not read
-                rec.reserve(sel.size)
-                got = kernels.settle(sel, k, fill[0], fill[1], fill[2], fill[3], more, rounds > 1, s, rounds, limit,
-                                     targets[s], exit_index[s], absorbing, t, cur, active, absorbed, rec.idx, rec.time,
-                                     rec.from_, rec.to, rec.exit, rec.round, rec.count)
-                if got < 0:
-                    raise _no_event_time(exits, latent, ts, age, e)
-                rec.count = got
+                failed = (1 << k) - 1
+            else:  # the block forms of some exits reported the numpy code's general form
+                sx = dr = a0 = None
+            for j, ex in enumerate(exits):
+                if failed >> j & 1:
+                    lat[j] = _latent_times(ex, _clock_value(ex, ts, age if uses_age[s] else None), e[:, j], sx, dr,
+                                           a0 if reads_entry[s][j] else None)
+            rec.reserve(sel.size)
+            got = kernels.settle(sel, k, lat[0], lat[min(1, k - 1)], lat[min(2, k - 1)], lat[min(3, k - 1)], lat[4:],
+                                 rnd > 1, s, rnd, limit, targets[s], exit_index[s], absorbing, t, cur, active, absorbed,
+                                 rec.idx, rec.time, rec.from_, rec.to, rec.exit, rec.round, rec.count)
+            if got < 0:
+                raise _no_event_time(exits, list(lat), ts, age, e)
+            rec.count = got
     np.logical_not(absorbed, out=reason.view(np.bool_))  # 0 "absorbed", 1 "censored"
     return rec
 

@@ -1,9 +1,10 @@
 """Compiled kernels of the engine's round loop (numba): keyed draws, the competing minimum and moves,
 and the placement of a chunk's events.
 
-What stays in numpy: every transcendental function (``log`` of the draws, the hazards' conditional
+What stays numpy's: every transcendental function (``log`` of the draws, the hazards' conditional
 times), whose SIMD implementations in numpy are several times faster than the scalar libm calls a
-compiled loop makes, and whose bits are therefore exactly those of the numpy code before this module.
+compiled loop makes: called as numpy calls, or, inside :func:`state_round`, as numpy's own inner
+loops, so the bits are exactly those of the numpy code.
 What moved here is the integer and bookkeeping work that numpy can only do as many passes with
 temporaries and gathers (issue 16):
 
@@ -18,6 +19,11 @@ temporaries and gathers (issue 16):
   patients grouped by state (a compaction and a counting sort).
 - :func:`settle`: the earliest latent time per patient (the first exit wins ties), the move or the
   censoring at the horizon, and the event record, in one pass instead of some twenty array passes.
+- :func:`state_round`: a state's whole round (words, ``-log u``, the exits' conditional times by
+  :func:`sim.hazards.blocks.exit_block`, :func:`settle`) in blocks that stay in cache, and
+  :func:`run_rounds`: every round of a chunk in one call, back to Python only for a state without
+  block forms. ``log``/``exp``/``log1p``/``expm1`` there are numpy's own loops
+  (:mod:`sim.hazards.numpy_loops`), so the bits are those of the numpy path.
 - :func:`place_events`: a chunk's records written straight into the run's event columns in
   patient-then-time order (counting placement, gathering the records row by row).
 
@@ -35,12 +41,16 @@ from numba.extending import intrinsic
 from ..hazards.numpy_loops import LOG, call
 from ..hazards.blocks import exit_block
 
-__all__ = ["range_units", "visit_units", "start_histories", "by_state", "settle", "state_round", "place_events",
-           "STATE_BLOCK"]
+__all__ = ["range_units", "visit_units", "start_histories", "by_state", "settle", "state_round", "run_rounds",
+           "place_events", "STATE_BLOCK", "DONE", "NEEDS_NUMPY", "NEEDS_ROOM", "NO_TIME", "TOO_MANY"]
 
 #: Patients per block in :func:`state_round`: a block's draws, latent times and scratch stay in the
 #: first-level cache.
 STATE_BLOCK = 2048
+
+#: What :func:`run_rounds` returns for: every history ended; a state the numpy code must handle; a
+#: state needing room for more records; a NaN latent time; more rounds than allowed.
+DONE, NEEDS_NUMPY, NEEDS_ROOM, NO_TIME, TOO_MANY = 0, 1, 2, 3, 4
 
 
 @intrinsic
@@ -372,6 +382,60 @@ def state_round(sel, start, visits, k, stream, k0, k1, fns, families, params, cl
                  latent[4:], later, state, rnd, limit, targets, exits, absorbing, t, cur, active, absorbed, rec_idx,
                  rec_time, rec_from, rec_to, rec_exit, rec_round, count)
     return 0, got
+
+
+@njit(nogil=True, cache=True)
+def run_rounds(idx, m, active, cur, t, entry_age, bounds, order, ts, age, rnd, s_from, max_rounds, start, visits, seen,
+               k0, k1, fns, planned, n_exits, families, params, clocks, targets, exits, draws, latents, tmp, limit,
+               absorbing, absorbed, rec_idx, rec_time, rec_from, rec_to, rec_exit, rec_round,
+               count):  # pragma: no cover - compiled
+    """The rounds of a chunk's histories under one strategy, from round ``rnd`` (state ``s_from``
+    of it, or a new round if ``s_from < 0``) for as long as it can: each round groups the active
+    patients by state (:func:`by_state`), and each occupied state whose exits have block forms
+    (``planned``; per state ``s``: ``n_exits[s]`` exits, ``families[s]``, ``params[s]``,
+    ``clocks[s]``, ``targets[s]``, ``exits[s]``) takes :func:`state_round`. Row ``s`` of ``visits``
+    is zeroed the first time state ``s`` is occupied (``seen``).
+
+    Returns ``(status, s, failed, count, rnd, m)``: :data:`DONE`; :data:`NEEDS_NUMPY` for state
+    ``s`` (``failed = 0``: no block form, nothing done; else the exits whose block forms failed,
+    the draws made, see :func:`state_round`); :data:`NEEDS_ROOM` (state ``s`` needs record capacity
+    for its patients; nothing done); :data:`NO_TIME` (a NaN latent time in state ``s``);
+    :data:`TOO_MANY` (more than ``max_rounds`` rounds). The caller continues with ``s_from`` the
+    next state (``s + 1``) or the same (room) and the returned ``rnd`` and ``m``. One call instead
+    of one per round and state: no return to the interpreter, so no GIL hand-over, between them."""
+    n_states = bounds.size - 1
+    while True:
+        if s_from < 0:
+            m = by_state(idx, m, active, cur, t, entry_age, bounds, order, ts, age)
+            if m == 0:
+                return DONE, 0, 0, count, rnd, m
+            rnd += 1
+            if rnd > max_rounds:
+                return TOO_MANY, 0, 0, count, rnd, m
+            s_from = 0
+        for s in range(s_from, n_states):
+            a, b = bounds[s], bounds[s + 1]
+            if a == b:
+                continue
+            if not seen[s]:
+                visits[s, :] = 0
+                seen[s] = True
+            if not planned[s]:
+                return NEEDS_NUMPY, s, 0, count, rnd, m
+            if count + (b - a) > rec_idx.size:
+                return NEEDS_ROOM, s, 0, count, rnd, m
+            k = n_exits[s]
+            failed, got = state_round(order[a:b], start, visits[s], k, 1 + s, k0, k1, fns, families[s], params[s],
+                                      clocks[s], ts[a:b], age[a:b], draws[:(b - a) * k].reshape((b - a, k)),
+                                      latents[:k * (b - a)].reshape((k, b - a)), tmp, rnd > 1, s, rnd, limit,
+                                      targets[s], exits[s], absorbing, t, cur, active, absorbed, rec_idx, rec_time,
+                                      rec_from, rec_to, rec_exit, rec_round, count)
+            if failed:
+                return NEEDS_NUMPY, s, failed, count, rnd, m
+            if got < 0:
+                return NO_TIME, s, 0, count, rnd, m
+            count = got
+        s_from = -1
 
 
 @njit(nogil=True, cache=True)
