@@ -44,6 +44,12 @@ from ..hazards.blocks import exit_block
 __all__ = ["range_units", "visit_units", "start_histories", "by_state", "settle", "state_round", "run_rounds",
            "place_events", "STATE_BLOCK", "DONE", "NEEDS_NUMPY", "NEEDS_ROOM", "NO_TIME", "TOO_MANY"]
 
+#: SHA-256 (first 16 hex digits) of the files whose compiled code these kernels call
+#: (``sim/hazards/blocks.py``, ``_fused.py``, ``numpy_loops.py``, in that order). numba's on-disk
+#: cache checks only a function's own source file, so a change there must change this file too, or
+#: stale compiled kernels would be loaded: tests/sim/test_hazard_blocks.py checks the value.
+COMPILED_DEPENDENCIES = "037cf54653be6653"
+
 #: Patients per block in :func:`state_round`: a block's draws, latent times and scratch stay in the
 #: first-level cache.
 STATE_BLOCK = 2048

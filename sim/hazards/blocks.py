@@ -30,6 +30,12 @@ from .shape_scale import Weibull
 
 __all__ = ["EXPONENTIAL", "WEIBULL", "GOMPERTZ", "block_form", "exit_block"]
 
+#: SHA-256 (first 16 hex digits) of the files whose compiled code :func:`exit_block` calls
+#: (``_fused.py``, ``numpy_loops.py``, in that order). numba's on-disk cache checks only a function's
+#: own source file, so a change there must change this file too, or a stale compiled
+#: :func:`exit_block` would be loaded: tests/sim/test_hazard_blocks.py checks the value.
+COMPILED_DEPENDENCIES = "5fb8ed496bb58b12"
+
 #: Family codes of :func:`exit_block`.
 EXPONENTIAL, WEIBULL, GOMPERTZ = 1, 2, 3
 

@@ -135,3 +135,23 @@ def test_engine_tables_are_identical_with_the_block_path_switched_off(monkeypatc
     assert len(fast.events) >= 6_000  # every patient moves at least once
     assert fast.events.equals(slow.events)
     assert fast.patients.equals(slow.patients)
+
+
+@pytest.mark.parametrize("module,files", [
+    ("sim.hazards.blocks", ("sim/hazards/_fused.py", "sim/hazards/numpy_loops.py")),
+    ("sim.engine.kernels", ("sim/hazards/blocks.py", "sim/hazards/_fused.py", "sim/hazards/numpy_loops.py")),
+])
+def test_compiled_code_records_the_files_it_calls(module, files):
+    """numba's on-disk cache is keyed on a function's own source file only: a module whose cached
+    kernels call compiled code in other files records their hash, so that editing them changes the
+    module and its cached kernels are compiled again (update the constant when this fails)."""
+    import hashlib
+    import importlib
+    from pathlib import Path
+
+    root = Path(__file__).resolve().parents[2]
+    digest = hashlib.sha256()
+    for f in files:
+        digest.update((root / f).read_bytes())
+    assert importlib.import_module(module).COMPILED_DEPENDENCIES == digest.hexdigest()[:16], (
+        f"{module}.COMPILED_DEPENDENCIES must be {digest.hexdigest()[:16]!r} (the files it calls changed)")
