@@ -555,7 +555,8 @@ def simulate(model: Model, n_patients: int, seed: int, *, strategies: tuple[str,
     chunk_size : patients per chunk. Peak memory is about the returned tables (the chunks write their
         rows into them in place, :mod:`sim.engine.tables`) plus a working set of under 1 kB per
         patient in a chunk for each worker's chunks in flight.
-    workers : worker threads (numpy releases the GIL); results are identical for any value.
+    workers : worker threads (the compiled round loop and numpy release the GIL); results are identical
+        for any value.
     progress : called as ``progress(patients_done, n_patients)`` after each chunk.
     cancel : an object with ``is_set()`` (e.g. ``threading.Event``) or a callable; checked between
         chunks, raising :class:`SimulationCancelled`.
