@@ -305,9 +305,8 @@ def _run_strategy(model: Model, resolved: list[list[ResolvedExit]], key: tuple[n
     active, absorbed = work.array("active", n, np.bool_), work.array("absorbed", n, np.bool_)
     idx = work.array("active ids", n, np.int64)  # the active patients, increasing
     m = kernels.start_histories(initial, limit, t, cur, active, absorbed, idx)
-    # per state: exit codes, targets, whether any exit reads attained age / has sex-specific hazards
-    exit_index = [np.array([e.index for e in ex], dtype=exit_code) for ex in resolved]
-    targets = [np.array([e.target for e in ex], dtype=state_code) for ex in resolved]
+    # per state: whether any exit reads attained age / has sex-specific hazards (exit codes and
+    # targets are rows of ``tables``)
     uses_age = [any(e.clock is Clock.AGE for e in ex) for ex in resolved]
     reads_entry = [[any(getattr(h, "reads_entry_age", False) for h in e.hazards) for e in ex] for ex in resolved]
     by_sex = [any(getattr(e, "sex_specific", None) or any(h is not e.hazards[0] for h in e.hazards) for e in ex)
@@ -327,7 +326,9 @@ def _run_strategy(model: Model, resolved: list[list[ResolvedExit]], key: tuple[n
     with np.errstate(**KERNEL_ERRSTATE):
         while True:
             # every round, and every state of a round with block forms, in compiled code; it returns
-            # here for a state the numpy code must handle, for room for records, or at the end
+            # here for a state the numpy code must handle, for room for records, or at the end. Each
+            # round's states and their patients are fixed (``order``, ``bounds``) before any of them
+            # moves: a patient moved into a state handled later in the round does not move twice
             status, s, failed, rec.count, rnd, m = kernels.run_rounds(
                 idx, m, active, cur, t, entry_age, bounds, order, clock, attained, rnd, s_from, max_transitions,
                 start, visits, seen, k0, k1, tables.fns, tables.planned, tables.n_exits, tables.families,
@@ -368,8 +369,8 @@ def _run_strategy(model: Model, resolved: list[list[ResolvedExit]], key: tuple[n
                                            a0 if reads_entry[s][j] else None)
             rec.reserve(sel.size)
             got = kernels.settle(sel, k, lat[0], lat[min(1, k - 1)], lat[min(2, k - 1)], lat[min(3, k - 1)], lat[4:],
-                                 rnd > 1, s, rnd, limit, targets[s], exit_index[s], absorbing, t, cur, active, absorbed,
-                                 rec.idx, rec.time, rec.from_, rec.to, rec.exit, rec.round, rec.count)
+                                 rnd > 1, s, rnd, limit, tables.targets[s], tables.exits[s], absorbing, t, cur, active,
+                                 absorbed, rec.idx, rec.time, rec.from_, rec.to, rec.exit, rec.round, rec.count)
             if got < 0:
                 raise _no_event_time(exits, list(lat), ts, age, e)
             rec.count = got
@@ -553,8 +554,9 @@ def simulate(model: Model, n_patients: int, seed: int, *, strategies: tuple[str,
     seed : non-negative integer; with the model it fixes every draw (recorded in the result).
     strategies : names to run (default: all of the model's strategies).
     chunk_size : patients per chunk. Peak memory is about the returned tables (the chunks write their
-        rows into them in place, :mod:`sim.engine.tables`) plus a working set of under 1 kB per
-        patient in a chunk for each worker's chunks in flight.
+        rows into them in place, :mod:`sim.engine.tables`) plus a working set per patient in a chunk
+        of ~160 bytes and 8 per state (under 1 kB per patient up to ~100 states) for each worker's
+        chunks in flight.
     workers : worker threads (the compiled round loop and numpy release the GIL); results are identical
         for any value.
     progress : called as ``progress(patients_done, n_patients)`` after each chunk.
